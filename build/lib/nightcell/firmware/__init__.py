@@ -1,0 +1,1 @@
+"""nightcell firmware (MicroPython); shipped inside the host package as data."""

@@ -1,0 +1,76 @@
+"""The project's named exceptions: one base class, each error says what happened and what to do.
+
+The CLI turns any ``NightcellError`` into a one-line message and a documented exit code;
+nothing here may import from the rest of the package.
+"""
+
+from __future__ import annotations
+
+__all__ = [
+    "NightcellError",
+    "InputError",
+    "DeviceNotFound",
+    "DeviceTimeout",
+    "DeviceError",
+    "ProtocolError",
+    "StoreError",
+    "SchemaTooNew",
+    "AnalysisError",
+    "FitFailed",
+]
+
+
+class NightcellError(Exception):
+    """Base of every error nightcell raises on purpose; ``exit_code`` is the CLI's exit status."""
+
+    exit_code = 1
+
+
+class InputError(NightcellError):
+    """A file, option or value given by the user cannot be used as it is."""
+
+    exit_code = 2
+
+
+class DeviceNotFound(NightcellError):
+    """No board answered where one was expected."""
+
+    exit_code = 3
+
+
+class DeviceTimeout(NightcellError):
+    """A board stopped answering in the middle of an exchange."""
+
+    exit_code = 3
+
+
+class DeviceError(NightcellError):
+    """The board answered with an error message of its own."""
+
+    exit_code = 3
+
+
+class ProtocolError(NightcellError):
+    """Bytes from the board could not be understood even after retries."""
+
+    exit_code = 3
+
+
+class StoreError(NightcellError):
+    """The SQLite database cannot be opened, migrated or written."""
+
+    exit_code = 4
+
+
+class SchemaTooNew(StoreError):
+    """The database was written by a newer nightcell than the one running."""
+
+
+class AnalysisError(NightcellError):
+    """The data cannot support the analysis asked for (too few points, all x equal, NaN...)."""
+
+    exit_code = 5
+
+
+class FitFailed(AnalysisError):
+    """A fit did not converge or gave no usable uncertainty."""

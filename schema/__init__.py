@@ -1,0 +1,1 @@
+"""Formats both sides obey; shipped inside the host package as data."""
