@@ -17,6 +17,11 @@ __all__ = [
     "SchemaTooNew",
     "AnalysisError",
     "FitFailed",
+    "ShapeMismatch",
+    "NonFiniteInput",
+    "TimeOrderError",
+    "TooFewPoints",
+    "DegenerateData",
 ]
 
 
@@ -74,3 +79,23 @@ class AnalysisError(NightcellError):
 
 class FitFailed(AnalysisError):
     """A fit did not converge or gave no usable uncertainty."""
+
+
+class ShapeMismatch(InputError):
+    """Arrays that must pair up element by element have different lengths or shapes."""
+
+
+class NonFiniteInput(InputError):
+    """A value the analysis needs is NaN or infinite (a missing reading, a bad blank)."""
+
+
+class TimeOrderError(InputError):
+    """Times of a run are not strictly increasing (unsorted or repeated)."""
+
+
+class TooFewPoints(AnalysisError):
+    """Fewer usable points than the model needs to give parameters with standard errors."""
+
+
+class DegenerateData(AnalysisError):
+    """The data cannot determine the model (all x equal, a constant signal, a singular design)."""
