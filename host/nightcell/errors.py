@@ -22,6 +22,7 @@ __all__ = [
     "TimeOrderError",
     "TooFewPoints",
     "DegenerateData",
+    "OutsideCalibration",
 ]
 
 
@@ -99,3 +100,7 @@ class TooFewPoints(AnalysisError):
 
 class DegenerateData(AnalysisError):
     """The data cannot determine the model (all x equal, a constant signal, a singular design)."""
+
+
+class OutsideCalibration(AnalysisError):
+    """A reading has no concentration on the calibration curve (beyond a quadratic's turning point)."""
