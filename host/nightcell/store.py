@@ -1,0 +1,357 @@
+"""The SQLite store: open and migrate, ingest decoded records, and answer the queries the analysis needs.
+
+Owns the database file. Raw rows are inserted once and never changed (triggers enforce it); everything derived
+can be recomputed from them. Writes happen in ``BEGIN IMMEDIATE`` transactions with a busy timeout, so several
+syncs and readers can share one file. This module never talks to a board.
+
+Example::
+
+    with Store.open("class.db") as store:
+        print(store.devices())
+"""
+
+from __future__ import annotations
+
+import contextlib
+import importlib.resources
+import json
+import sqlite3
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Iterable, Iterator
+
+import sqlite_utils
+
+from . import __version__
+from .errors import InputError, SchemaTooNew, StoreError
+from .frames import (
+    KIND_ANCHOR,
+    KIND_BOOT,
+    KIND_EVENT,
+    KIND_HEALTH,
+    KIND_MARK,
+    KIND_SAMPLES,
+    KIND_SETTINGS,
+    MARK_NAMES,
+    Record,
+)
+
+__all__ = ["Store", "migration_files", "Run"]
+
+BUSY_TIMEOUT_S = 30.0
+MIGRATION_SET = "nightcell"
+
+
+def migration_files() -> list[tuple[str, str]]:
+    """The ordered (name, SQL) migrations shipped in ``schema/migrations``."""
+    root = importlib.resources.files("nightcell.schema").joinpath("migrations")
+    files = sorted((p.name, p.read_text(encoding="utf-8")) for p in root.iterdir() if p.name.endswith(".sql"))
+    return [(name[: -len(".sql")], sql) for name, sql in files]
+
+
+def _statements(sql: str) -> Iterator[str]:
+    """Split a script into whole statements (``executescript`` would commit behind our transaction's back)."""
+    buf = ""
+    for line in sql.splitlines(keepends=True):
+        buf += line
+        if sqlite3.complete_statement(buf):
+            stmt = buf.strip()
+            buf = ""
+            if stmt and not all(ln.strip().startswith("--") or not ln.strip() for ln in stmt.splitlines()):
+                yield stmt
+    if buf.strip() and not all(ln.strip().startswith("--") or not ln.strip() for ln in buf.splitlines()):
+        raise StoreError("a migration file ends in an incomplete SQL statement")
+
+
+def _migrations() -> sqlite_utils.Migrations:
+    migrations = sqlite_utils.Migrations(MIGRATION_SET)
+    for name, sql in migration_files():
+
+        def apply(db: sqlite_utils.Database, _sql: str = sql) -> None:
+            for stmt in _statements(_sql):
+                db.conn.execute(stmt)
+
+        migrations(name=name)(apply)
+    return migrations
+
+
+@dataclass
+class Run:
+    """A run as the board marked it: start and stop marks (a run may continue across boots after a power cut)."""
+
+    device: str
+    label: str
+    start_boot: int
+    start_seq: int
+    stop_boot: int | None
+    stop_seq: int | None
+
+    @property
+    def key(self) -> str:
+        return f"{self.device}:{self.start_boot}:{self.start_seq}"
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "key": self.key,
+            "device": self.device,
+            "label": self.label,
+            "start_boot": self.start_boot,
+            "start_seq": self.start_seq,
+            "stop_boot": self.stop_boot,
+            "stop_seq": self.stop_seq,
+        }
+
+
+class Store:
+    """One nightcell database file."""
+
+    def __init__(self, conn: sqlite3.Connection, path: str):
+        self.conn = conn
+        self.path = path
+        self.db = sqlite_utils.Database(conn)
+
+    # -- opening ------------------------------------------------------------------------------------------------
+
+    @classmethod
+    def open(cls, path: str | Path, *, create: bool = True, readonly: bool = False) -> "Store":
+        """Open (and create or migrate) a database file.
+
+        Raises ``StoreError`` when the file is not a nightcell database or cannot be written, and ``SchemaTooNew``
+        when a newer nightcell wrote it.
+        """
+        p = Path(path)
+        if not create and not p.exists():
+            raise InputError(f"no database at {p}: sync a board first, or give the right --db path")
+        if p.exists() and p.is_dir():
+            raise InputError(f"{p} is a folder, not a database file: give a file path with --db")
+        try:
+            if readonly:
+                conn = sqlite3.connect(f"file:{p}?mode=ro", uri=True, isolation_level=None, timeout=BUSY_TIMEOUT_S)
+            else:
+                conn = sqlite3.connect(str(p), isolation_level=None, timeout=BUSY_TIMEOUT_S)
+            conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+            if not readonly:
+                conn.execute("PRAGMA journal_mode = WAL")
+            conn.execute("PRAGMA foreign_keys = ON")
+        except sqlite3.DatabaseError as exc:
+            raise StoreError(f"cannot open {p} as a database ({exc}): is it a nightcell database file?") from exc
+        store = cls(conn, str(p))
+        try:
+            store._migrate(readonly=readonly)
+        except BaseException:
+            conn.close()
+            raise
+        return store
+
+    def _migrate(self, *, readonly: bool) -> None:
+        migrations = _migrations()
+        known = {name for name, _ in migration_files()}
+        try:
+            applied = {m.name for m in migrations.applied(self.db)}
+            tables = set(self.db.table_names())
+        except sqlite3.DatabaseError as exc:
+            raise StoreError(f"{self.path} is not a database nightcell can read ({exc}): check the --db path") from exc
+        unknown = applied - known
+        if unknown:
+            raise SchemaTooNew(
+                f"{self.path} was written by a newer nightcell (migrations {', '.join(sorted(unknown))} are unknown "
+                f"to version {__version__}): upgrade nightcell to open it"
+            )
+        if tables - {"_sqlite_migrations"} and not applied:
+            raise StoreError(f"{self.path} is a SQLite file but not a nightcell database: give another --db path")
+        if known - applied:
+            if readonly:
+                raise StoreError(f"{self.path} needs migrating: open it once without read-only access")
+            try:
+                with self.write():
+                    migrations.apply(self.db)
+            except sqlite3.OperationalError as exc:
+                raise StoreError(f"cannot migrate {self.path} ({exc}): is the file or its folder read-only?") from exc
+
+    def close(self) -> None:
+        self.conn.close()
+
+    def __enter__(self) -> "Store":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    @contextlib.contextmanager
+    def write(self) -> Iterator[sqlite3.Connection]:
+        """One write transaction (``BEGIN IMMEDIATE``): all or nothing."""
+        try:
+            self.conn.execute("BEGIN IMMEDIATE")
+        except sqlite3.OperationalError as exc:
+            raise StoreError(f"cannot write {self.path} ({exc}): another program holds it, or it is read-only") from exc
+        try:
+            yield self.conn
+        except BaseException:
+            self.conn.execute("ROLLBACK")
+            raise
+        else:
+            try:
+                self.conn.execute("COMMIT")
+            except sqlite3.OperationalError as exc:
+                self.conn.execute("ROLLBACK")
+                raise StoreError(f"cannot commit to {self.path} ({exc})") from exc
+
+    # -- ingest -------------------------------------------------------------------------------------------------
+
+    def ingest(self, device: str, records: Iterable[Record], *, journal: int | None = None) -> dict[str, int]:
+        """Insert decoded records (inside the caller's transaction). Rows already present are left as they are.
+
+        Returns how many rows of each kind were new.
+        """
+        rows: dict[str, list[tuple]] = {k: [] for k in
+                                         ("boots", "samples", "marks", "mark_counts", "anchors", "events",
+                                          "settings_records", "health")}
+        for r in records:
+            k = r.kind
+            f = r.fields
+            if k == KIND_SAMPLES:
+                reads = f["reads"]
+                for s in r.samples():
+                    for c in range(f["channels"]):
+                        rows["samples"].append((device, r.boot, s.seq, c, s.uptime_ms, s.late_ms, s.flags, reads,
+                                                s.dark[c], s.light[c], s.temp_centi))
+            elif k == KIND_MARK:
+                rows["marks"].append((device, r.boot, r.seq, r.uptime_ms, MARK_NAMES.get(f["mark"], str(f["mark"])),
+                                      f["source"], f["reads"], f["label"], f["value"]))
+                for c, (d, li) in enumerate(zip(f["dark"], f["light"])):
+                    rows["mark_counts"].append((device, r.boot, r.seq, c, d, li))
+            elif k == KIND_BOOT:
+                rows["boots"].append((device, r.boot, r.seq, r.uptime_ms, f["reset_cause"], f["settings_crc"],
+                                      f["firmware"], f["board"], journal, r.position))
+            elif k == KIND_ANCHOR:
+                rows["anchors"].append((device, r.boot, r.seq, r.uptime_ms, f["host_unix_ms"]))
+            elif k == KIND_EVENT:
+                rows["events"].append((device, r.boot, r.seq, r.uptime_ms, f["code"], f["text"]))
+            elif k == KIND_SETTINGS:
+                rows["settings_records"].append((device, r.boot, r.seq, r.uptime_ms, f["json"]))
+            elif k == KIND_HEALTH:
+                rows["health"].append((device, r.boot, r.seq, r.uptime_ms, f["chip_temp_centi"], f["free_kb"],
+                                       f["vsys_mv"]))
+        return self.insert_rows(rows)
+
+    def insert_rows(self, rows: dict[str, list[tuple]]) -> dict[str, int]:
+        """``INSERT OR IGNORE`` raw rows table by table; returns the number of new rows per table."""
+        counts = {}
+        for table, values in rows.items():
+            if not values:
+                counts[table] = 0
+                continue
+            marks = ",".join("?" * len(values[0]))
+            before = self.conn.total_changes
+            self.conn.executemany(f"INSERT OR IGNORE INTO {table} VALUES ({marks})", values)
+            counts[table] = self.conn.total_changes - before
+        return counts
+
+    def touch_device(self, device: str, *, board: str | None = None, firmware: str | None = None,
+                     label: str | None = None, now: float | None = None) -> None:
+        """Create or update the device row (metadata, not raw data)."""
+        now = time.time() if now is None else now
+        self.conn.execute(
+            "INSERT INTO devices(device, board, firmware, label, first_seen_unix, last_seen_unix) "
+            "VALUES (?,?,?,?,?,?) ON CONFLICT(device) DO UPDATE SET "
+            "board = coalesce(excluded.board, board), firmware = coalesce(excluded.firmware, firmware), "
+            "label = coalesce(excluded.label, label), last_seen_unix = excluded.last_seen_unix",
+            (device, board, firmware, label, now, now),
+        )
+
+    def journal_state(self, device: str, journal: int) -> tuple[int, int] | None:
+        """(stored_to, acked_to) for a device's journal, or None when never synced."""
+        row = self.conn.execute("SELECT stored_to, acked_to FROM journals WHERE device = ? AND journal = ?",
+                                (device, journal)).fetchone()
+        return None if row is None else (row[0], row[1])
+
+    def set_journal_state(self, device: str, journal: int, *, stored_to: int | None = None,
+                          acked_to: int | None = None) -> None:
+        now = time.time()
+        self.conn.execute(
+            "INSERT INTO journals(device, journal, stored_to, acked_to, updated_unix) VALUES (?,?,?,?,?) "
+            "ON CONFLICT(device, journal) DO UPDATE SET "
+            "stored_to = max(stored_to, coalesce(?, stored_to)), acked_to = max(acked_to, coalesce(?, acked_to)), "
+            "updated_unix = ?",
+            (device, journal, stored_to or 0, acked_to or 0, now, stored_to, acked_to, now),
+        )
+
+    # -- queries ------------------------------------------------------------------------------------------------
+
+    def query(self, sql: str, params: Iterable[Any] = ()) -> list[sqlite3.Row]:
+        cur = self.conn.execute(sql, tuple(params))
+        cols = [d[0] for d in cur.description]
+        return [dict(zip(cols, row)) for row in cur.fetchall()]  # type: ignore[misc]
+
+    def devices(self) -> list[dict[str, Any]]:
+        return self.query("SELECT * FROM devices ORDER BY device")
+
+    def count(self, table: str) -> int:
+        if table not in self.db.table_names():
+            raise InputError(f"no table {table!r} in the store")
+        return self.conn.execute(f"SELECT count(*) FROM [{table}]").fetchone()[0]
+
+    def marks(self, device: str | None = None, mark: str | None = None) -> list[dict[str, Any]]:
+        """Marks in journal order, each with its per-channel counts as lists ``dark`` and ``light``."""
+        where = []
+        params: list[Any] = []
+        if device is not None:
+            where.append("m.device = ?")
+            params.append(device)
+        if mark is not None:
+            where.append("m.mark = ?")
+            params.append(mark)
+        sql = "SELECT m.* FROM marks m" + (" WHERE " + " AND ".join(where) if where else "")
+        sql += " ORDER BY m.device, m.boot, m.seq"
+        out = self.query(sql, params)
+        for m in out:
+            counts = self.conn.execute(
+                "SELECT dark, light FROM mark_counts WHERE device=? AND boot=? AND seq=? ORDER BY channel",
+                (m["device"], m["boot"], m["seq"])).fetchall()
+            m["dark"] = [c[0] for c in counts]
+            m["light"] = [c[1] for c in counts]
+        return out
+
+    def runs(self, device: str | None = None) -> list[Run]:
+        """Runs from their marks. A run_start journaled by the board itself (source 2) after a restart continues
+        the run that was open when the board lost power."""
+        runs: list[Run] = []
+        open_run: dict[str, Run] = {}
+        for m in self.marks(device):
+            if m["mark"] == "run_start":
+                current = open_run.get(m["device"])
+                if m["source"] == 2 and current is not None:
+                    continue
+                run = Run(m["device"], m["label"], m["boot"], m["seq"], None, None)
+                runs.append(run)
+                open_run[m["device"]] = run
+            elif m["mark"] == "run_stop" and m["device"] in open_run:
+                run = open_run.pop(m["device"])
+                run.stop_boot, run.stop_seq = m["boot"], m["seq"]
+        return runs
+
+    def run_samples(self, run: Run, channel: int = 0) -> list[dict[str, Any]]:
+        """Samples of a run, in order, across boots, joined to the boot clocks."""
+        sql = (
+            "SELECT s.*, c.unix_at_zero, c.rate, c.quality FROM samples s "
+            "LEFT JOIN boot_clocks c ON c.device = s.device AND c.boot = s.boot "
+            "WHERE s.device = ? AND s.channel = ? AND (s.boot > ? OR (s.boot = ? AND s.seq > ?))"
+        )
+        params: list[Any] = [run.device, channel, run.start_boot, run.start_boot, run.start_seq]
+        if run.stop_boot is not None:
+            sql += " AND (s.boot < ? OR (s.boot = ? AND s.seq < ?))"
+            params += [run.stop_boot, run.stop_boot, run.stop_seq]
+        sql += " ORDER BY s.boot, s.seq"
+        return self.query(sql, params)
+
+    def save_result(self, kind: str, label: str, inputs: dict[str, Any], result: dict[str, Any]) -> int:
+        """Store a derived result with its inputs; returns its id."""
+        with self.write():
+            cur = self.conn.execute(
+                "INSERT INTO results(kind, label, created_unix, nightcell_version, inputs_json, result_json) "
+                "VALUES (?,?,?,?,?,?)",
+                (kind, label, time.time(), __version__, json.dumps(inputs, sort_keys=True),
+                 json.dumps(result, sort_keys=True)),
+            )
+            return int(cur.lastrowid)
