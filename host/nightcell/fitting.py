@@ -372,6 +372,7 @@ def nonlinear_lstsq(
     inputs: Mapping[str, Any] | None = None,
     extra: Mapping[str, Any] | None = None,
     max_nfev: int | None = None,
+    tol: float = 1e-15,
 ) -> FitResult:
     """Nonlinear least squares ``y ≈ func(x, *p)`` by Levenberg–Marquardt (``scipy.optimize.least_squares``).
 
@@ -410,7 +411,7 @@ def nonlinear_lstsq(
         try:
             sol = _opt.least_squares(
                 resid_fn, p_start, jac=jac_fn, method="lm", x_scale="jac",
-                xtol=1e-15, ftol=1e-15, gtol=1e-15, max_nfev=max_nfev or 200 * (k + 1),
+                xtol=tol, ftol=tol, gtol=tol, max_nfev=max_nfev or 200 * (k + 1),
             )
         except (ValueError, FloatingPointError) as exc:
             raise FitFailed(f"{model}: the fit broke down ({exc}); check the data or give other starting values") from None

@@ -90,6 +90,12 @@ class OpticsResult:
         return self.flags == 0
 
     @property
+    def weights(self) -> np.ndarray:
+        """Relative weights 1/var(A) for fits when the count noise is about constant: var(A) ∝ 1/signal², so the
+        weight is T² (0 where A is NaN, to be left out with ``mask``)."""
+        return np.where(np.isfinite(self.transmittance), np.nan_to_num(self.transmittance) ** 2, 0.0)
+
+    @property
     def mask(self) -> np.ndarray:
         """Boolean array, True where a flag is set — pass it as ``mask=`` to the fitting functions."""
         return self.flags != 0
