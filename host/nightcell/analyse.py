@@ -185,13 +185,9 @@ def analyse_run(store: Store, run: Run, *, channel: int = 0, calibration: Any = 
     inputs = {"run": run.key, "device": run.device, "channel": channel,
               "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
               "time_basis": s["time_basis"]}
-    fits = _kinetics.fit_all(t, a, inputs=inputs, **({"models": models} if models else {}))
-    if isinstance(fits, dict):
-        fit_map = fits
-    else:
-        fit_map = {f.model: f for f in fits}
-    ranked = sorted((f for f in fit_map.values() if f.success), key=lambda f: f.aic)
-    best = ranked[0].model if ranked else next(iter(fit_map))
+    comparison = _kinetics.fit_all(t, a, inputs=inputs, **({"models": models} if models else {}))
+    fit_map = dict(comparison.results)
+    best = comparison.ranking[0]
     out = RunAnalysis(run, s["blank"], s["time_s"], s["absorbance"], s["flags"], s["seqs"], s["time_basis"],
                       fit_map, best, warnings=s["warnings"])
     if calibration is not None:
