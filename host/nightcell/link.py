@@ -193,8 +193,8 @@ class Board:
 
     # -- commands -----------------------------------------------------------------------------------------------
 
-    def hello(self, timeout: float | None = None) -> dict[str, Any]:
-        """Identify the board; ``DeviceNotFound`` if nothing answers."""
+    def hello(self, timeout: float | None = 2.0) -> dict[str, Any]:
+        """Identify the board; ``DeviceNotFound`` if nothing answers (``retries`` tries of ``timeout`` s each)."""
         try:
             info = self._json("hello", timeout=timeout)
         except DeviceTimeout as exc:

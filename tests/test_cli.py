@@ -1,0 +1,42 @@
+"""CLI wiring: help everywhere, clear one-line errors with documented exit codes, no tracebacks."""
+
+from click.testing import CliRunner
+
+from nightcell.cli import cli
+
+
+def _all_commands(group, prefix=()):
+    for name, cmd in group.commands.items():
+        yield prefix + (name,), cmd
+        if hasattr(cmd, "commands"):
+            yield from _all_commands(cmd, prefix + (name,))
+
+
+def test_every_command_has_help_text_and_an_example():
+    for path, cmd in _all_commands(cli):
+        assert cmd.help and cmd.help.strip(), f"{' '.join(path)} has no help text"
+        assert "Example" in cmd.help or hasattr(cmd, "commands"), f"{' '.join(path)} has no example"
+
+
+def test_port_that_does_not_exist():
+    r = CliRunner().invoke(cli, ["hello", "--port", "/dev/nightcell-no-such-port"])
+    assert r.exit_code == 3
+    assert "no board at /dev/nightcell-no-such-port" in r.output
+    assert "Traceback" not in r.output
+
+
+def test_device_that_does_not_answer():
+    # loop:// echoes our own request back: a device that never answers in the protocol.
+    r = CliRunner().invoke(cli, ["hello", "--port", "loop://"])
+    assert r.exit_code == 3
+    assert "no board answered on loop://" in r.output
+    assert "running nightcell firmware" in r.output
+
+
+def test_demo_refuses_a_non_empty_folder(tmp_path):
+    (tmp_path / "mine.txt").write_text("keep me")
+    r = CliRunner().invoke(cli, ["demo", "--out", str(tmp_path)])
+    assert r.exit_code == 2
+    assert "not empty" in r.output and "--force" in r.output
+    assert (tmp_path / "mine.txt").read_text() == "keep me"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["mine.txt"]
