@@ -157,15 +157,21 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
     _emit(summary.to_dict(), as_json, text)
 
 
-def _register_analysis() -> None:
-    try:
-        from . import analysis_cli
-    except ImportError:  # the analysis commands live in their own module
-        return
-    analysis_cli.register(cli)
+def _register_rooms() -> None:
+    """Commands that live beside their room (analysis, boards and databases) register themselves here."""
+    import importlib
+
+    for name in ("analysis_cli", "board_cli"):
+        try:
+            module = importlib.import_module(f"{__package__}.{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name != f"{__package__}.{name}":
+                raise
+            continue
+        module.register(cli)
 
 
-_register_analysis()
+_register_rooms()
 
 
 def main(argv: list[str] | None = None) -> None:
