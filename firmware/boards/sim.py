@@ -1,0 +1,195 @@
+"""The ``sim`` board: a virtual optical cell read through the real firmware, with an accelerated clock.
+
+Optics (``schema/simulation.md``): a light read gives dark + led·(10^−A + stray)/(1 + stray) + ambient counts, a
+dark read dark + ambient, each with Gaussian noise of ``noise_counts``, rounded to 12 bits and clipped to 0…4095.
+The cell file (what is in the cuvette) is re-read when its ``version`` changes; reaction time zero is the first
+moment the board sees a new version. The clock: ``ticks_ms`` wraps at 2^30 ms and runs ``speed`` times faster than
+real time; with ``virtual=True`` time moves only when the firmware sleeps or waits (tests run a day in seconds).
+
+Usage::
+
+    clock = SimClock(speed=100, start_ms=0)
+    board = SimBoard(config, port, clock, fs_free, rand32)
+"""
+
+import json
+import math
+import os
+import random
+import time
+from boards.base import Board
+
+_MASK = (1 << 30) - 1
+
+
+def _real_ns():
+    try:
+        return time.monotonic_ns()  # CPython
+    except AttributeError:
+        return time.time_ns()  # MicroPython
+
+
+class SimClock:
+    def __init__(self, speed=1, start_ms=0, virtual=False):
+        self.speed = speed
+        self.virtual = virtual
+        self.start = start_ms
+        self.t = 0  # board ms elapsed (virtual mode)
+        self.t0 = _real_ns()
+
+    def elapsed(self):
+        if self.virtual:
+            return self.t
+        return int((_real_ns() - self.t0) * self.speed // 1000000)
+
+    def ticks_ms(self):
+        return (self.start + self.elapsed()) & _MASK
+
+    def sleep_ms(self, ms):
+        if ms <= 0:
+            return
+        if self.virtual:
+            self.t += ms
+        else:
+            time.sleep(ms / self.speed / 1000)
+
+    def wait(self, port, ms):
+        """Wait up to ``ms`` board milliseconds for input on ``port``."""
+        if ms <= 0:
+            return
+        if self.virtual:
+            if not (hasattr(port, "pending") and port.pending()):
+                self.t += ms
+        else:
+            port.wait(ms / self.speed)
+
+
+class Cell:
+    """What is in the cuvette, from the cell file; absorbance per channel at a board time."""
+
+    def __init__(self, path):
+        self.path = path
+        self.version = None
+        self.spec = {"absorbance": 0.0}
+        self.t0 = 0
+        self._stamp = None
+
+    def check(self, now_ms):
+        if not self.path:
+            return
+        try:
+            st = os.stat(self.path)
+        except OSError:
+            return
+        stamp = (st[6], st[8])
+        if stamp == self._stamp:
+            return
+        self._stamp = stamp
+        try:
+            with open(self.path) as f:
+                spec = json.loads(f.read())
+        except (OSError, ValueError):
+            return  # half-written by the host: try again next time
+        if not isinstance(spec, dict) or spec.get("version") == self.version:
+            return
+        self.version = spec.get("version")
+        self.spec = spec
+        self.t0 = now_ms
+
+    def absorbance(self, ch, now_ms):
+        s = self.spec
+        if s.get("opaque"):
+            return None
+        r = s.get("reaction")
+        if r:
+            t = (now_ms - self.t0) / 1000
+            a0 = _pick(r.get("a0", 0.0), ch)
+            ainf = _pick(r.get("a_inf", 0.0), ch)
+            return ainf + (a0 - ainf) * math.exp(-r.get("k_per_s", 0.0) * t)
+        return _pick(s.get("absorbance", 0.0), ch)
+
+
+def _pick(v, ch):
+    if isinstance(v, list):
+        return float(v[min(ch, len(v) - 1)]) if v else 0.0
+    return float(v)
+
+
+class SimBoard(Board):
+    name = "sim"
+
+    def __init__(self, config, port, clock, fs_free, rand32, cell=None):
+        Board.__init__(self, port)
+        self.config = config
+        self.clock = clock
+        self.fs_free = fs_free
+        self.rand32 = rand32
+        self.cell = cell or Cell(config.get("cell"))
+        o = config.get("optics", {})
+        self.led_counts = float(o.get("led_counts", 3000))
+        self.dark_counts = float(o.get("dark_counts", 100))
+        self.noise = float(o.get("noise_counts", 2))
+        self.stray = float(o.get("stray", 0.0))
+        self.ambient = float(o.get("ambient_counts", 0))
+        random.seed(int(config.get("seed", 1)))
+        self._t = [1.0] * 5  # transmitted fraction per channel at the last before_measure
+        self.resets = 0
+
+    def configure(self, settings):
+        Board.configure(self, settings)
+        self._t = [1.0] * (self.channels + 1)
+
+    # -- time and link ----------------------------------------------------------------------------------------------
+
+    def ticks_ms(self):
+        return self.clock.ticks_ms()
+
+    def sleep_ms(self, ms):
+        self.clock.sleep_ms(ms)
+
+    def wait_input(self, ms):
+        self.clock.wait(self.port, ms)
+
+    # -- the virtual cell -------------------------------------------------------------------------------------------
+
+    def before_measure(self, now_ms):
+        c = self.cell
+        c.check(now_ms)
+        s = self.stray
+        for ch in range(self.channels):
+            if ch == self.reference:
+                self._t[ch] = 1.0  # the reference photodiode sees the LED directly
+                continue
+            a = c.absorbance(ch, now_ms)
+            t = 0.0 if a is None else 10 ** (-a)
+            self._t[ch] = (t + s) / (1 + s)
+
+    def _gauss(self):
+        u = random.random()
+        while u <= 1e-12:
+            u = random.random()
+        return math.sqrt(-2 * math.log(u)) * math.cos(6.283185307179586 * random.random())
+
+    def read(self, ch):
+        v = self.dark_counts + self.ambient
+        if self._led_state[self._led_of[ch]]:
+            v += self.led_counts * self._t[ch]
+        if self.noise:
+            v += self.noise * self._gauss()
+        v = int(v + 0.5) if v > 0 else 0
+        return 4095 if v > 4095 else v
+
+    def full_scale(self, ch):
+        return 4095
+
+    # -- identity and lifecycle -------------------------------------------------------------------------------------
+
+    def device_id(self):
+        return str(self.config.get("device", "5100000000000001"))
+
+    def reset_cause(self):
+        return 0  # a sim board only ever starts from "power on" (a restart after kill is a power cut)
+
+    def reset(self):
+        self.resets += 1
+        raise SystemExit(0)  # the host starts the process again

@@ -1,0 +1,104 @@
+"""An in-process simulated board on RAM flash with a virtual clock: what the firmware tests and benchmarks drive.
+
+Builds the same objects ``sim_main.py`` builds, but the flash is a ``RamBlockDevice`` (counted, cuttable), time
+moves only when the firmware sleeps or waits, and the link is a ``ScriptedPort``. ``power_cycle`` remounts the
+same RAM after a cut and boots the firmware again, as a board does when power returns.
+
+Usage (MicroPython)::
+
+    kit = SimKit(blocks=64, settings={"interval_ms": 1000})
+    kit.request(b"1 start")            # runs the loop until the reply arrives
+    kit.run_ms(60000)                  # one board minute
+    kit.dev.cut_at = kit.dev.ops + 7   # the 7th flash write from now fails ...
+    kit.power_cycle()                  # ... after which the board boots again
+"""
+
+import os
+import vfs
+from boards.simflash import RamBlockDevice, PowerCut
+from boards.sim import SimBoard, SimClock, Cell
+from boards.ports import ScriptedPort
+from nightcell_fw import settings as S
+from nightcell_fw.logger import Logger
+
+_MOUNT = "/flash"
+
+
+class FixedCell(Cell):
+    """A cell whose absorbance is set directly by the test (no file)."""
+
+    def __init__(self, absorbance=0.3):
+        Cell.__init__(self, None)
+        self.spec = {"absorbance": absorbance}
+
+
+class SimKit:
+    def __init__(self, blocks=64, settings=None, optics=None, ticks_start_ms=0, seed=1, format=True):
+        self.dev = RamBlockDevice(blocks)
+        self.settings = settings or {}
+        self.optics = optics or {"led_counts": 3000, "dark_counts": 100, "noise_counts": 2, "stray": 0.0,
+                                 "ambient_counts": 0}
+        self.seed = seed
+        self.cell = FixedCell()
+        self.clock = SimClock(1, ticks_start_ms, virtual=True)
+        self.port = ScriptedPort()
+        self.boots = 0
+        if format:
+            vfs.VfsLfs2.mkfs(self.dev, progsize=256)
+        self._mount()
+        self.start()
+
+    def _mount(self):
+        try:
+            vfs.umount(_MOUNT)
+        except OSError:
+            pass
+        vfs.mount(vfs.VfsLfs2(self.dev, progsize=256), _MOUNT)
+
+    def free(self):
+        st = os.statvfs(_MOUNT)
+        return st[0] * st[3]
+
+    def start(self):
+        spath = _MOUNT + "/settings.json"
+        try:
+            os.stat(spath)
+        except OSError:
+            S.save(spath, S.validate(dict({"board": "sim"}, **self.settings)))
+        settings, problem = S.load(spath)
+        cfg = {"device": "51a0c0ffee000001", "optics": self.optics, "seed": self.seed + self.boots}
+        self.board = SimBoard(cfg, self.port, self.clock, self.free, self._rand32, self.cell)
+        self.board.configure(settings)
+        self.lg = Logger(self.board, settings, problem, _MOUNT)
+        self.boots += 1
+        self.lg.boot()
+
+    def _rand32(self):
+        return int.from_bytes(os.urandom(4), "little")
+
+    def power_cycle(self):
+        """Power returns after a cut: forget all RAM state, remount the flash, boot again."""
+        self.dev.dead = False
+        self.dev.cut_at = -1
+        self.port.inbox = bytearray()
+        self.port.sent = bytearray()
+        self._mount()
+        self.start()
+
+    def run_ms(self, ms):
+        end = self.clock.t + ms
+        while self.clock.t < end:
+            self.lg.run(1)
+
+    def request(self, line, turns=50):
+        """Send one request line and run the loop until a reply frame has been written; returns the frame bytes."""
+        self.port.sent = bytearray()
+        self.port.feed(line + b"\n")
+        for _ in range(turns):
+            self.lg.run(1)
+            if len(self.port.sent) >= 11:
+                break
+        return bytes(self.port.sent)
+
+
+__all__ = ["SimKit", "FixedCell", "PowerCut"]

@@ -1,0 +1,302 @@
+"""The main loop and run state: samples on a deadline schedule, keeps the journal, answers the host in between.
+
+Owns the order of records within a boot (BOOT first, then SETTINGS; every record takes the next ``seq``; a SAMPLES
+block holds a run of seqs). Never writes to the port except in reply to a request; every exception inside the loop
+is caught and journaled (a traceback on stdout would corrupt the link), except KeyboardInterrupt, so that a
+development tool can still stop the program.
+
+Usage (``main.py`` for a real board, ``sim_main.py`` for the simulated one)::
+
+    lg = Logger(board, settings, problem, root)
+    lg.boot()
+    lg.run()            # never returns on a board
+"""
+
+from micropython import const
+from nightcell_fw import VERSION, records as R
+from nightcell_fw.block import SampleBlock
+from nightcell_fw.clock import Uptime, Schedule
+from nightcell_fw.journal import Journal, JournalFull
+from nightcell_fw.sampler import Sampler
+from nightcell_fw.link import LineReader, Frames
+from nightcell_fw.signals import Signals, Button, CODE_SETTINGS, CODE_FULL, CODE_ERROR
+from nightcell_fw import settings as S
+from nightcell_fw import commands
+
+HEALTH_MIN_MS = const(600000)  # a HEALTH record rides on a block close at most every 10 min ...
+HEALTH_MAX_MS = const(3600000)  # ... and is forced after an hour
+_MAX_WAIT = const(1000)  # longest sleep between loop turns: the watchdog is fed every turn
+
+
+class Logger:
+    def __init__(self, board, settings, problem, root):
+        self.board = board
+        self.settings = settings
+        self.problem = problem
+        self.root = root
+        self.up = Uptime(board.ticks_ms)
+        self.sch = Schedule()
+        self.block = SampleBlock()
+        self.enc = R.Encoder()
+        self.sampler = Sampler(board)
+        self.journal = Journal(root + "/nc", board.fs_free, board.rand32, settings["segment_bytes"])
+        self.lines = LineReader(board.port)
+        self.out = Frames(board.port)
+        self.signals = Signals(board)
+        self.button = Button(board)
+        self.boot_id = 0
+        self.seq = 0
+        self.running = False
+        self.samples = 0
+        self.last_seq = -1
+        self.unsynced_from = -1
+        self.last_health = 0
+        self.missed_full = 0
+        self.stop_mark = None
+        self.errors = 0
+        self.settings_crc = 0
+        self._apply()
+
+    # -- settings ---------------------------------------------------------------------------------------------------
+
+    def _apply(self):
+        s = self.settings
+        self.text = S.canonical(s)
+        self.settings_crc = R.crc32(self.text.encode("utf-8"))
+        self.sampler.configure(s["reads"], s["settle_ms"], self.board.channels, s["dark_limit"])
+        self.journal.segment_bytes = s["segment_bytes"]
+
+    def change(self, key, value):
+        """Validate and save one setting; sampling keys apply from the next sample, hardware keys after a reset."""
+        S.check(key, value)
+        new = S.validate(dict(self.settings, **{key: value}))
+        self.close_block()
+        S.save(self.root + "/settings.json", new)
+        self.settings = new
+        self._apply()
+        if key == "interval_ms" and self.sch.active:
+            self.sch.rebase(value)
+        later = key in S.HARDWARE_KEYS
+        self.event(R.EVENT_SETTINGS_CHANGED, "%s=%s%s" % (key, S.canonical(value), " (applies after reset)" if later else ""))
+        self.write(R.settings(self.enc, self.boot_id, self.seq, self.now(), self.text))
+        self.problem = None
+        self.signals.clear(CODE_SETTINGS)
+        return later
+
+    # -- records ----------------------------------------------------------------------------------------------------
+
+    def now(self):
+        return self.up.tick()
+
+    def write(self, rec, force=False):
+        """Append a non-sample record (the open block is closed first by the caller's ``close_block``)."""
+        self.journal.append(rec, force)
+        self.seq += 1
+
+    def event(self, code, text, force=False):
+        self.close_block()
+        try:
+            self.write(R.event(self.enc, self.boot_id, self.seq, self.now(), code, text), force)
+            return True
+        except JournalFull:
+            self._full()
+            return False
+
+    def close_block(self):
+        """Write the open SAMPLES block into the journal (its samples become readable)."""
+        b = self.block
+        if not b.is_open():
+            return
+        if b.count:
+            try:
+                self.journal.append(b.record())
+            except JournalFull:
+                # keep the block durable beside the journal; it is appended when an ack frees room
+                self.journal.save_open(b.record())
+                self.journal.pending_left = True
+                self._full()
+            self.seq = b.end_seq()
+        b.close()
+        self.unsynced_from = -1
+        if self.running and self.now() - self.last_health >= HEALTH_MIN_MS:
+            self.health()
+
+    def health(self):
+        self.last_health = self.now()
+        b = self.board
+        try:
+            self.write(R.health(self.enc, self.boot_id, self.seq, self.last_health, b.chip_temp_centi(),
+                                self.journal.free_bytes() // 1024, b.vsys_mv()))
+        except JournalFull:
+            self._full()
+
+    def _full(self):
+        if not self.signals.active(CODE_FULL):
+            self.signals.set(CODE_FULL)
+            try:
+                self.write(R.event(self.enc, self.boot_id, self.seq, self.now(), R.EVENT_FLASH_FULL,
+                                   "journal full: logging stopped until the host acknowledges data"), True)
+            except JournalFull:
+                pass
+
+    def mark(self, kind, source, label="", value="", measure=True, lit=True):
+        """Measure (averaged over ``marker_samples``) and journal a MARK; returns its seq."""
+        s = self.sampler
+        n = self.board.channels if measure else 0
+        reads = self.settings["reads"] if measure else 0
+        if measure:
+            self.board.before_measure(self.now())
+            s.average(self.settings["marker_samples"], lit)
+            if self.running:
+                self.board.leds_on(True)
+        self.close_block()
+        seq = self.seq
+        self.write(R.mark(self.enc, self.boot_id, seq, self.now(), kind, source, reads,
+                          s.avg_dark[:n], s.avg_light[:n], label, value))
+        return seq, reads, n
+
+    # -- boot -------------------------------------------------------------------------------------------------------
+
+    def boot(self):
+        j = self.journal
+        torn, restored = j.open()
+        self.boot_id = j.next_boot()
+        cause = self.board.reset_cause()
+        if j.last_kind == R.KIND_EVENT and j.last_code == R.EVENT_RESET:
+            cause = 3  # we journaled the reset ourselves: not a crash
+        b = self.board
+        try:
+            self.write(R.boot(self.enc, self.boot_id, 0, self.now(), cause, self.settings_crc, VERSION,
+                              b.device_id(), b.name), True)
+            self.write(R.settings(self.enc, self.boot_id, self.seq, self.now(), self.text), True)
+        except JournalFull:
+            self._full()
+        if self.problem:
+            self.signals.set(CODE_SETTINGS)
+            self.event(R.EVENT_SETTINGS_INVALID, self.problem, True)
+        if torn or restored:
+            self.event(R.EVENT_RECOVERED, "cut %d torn bytes; restored %d samples of the open block"
+                       % (torn, restored), True)
+        if j.full:
+            self._full()
+        self.last_health = self.now()
+
+    # -- the run ----------------------------------------------------------------------------------------------------
+
+    def start_run(self, source, label):
+        if self.running:
+            raise ValueError("a run is already going: stop it first")
+        self.close_block()
+        seq = self.seq
+        self.write(R.mark(self.enc, self.boot_id, seq, self.now(), R.MARK_RUN_START, source, 0, (), (), label, ""))
+        self.running = True
+        self.signals.running = True
+        self.sampler.restart()
+        self.board.leds_on(True)  # warm-up: the LED settles before the first sample
+        self.sch.start(self.now() + self.settings["warmup_ms"], self.settings["interval_ms"])
+        return seq
+
+    def stop_run(self, source):
+        if not self.running:
+            if self.stop_mark is not None:
+                return self.stop_mark  # a repeated stop: the same answer
+            raise ValueError("no run is going")
+        self.running = False
+        self.signals.running = False
+        self.sch.stop()
+        self.board.leds_on(False)
+        self.close_block()
+        seq = self.seq
+        self.write(R.mark(self.enc, self.boot_id, seq, self.now(), R.MARK_RUN_STOP, source, 0, (), (), "", ""))
+        self.stop_mark = seq
+        return seq
+
+    def sample(self, now):
+        sch = self.sch
+        t = sch.take(now)
+        if sch.skipped:
+            self.event(R.EVENT_LATE, "%d samples skipped: the loop was %d ms late" % (sch.skipped, now - t + sch.skipped * sch.interval))
+            self.sampler.restart()
+        b = self.board
+        b.before_measure(now)
+        late = now - t
+        flags = self.sampler.measure()
+        temp = b.temperature()
+        b.leds_on(True)
+        if self.journal.full:
+            self.missed_full += 1
+            return
+        blk = self.block
+        s = self.settings
+        if not blk.is_open():
+            blk.open(self.boot_id, self.seq, t, sch.interval, s["reads"], b.channels, b.has_probe)
+        blk.add(late, flags, self.sampler.dark, self.sampler.light, temp)
+        self.samples += 1
+        self.last_seq = blk.seq + blk.count - 1
+        if blk.full():
+            self.close_block()
+            return
+        if self.unsynced_from < 0:
+            self.unsynced_from = t
+        if sch.next_time() - self.unsynced_from >= s["durability_ms"]:
+            self.journal.save_open(blk.record())
+            self.unsynced_from = -1
+
+    # -- the loop ---------------------------------------------------------------------------------------------------
+
+    def step(self):
+        """One turn: feed the watchdog, sample if due, answer what arrived, then wait for input or the deadline."""
+        b = self.board
+        b.feed()
+        now = self.now()
+        if self.running and self.sch.until(now) <= 0:
+            self.sample(now)
+        while True:
+            line = self.lines.poll()
+            if line is None:
+                break
+            commands.handle(self, line)
+            if self.running and self.sch.until(self.now()) <= 0:
+                break
+        now = self.now()
+        self.button.poll(self, now)
+        self.signals.show(now)
+        if self.running and now - self.last_health >= HEALTH_MAX_MS:
+            self.close_block()
+            self.health()
+        wait = _MAX_WAIT
+        if self.running:
+            wait = min(wait, self.sch.until(now))
+        if b.fast_poll or self.signals.busy():
+            wait = min(wait, 50)
+        if wait > 0:
+            b.wait_input(wait)
+
+    def run(self, turns=-1):
+        """Loop forever (or ``turns`` times in tests); every exception is journaled, never printed."""
+        while turns != 0:
+            turns -= 1
+            try:
+                self.step()
+                self.errors = 0
+            except KeyboardInterrupt:
+                raise
+            except Exception as e:  # noqa: BLE001 — the link must never see a traceback
+                self.on_error(e)
+
+    def on_error(self, e):
+        self.errors += 1
+        self.signals.set(CODE_ERROR)
+        try:
+            self.event(R.EVENT_EXCEPTION, "%s: %s" % (type(e).__name__, e))
+        except Exception:  # noqa: BLE001
+            pass
+        if self.errors > 10:
+            self.board.sleep_ms(1000)  # a fault that repeats every turn: slow down, keep feeding the watchdog
+
+    def reset(self):
+        self.close_block()
+        self.event(R.EVENT_RESET, "reset requested by the host", True)
+        self.journal.close()
+        self.board.reset()
+

