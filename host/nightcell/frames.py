@@ -10,7 +10,9 @@ import json
 import struct
 import zlib
 from dataclasses import dataclass, field
-from typing import Any, Iterator
+from typing import Any, Iterator, Sequence
+
+import numpy as np
 
 from .errors import ProtocolError
 
@@ -29,6 +31,8 @@ __all__ = [
     "encode_record",
     "decode_record",
     "iter_records",
+    "SampleColumns",
+    "sample_columns",
     "Reply",
     "REPLY_OK",
     "REPLY_ERR",
@@ -90,6 +94,8 @@ class Record:
     fields: dict[str, Any] = field(default_factory=dict)
     position: int | None = None
     size: int | None = None
+    payload: bytes | None = None
+    """The payload bytes, kept when a SAMPLES record was decoded lazily (its samples are read on demand)."""
 
     @property
     def kind_name(self) -> str:
@@ -99,6 +105,8 @@ class Record:
         """The samples of a SAMPLES record, with their seq and scheduled+late uptime."""
         if self.kind != KIND_SAMPLES:
             return []
+        if "samples" not in self.fields and self.payload is not None:
+            self.fields = _decode_payload(self.kind, self.payload).fields
         f = self.fields
         out = []
         for i, s in enumerate(f["samples"]):
@@ -251,12 +259,25 @@ def encode_record(kind: int, boot: int, seq: int, uptime_ms: int, fields: dict[s
     return head + struct.pack("<I", zlib.crc32(head))
 
 
-def _decode_payload(kind: int, p: bytes) -> Record:
+_BLOCK_HDR = struct.Struct("<IHBBB")
+_SAMPLES_START = 12 + _BLOCK_HDR.size
+
+
+def _decode_payload(kind: int, p: bytes, lazy_samples: bool = False) -> Record:
     if len(p) < 12:
         raise ProtocolError("record payload shorter than its head")
     boot, seq, uptime = _HEAD.unpack_from(p, 0)
     i = 12
     f: dict[str, Any] = {}
+    if lazy_samples and kind == KIND_SAMPLES:
+        # Only the block header now; the samples are decoded many blocks at a time by ``sample_columns``.
+        if len(p) < _SAMPLES_START:
+            raise ProtocolError("samples record is shorter than its fields")
+        interval, reads, channels, options, count = _BLOCK_HDR.unpack_from(p, 12)
+        if not 1 <= channels <= 4:
+            raise ProtocolError(f"SAMPLES record with {channels} channels")
+        f.update(interval_ms=interval, reads=reads, channels=channels, options=options, count=count)
+        return Record(kind, boot, seq, uptime, f, payload=p)
     try:
         if kind == KIND_BOOT:
             f["reset_cause"], f["settings_crc"] = struct.unpack_from("<BI", p, i)
@@ -329,10 +350,12 @@ def _decode_payload(kind: int, p: bytes) -> Record:
     return Record(kind, boot, seq, uptime, f)
 
 
-def decode_record(buf: bytes, offset: int = 0) -> tuple[Record, int]:
+def decode_record(buf: bytes, offset: int = 0, *, lazy_samples: bool = False) -> tuple[Record, int]:
     """Decode the record starting at ``offset``; return it and the offset just past it.
 
-    Raises ``ProtocolError`` for a bad magic, a short buffer, a CRC mismatch or a malformed payload.
+    Raises ``ProtocolError`` for a bad magic, a short buffer, a CRC mismatch or a malformed payload. With
+    ``lazy_samples`` a SAMPLES record keeps its payload bytes and is decoded later (``sample_columns``); its CRC is
+    checked now all the same.
     """
     if len(buf) - offset < 8:
         raise ProtocolError("buffer ends before a whole record")
@@ -347,22 +370,107 @@ def decode_record(buf: bytes, offset: int = 0) -> tuple[Record, int]:
     (crc,) = struct.unpack_from("<I", buf, end)
     if zlib.crc32(bytes(buf[offset:end])) != crc:
         raise ProtocolError("record CRC does not match: the journal bytes were damaged")
-    rec = _decode_payload(kind, bytes(buf[offset + 4 : end]))
+    rec = _decode_payload(kind, bytes(buf[offset + 4 : end]), lazy_samples)
     rec.size = end + 4 - offset
     return rec, end + 4
 
 
-def iter_records(buf: bytes, start_position: int = 0) -> Iterator[Record]:
+def iter_records(buf: bytes, start_position: int = 0, *, lazy_samples: bool = False) -> Iterator[Record]:
     """Decode consecutive whole records; stops before a trailing partial record (``ProtocolError`` for damage)."""
     i = 0
     while len(buf) - i >= 4:
         _, _, length = _REC_HDR.unpack_from(buf, i)
         if buf[i] == RECORD_MAGIC and length <= MAX_PAYLOAD and i + 8 + length > len(buf):
             return  # partial record at the end: the caller asks again from its position
-        rec, nxt = decode_record(buf, i)
+        rec, nxt = decode_record(buf, i, lazy_samples=lazy_samples)
         rec.position = start_position + i
         yield rec
         i = nxt
+
+
+@dataclass
+class SampleColumns:
+    """The samples of several SAMPLES records with one layout (channels, options), as columns.
+
+    Row ``i`` is sample ``index[i]`` of ``records[record[i]]``; ``dark`` and ``light`` are (n, channels) sums of
+    counts; ``temp_centi`` is None when the records carry no temperature, else an array where ``NO_TEMPERATURE``
+    means "no reading".
+    """
+
+    records: list[Record]
+    channels: int
+    record: np.ndarray
+    index: np.ndarray
+    late_ms: np.ndarray
+    flags: np.ndarray
+    dark: np.ndarray
+    light: np.ndarray
+    temp_centi: np.ndarray | None
+
+
+def sample_columns(records: Sequence[Record]) -> list[SampleColumns]:
+    """Decode the samples of many SAMPLES records at once (numpy), one ``SampleColumns`` per layout.
+
+    Decoding varints one by one in Python costs more than inserting the rows into SQLite; here every varint of a
+    batch is decoded in a few vectorised passes. Raises ``ProtocolError`` when a record's samples do not fill its
+    payload exactly.
+    """
+    groups: dict[tuple[int, int], list[Record]] = {}
+    for r in records:
+        if r.kind != KIND_SAMPLES:
+            continue
+        if r.payload is None:
+            raise ValueError("sample_columns needs records decoded with lazy_samples=True")
+        groups.setdefault((r.fields["channels"], r.fields["options"] & 1), []).append(r)
+    return [_columns(recs, channels, has_temp) for (channels, has_temp), recs in groups.items()]
+
+
+def _columns(recs: list[Record], channels: int, has_temp: int) -> SampleColumns:
+    per = 1 + 2 * channels + has_temp
+    sections = [r.payload[_SAMPLES_START:] for r in recs]  # type: ignore[index]
+    counts = np.array([r.fields["count"] for r in recs], dtype=np.int64)
+    lengths_b = np.array([len(x) for x in sections], dtype=np.int64)
+    data = np.frombuffer(b"".join(sections), dtype=np.uint8)
+    ends = np.flatnonzero(data < 0x80)  # the last byte of every varint
+    want = counts * per
+    if len(ends) != int(want.sum()) or (len(data) and (not len(ends) or ends[-1] != len(data) - 1)):
+        raise ProtocolError("a samples record's numbers do not match its sample count")
+    # Each record's last varint must end exactly where its payload ends.
+    has = want > 0
+    if np.any(lengths_b[~has] != 0):
+        raise ProtocolError("a samples record with no samples has trailing bytes")
+    if np.any(has):
+        last_var = np.cumsum(want)[has] - 1
+        sec_end = np.cumsum(lengths_b)[has] - 1
+        if not np.array_equal(ends[last_var], sec_end):
+            raise ProtocolError("a samples record's numbers do not match its sample count")
+    starts = np.empty_like(ends)
+    if len(ends):
+        starts[0] = 0
+        starts[1:] = ends[:-1] + 1
+    nbytes = ends - starts + 1
+    if len(nbytes) and int(nbytes.max()) > 9:
+        raise ProtocolError("number in record is too long")
+    values = np.zeros(len(ends), dtype=np.int64)
+    for k in range(int(nbytes.max()) if len(nbytes) else 0):
+        m = nbytes > k
+        values[m] |= (data[starts[m] + k].astype(np.int64) & 0x7F) << (7 * k)
+    n = int(counts.sum())
+    v = values.reshape(n, per)
+    z = v[:, 1:]
+    delta = (z >> 1) ^ -(z & 1)
+    total = np.cumsum(delta, axis=0)
+    first = np.concatenate(([0], np.cumsum(counts)[:-1]))
+    padded = np.vstack([np.zeros((1, per - 1), dtype=np.int64), total])
+    absolute = total - np.repeat(padded[first], counts, axis=0)
+    record = np.repeat(np.arange(len(recs)), counts)
+    index = np.arange(n) - np.repeat(first, counts)
+    return SampleColumns(
+        records=recs, channels=channels, record=record, index=index,
+        late_ms=v[:, 0] >> 2, flags=v[:, 0] & 3,
+        dark=absolute[:, 0 : 2 * channels : 2], light=absolute[:, 1 : 2 * channels : 2],
+        temp_centi=absolute[:, 2 * channels] if has_temp else None,
+    )
 
 
 # -- link frames ---------------------------------------------------------------------------------------------------

@@ -18,9 +18,11 @@ import json
 import sqlite3
 import time
 from dataclasses import dataclass
+from itertools import repeat
 from pathlib import Path
 from typing import Any, Iterable, Iterator
 
+import numpy as np
 import sqlite_utils
 
 from . import __version__
@@ -34,8 +36,11 @@ from .frames import (
     KIND_SAMPLES,
     KIND_SETTINGS,
     MARK_NAMES,
+    NO_TEMPERATURE,
     Record,
+    sample_columns,
 )
+from .timeline import unwrap_uptimes
 
 __all__ = ["Store", "migration_files", "Run"]
 
@@ -202,38 +207,100 @@ class Store:
     def ingest(self, device: str, records: Iterable[Record], *, journal: int | None = None) -> dict[str, int]:
         """Insert decoded records (inside the caller's transaction). Rows already present are left as they are.
 
-        Returns how many rows of each kind were new.
+        Record uptimes are unwrapped (u32 milliseconds wrap after 49.7 days) from the last row stored for the same
+        boot, so ``uptime_ms`` in every raw table only grows within a boot. SAMPLES records decoded with
+        ``lazy_samples=True`` are decoded here many at a time (``frames.sample_columns``). Returns how many rows
+        of each kind were new.
         """
         rows: dict[str, list[tuple]] = {k: [] for k in
                                          ("boots", "samples", "marks", "mark_counts", "anchors", "events",
                                           "settings_records", "health")}
-        for r in records:
+        records = list(records)
+        uptime = self._unwrapped_uptimes(device, records)
+        lazy: list[Record] = []
+        lazy_uptime: dict[int, int] = {}
+        for r, up in zip(records, uptime):
             k = r.kind
             f = r.fields
             if k == KIND_SAMPLES:
+                if r.payload is not None and "samples" not in f:
+                    lazy.append(r)
+                    lazy_uptime[id(r)] = up
+                    continue
                 reads = f["reads"]
                 for s in r.samples():
+                    at = up + (s.uptime_ms - r.uptime_ms)
                     for c in range(f["channels"]):
-                        rows["samples"].append((device, r.boot, s.seq, c, s.uptime_ms, s.late_ms, s.flags, reads,
+                        rows["samples"].append((device, r.boot, s.seq, c, at, s.late_ms, s.flags, reads,
                                                 s.dark[c], s.light[c], s.temp_centi))
             elif k == KIND_MARK:
-                rows["marks"].append((device, r.boot, r.seq, r.uptime_ms, MARK_NAMES.get(f["mark"], str(f["mark"])),
+                rows["marks"].append((device, r.boot, r.seq, up, MARK_NAMES.get(f["mark"], str(f["mark"])),
                                       f["source"], f["reads"], f["label"], f["value"]))
                 for c, (d, li) in enumerate(zip(f["dark"], f["light"])):
                     rows["mark_counts"].append((device, r.boot, r.seq, c, d, li))
             elif k == KIND_BOOT:
-                rows["boots"].append((device, r.boot, r.seq, r.uptime_ms, f["reset_cause"], f["settings_crc"],
+                rows["boots"].append((device, r.boot, r.seq, up, f["reset_cause"], f["settings_crc"],
                                       f["firmware"], f["board"], journal, r.position))
             elif k == KIND_ANCHOR:
-                rows["anchors"].append((device, r.boot, r.seq, r.uptime_ms, f["host_unix_ms"]))
+                rows["anchors"].append((device, r.boot, r.seq, up, f["host_unix_ms"]))
             elif k == KIND_EVENT:
-                rows["events"].append((device, r.boot, r.seq, r.uptime_ms, f["code"], f["text"]))
+                rows["events"].append((device, r.boot, r.seq, up, f["code"], f["text"]))
             elif k == KIND_SETTINGS:
-                rows["settings_records"].append((device, r.boot, r.seq, r.uptime_ms, f["json"]))
+                rows["settings_records"].append((device, r.boot, r.seq, up, f["json"]))
             elif k == KIND_HEALTH:
-                rows["health"].append((device, r.boot, r.seq, r.uptime_ms, f["chip_temp_centi"], f["free_kb"],
+                rows["health"].append((device, r.boot, r.seq, up, f["chip_temp_centi"], f["free_kb"],
                                        f["vsys_mv"]))
+        if lazy:
+            rows["samples"].extend(self._sample_rows(device, lazy, lazy_uptime))
         return self.insert_rows(rows)
+
+    @staticmethod
+    def _sample_rows(device: str, lazy: list[Record], uptime: dict[int, int]) -> list[tuple]:
+        out: list[tuple] = []
+        for cols in sample_columns(lazy):
+            recs = cols.records
+            rec = cols.record
+            boot = np.array([r.boot for r in recs], dtype=np.int64)[rec].tolist()
+            seq = (np.array([r.seq for r in recs], dtype=np.int64)[rec] + cols.index).tolist()
+            at = (np.array([uptime[id(r)] for r in recs], dtype=np.int64)[rec]
+                  + cols.index * np.array([r.fields["interval_ms"] for r in recs], dtype=np.int64)[rec]
+                  + cols.late_ms).tolist()
+            reads = np.array([r.fields["reads"] for r in recs], dtype=np.int64)[rec].tolist()
+            late = cols.late_ms.tolist()
+            flags = cols.flags.tolist()
+            if cols.temp_centi is None:
+                temp = [None] * len(seq)
+            else:
+                temp = [None if t == NO_TEMPERATURE else t for t in cols.temp_centi.tolist()]
+            for c in range(cols.channels):
+                out.extend(zip(repeat(device), boot, seq, repeat(c), at, late, flags, reads,
+                               cols.dark[:, c].tolist(), cols.light[:, c].tolist(), temp))
+        return out
+
+    _RAW_TABLES = ("boots", "samples", "marks", "anchors", "events", "settings_records", "health")
+
+    def _unwrapped_uptimes(self, device: str, records: list[Record]) -> list[int]:
+        """Each record's uptime with the u32 wrap undone, continuing from the last stored row of its boot."""
+        last: dict[int, int | None] = {}
+        out = []
+        for r in records:
+            if r.boot not in last:
+                last[r.boot] = self._last_uptime(device, r.boot)
+            (u,) = unwrap_uptimes([r.uptime_ms], last[r.boot])
+            last[r.boot] = u
+            out.append(u)
+        return out
+
+    def _last_uptime(self, device: str, boot: int) -> int | None:
+        """The uptime of the highest-seq raw row stored for a boot (None when none is)."""
+        best: tuple[int, int] | None = None
+        for table in self._RAW_TABLES:
+            row = self.conn.execute(
+                f"SELECT seq, uptime_ms FROM {table} WHERE device = ? AND boot = ? ORDER BY seq DESC LIMIT 1",
+                (device, boot)).fetchone()
+            if row is not None and (best is None or row[0] > best[0]):
+                best = (row[0], row[1])
+        return None if best is None else best[1]
 
     def insert_rows(self, rows: dict[str, list[tuple]]) -> dict[str, int]:
         """``INSERT OR IGNORE`` raw rows table by table; returns the number of new rows per table."""

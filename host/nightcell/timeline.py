@@ -2,8 +2,11 @@
 
 A board keeps only (boot, milliseconds since that boot). While connected, the host journals anchors (its own Unix
 time at a board uptime). With two or more anchors in a boot we fit wall = unix_at_zero + rate · uptime by least
-squares, so crystal drift is corrected; with one we assume rate 1 and say so; a boot without an anchor borrows
-nothing and keeps relative times until one arrives. This module computes; it never talks to a board.
+squares, so crystal drift is corrected (quality ``fitted``). With one anchor the drift cannot be seen: the boot
+borrows the rate fitted on another boot of the same board when there is one (quality ``borrowed``: same crystal,
+usually the same bench) and otherwise assumes rate 1 (quality ``one-anchor``); both rest on one anchor and say so. A
+boot without an anchor gets no clock at all and keeps its relative times until an anchor arrives. This module
+computes; it never talks to a board.
 
 Example::
 
@@ -13,43 +16,57 @@ Example::
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import json
+from dataclasses import dataclass, field
 from typing import Iterable, Sequence
 
 import numpy as np
 
-from .store import Store
+__all__ = ["BootClock", "fit_boot_clock", "rebuild_clocks", "unwrap_uptimes", "UPTIME_WRAP_MS"]
 
-__all__ = ["BootClock", "fit_boot_clock", "rebuild_clocks"]
+UPTIME_WRAP_MS = 1 << 32
+"""Record uptimes are u32 milliseconds (schema/records.md): they wrap after 49.7 days."""
+
+_MIN_SPAN_S = 1.0
+"""Anchors closer together than this cannot show drift; they are treated as one."""
 
 
 @dataclass
 class BootClock:
-    """Wall-clock seconds = unix_at_zero + rate · uptime_s for one boot."""
+    """Wall-clock seconds = unix_at_zero + rate · uptime_s for one boot.
+
+    ``quality`` is ``fitted`` (two or more anchors, drift fitted), ``borrowed`` (one anchor, the rate of another
+    boot of the same board) or ``one-anchor`` (one anchor, rate 1 assumed). ``anchor_seqs`` names the inputs.
+    """
 
     unix_at_zero: float
     rate: float
     anchors: int
     quality: str
     residual_ms: float | None = None
+    anchor_seqs: list[int] = field(default_factory=list)
+    span_s: float = 0.0
 
     def to_unix(self, uptime_ms: float | np.ndarray) -> float | np.ndarray:
         return self.unix_at_zero + self.rate * np.asarray(uptime_ms, dtype=float) / 1000.0
 
 
-def fit_boot_clock(anchors: Sequence[tuple[int, int]]) -> BootClock | None:
+def fit_boot_clock(anchors: Sequence[tuple[int, int]], *, borrowed_rate: float | None = None) -> BootClock | None:
     """Fit a boot's clock from (uptime_ms, host_unix_ms) anchors; None when there are none.
 
-    Uptimes are centred before fitting, so that a boot of many days keeps millisecond precision in float64.
+    Uptimes are centred before fitting, so that a boot of many days keeps sub-millisecond precision in float64.
+    ``borrowed_rate`` is used when the anchors cannot show drift (one anchor, or all within a second).
     """
     if not anchors:
         return None
     up = np.array([a[0] for a in anchors], dtype=float) / 1000.0
     wall = np.array([a[1] for a in anchors], dtype=float) / 1000.0
-    if len(anchors) == 1 or np.ptp(up) < 1.0:
-        # One anchor (or all at the same moment): drift cannot be seen; take the mean offset at rate 1.
-        offset = float(np.mean(wall - up))
-        return BootClock(offset, 1.0, len(anchors), "one-anchor")
+    span = float(np.ptp(up))
+    if len(anchors) == 1 or span < _MIN_SPAN_S:
+        rate = 1.0 if borrowed_rate is None else float(borrowed_rate)
+        offset = float(np.mean(wall - rate * up))
+        return BootClock(offset, rate, len(anchors), "one-anchor" if borrowed_rate is None else "borrowed",
+                         span_s=span)
     u0 = up.mean()
     w0 = wall.mean()
     du = up - u0
@@ -57,42 +74,68 @@ def fit_boot_clock(anchors: Sequence[tuple[int, int]]) -> BootClock | None:
     unix_at_zero = float(w0 - rate * u0)
     resid = wall - (unix_at_zero + rate * up)
     rms = float(np.sqrt(np.mean(resid**2)) * 1000.0)
-    return BootClock(unix_at_zero, rate, len(anchors), "fitted", rms)
+    return BootClock(unix_at_zero, rate, len(anchors), "fitted", rms, span_s=span)
 
 
-def _unwrap(values: Iterable[int]) -> list[int]:
-    """Undo the u32 wrap of uptime_ms (a boot longer than 49.7 days), using record order."""
+def unwrap_uptimes(values: Iterable[int], last: int | None = None) -> list[int]:
+    """Undo the u32 wrap of record uptimes (a boot longer than 49.7 days), using record order.
+
+    ``last`` is the unwrapped uptime of the record before these (already stored), if any. A value more than half the
+    wrap below the previous one has wrapped.
+    """
     out = []
-    offset = 0
-    prev = None
+    prev = last
     for v in values:
-        if prev is not None and v + offset < prev - (1 << 31):
-            offset += 1 << 32
-        prev = v + offset
-        out.append(prev)
+        v = int(v) & (UPTIME_WRAP_MS - 1)
+        if prev is None:
+            u = v
+        else:
+            u = (prev - (prev % UPTIME_WRAP_MS)) + v
+            if u < prev - UPTIME_WRAP_MS // 2:
+                u += UPTIME_WRAP_MS
+            elif u > prev + UPTIME_WRAP_MS // 2 and u >= UPTIME_WRAP_MS:
+                u -= UPTIME_WRAP_MS
+        out.append(u)
+        prev = u
     return out
 
 
-def rebuild_clocks(store: Store, device: str | None = None) -> int:
-    """Recompute ``boot_clocks`` from the stored anchors (inside the caller's transaction). Returns boots with a clock."""
+def rebuild_clocks(store, device: str | None = None) -> int:
+    """Recompute ``boot_clocks`` from the stored anchors (inside the caller's transaction). Returns boots with a clock.
+
+    Anchor uptimes are stored unwrapped by the store, so they are used as they are.
+    """
     where = "WHERE device = ?" if device else ""
     params = (device,) if device else ()
     rows = store.conn.execute(
-        f"SELECT device, boot, uptime_ms, host_unix_ms FROM anchors {where} ORDER BY device, boot, seq", params
+        f"SELECT device, boot, seq, uptime_ms, host_unix_ms FROM anchors {where} ORDER BY device, boot, seq", params
     ).fetchall()
-    by_boot: dict[tuple[str, int], list[tuple[int, int]]] = {}
-    for dev, boot, up, host in rows:
-        by_boot.setdefault((dev, boot), []).append((up, host))
+    by_boot: dict[tuple[str, int], list[tuple[int, int, int]]] = {}
+    for dev, boot, seq, up, host in rows:
+        by_boot.setdefault((dev, boot), []).append((seq, up, host))
+    clocks: dict[tuple[str, int], BootClock] = {}
+    for key, anchors in by_boot.items():
+        clock = fit_boot_clock([(a[1], a[2]) for a in anchors])
+        if clock is not None:
+            clock.anchor_seqs = [a[0] for a in anchors]
+            clocks[key] = clock
+    # One-anchor boots borrow the drift of the same board's longest fitted boot.
+    best: dict[str, BootClock] = {}
+    for (dev, _), clock in clocks.items():
+        if clock.quality == "fitted" and (dev not in best or clock.span_s > best[dev].span_s):
+            best[dev] = clock
+    for (dev, boot), clock in list(clocks.items()):
+        if clock.quality == "one-anchor" and dev in best:
+            anchors = by_boot[(dev, boot)]
+            again = fit_boot_clock([(a[1], a[2]) for a in anchors], borrowed_rate=best[dev].rate)
+            assert again is not None
+            again.anchor_seqs = clock.anchor_seqs
+            clocks[(dev, boot)] = again
     store.conn.execute(f"DELETE FROM boot_clocks {where}", params)
-    n = 0
-    for (dev, boot), anchors in by_boot.items():
-        ups = _unwrap(a[0] for a in anchors)
-        clock = fit_boot_clock([(u, a[1]) for u, a in zip(ups, anchors)])
-        if clock is None:
-            continue
-        store.conn.execute(
-            "INSERT INTO boot_clocks VALUES (?,?,?,?,?,?,?)",
-            (dev, boot, clock.unix_at_zero, clock.rate, clock.anchors, clock.quality, clock.residual_ms),
-        )
-        n += 1
-    return n
+    store.conn.executemany(
+        "INSERT INTO boot_clocks(device, boot, unix_at_zero, rate, anchors, quality, residual_ms, anchor_seqs_json) "
+        "VALUES (?,?,?,?,?,?,?,?)",
+        [(dev, boot, c.unix_at_zero, c.rate, c.anchors, c.quality, c.residual_ms, json.dumps(c.anchor_seqs))
+         for (dev, boot), c in clocks.items()],
+    )
+    return len(clocks)
