@@ -3,7 +3,7 @@
 import numpy as np
 from numpy.testing import assert_allclose
 
-from nightcell.timeline import fit_boot_clock, _unwrap
+from nightcell.timeline import fit_boot_clock, unwrap_uptimes
 
 
 def test_two_anchors_over_seven_days_with_50_ppm_drift_within_one_second():
@@ -34,4 +34,4 @@ def test_no_anchor_no_clock():
 
 def test_uptime_unwrap_across_u32():
     vals = [2**32 - 2000, 2**32 - 1000, 500, 1500]
-    assert _unwrap(vals) == [2**32 - 2000, 2**32 - 1000, 2**32 + 500, 2**32 + 1500]
+    assert unwrap_uptimes(vals) == [2**32 - 2000, 2**32 - 1000, 2**32 + 500, 2**32 + 1500]
