@@ -246,9 +246,9 @@ class CalibrationResult(FitResult):
             extrapolated=bool(x0 < lo or x0 > hi),
         )
 
-    def report(self) -> str:
+    def report(self, extras: bool = False) -> str:
         """The fit table followed by the calibration's figures."""
-        lines = [super().report()]
+        lines = [super().report(extras=extras)]
         ex = self.extra
         lines.append(f"  r = {ex['r']:.6f}, s_y/x = {self.residual_sd:.6g}")
         it = ex.get("intercept_test")

@@ -212,8 +212,9 @@ class FitResult:
         h = t_quantile(level, self.dof) * s
         return v - h, v + h
 
-    def report(self) -> str:
-        """A plain-text table: parameter, value ± SE, then n, dof, residual SD, RSS, AIC and the message."""
+    def report(self, extras: bool = True) -> str:
+        """A plain-text table: parameter, value ± SE, then n, dof, residual SD, RSS, AIC, the scalar ``extra``
+        values (unless ``extras=False``) and the message."""
         lines = [f"model: {self.model}" + ("" if self.success else "  (NOT TRUSTED)")]
         width = max([len(n) for n in self.names] + [9])
         for name in self.names:
@@ -222,7 +223,7 @@ class FitResult:
             f"  n = {self.n}, dof = {self.dof}, residual SD = {_fmt(self.residual_sd)}, "
             f"RSS = {_fmt(self.rss)}, AIC = {_fmt(self.aic)}"
         )
-        for key, value in self.extra.items():
+        for key, value in (self.extra.items() if extras else ()):
             if isinstance(value, (int, float, str)) and not isinstance(value, bool):
                 lines.append(f"  {key}: {_fmt(value) if isinstance(value, float) else value}")
         if self.message:
