@@ -521,6 +521,24 @@ class ReplyReader:
     def feed(self, data: bytes) -> None:
         self._buf += data
 
+    def peek_header(self) -> tuple[int, int, int, bytes] | None:
+        """(kind, tag, length, first payload bytes) of a frame still arriving at the front of the buffer, or None.
+
+        Not yet checked by its CRC: a caller may use it to get ahead (ask for the next chunk early) but must act on
+        the verified frame only. Call after ``frames()`` has skipped any garbage.
+        """
+        buf = self._buf
+        if len(buf) < 11 or buf[:2] != REPLY_SYNC:
+            return None
+        kind, tag, length = _REPLY_HDR.unpack_from(buf, 2)
+        if kind not in (REPLY_OK, REPLY_ERR, REPLY_DATA) or length > MAX_REPLY_PAYLOAD:
+            return None
+        return kind, tag, length, bytes(buf[7:11])
+
+    def buffered(self) -> int:
+        """Bytes received but not yet part of a whole frame."""
+        return len(self._buf)
+
     def frames(self) -> Iterator[Reply]:
         buf = self._buf
         while True:

@@ -14,16 +14,17 @@ Example::
 from __future__ import annotations
 
 import json
+import struct
 import time
-from typing import Any, Callable
+from typing import Any, Callable, Iterator
 
 import serial
 from serial.tools import list_ports
 
-from .errors import DeviceError, DeviceNotFound, DeviceTimeout, ProtocolError
+from .errors import DeviceError, DeviceNotFound, DeviceTimeout, NightcellError, ProtocolError
 from .frames import REPLY_DATA, REPLY_ERR, REPLY_OK, Reply, ReplyReader, encode_request, quote_text
 
-__all__ = ["Deadline", "Transport", "Board", "BOARD_USB_IDS", "candidate_ports"]
+__all__ = ["Deadline", "Transport", "Board", "JournalPull", "BOARD_USB_IDS", "candidate_ports", "discover"]
 
 # (vendor id, product id): what a nightcell board can appear as on USB.
 BOARD_USB_IDS = {
@@ -34,8 +35,6 @@ BOARD_USB_IDS = {
     (0x0403, 0x6001): "FTDI USB-UART bridge",
     (0x303A, 0x1001): "Espressif native USB",
 }
-# Bridges whose DTR/RTS lines reset an ESP32: never toggle them.
-_RESETTING_BRIDGES = {(0x10C4, 0xEA60), (0x1A86, 0x7523), (0x1A86, 0x55D4), (0x0403, 0x6001)}
 
 READ_CHUNK = 4096
 
@@ -63,6 +62,25 @@ def candidate_ports() -> list[dict[str, Any]]:
     return out
 
 
+def discover(*, timeout: float = 1.0, ports: list[dict[str, Any]] | None = None) -> list[dict[str, Any]]:
+    """Ask every candidate port (``candidate_ports()``) to identify; one entry per port, with ``hello`` or ``error``.
+
+    A port that holds no nightcell board (another program, a board running something else) is listed with the
+    reason, so a class set-up can see at once which boards answered.
+    """
+    found = []
+    for p in candidate_ports() if ports is None else ports:
+        entry = dict(p)
+        try:
+            with Board.open(p["port"], timeout=timeout) as board:
+                board.retries = 2
+                entry["hello"] = board.hello(timeout=timeout)
+        except NightcellError as exc:
+            entry["error"] = str(exc)
+        found.append(entry)
+    return found
+
+
 class Transport:
     """A serial connection that sends request lines and yields reply frames."""
 
@@ -75,22 +93,25 @@ class Transport:
 
     @classmethod
     def open(cls, url: str, *, baudrate: int = 115200) -> "Transport":
-        """Open ``url`` (a device path or any pyserial URL). ``DeviceNotFound`` when it cannot be opened."""
-        vidpid = None
-        for p in list_ports.comports():
-            if p.device == url and p.vid is not None:
-                vidpid = (p.vid, p.pid)
+        """Open ``url`` (a device path or any pyserial URL). ``DeviceNotFound`` when it cannot be opened.
+
+        DTR and RTS are left as the operating system raises them at open (both asserted). The auto-reset circuit of
+        ESP32 boards behind a USB-UART bridge resets the chip whenever RTS is asserted while DTR is not; setting
+        the lines one after the other after opening passes through exactly that state, so we never set them. A
+        Pico's USB serial needs DTR asserted to send, which this also keeps. Device paths are opened exclusively,
+        so a second program cannot interleave its requests with ours.
+        """
+        exclusive = "://" not in url
         try:
             port = serial.serial_for_url(url, baudrate=baudrate, timeout=0.02, write_timeout=2.0,
                                          do_not_open=True)
-            if vidpid in _RESETTING_BRIDGES:
-                port.dtr = False
-                port.rts = False
+            if exclusive and hasattr(port, "exclusive"):
+                port.exclusive = True
             port.open()
         except (serial.SerialException, ValueError, OSError) as exc:
             raise DeviceNotFound(
-                f"no board at {url}: cannot open it ({exc}) — is it plugged in, is the path right, "
-                "and may you use it (Linux: the dialout group, see hardware_notes/linux.md)?"
+                f"no board at {url}: cannot open it ({exc}) — is it plugged in, is the path right, is no other "
+                "program using it, and may you use it (Linux: the dialout group, see hardware_notes/linux.md)?"
             ) from exc
         return cls(port, url)
 
@@ -116,6 +137,18 @@ class Transport:
             pass
         self.reader = ReplyReader()
 
+    def receive(self) -> int:
+        """Read what has arrived (waiting at most the port's short timeout for the first byte); bytes read."""
+        try:
+            waiting = self.port.in_waiting
+            data = self.port.read(max(1, min(waiting, 65536)))
+        except (serial.SerialException, OSError) as exc:
+            raise DeviceTimeout(f"lost the board on {self.url} while reading ({exc}): check the cable") from exc
+        if data:
+            self.bytes_in += len(data)
+            self.reader.feed(data)
+        return len(data)
+
     def frames_until(self, deadline: Deadline) -> Reply | None:
         """The next whole reply frame, or None when the deadline passes first."""
         while True:
@@ -123,14 +156,7 @@ class Transport:
                 return frame
             if deadline.expired():
                 return None
-            try:
-                waiting = self.port.in_waiting
-                data = self.port.read(max(1, min(waiting, 65536)))
-            except (serial.SerialException, OSError) as exc:
-                raise DeviceTimeout(f"lost the board on {self.url} while reading ({exc}): check the cable") from exc
-            if data:
-                self.bytes_in += len(data)
-                self.reader.feed(data)
+            self.receive()
 
 
 class Board:
@@ -252,6 +278,146 @@ class Board:
 
     def reset(self) -> dict[str, Any]:
         return self._json("reset", retry=False)
+
+
+class JournalPull:
+    """Read a stretch of the journal as fast as the link allows, in order, each chunk verified by its frame CRC.
+
+    A ``read`` reply carries at most 4 KB; waiting for each reply before asking for the next leaves the line idle
+    for a turnaround every 4 KB. The board answers in order, and a DATA frame's header (position and length) arrives
+    before its payload, so as soon as a header shows where a chunk will end we ask for the next one: the board has
+    it queued when it finishes sending. The early request rests on an unverified header; only chunks whose verified
+    position is the one we need are used, and anything lost or damaged is asked for again from the last good
+    position (bounded retries, every wait with a deadline).
+
+    Iterate to get ``(position, bytes)`` chunks of whole records; call ``quiesce()`` before sending another request
+    (an ``ack``) in the middle.
+    """
+
+    def __init__(self, board: "Board", start: int, until: int | None = None, *, depth: int = 2,
+                 max_bytes: int = READ_CHUNK, timeout: float | None = None, retries: int | None = None):
+        self.board = board
+        self.cursor = start
+        self.until = until
+        self.depth = max(1, depth)
+        self.max_bytes = max_bytes
+        self.timeout = board.timeout if timeout is None else timeout
+        self.retries = board.retries if retries is None else retries
+        self.skipped_ranges: list[tuple[int, int]] = []
+        self.requests = 0
+        self.resends = 0
+        self._inflight: list[tuple[int, int]] = []  # (tag, position) in the order sent
+        self._ahead_done: set[int] = set()
+        self._parked: dict[int, bytes] = {}  # verified chunks that arrived before the one at the cursor
+        self._finished = False
+
+    def _send(self, position: int) -> None:
+        tag = self.board._next_tag()
+        self.board.transport.send(encode_request(tag, "read", int(position), int(self.max_bytes)))
+        self._inflight.append((tag, position))
+        self.requests += 1
+
+    def _wanted(self, position: int) -> bool:
+        return self.until is None or position < self.until
+
+    def _top_up(self, allow_ahead: bool = True) -> None:
+        if not self._inflight and not self._finished and self._wanted(self.cursor):
+            self._send(self.cursor)
+        if not allow_ahead or len(self._inflight) >= self.depth:
+            return
+        header = self.board.transport.reader.peek_header()
+        if header is None:
+            return
+        kind, tag, length, first = header
+        last_tag, last_pos = self._inflight[-1]
+        if kind != REPLY_DATA or tag != last_tag or tag in self._ahead_done or length < 4:
+            return
+        (pos,) = struct.unpack("<I", first)
+        self._ahead_done.add(tag)
+        end = pos + length - 4
+        if length > 4 and end > last_pos and self._wanted(end):
+            self._send(end)
+
+    def quiesce(self) -> None:
+        """Collect the replies still in flight (keeping good chunks for later) so another request can go out."""
+        deadline = Deadline(self.timeout)
+        while self._inflight and not deadline.expired():
+            for frame in self.board.transport.reader.frames():
+                self._take(frame)
+            if self._inflight:
+                self.board.transport.receive()
+        self._inflight.clear()
+
+    def _take(self, frame: Reply) -> tuple[int, bytes] | None:
+        """Account for one verified frame; returns a chunk when it starts at the cursor."""
+        tags = [t for t, _ in self._inflight]
+        if frame.tag not in tags:
+            return None  # a late or duplicated reply to a request we gave up on
+        k = tags.index(frame.tag)
+        _, asked = self._inflight[k]
+        del self._inflight[: k + 1]  # replies come in order: anything sent before this one was lost
+        self._ahead_done.discard(frame.tag)
+        if frame.kind == REPLY_ERR:
+            raise DeviceError(f"the board refused to read its journal at {asked}: {frame.text()}")
+        if frame.kind != REPLY_DATA:
+            raise ProtocolError(f"'read' expected a DATA reply, got kind {frame.kind}")
+        pos, data = frame.data()
+        if not data:
+            if asked <= self.cursor:
+                self._finished = True  # nothing durable at or after the cursor
+            return None
+        if asked == self.cursor and pos > self.cursor:
+            # The board no longer holds [cursor, pos): trimmed after another host acknowledged it.
+            self.skipped_ranges.append((self.cursor, pos))
+            self.cursor = pos
+        if pos == self.cursor:
+            return pos, data
+        if pos > self.cursor and len(self._parked) < 8:
+            self._parked[pos] = data
+        return None
+
+    def __iter__(self) -> Iterator[tuple[int, bytes]]:
+        failures = 0
+        deadline = Deadline(self.timeout)
+        while not self._finished and self._wanted(self.cursor):
+            if self.cursor in self._parked:
+                data = self._parked.pop(self.cursor)
+                self.cursor += len(data)
+                yield self.cursor - len(data), data
+                continue
+            self._top_up()
+            got = None
+            for frame in self.board.transport.reader.frames():
+                got = self._take(frame)
+                if got is not None:
+                    break
+            if got is not None:
+                pos, data = got
+                self.cursor = pos + len(data)
+                self._parked = {p: d for p, d in self._parked.items() if p >= self.cursor}
+                failures = 0
+                deadline = Deadline(self.timeout)
+                self._top_up()
+                yield pos, data
+                continue
+            if deadline.expired():
+                failures += 1
+                if failures >= self.retries:
+                    raise DeviceTimeout(
+                        f"the board on {self.board.transport.url} stopped sending its journal at position "
+                        f"{self.cursor} ({failures} tries of {self.timeout:g} s): check the cable, then sync again "
+                        "— everything stored so far is kept"
+                    )
+                self._inflight.clear()  # whatever was in flight is lost; ask again from the cursor
+                self._ahead_done.clear()
+                self.resends += 1
+                deadline = Deadline(self.timeout)
+                continue
+            if not self._inflight or self.board.transport.reader.peek_header() is None:
+                self.board.transport.receive()
+            else:
+                self._top_up()
+                self.board.transport.receive()
 
 
 def progress_none(**_: Any) -> None:

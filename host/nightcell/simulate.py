@@ -28,10 +28,12 @@ import sys
 import threading
 import time
 import tty
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, Callable, Iterable, Sequence
 
-__all__ = ["SimulatedBoard", "Relay", "firmware_dir", "micropython_command", "DEFAULT_OPTICS"]
+__all__ = ["SimulatedBoard", "Relay", "Fault", "random_faults", "STRAY_TRACEBACK", "firmware_dir",
+           "micropython_command", "DEFAULT_OPTICS"]
 
 DEFAULT_OPTICS = {"led_counts": 3000.0, "dark_counts": 60.0, "noise_counts": 2.5, "stray": 0.002,
                   "ambient_counts": 40.0}
@@ -51,66 +53,246 @@ def micropython_command() -> list[str] | None:
             "sys.exit(micropython_unix.main())"]
 
 
-class Relay(threading.Thread):
-    """Copies bytes between the firmware's pty and the host's pty.
+# What a board prints when its program crashes: the kind of garbage the host must skip.
+STRAY_TRACEBACK = (b"Traceback (most recent call last):\r\n  File \"main.py\", line 12, in <module>\r\n"
+                   b"OSError: [Errno 5] EIO\r\nMicroPython v1.24 on 2025-01-01; Raspberry Pi Pico with RP2040\r\n"
+                   b">>> ")
 
-    ``baud`` throttles each direction to that many bits per second (10 bits a byte); ``fault(direction, data)``
-    may return changed bytes (or b"" to drop them); ``connected`` False is an unplugged cable: bytes are discarded.
+FAULT_KINDS = ("drop", "flip", "truncate", "duplicate", "delay", "disconnect", "garbage")
+
+
+@dataclass(frozen=True)
+class Fault:
+    """One fault the relay injects when the ``at``-th byte of a direction passes.
+
+    ``direction`` is ``to_host`` or ``to_board``. Kinds: ``drop`` loses ``size`` bytes (line noise), ``flip`` inverts
+    bit ``bit`` of one byte, ``truncate`` loses ``size`` bytes from here on (a frame cut short, a buffer overrun),
+    ``duplicate`` sends ``size`` bytes twice, ``delay`` holds the direction for ``seconds``, ``disconnect`` pulls
+    the cable for ``seconds`` (everything in both directions is lost meanwhile), ``garbage`` inserts a stray
+    traceback and REPL prompt.
     """
+
+    direction: str
+    at: int
+    kind: str
+    size: int = 1
+    bit: int = 0
+    seconds: float = 0.0
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"direction": self.direction, "at": self.at, "kind": self.kind, "size": self.size, "bit": self.bit,
+                "seconds": self.seconds}
+
+
+def random_faults(rng: random.Random, *, to_host_bytes: int, to_board_bytes: int, count: int,
+                  kinds: Sequence[str] = FAULT_KINDS, board_kinds: Sequence[str] | None = None,
+                  max_seconds: float = 0.6) -> list[Fault]:
+    """A random fault schedule over the first bytes of each direction.
+
+    ``board_kinds`` limits the faults on requests (host → board). By default a bit flip is not injected there: a
+    request line carries no checksum in protocol v1, so a flipped digit in ``ack`` could name a later position;
+    see schema/protocol.md.
+    """
+    if board_kinds is None:
+        board_kinds = [k for k in kinds if k != "flip"]
+    out = []
+    for _ in range(count):
+        to_host = not board_kinds or rng.random() < 0.75
+        direction = "to_host" if to_host else "to_board"
+        span = max(1, to_host_bytes if to_host else to_board_bytes)
+        kind = rng.choice(list(kinds if to_host else board_kinds))
+        size = {"drop": rng.randint(1, 16), "truncate": rng.randint(16, 6000),
+                "duplicate": rng.randint(1, 300)}.get(kind, 1)
+        seconds = rng.uniform(0.05, max_seconds) if kind in ("delay", "disconnect") else 0.0
+        out.append(Fault(direction, rng.randrange(span), kind, size, rng.randrange(8), round(seconds, 3)))
+    return sorted(out, key=lambda f: (f.direction, f.at))
+
+
+class Relay:
+    """Copies bytes between the firmware's pty and the host's pty, one thread per direction, like a serial cable.
+
+    ``baud`` paces each direction to that many bits per second (10 bits a byte: start, 8 data, stop), in small
+    slices, so the host sees bytes arrive the way a UART delivers them and an idle line is capacity lost.
+    ``fault(direction, data)`` may return changed bytes (or b"" to drop them); ``schedule(faults)`` injects
+    ``Fault``s at byte offsets; ``connected`` False is an unplugged cable: bytes are discarded both ways.
+    """
+
+    SLICE = 32
 
     def __init__(self, board_fd: int, host_fd: int, *, baud: int | None = None,
                  fault: Callable[[str, bytes], bytes] | None = None):
-        super().__init__(daemon=True, name="nightcell-relay")
         self.board_fd = board_fd
         self.host_fd = host_fd
         self.baud = baud
         self.fault = fault
         self.connected = True
-        self._stop = threading.Event()
+        self._halt = threading.Event()
+        self._lock = threading.Lock()
+        self._plan: dict[str, list[Fault]] = {"to_host": [], "to_board": []}
+        self._offset = {"to_host": 0, "to_board": 0}
+        self._skip = {"to_host": 0, "to_board": 0}
+        self._reconnect_at = 0.0
+        self.bytes_to_host = 0
+        self.bytes_to_board = 0
+        self.injected: list[Fault] = []
+        self._threads = [
+            threading.Thread(target=self._pump, args=("to_host", board_fd, host_fd), daemon=True,
+                             name="nightcell-relay-to-host"),
+            threading.Thread(target=self._pump, args=("to_board", host_fd, board_fd), daemon=True,
+                             name="nightcell-relay-to-board"),
+        ]
+
+    def start(self) -> None:
+        for t in self._threads:
+            t.start()
+
+    def stop(self) -> None:
+        self._halt.set()
+
+    def join(self, timeout: float | None = None) -> None:
+        for t in self._threads:
+            t.join(timeout)
+
+    def schedule(self, faults: Iterable[Fault]) -> None:
+        """Inject these faults, counting bytes from now on in each direction."""
+        with self._lock:
+            self._offset = {"to_host": 0, "to_board": 0}
+            self._skip = {"to_host": 0, "to_board": 0}
+            self._plan = {"to_host": [], "to_board": []}
+            for f in sorted(faults, key=lambda f: f.at):
+                if f.kind not in FAULT_KINDS:
+                    raise ValueError(f"unknown fault kind {f.kind!r}")
+                self._plan[f.direction].append(f)
+            self.injected = []
+
+    def pending_faults(self) -> int:
+        with self._lock:
+            return len(self._plan["to_host"]) + len(self._plan["to_board"])
+
+    def reset_counters(self) -> None:
         self.bytes_to_host = 0
         self.bytes_to_board = 0
 
-    def stop(self) -> None:
-        self._stop.set()
+    def _steps(self, direction: str, data: bytes) -> list[tuple[str, Any]]:
+        """What to do with a chunk: ("send", bytes), ("sleep", s) and ("disconnect", s) steps, in order."""
+        with self._lock:
+            start = self._offset[direction]
+            self._offset[direction] += len(data)
+            plan = self._plan[direction]
+            steps: list[tuple[str, Any]] = []
+            out = bytearray()
+            i = 0
+            if self._skip[direction]:
+                i = min(len(data), self._skip[direction])
+                self._skip[direction] -= i
+            while plan and plan[0].at < start + len(data):
+                f = plan.pop(0)
+                self.injected.append(f)
+                j = max(i, f.at - start)
+                out += data[i:j]
+                i = j
+                if f.kind == "flip" and j < len(data):
+                    out.append(data[j] ^ (1 << f.bit))
+                    i = j + 1
+                elif f.kind in ("drop", "truncate"):
+                    i = min(len(data), j + f.size)
+                    self._skip[direction] += f.size - (i - j)
+                elif f.kind == "duplicate":
+                    piece = data[j:j + f.size]
+                    out += piece + piece
+                    i = j + len(piece)
+                elif f.kind == "garbage":
+                    out += STRAY_TRACEBACK
+                elif f.kind in ("delay", "disconnect"):
+                    if out:
+                        steps.append(("send", bytes(out)))
+                        out = bytearray()
+                    steps.append(("sleep" if f.kind == "delay" else "disconnect", f.seconds))
+                    if f.kind == "disconnect":
+                        i = len(data)  # what was on the wire when the cable went is lost
+            out += data[i:]
+            if out:
+                steps.append(("send", bytes(out)))
+            return steps
 
-    def run(self) -> None:
-        fds = {self.board_fd: ("to_host", self.host_fd), self.host_fd: ("to_board", self.board_fd)}
-        while not self._stop.is_set():
+    def _pump(self, direction: str, src: int, dst: int) -> None:
+        line_free = time.monotonic()
+        while not self._halt.is_set():
             try:
-                ready, _, _ = select.select(list(fds), [], [], 0.05)
+                ready, _, _ = select.select([src], [], [], 0.05)
             except (OSError, ValueError):
                 return
-            for fd in ready:
-                direction, out = fds[fd]
-                try:
-                    data = os.read(fd, 4096)
-                except OSError:
-                    # The other side closed (the firmware died, or the host closed its port): wait and go on.
-                    time.sleep(0.01)
+            if not ready:
+                continue
+            try:
+                data = os.read(src, 4096)
+            except OSError:
+                # The other side closed (the firmware died, or the host closed its port): wait and go on.
+                time.sleep(0.01)
+                continue
+            if not data:
+                time.sleep(0.01)
+                continue
+            if self.fault is not None:
+                data = self.fault(direction, data)
+                if not data:
                     continue
-                if not data or not self.connected:
-                    continue
-                if self.fault is not None:
-                    data = self.fault(direction, data)
-                    if not data:
-                        continue
-                if self.baud:
-                    time.sleep(len(data) * 10.0 / self.baud)
-                try:
-                    _write_all(out, data)
-                except OSError:
-                    continue
-                if direction == "to_host":
-                    self.bytes_to_host += len(data)
-                else:
-                    self.bytes_to_board += len(data)
+            for action, arg in self._steps(direction, data):
+                if action == "sleep":
+                    time.sleep(arg)
+                    line_free = max(line_free, time.monotonic())
+                elif action == "disconnect":
+                    self._reconnect_at = time.monotonic() + arg
+                    self.connected = False
+                    threading.Timer(arg, self._reconnect).start()
+                elif self._line_up():
+                    line_free = self._send(direction, dst, arg, line_free)
 
+    def _line_up(self) -> bool:
+        if not self.connected and self._reconnect_at and time.monotonic() >= self._reconnect_at:
+            self._reconnect()
+        return self.connected
 
-def _write_all(fd: int, data: bytes) -> None:
-    view = memoryview(data)
-    while view:
-        n = os.write(fd, view)
-        view = view[n:]
+    def _reconnect(self) -> None:
+        if self._reconnect_at and time.monotonic() >= self._reconnect_at - 1e-3:
+            self._reconnect_at = 0.0
+            self.connected = True
+
+    def _send(self, direction: str, dst: int, data: bytes, line_free: float) -> float:
+        view = memoryview(data)
+        if not self.baud:
+            if not self._write(dst, view):
+                return line_free
+            self._count(direction, len(data))
+            return line_free
+        byte_s = 10.0 / self.baud
+        for k in range(0, len(view), self.SLICE):
+            piece = view[k:k + self.SLICE]
+            now = time.monotonic()
+            done = max(line_free, now) + len(piece) * byte_s
+            if done > now:
+                time.sleep(done - now)
+            line_free = done
+            if not self.connected or not self._write(dst, piece):
+                return line_free
+            self._count(direction, len(piece))
+        return line_free
+
+    def _count(self, direction: str, n: int) -> None:
+        if direction == "to_host":
+            self.bytes_to_host += n
+        else:
+            self.bytes_to_board += n
+
+    @staticmethod
+    def _write(fd: int, view: memoryview) -> bool:
+        try:
+            while view:
+                n = os.write(fd, view)
+                view = view[n:]
+        except OSError:
+            return False
+        return True
 
 
 class SimulatedBoard:
@@ -230,6 +412,37 @@ class SimulatedBoard:
     def plug(self) -> None:
         assert self.relay is not None
         self.relay.connected = True
+
+    def schedule(self, faults: Iterable[Fault]) -> None:
+        """Inject these faults on the cable (byte offsets count from now)."""
+        assert self.relay is not None, "start the board first"
+        self.relay.schedule(faults)
+
+    # -- flash images (cheap repeated experiments on the same journal) ---------------------------------------------
+
+    def save_flash(self, dest: str | Path) -> Path:
+        """Copy the flash (image file or folder) to ``dest``; power the board off first for a consistent copy."""
+        dest = Path(dest)
+        if self.flash_path.is_dir():
+            shutil.copytree(self.flash_path, dest, dirs_exist_ok=False)
+        else:
+            shutil.copy2(self.flash_path, dest)
+        return dest
+
+    def restore_flash(self, source: str | Path) -> "SimulatedBoard":
+        """Power off, put a saved flash back, and boot again; the host's port (``url``) stays the same."""
+        self.power_cut()
+        source = Path(source)
+        if self.flash_path.is_dir():
+            shutil.rmtree(self.flash_path)
+        if source.is_dir():
+            shutil.copytree(source, self.flash_path)
+        else:
+            shutil.copy2(source, self.flash_path)
+        if self.relay is not None:
+            self.relay.schedule([])
+            self.relay.connected = True
+        return self.start()
 
     # -- the virtual cuvette --------------------------------------------------------------------------------------
 

@@ -344,6 +344,15 @@ class Store:
             (device, journal, stored_to or 0, acked_to or 0, now, stored_to, acked_to, now),
         )
 
+    def log_sync(self, summary: Any, *, host: str, started_unix: float) -> None:
+        """Record one sync in ``sync_sessions`` (inside the caller's transaction)."""
+        self.conn.execute(
+            "INSERT INTO sync_sessions(device, journal, host, port, started_unix, seconds, from_position, "
+            "to_position, bytes, records, new_rows, acked_to) VALUES (?,?,?,?,?,?,?,?,?,?,?,?)",
+            (summary.device, summary.journal, host, summary.port, started_unix, summary.seconds, summary.start,
+             summary.end, summary.bytes, summary.records, sum(summary.new_rows.values()), summary.acked_to),
+        )
+
     # -- queries ------------------------------------------------------------------------------------------------
 
     def query(self, sql: str, params: Iterable[Any] = ()) -> list[sqlite3.Row]:
