@@ -13,6 +13,7 @@ Usage (MicroPython)::
     kit.power_cycle()                  # ... after which the board boots again
 """
 
+import builtins
 import os
 import vfs
 from boards.simflash import RamBlockDevice, PowerCut
@@ -32,6 +33,58 @@ class FixedCell(Cell):
         self.spec = {"absorbance": absorbance}
 
 
+_OPEN = builtins.open
+_FILES = []
+_GRAVE = []
+
+
+def _still_open():
+    out = []
+    for f in _FILES:
+        try:
+            f.tell()
+            out.append(f)
+        except (OSError, ValueError):
+            pass
+    _FILES[:] = []
+    return out
+
+
+def _tracked_open(*args):
+    f = _OPEN(*args)
+    if len(_FILES) > 400:
+        _FILES[:] = _still_open()
+    _FILES.append(f)
+    return f
+
+
+builtins.open = _tracked_open
+
+
+class _Powered:
+    """The flash as seen by one power-on: after the power goes, this view drops every call without allocating,
+    so a file object of the dead mount that the garbage collector closes later cannot touch the flash."""
+
+    def __init__(self, dev):
+        self.dev = dev
+        self.on = True
+
+    def readblocks(self, block, buf, off=0):
+        if self.on:
+            self.dev.readblocks(block, buf, off)
+        return 0
+
+    def writeblocks(self, block, buf, off=None):
+        if self.on:
+            self.dev.writeblocks(block, buf, off)
+        return 0
+
+    def ioctl(self, op, arg):
+        if self.on:
+            return self.dev.ioctl(op, arg)
+        return 0
+
+
 class SimKit:
     def __init__(self, blocks=64, settings=None, optics=None, ticks_start_ms=0, seed=1, format=True):
         self.dev = RamBlockDevice(blocks)
@@ -43,17 +96,21 @@ class SimKit:
         self.clock = SimClock(1, ticks_start_ms, virtual=True)
         self.port = ScriptedPort()
         self.boots = 0
+        self.view = None
         if format:
             vfs.VfsLfs2.mkfs(self.dev, progsize=256)
         self._mount()
         self.start()
 
     def _mount(self):
+        if self.view is not None:
+            self.view.on = False
         try:
             vfs.umount(_MOUNT)
         except OSError:
             pass
-        vfs.mount(vfs.VfsLfs2(self.dev, progsize=256), _MOUNT)
+        self.view = _Powered(self.dev)
+        vfs.mount(vfs.VfsLfs2(self.view, progsize=256), _MOUNT)
 
     def free(self):
         st = os.statvfs(_MOUNT)
@@ -78,8 +135,10 @@ class SimKit:
 
     def power_cycle(self):
         """Power returns after a cut: forget all RAM state, remount the flash, boot again."""
-        self.dev.dead = False
-        self.dev.cut_at = -1
+        # files the dead firmware left open are finalized now, while the device still refuses every write
+        # files the dead firmware left open stay referenced for good: no finalizer ever closes them on the new mount
+        _GRAVE.extend(_still_open())
+        self.dev.dead = False  # a cut set for the boot itself (cut_at) stays armed
         self.port.inbox = bytearray()
         self.port.sent = bytearray()
         self._mount()
