@@ -112,11 +112,11 @@ def check(key, v):
         raise ValueError("unknown setting %s: the settings are %s" % (_show(key), ", ".join(sorted(DEFAULTS))))
 
 
-def validate(d):
-    """A complete, checked settings dict: missing keys take their defaults."""
+def validate(d, base=None):
+    """A complete, checked settings dict: missing keys take their defaults (``base``, else ``DEFAULTS``)."""
     if not isinstance(d, dict):
         raise ValueError("settings must be a JSON object")
-    out = defaults()
+    out = json.loads(canonical(base)) if base else defaults()
     for k in d:
         check(k, d[k])
         out[k] = d[k]
@@ -136,20 +136,36 @@ def parse_value(key, text):
     return v
 
 
-def load(path):
-    """(settings, problem): the file's settings, or the defaults and a message when the file is missing or bad."""
+def read_raw(path):
+    """The file's JSON object, ``{}`` when there is no file, or None when it cannot be read as one."""
     try:
         f = open(path, "rb")
     except OSError:
-        return defaults(), None  # no file: defaults, nothing wrong
+        return {}
+    try:
+        d = json.loads(f.read().decode("utf-8"))
+    except ValueError:
+        return None
+    finally:
+        f.close()
+    return d if isinstance(d, dict) else None
+
+
+def load(path, base=None):
+    """(settings, problem): the file's settings, or the defaults and a message when the file is missing or bad."""
+    safe = json.loads(canonical(base)) if base else defaults()
+    try:
+        f = open(path, "rb")
+    except OSError:
+        return safe, None  # no file: defaults, nothing wrong
     try:
         raw = f.read()
     finally:
         f.close()
     try:
-        return validate(json.loads(raw.decode("utf-8"))), None
+        return validate(json.loads(raw.decode("utf-8")), base), None
     except ValueError as e:  # covers bad JSON and bad UTF-8 (UnicodeError is a ValueError)
-        return defaults(), "settings.json ignored, safe defaults used: %s" % (str(e) or "not valid JSON")
+        return safe, "settings.json ignored, safe defaults used: %s" % (str(e) or "not valid JSON")
 
 
 def save(path, d):
