@@ -180,12 +180,16 @@ def analyse_run(store: Store, run: Run, *, channel: int = 0, calibration: Any = 
     ok = s["flags"] == 0
     if np.count_nonzero(ok) < 4:
         raise AnalysisError(f"run {run.key} has {np.count_nonzero(ok)} clean points: too few to fit a rate")
-    t = s["time_s"][ok]
-    a = s["absorbance"][ok]
+    t = s["time_s"]
+    a = s["absorbance"]
     inputs = {"run": run.key, "device": run.device, "channel": channel,
               "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
-              "time_basis": s["time_basis"]}
-    comparison = _kinetics.fit_all(t, a, inputs=inputs, **({"models": models} if models else {}))
+              "time_basis": s["time_basis"], "weights": "T^2 (count noise about constant)",
+              "left_out": "flagged readings"}
+    # Absorbance is noisier where less light gets through: weight by 1/var(A) ∝ T², else intervals are too narrow.
+    weights = np.where(ok, np.nan_to_num(10.0 ** (-2.0 * np.nan_to_num(a, nan=0.0))), 0.0)
+    comparison = _kinetics.fit_all(t, a, inputs=inputs, mask=~ok, weights=weights,
+                                  **({"models": models} if models else {}))
     fit_map = dict(comparison.results)
     best = comparison.ranking[0]
     out = RunAnalysis(run, s["blank"], s["time_s"], s["absorbance"], s["flags"], s["seqs"], s["time_basis"],

@@ -57,6 +57,8 @@ class DemoScenario:
     a_inf: float = 0.035                 # a faint product colour: the plateau is not zero
     run_s: float = 1200.0                # how long the board logs alone
     seed: int = 2026
+    optics: dict[str, float] = field(default_factory=lambda: {
+        "led_counts": 3000.0, "dark_counts": 60.0, "noise_counts": 8.0, "stray": 0.001, "ambient_counts": 40.0})
 
 
 @dataclass
@@ -107,6 +109,7 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
     if interpreter == "auto" and micropython_command() is None:
         say("note: MicroPython's unix interpreter is not installed here; the firmware runs in CPython instead")
     sim = SimulatedBoard(out / "board", device=sc.device, speed=sc.speed, seed=sc.seed, interpreter=interpreter,
+                         optics=sc.optics,
                          settings={"interval_ms": int(sc.interval_s * 1000), "durability_ms": 10000,
                                    "label": "demo bench", "path_cm": sc.path_cm, "marker_samples": 8})
     if sim.flash_path.exists() and force:
@@ -180,7 +183,7 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
     outcome = DemoOutcome(out, db_path, report_path, [p for p, _ in figures], sim.interpreter, summary,
                           time.monotonic() - t_start)
     say(f"calibration: slope {cal.slope:.5f} ± {cal.slope_se:.5f} A/µM, LOD {cal.extra.get('lod', float('nan')):.3g} µM")
-    say(f"fading: k = {fit.values['k']:.5f} ± {fit.stderr['k']:.5f} s⁻¹ (scenario's true k {sc.k_per_s}); "
+    say(f"fading: k = {fit.values['k']:.4g} ± {fit.stderr['k']:.2g} s⁻¹ (scenario's true k {sc.k_per_s}); "
         f"best model by AIC: {analysis.best}")
     say(f"report: {report_path}")
     say(f"database: {db_path} (open it in any SQLite browser; try the view sample_readings)")
