@@ -452,6 +452,10 @@ class SimulatedBoard:
         doc = dict(content, version=self._cell_version)
         tmp = self.cell_path.with_suffix(".tmp")
         tmp.write_text(json.dumps(doc))
+        # The board notices a change by (size, mtime) and mtime has 1-s resolution there: give every version its
+        # own whole-second mtime so two changes within one second are both seen.
+        stamp = 1_000_000_000 + self._cell_version
+        os.utime(tmp, (stamp, stamp))
         os.replace(tmp, self.cell_path)
 
     def stderr_text(self) -> str:
