@@ -102,3 +102,53 @@ def test_decode_record_rejects_or_decodes(data):
         F.decode_record(data)
     except ProtocolError:
         pass
+
+
+@settings(max_examples=150, deadline=None)
+@given(st.lists(st.lists(sample, min_size=1, max_size=40), min_size=1, max_size=6), st.booleans(),
+       st.integers(1, 2))
+def test_vectorised_sample_decode_equals_the_record_decoder(blocks, with_temp, channels):
+    """The batch decoder (numpy) must give exactly what the one-record decoder gives, across many blocks."""
+    lazy = []
+    eager = []
+    for b, samples in enumerate(blocks):
+        samples = [dict(s, dark=s["dark"][:channels], light=s["light"][:channels]) for s in samples]
+        fields = {"interval_ms": 500, "reads": 16, "channels": channels, "options": int(with_temp),
+                  "samples": samples}
+        raw = F.encode_record(F.KIND_SAMPLES, 1, 1000 * b, 0, fields)
+        lazy.append(F.decode_record(raw, lazy_samples=True)[0])
+        eager.append(F.decode_record(raw)[0])
+    (cols,) = F.sample_columns(lazy)
+    got = []
+    for i in range(len(cols.record)):
+        t = None if cols.temp_centi is None else int(cols.temp_centi[i])
+        got.append((int(cols.record[i]), int(cols.index[i]), int(cols.late_ms[i]), int(cols.flags[i]),
+                    cols.dark[i].tolist(), cols.light[i].tolist(), None if t == F.NO_TEMPERATURE else t))
+    want = []
+    for r, rec in enumerate(eager):
+        for i, s in enumerate(rec.fields["samples"]):
+            want.append((r, i, s["late_ms"], s["flags"], s["dark"], s["light"],
+                         s.get("temp_centi") if with_temp else None))
+    assert got == want
+
+
+def test_vectorised_decode_refuses_a_wrong_sample_count():
+    fields = {"interval_ms": 500, "reads": 16, "channels": 1, "options": 0,
+              "samples": [{"late_ms": 0, "flags": 0, "dark": [1], "light": [2]}] * 3}
+    raw = bytearray(F.encode_record(F.KIND_SAMPLES, 1, 0, 0, fields))
+    raw[4 + 20] = 4  # count 3 -> 4, CRC fixed so only the structure is wrong
+    raw[-4:] = zlib.crc32(bytes(raw[:-4])).to_bytes(4, "little")
+    rec = F.decode_record(bytes(raw), lazy_samples=True)[0]
+    with pytest.raises(ProtocolError, match="sample count"):
+        F.sample_columns([rec])
+
+
+def test_peek_header_sees_a_data_frame_before_its_payload(vectors):
+    frame = F.encode_reply(F.REPLY_DATA, 77, (4096).to_bytes(4, "little") + b"\xc5" * 100)
+    r = F.ReplyReader()
+    r.feed(b"noise" + frame[:20])
+    assert list(r.frames()) == []
+    assert r.peek_header() == (F.REPLY_DATA, 77, 104, (4096).to_bytes(4, "little"))
+    r.feed(frame[20:])
+    (got,) = list(r.frames())
+    assert got.data() == (4096, b"\xc5" * 100)
