@@ -189,7 +189,7 @@ class Board:
         """Send one request and wait for its reply; idempotent requests are retried a bounded number of times."""
         attempts = self.retries if retry else 1
         last_tag = None
-        for _ in range(attempts):
+        for attempt in range(attempts):
             tag = self._next_tag()
             last_tag = tag
             self.transport.send(encode_request(tag, verb, *args))
@@ -201,6 +201,9 @@ class Board:
                 if frame.tag != tag:
                     continue  # a late reply to an earlier attempt
                 if frame.kind == REPLY_ERR:
+                    # A line damaged on the way is refused too: an idempotent request is worth asking again.
+                    if attempt + 1 < attempts:
+                        break
                     raise DeviceError(f"the board refused '{verb}': {frame.text()}")
                 return frame
         raise DeviceTimeout(
@@ -310,6 +313,7 @@ class JournalPull:
         self._ahead_done: set[int] = set()
         self._parked: dict[int, bytes] = {}  # verified chunks that arrived before the one at the cursor
         self._finished = False
+        self._refusals = 0
 
     def _send(self, position: int) -> None:
         tag = self.board._next_tag()
@@ -358,7 +362,12 @@ class JournalPull:
         del self._inflight[: k + 1]  # replies come in order: anything sent before this one was lost
         self._ahead_done.discard(frame.tag)
         if frame.kind == REPLY_ERR:
-            raise DeviceError(f"the board refused to read its journal at {asked}: {frame.text()}")
+            # Most likely the request line was damaged on the way; a real refusal repeats and ends the pull.
+            self._refusals += 1
+            if self._refusals >= self.retries:
+                raise DeviceError(f"the board refused to read its journal at {asked}: {frame.text()}")
+            self.resends += 1
+            return None
         if frame.kind != REPLY_DATA:
             raise ProtocolError(f"'read' expected a DATA reply, got kind {frame.kind}")
         pos, data = frame.data()
@@ -396,6 +405,7 @@ class JournalPull:
                 self.cursor = pos + len(data)
                 self._parked = {p: d for p, d in self._parked.items() if p >= self.cursor}
                 failures = 0
+                self._refusals = 0
                 deadline = Deadline(self.timeout)
                 self._top_up()
                 yield pos, data

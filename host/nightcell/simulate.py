@@ -477,3 +477,108 @@ def copy_firmware(dest: str | Path) -> Path:
     dest = Path(dest)
     shutil.copytree(src, dest, dirs_exist_ok=True, ignore=shutil.ignore_patterns("__pycache__", "*.pyc"))
     return dest
+
+
+# -- journals and fault campaigns for tests and benchmarks -------------------------------------------------------------
+
+RAW_TABLES = ("boots", "samples", "marks", "mark_counts", "anchors", "events", "settings_records", "health")
+
+
+def fill_journal(sim: SimulatedBoard, min_bytes: int, *, label: str = "fill", timeout: float = 120.0) -> dict:
+    """Let the board log a run until its journal holds at least ``min_bytes``, stop the run, and power off.
+
+    Returns the board's last ``hello``. The flash can then be saved (``save_flash``) and restored for each of many
+    experiments on the same journal.
+    """
+    from .link import Board, Deadline
+
+    with Board.open(sim.url, timeout=5.0) as board:
+        board.hello(timeout=10.0)
+        board.start(label)
+        deadline = Deadline(timeout)
+        while board.hello()["head"] < min_bytes:
+            if deadline.expired():
+                raise RuntimeError(f"the simulated board did not log {min_bytes} bytes in {timeout} s")
+            time.sleep(0.2)
+        board.stop()
+        board.flush()
+        info = board.hello()
+    sim.power_cut()
+    return info
+
+
+def raw_rows(db_path: str | Path, *, before_boot: int | None = None, tables: Sequence[str] = RAW_TABLES,
+             ) -> dict[str, list[tuple]]:
+    """Raw rows of a database, table by table, sorted (provenance columns left out), for row-by-row comparison.
+
+    ``before_boot`` keeps only rows of boots before it (the boots a restored flash already held).
+    """
+    import sqlite3
+
+    conn = sqlite3.connect(f"file:{db_path}?mode=ro", uri=True)
+    try:
+        out = {}
+        for table in tables:
+            cols = [r[1] for r in conn.execute(f"PRAGMA table_info({table})") if r[1] not in ("journal", "position")]
+            sql = f"SELECT {', '.join(cols)} FROM {table}"
+            params: tuple = ()
+            if before_boot is not None:
+                sql += " WHERE boot < ?"
+                params = (before_boot,)
+            out[table] = sorted(conn.execute(sql + " ORDER BY 1, 2, 3", params).fetchall(), key=repr)
+        return out
+    finally:
+        conn.close()
+
+
+def run_fault_schedule(sim: SimulatedBoard, image: str | Path, faults: Sequence[Fault], db_path: str | Path, *,
+                       timeout: float = 0.5, retries: int = 3, batch_bytes: int = 4096,
+                       finish_tries: int = 3) -> dict[str, Any]:
+    """One schedule of a fault campaign: restore the saved flash, sync through the faults, then finish the sync.
+
+    Returns what a check needs: ``before_boot`` (rows of earlier boots must equal a fault-free sync's),
+    ``first_error`` (the faulted sync's error, if it gave up), the board's ``tail`` and the database's
+    ``stored_to``/``acked_to`` after finishing (nothing past what was acknowledged may be gone from the board).
+    """
+    from .errors import NightcellError
+    from .link import Board
+    from .store import Store
+    from .sync import sync_board
+
+    sim.restore_flash(image)
+    out: dict[str, Any] = {"faults": [f.to_dict() for f in faults], "first_error": None, "finish_attempts": 0}
+    with Store.open(db_path) as store:
+        with Board.open(sim.url, timeout=timeout) as board:
+            board.retries = retries
+            info = board.hello(timeout=5.0)
+            out["before_boot"] = int(info["boot"])
+            assert sim.relay is not None
+            sim.relay.reset_counters()
+            sim.schedule(faults)
+            try:
+                sync_board(board, store, batch_bytes=batch_bytes)
+            except NightcellError as exc:
+                out["first_error"] = f"{type(exc).__name__}: {exc}"
+            out["injected"] = len(sim.relay.injected)
+            sim.schedule([])
+            sim.relay.connected = True
+            time.sleep(0.02)
+            board.transport.discard_input()
+            last: Exception | None = None
+            for _ in range(finish_tries):
+                out["finish_attempts"] += 1
+                try:
+                    sync_board(board, store, batch_bytes=batch_bytes)
+                    last = None
+                    break
+                except NightcellError as exc:
+                    last = exc
+                    board.transport.discard_input()
+            if last is not None:
+                raise last
+            final = board.hello()
+        out["tail"] = int(final["tail"])
+        state = store.journal_state(str(final["device"]), int(final["journal"]))
+        assert state is not None
+        out["stored_to"], out["acked_to"] = state
+    return out

@@ -1,0 +1,198 @@
+"""Sync end to end: the real firmware in MicroPython behind a pty, real pyserial, real SQLite.
+
+The reference for every check is a fault-free sync of the same saved flash (the journal the board holds), compared
+row for row; the rules checked are those of issue 4 (resumable, idempotent, acknowledge only what is stored).
+"""
+
+import os
+import random
+import signal
+import subprocess
+import sys
+import threading
+import time
+
+import pytest
+
+from nightcell.errors import DeviceTimeout
+from nightcell.link import Board
+from nightcell.simulate import (Fault, SimulatedBoard, fill_journal, random_faults, raw_rows,
+                                run_fault_schedule)
+from nightcell.store import Store
+from nightcell.sync import sync_board, sync_ports
+
+SETTINGS = {"interval_ms": 1000, "durability_ms": 2000, "segment_bytes": 4096,
+            "channels": [{"name": "red", "led": 15, "adc": 26}, {"name": "green", "led": 14, "adc": 27}]}
+
+
+@pytest.fixture(scope="module")
+def journal(tmp_path_factory):
+    """A saved flash holding ~14 KB of journal (several 4 KB segments), and a fault-free sync of it."""
+    root = tmp_path_factory.mktemp("journal")
+    sim = SimulatedBoard(root / "fill", device="5e1f0000000000aa", speed=200.0, seed=5, settings=SETTINGS)
+    sim.start()
+    try:
+        fill_journal(sim, 14_000)
+        image = sim.save_flash(root / "image")
+        sim.restore_flash(image)
+        ref = root / "reference.db"
+        with Board.open(sim.url) as board, Store.open(ref) as store:
+            boot = board.hello(timeout=5.0)["boot"]
+            sync_board(board, store, acknowledge=False)
+    finally:
+        sim.stop()
+    return {"image": image, "reference": ref, "boot": boot, "rows": raw_rows(ref, before_boot=boot)}
+
+
+@pytest.fixture
+def board_sim(tmp_path):
+    sim = SimulatedBoard(tmp_path / "sim", device="5e1f0000000000aa", speed=200.0, seed=5, settings=SETTINGS)
+    yield sim
+    sim.stop()
+
+
+def test_reference_holds_the_run(journal):
+    rows = journal["rows"]
+    assert len(rows["samples"]) > 300 and len(rows["boots"]) >= 1
+    channels = {r[3] for r in rows["samples"]}
+    assert channels == {0, 1}
+
+
+def test_sync_again_adds_nothing_and_board_trims_only_what_was_acknowledged(journal, board_sim, tmp_path):
+    board_sim.restore_flash(journal["image"])
+    with Board.open(board_sim.url) as board, Store.open(tmp_path / "a.db") as store:
+        first = sync_board(board, store, batch_bytes=8192)
+        tail = board.hello()["tail"]
+        second = sync_board(board, store)
+        state = store.journal_state(first.device, first.journal)
+    assert raw_rows(tmp_path / "a.db", before_boot=journal["boot"]) == journal["rows"]
+    assert first.new_rows["samples"] > 300 and first.warnings == []
+    assert second.new_rows.get("samples", 0) == 0 and second.new_rows.get("marks", 0) == 0
+    assert second.new_rows.get("anchors") == 1  # its own clock anchor, nothing else from the earlier boots
+    assert 0 < tail <= first.acked_to == first.end  # segments before the acknowledged position are gone, no more
+    assert state[1] == state[0] == second.end
+
+
+def test_unplugged_mid_sync_resumes_where_it_stopped(journal, board_sim, tmp_path):
+    faults = [Fault("to_host", 7000, "disconnect", seconds=1.5)]
+    out = run_fault_schedule(board_sim, journal["image"], faults, tmp_path / "b.db", timeout=0.3, retries=2)
+    assert out["first_error"] and "DeviceTimeout" in out["first_error"]
+    assert raw_rows(tmp_path / "b.db", before_boot=out["before_boot"]) == journal["rows"]
+    assert out["tail"] <= out["acked_to"] == out["stored_to"]
+
+
+def test_garbage_and_damaged_frames_are_skipped_within_one_sync(journal, board_sim, tmp_path):
+    faults = [Fault("to_host", 700, "garbage"), Fault("to_host", 5000, "flip", bit=3),
+              Fault("to_host", 9000, "drop", size=5), Fault("to_host", 11000, "duplicate", size=200),
+              Fault("to_board", 40, "duplicate", size=10)]
+    out = run_fault_schedule(board_sim, journal["image"], faults, tmp_path / "c.db", timeout=0.5)
+    assert out["first_error"] is None and out["injected"] == len(faults)
+    assert raw_rows(tmp_path / "c.db", before_boot=out["before_boot"]) == journal["rows"]
+
+
+@pytest.mark.slow
+def test_fault_campaign_slice(journal, board_sim, tmp_path):
+    """A slice of the campaign in tests/bench/bench_sync_faults.py: random schedules, same result as no fault."""
+    rng = random.Random(20240604)
+    for i in range(8):
+        faults = random_faults(rng, to_host_bytes=16_000, to_board_bytes=600, count=rng.randint(1, 4),
+                               max_seconds=0.4)
+        db = tmp_path / f"campaign{i}.db"
+        out = run_fault_schedule(board_sim, journal["image"], faults, db, timeout=0.3)
+        assert raw_rows(db, before_boot=out["before_boot"]) == journal["rows"], out
+        assert out["tail"] <= out["acked_to"] == out["stored_to"], out
+
+
+_KILLED_SYNC = """
+import sys
+from nightcell.link import Board
+from nightcell.store import Store
+from nightcell.sync import sync_board
+with Board.open(sys.argv[1]) as board, Store.open(sys.argv[2]) as store:
+    print("ready", flush=True)
+    sync_board(board, store, batch_bytes=2048)
+"""
+
+
+@pytest.mark.slow
+def test_host_killed_mid_sync_then_sync_completes(journal, board_sim, tmp_path):
+    """SIGKILL the syncing process at random moments (a slice of tests/bench/bench_sync_kill.py)."""
+    rng = random.Random(7)
+    board_sim.baud = 460_800  # long enough a sync to be killed inside it
+    for i in range(2):
+        board_sim.restore_flash(journal["image"])
+        if board_sim.relay is not None:
+            board_sim.relay.baud = 460_800
+        db = tmp_path / f"killed{i}.db"
+        proc = subprocess.Popen([sys.executable, "-c", _KILLED_SYNC, board_sim.url, str(db)],
+                                stdout=subprocess.PIPE, text=True)
+        assert proc.stdout.readline().strip() == "ready"
+        time.sleep(rng.uniform(0.05, 0.5))
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
+        with Store.open(db) as store:
+            assert store.conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+            with Board.open(board_sim.url) as board:
+                board.transport.discard_input()
+                summary = sync_board(board, store)
+                tail = board.hello()["tail"]
+        assert summary.warnings == []  # no stretch of the journal went missing
+        assert raw_rows(db, before_boot=journal["boot"]) == journal["rows"]
+        assert tail <= summary.acked_to
+
+
+def test_two_boards_at_once_and_a_reader_into_one_database(tmp_path):
+    sims = [SimulatedBoard(tmp_path / f"s{i}", device=f"5e1f00000000b00{i}", speed=200.0, seed=i,
+                           settings={"interval_ms": 1000, "durability_ms": 2000}) for i in range(2)]
+    db = tmp_path / "class.db"
+    Store.open(db).close()
+    stop = threading.Event()
+    errors = []
+
+    def reader():
+        try:
+            with Store.open(db) as s:
+                while not stop.is_set():
+                    s.query("SELECT device, count(*) FROM sample_readings GROUP BY device")
+                    time.sleep(0.01)
+        except Exception as exc:  # noqa: BLE001 - reported below
+            errors.append(exc)
+
+    try:
+        for s in sims:
+            s.start()
+        for s in sims:
+            with Board.open(s.url) as b:
+                b.hello(timeout=5.0)
+                b.start("class")
+        time.sleep(2.0)
+        r = threading.Thread(target=reader)
+        r.start()
+        results = sync_ports([s.url for s in sims], db, parallel=True)
+        again = sync_ports([s.url for s in sims], db, parallel=True)
+        stop.set()
+        r.join()
+    finally:
+        stop.set()
+        for s in sims:
+            s.stop()
+    assert errors == []
+    assert all("summary" in e for e in results + again), results + again
+    assert {e["summary"].device for e in results} == {s.device for s in sims}
+    with Store.open(db) as store:
+        assert store.count("devices") == 2
+        dup = store.conn.execute("SELECT count(*) FROM (SELECT 1 FROM samples GROUP BY device, boot, seq, channel "
+                                 "HAVING count(*) > 1)").fetchone()[0]
+        assert dup == 0
+        per = {r["device"]: r["n"] for r in store.query("SELECT device, count(*) AS n FROM samples GROUP BY device")}
+        assert all(n > 100 for n in per.values())
+        assert store.count("sync_sessions") == 4
+
+
+def test_a_silent_board_times_out_with_a_clear_message(tmp_path):
+    with Board.open("loop://", timeout=0.1) as board:
+        board.retries = 2
+        with pytest.raises(Exception, match="running nightcell firmware"):
+            board.hello(timeout=0.1)
+        with pytest.raises(DeviceTimeout, match="no reply to 'ack'"):
+            board.ack(5)
