@@ -67,8 +67,9 @@ class SimClock:
 class Cell:
     """What is in the cuvette, from the cell file; absorbance per channel at a board time."""
 
-    def __init__(self, path):
+    def __init__(self, path, speed=1):
         self.path = path
+        self.speed = speed
         self.version = None
         self.spec = {"absorbance": 0.0}
         self.t0 = 0
@@ -103,6 +104,8 @@ class Cell:
         r = s.get("reaction")
         if r:
             t = (now_ms - self.t0) / 1000
+            if "since_unix" in r:  # the cuvette's own clock: the reaction goes on through a power cut
+                t = (time.time() - r["since_unix"]) * self.speed
             a0 = _pick(r.get("a0", 0.0), ch)
             ainf = _pick(r.get("a_inf", 0.0), ch)
             return ainf + (a0 - ainf) * math.exp(-r.get("k_per_s", 0.0) * t)
@@ -124,7 +127,7 @@ class SimBoard(Board):
         self.clock = clock
         self.fs_free = fs_free
         self.rand32 = rand32
-        self.cell = cell or Cell(config.get("cell"))
+        self.cell = cell or Cell(config.get("cell"), config.get("speed", 1))
         o = config.get("optics", {})
         self.led_counts = float(o.get("led_counts", 3000))
         self.dark_counts = float(o.get("dark_counts", 100))
