@@ -39,13 +39,13 @@ def micropython() -> str:
 
 
 def run_mp(script: str, *args: str, timeout: float = 300, heap: str = "64M", path: list[str] | None = None,
-           expect_rc: int = 0) -> str:
+           expect_rc: int = 0, with_sources: bool = True) -> str:
     """Run ``script`` (source text) in MicroPython; return its stdout, or fail the test with its output."""
     with tempfile.TemporaryDirectory(prefix="nc_mp_") as tmp:
         f = Path(tmp) / "script.py"
         f.write_text(script)
         env = dict(os.environ)
-        env["MICROPYPATH"] = ":".join([*(path or []), str(FIRMWARE), ".frozen"])
+        env["MICROPYPATH"] = ":".join([*(path or []), *([str(FIRMWARE)] if with_sources else []), ".frozen"])
         proc = subprocess.run([micropython(), "-X", f"heapsize={heap}", str(f), *args], capture_output=True,
                               text=True, timeout=timeout, cwd=tmp, env=env)
     if proc.returncode != expect_rc:

@@ -68,7 +68,7 @@ truth = {}      # (boot, seq) -> (scheduled ms on the virtual clock, dark, light
 host = {}       # what the host has read and stored before acknowledging
 open_keys = {}  # samples neither with the host nor excused by an earlier cut (lost inside its window)
 kit = SimKit(blocks=40, settings={"interval_ms": 1000, "durability_ms": WINDOW, "segment_bytes": 2048,
-                                  "warmup_ms": 0, "marker_samples": 2, "reads": 4, "settle_ms": 2})
+                                  "warmup_ms": 0, "marker_samples": 2, "reads": 4, "settle_ms": 2}, cuts=True)
 
 def hook():
     lg = kit.lg

@@ -13,6 +13,7 @@ Usage::
 """
 
 BLOCK = 4096
+_ERASED = b"\xff" * BLOCK
 
 
 class PowerCut(BaseException):
@@ -65,10 +66,10 @@ class _Counted:
             cut = self._op()
             if cut:
                 if self.tear:
-                    self._write(arg * BLOCK, b"\xff" * (BLOCK // 2))
+                    self._write(arg * BLOCK, _ERASED[:BLOCK // 2])
                 raise PowerCut()
             self.erases += 1
-            self._write(arg * BLOCK, b"\xff" * BLOCK)
+            self._write(arg * BLOCK, _ERASED)
             return 0
         return 0
 
@@ -76,13 +77,18 @@ class _Counted:
 class RamBlockDevice(_Counted):
     def __init__(self, blocks, data=None):
         self._setup(blocks)
-        self.data = data if data is not None else bytearray(b"\xff" * (blocks * BLOCK))
+        if data is None:
+            data = bytearray(blocks * BLOCK)
+            for b in range(blocks):  # erased flash reads 0xFF; filled in place, no second copy on the heap
+                data[b * BLOCK:(b + 1) * BLOCK] = _ERASED
+        self.data = data
+        self.mv = memoryview(self.data)
 
     def _read(self, a, buf):
-        buf[:] = self.data[a:a + len(buf)]
+        buf[:] = self.mv[a:a + len(buf)]  # a view, not a copy: the flash driver should not load the heap
 
     def _write(self, a, buf):
-        self.data[a:a + len(buf)] = buf
+        self.mv[a:a + len(buf)] = buf
 
 
 class FileBlockDevice(_Counted):

@@ -9,6 +9,7 @@ Usage (MicroPython)::
     kit = SimKit(blocks=64, settings={"interval_ms": 1000})
     kit.request(b"1 start")            # runs the loop until the reply arrives
     kit.run_ms(60000)                  # one board minute
+    kit = SimKit(..., cuts=True)       # for power cuts:
     kit.dev.cut_at = kit.dev.ops + 7   # the 7th flash write from now fails ...
     kit.power_cycle()                  # ... after which the board boots again
 """
@@ -58,7 +59,6 @@ def _tracked_open(*args):
     return f
 
 
-builtins.open = _tracked_open
 
 
 class _Powered:
@@ -86,8 +86,13 @@ class _Powered:
 
 
 class SimKit:
-    def __init__(self, blocks=64, settings=None, optics=None, ticks_start_ms=0, seed=1, format=True):
-        self.dev = RamBlockDevice(blocks)
+    def __init__(self, blocks=64, settings=None, optics=None, ticks_start_ms=0, seed=1, format=True,
+                 board_class=None, cuts=False, dev=None, folder=None):
+        self.board_class = board_class or SimBoard
+        if cuts:
+            builtins.open = _tracked_open  # power cuts leave files open: keep them from ever being finalized
+        self.folder = folder  # a host folder instead of littlefs: no Python block device in the way
+        self.dev = None if folder else dev or RamBlockDevice(blocks)
         self.settings = settings or {}
         self.optics = optics or {"led_counts": 3000, "dark_counts": 100, "noise_counts": 2, "stray": 0.0,
                                  "ambient_counts": 0}
@@ -97,7 +102,7 @@ class SimKit:
         self.port = ScriptedPort()
         self.boots = 0
         self.view = None
-        if format:
+        if format and not folder:
             vfs.VfsLfs2.mkfs(self.dev, progsize=256)
         self._mount()
         self.start()
@@ -109,24 +114,27 @@ class SimKit:
             vfs.umount(_MOUNT)
         except OSError:
             pass
+        if self.folder:
+            return  # the unix port's root is the host's file system already
         self.view = _Powered(self.dev)
         vfs.mount(vfs.VfsLfs2(self.view, progsize=256), _MOUNT)
 
     def free(self):
-        st = os.statvfs(_MOUNT)
+        st = os.statvfs(self.folder or _MOUNT)
         return st[0] * st[3]
 
     def start(self):
-        spath = _MOUNT + "/settings.json"
+        root = self.folder or _MOUNT
+        spath = root + "/settings.json"
         try:
             os.stat(spath)
         except OSError:
             S.save(spath, S.validate(dict({"board": "sim"}, **self.settings)))
         settings, problem = S.load(spath)
         cfg = {"device": "51a0c0ffee000001", "optics": self.optics, "seed": self.seed + self.boots}
-        self.board = SimBoard(cfg, self.port, self.clock, self.free, self._rand32, self.cell)
+        self.board = self.board_class(cfg, self.port, self.clock, self.free, self._rand32, self.cell)
         self.board.configure(settings)
-        self.lg = Logger(self.board, settings, problem, _MOUNT)
+        self.lg = Logger(self.board, settings, problem, root)
         self.boots += 1
         self.lg.boot()
 
@@ -160,4 +168,19 @@ class SimKit:
         return bytes(self.port.sent)
 
 
-__all__ = ["SimKit", "FixedCell", "PowerCut"]
+class IntegerBoard(SimBoard):
+    """The virtual cell without floating point: fixed counts and integer noise, so that heap measurements see the
+    firmware's own allocations, not the simulator's (MicroPython boxes every float on the heap)."""
+
+    def before_measure(self, now_ms):
+        pass
+
+    def read(self, ch):
+        self._n = (getattr(self, "_n", 1) * 1103515245 + 12345) & 0x7FFFFFFF
+        v = 100 + ((self._n >> 16) & 7)
+        if self._led_state[self._led_of[ch]]:
+            v += 1500
+        return v
+
+
+__all__ = ["SimKit", "FixedCell", "PowerCut", "IntegerBoard"]
