@@ -1,0 +1,247 @@
+"""What leaves the database as files: CSV of raw and derived data, and one self-contained report page per run.
+
+Owns: finding a run by what a user types (its key or its label), the CSV layouts written by ``nightcell export``,
+and the per-run report pages of ``nightcell report`` (HTML with embedded figures, plus each figure as PNG and SVG).
+Figures and HTML pieces come from ``report.py``; the numbers from ``analyse.py``. Every file is written to a
+temporary name beside its target and renamed, so an interrupted export never leaves half a file. Nothing here
+changes the database or talks to a board.
+
+Example::
+
+    with Store.open("class.db", create=False) as store:
+        written = export_csv(store, "out/")
+        pages = run_report(store, resolve_run(store, "fading 1"), "out/")
+"""
+
+from __future__ import annotations
+
+import html
+import io
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Iterable, Sequence
+
+import numpy as np
+
+from . import report as _report
+from .analyse import analyse_run, calibrate_from_store, run_series
+from .errors import AnalysisError, InputError
+from .optics import flag_names
+from .store import Run, Store
+
+__all__ = ["resolve_run", "run_name", "export_csv", "run_report", "Written", "write_atomic"]
+
+
+def resolve_run(store: Store, text: str | None) -> Run:
+    """The run whose key (``device:boot:seq``) or label is ``text``; with None, the only run in the database.
+
+    ``InputError`` (saying what to type) when nothing or more than one run matches.
+    """
+    runs = store.runs()
+    if not runs:
+        raise InputError(f"{store.path} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
+    if text is None:
+        if len(runs) == 1:
+            return runs[0]
+        raise InputError(f"{store.path} holds {len(runs)} runs: name one with --run KEY "
+                         f"(see `nightcell list runs --db {store.path}`)")
+    by_key = [r for r in runs if r.key == text]
+    if by_key:
+        return by_key[0]
+    by_label = [r for r in runs if r.label == text]
+    if len(by_label) == 1:
+        return by_label[0]
+    if len(by_label) > 1:
+        raise InputError(f"{len(by_label)} runs are labelled {text!r}: name one by its key "
+                         f"({', '.join(r.key for r in by_label)})")
+    raise InputError(f"no run {text!r} in {store.path}: give a run's key or label "
+                     f"(see `nightcell list runs --db {store.path}`)")
+
+
+def run_name(run: Run) -> str:
+    """A file name stem for a run: its label and key, sanitised (never a path, never markup)."""
+    label = _report.safe_filename(run.label, default="run")
+    return f"{label}-{_report.safe_filename(run.key.replace(':', '-'))}"
+
+
+def write_atomic(path: Path, data: bytes) -> Path:
+    """Write ``data`` to a temporary file beside ``path``, then rename it over ``path``."""
+    fd, tmp = tempfile.mkstemp(prefix=".nightcell-", suffix=".part", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    return path
+
+
+def _out_dir(out: str | Path) -> Path:
+    p = Path(out)
+    if p.exists() and not p.is_dir():
+        raise InputError(f"{p} is a file: give --out a folder")
+    try:
+        p.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot make folder {p} ({exc}): give --out a folder you may write to") from exc
+    return p
+
+
+@dataclass
+class Written:
+    """Files written and things skipped (with the reason)."""
+
+    files: list[Path] = field(default_factory=list)
+    skipped: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"files": [str(f) for f in self.files], "skipped": list(self.skipped)}
+
+
+def _csv(path: Path, headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> Path:
+    # report.write_csv writes beside the target and renames; on an error its part file is removed here
+    try:
+        return _report.write_csv(path, headers, rows)
+    except BaseException:
+        path.with_name(path.name + ".part").unlink(missing_ok=True)
+        raise
+
+
+SAMPLE_COLUMNS = ("device", "boot", "seq", "channel", "uptime_ms", "wall_clock_unix_s", "late_ms", "flags", "reads",
+                  "dark", "light", "temp_centi")
+MARK_COLUMNS = ("device", "boot", "seq", "uptime_ms", "mark", "source", "label", "value", "channel", "reads", "dark",
+                "light")
+ABSORBANCE_COLUMNS = ("time_s", "absorbance", "flags", "flag_names", "boot", "seq", "blank", "time_basis")
+
+
+def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None, channel: int = 0) -> Written:
+    """Write ``marks.csv`` (every mark with its counts), and per run ``<name>-samples.csv`` (raw rows as stored,
+    sums of ``reads`` ADC reads) and ``<name>-absorbance.csv`` (time from the first sample, absorbance against the
+    run's blank, flags). A run with no blank or no samples is skipped with the reason."""
+    out = _out_dir(out)
+    done = Written()
+    rows = []
+    for m in store.marks():
+        for c, (d, li) in enumerate(zip(m["dark"], m["light"])):
+            rows.append((m["device"], m["boot"], m["seq"], m["uptime_ms"], m["mark"], m["source"], m["label"],
+                         m["value"], c, m["reads"], d, li))
+        if not m["dark"]:
+            rows.append((m["device"], m["boot"], m["seq"], m["uptime_ms"], m["mark"], m["source"], m["label"],
+                         m["value"], "", m["reads"], "", ""))
+    done.files.append(_csv(out / "marks.csv", MARK_COLUMNS, rows))
+    for run in store.runs() if runs is None else runs:
+        name = run_name(run)
+        samples = store.run_samples(run, channel)
+        if not samples:
+            done.skipped.append(f"run {run.key} ({run.label!r}): no samples stored yet")
+            continue
+        done.files.append(_csv(out / f"{name}-samples.csv", SAMPLE_COLUMNS, (
+            (s["device"], s["boot"], s["seq"], s["channel"], s["uptime_ms"],
+             None if s["unix_at_zero"] is None else s["unix_at_zero"] + s["rate"] * s["uptime_ms"] / 1000.0,
+             s["late_ms"], s["flags"], s["reads"], s["dark"], s["light"], s["temp_centi"]) for s in samples)))
+        try:
+            series = run_series(store, run, channel)
+        except AnalysisError as exc:
+            done.skipped.append(f"absorbance of run {run.key} ({run.label!r}): {exc}")
+            continue
+        blank = f"{series['blank'].boot}:{series['blank'].seq}"
+        done.files.append(_csv(out / f"{name}-absorbance.csv", ABSORBANCE_COLUMNS, (
+            (float(t), float(a), int(f), " ".join(flag_names(int(f))), b, s, blank, series["time_basis"])
+            for t, a, f, (b, s) in zip(series["time_s"], series["absorbance"], series["flags"], series["seqs"]))))
+    return done
+
+
+def _figure_files(fig: Any, stem: Path) -> tuple[bytes, list[Path]]:
+    """The figure as PNG bytes (for embedding) and written as ``stem.png`` and ``stem.svg``."""
+    png = _report.figure_png(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="svg", bbox_inches="tight")
+    paths = [write_atomic(stem.with_suffix(".png"), png), write_atomic(stem.with_suffix(".svg"), buf.getvalue())]
+    return png, paths
+
+
+def _html_table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
+    def cell(v: Any) -> str:
+        if isinstance(v, float):
+            return f"{v:.6g}" if np.isfinite(v) else "—"
+        return str(v)
+
+    head = "".join(f"<th>{html.escape(str(h))}</th>" for h in headers)
+    body = "".join("<tr>" + "".join(f"<td>{html.escape(cell(v))}</td>" for v in row) + "</tr>" for row in rows)
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def run_report(store: Store, run: Run, out: str | Path, channel: int = 0) -> Written:
+    """One self-contained HTML page for a run (figures embedded), and its figures as PNG and SVG beside it.
+
+    The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AIC). When its
+    device recorded standards the calibration is fitted, shown, and used to give concentrations.
+    """
+    import matplotlib.pyplot as plt
+
+    out = _out_dir(out)
+    done = Written()
+    cal = None
+    cal_note = ""
+    try:
+        cal = calibrate_from_store(store, run.device, channel)
+    except AnalysisError as exc:
+        cal_note = f"No calibration: {exc}"
+    analysis = analyse_run(store, run, channel=channel, calibration=cal)
+    name = run_name(run)
+    best = analysis.fits[analysis.best]
+
+    fig, (ax, rax) = plt.subplots(2, 1, figsize=(6.4, 6.0), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
+    try:
+        _report.plot_run(analysis.time_s, analysis.absorbance, best, ax=ax, resid_ax=rax, flags=analysis.flags,
+                         title=run.label)
+        run_png, paths = _figure_files(fig, out / f"{name}-run")
+    finally:
+        plt.close(fig)
+    done.files += paths
+    sections: list[dict[str, Any]] = [{
+        "title": f"Run {run.label or run.key}",
+        "text": (f"Device {run.device}, run {run.key}. Time basis: {analysis.time_basis}. "
+                 f"Blank: mark {analysis.blank.boot}:{analysis.blank.seq} ({analysis.blank.rule}). "
+                 f"{len(analysis.time_s)} readings, {int(np.count_nonzero(analysis.flags))} flagged and left out "
+                 f"of the fits. Best rate law by AIC: {analysis.best}."),
+        "figures": [run_png],
+    }]
+    comparison = _html_table(
+        ["rate law", "AIC", "residual SD", "k or rate", "standard error"],
+        [(m, f.aic, f.residual_sd, f.values.get("k", f.values.get("rate", float("nan"))),
+          f.stderr.get("k", f.stderr.get("rate", float("nan")))) for m, f in sorted(
+            analysis.fits.items(), key=lambda kv: kv[1].aic)])
+    sections.append({"title": "Rate laws compared", "html": comparison})
+    half = best.extra.get("half_life_s")
+    sections.append({"title": f"Best fit: {analysis.best}", "html": _report.fit_table(best),
+                     "text": f"Half-life {half:.4g} s." if isinstance(half, float) and np.isfinite(half) else ""})
+    if cal is not None:
+        fig, (ax, rax) = plt.subplots(2, 1, figsize=(6.4, 6.0), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
+        try:
+            _report.plot_calibration(cal, ax=ax, resid_ax=rax)
+            ax.set_title(f"Calibration of {run.device}")
+            cal_png, paths = _figure_files(fig, out / f"{name}-calibration")
+        finally:
+            plt.close(fig)
+        done.files += paths
+        start_c = analysis.concentration[0] if analysis.concentration is not None else float("nan")
+        sections.append({"title": "Calibration", "html": _report.fit_table(cal),
+                         "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; concentration at the "
+                                 f"first reading {start_c:.4g} (units of the standards' values).",
+                         "figures": [cal_png]})
+    elif cal_note:
+        sections.append({"title": "Calibration", "text": cal_note})
+    if analysis.warnings:
+        sections.append({"title": "Warnings", "text": "\n\n".join(analysis.warnings)})
+    provenance = {"database": store.path, "run": run.key, "device": run.device, "label": run.label,
+                  "channel": channel, "blank": f"{analysis.blank.boot}:{analysis.blank.seq}",
+                  "blank rule": analysis.blank.rule, "first reading": "%d:%d" % analysis.seqs[0],
+                  "last reading": "%d:%d" % analysis.seqs[-1]}
+    page = _report.html_report(f"nightcell run report — {run.label or run.key}", sections, provenance)
+    done.files.insert(0, write_atomic(out / f"{name}.html", page.encode("utf-8")))
+    return done
+
