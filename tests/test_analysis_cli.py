@@ -1,4 +1,5 @@
-"""The CSV analysis commands: wiring, --json, --out, and one-line errors with exit status 1."""
+"""The analysis commands on CSV files: wiring, --json, --out, and one-line errors with their documented exit codes
+(2 for a file or value that cannot be used, 5 when the data cannot support the fit)."""
 
 from __future__ import annotations
 
@@ -99,28 +100,28 @@ def test_orders_and_arrhenius(group, tmp_path):
 
 
 @pytest.mark.parametrize(
-    "command, header, rows, message",
+    "command, header, rows, message, code",
     [
-        ("calibrate", "conc,absorbance", [(1, 0.1), (2, 0.2), (3, 0.3)], "has no column 'concentration'"),
+        ("calibrate", "conc,absorbance", [(1, 0.1), (2, 0.2), (3, 0.3)], "has no column 'concentration'", 2),
         ("calibrate", "concentration,absorbance", [(1, 0.1), (2, "abc"), (3, 0.3)],
-         "line 3, column absorbance: 'abc' is not a number; fix or delete that row"),
-        ("calibrate", "concentration,absorbance", [(1, 0.1), (2, "nan"), (3, 0.3)], "not a finite number"),
-        ("calibrate", "concentration,absorbance", [(1, 0.1), (2, 0.2)], "needs at least 3"),
+         "line 3, column absorbance: 'abc' is not a number; fix or delete that row", 2),
+        ("calibrate", "concentration,absorbance", [(1, 0.1), (2, "nan"), (3, 0.3)], "not a finite number", 2),
+        ("calibrate", "concentration,absorbance", [(1, 0.1), (2, 0.2)], "needs at least 3", 2),
         ("calibrate", "concentration,absorbance", [(1, 0.1), (1, 0.2), (1, 0.3)],
-         "prepare standards at more levels"),
+         "prepare standards at more levels", 5),
         ("rate", "time_s,absorbance", [(0, 0.5), (10, 0.4), (5, 0.3), (20, 0.2), (30, 0.1)],
-         "sort the readings by time"),
-        ("rate", "time_s,absorbance", [(0, 0.5), (10, 0.4), (10, 0.3), (20, 0.2), (30, 0.1)], "repeats"),
-        ("rate", "time_s,absorbance", [(t, 0.5) for t in range(0, 100, 10)], "does not change"),
-        ("orders", "initial_rate,ketone", [(1, 1), (2, 2), (3, 3), (4, 4)], "conc_<name>"),
-        ("arrhenius", "temperature_K,k", [(300, 1e-3), (300, 2e-3), (300, 3e-3)], "different temperatures"),
+         "sort the readings by time", 2),
+        ("rate", "time_s,absorbance", [(0, 0.5), (10, 0.4), (10, 0.3), (20, 0.2), (30, 0.1)], "repeats", 2),
+        ("rate", "time_s,absorbance", [(t, 0.5) for t in range(0, 100, 10)], "does not change", 5),
+        ("orders", "initial_rate,ketone", [(1, 1), (2, 2), (3, 3), (4, 4)], "conc_<name>", 2),
+        ("arrhenius", "temperature_K,k", [(300, 1e-3), (300, 2e-3), (300, 3e-3)], "different temperatures", 5),
     ],
 )
-def test_bad_csv_gives_one_line_and_exit_1(group, tmp_path, command, header, rows, message):
+def test_bad_csv_gives_one_line_and_its_exit_code(group, tmp_path, command, header, rows, message, code):
     csv_file = _write(tmp_path / "bad.csv", header, rows)
     out = tmp_path / "never.json"
     res = _invoke(group, command, csv_file, "--out", out)
-    assert res.exit_code == 1
+    assert res.exit_code == code
     assert message in res.output
     assert "Traceback" not in res.output and res.output.count("\n") == 1
     assert not out.exists()
@@ -131,5 +132,5 @@ def test_nonconvergent_rate_fit_is_a_clean_error(group, tmp_path):
     # a plateau model on a straight line has no plateau to find
     csv_file = _write(tmp_path / "line.csv", "time_s,absorbance", [(t, 0.01 * t) for t in range(0, 60, 10)])
     res = _invoke(group, "rate", csv_file, "--model", "first_order_plateau")
-    assert res.exit_code == 1 and "Traceback" not in res.output
+    assert res.exit_code == 5 and "Traceback" not in res.output
     assert res.output.startswith("Error: first_order_plateau:")
