@@ -221,8 +221,11 @@ def test_sigkill_power_cut_keeps_samples_older_than_the_window(tmp_path, interp)
     sim = SimProcess(_interp(interp), cfg)
     try:
         hello = sim.ok("hello")
-        assert hello["boot"] == 2
+        assert hello["boot"] == 2 and hello["running"] is True  # the run carries on after the power cut
+        time.sleep(0.3)
         recs = sim.journal()
+        resumed = [r for r in recs if r.boot == 2 and r.kind == F.KIND_MARK and r.fields["mark"] == 4]
+        assert resumed and resumed[0].fields["source"] == 2  # marked as resumed by the board itself
         seqs = {s.seq for r in recs if r.boot == 1 for s in r.samples()}
         # at most the durability window (3 samples at 1 s) plus the one in flight may be lost
         assert taken - max(seqs) <= 4, (taken, max(seqs))

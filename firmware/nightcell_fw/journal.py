@@ -99,6 +99,12 @@ class Journal:
         finally:
             f.close()
 
+    def forget(self, name):
+        try:
+            os.remove(self._p(name))
+        except OSError:
+            pass
+
     def next_boot(self):
         """Count this start: the boot counter on flash, never below a boot already in the journal."""
         b = self._get_small("boot")
@@ -115,7 +121,7 @@ class Journal:
             os.mkdir(self.root)
         except OSError:
             pass
-        for junk in ("tmp", "id.new", "boot.new"):
+        for junk in ("tmp", "id.new", "boot.new", "run.new"):
             if _exists(self._p(junk)):
                 os.remove(self._p(junk))
         starts = []

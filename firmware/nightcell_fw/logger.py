@@ -53,6 +53,7 @@ class Logger:
         self.last_health = 0
         self.missed_full = 0
         self.stop_mark = None
+        self.resume_label = None  # a run that was going when the power went: its start mark is written first
         self.errors = 0
         self.settings_crc = 0
         self._apply()
@@ -180,6 +181,11 @@ class Logger:
         if j.full:
             self._full()
         self.last_health = self.now()
+        label = j._get_small("run")
+        if label is not None:
+            # the power went during a run: carry on logging (marked as resumed by the board itself)
+            self.resume_label = label.decode("utf-8", "replace") if label else ""
+            self._begin()
 
     # -- the run ----------------------------------------------------------------------------------------------------
 
@@ -189,12 +195,16 @@ class Logger:
         self.close_block()
         seq = self.seq
         self.write(R.mark(self.enc, self.boot_id, seq, self.now(), R.MARK_RUN_START, source, 0, (), (), label, ""))
+        self.journal._put_small("run", label.encode("utf-8"))  # so that a power cut does not end the run
+        self._begin()
+        return seq
+
+    def _begin(self):
         self.running = True
         self.signals.running = True
         self.sampler.restart()
         self.board.leds_on(True)  # warm-up: the LED settles before the first sample
         self.sch.start(self.now() + self.settings["warmup_ms"], self.settings["interval_ms"])
-        return seq
 
     def stop_run(self, source):
         if not self.running:
@@ -208,6 +218,8 @@ class Logger:
         self.close_block()
         seq = self.seq
         self.write(R.mark(self.enc, self.boot_id, seq, self.now(), R.MARK_RUN_STOP, source, 0, (), (), "", ""))
+        self.journal.forget("run")
+        self.resume_label = None
         self.stop_mark = seq
         return seq
 
@@ -226,6 +238,10 @@ class Logger:
         if self.journal.full:
             self.missed_full += 1
             return
+        if self.resume_label is not None:
+            self.write(R.mark(self.enc, self.boot_id, self.seq, t, R.MARK_RUN_START, 2, 0, (), (),
+                              self.resume_label, "resumed"))
+            self.resume_label = None
         blk = self.block
         s = self.settings
         if not blk.is_open():
