@@ -492,6 +492,7 @@ def watch(port: str, db: Path, every: float, polls: int | None) -> None:
             if store is not None:
                 store.close()
         history = live_watch(board, blank, info=info, every=every, polls=polls, console=Console())
+    click.echo("")
     click.echo(f"stopped watching after {len(history)} polls; the board goes on logging"
                if info.get("running") or (history and history[-1].get("running")) else
                f"stopped watching after {len(history)} polls")
@@ -535,7 +536,7 @@ def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) ->
         table.add_column(c, overflow="fold")
     for row in rows:
         table.add_row(*[Text("" if v is None else str(v)) for v in row])
-    Console(file=click.get_text_stream("stdout"), highlight=False).print(table)
+    Console(highlight=False).print(table)
 
 
 @cli.group("list")
