@@ -23,8 +23,9 @@ from nightcell_fw import records as R
 
 CUTS = int(sys.argv[1])
 SEED = int(sys.argv[2])
-DUMP = sys.argv[3] if len(sys.argv) > 3 else None
-WINDOW = 3000
+DUMP = sys.argv[3] if len(sys.argv) > 3 and sys.argv[3] != "-" else None
+INTERVAL = int(sys.argv[4]) if len(sys.argv) > 4 else 1000
+WINDOW = int(sys.argv[5]) if len(sys.argv) > 5 else 3000
 MARGIN = 200        # board ms a mark or a reply may delay the schedule
 random.seed(SEED)
 
@@ -67,7 +68,7 @@ def samples(rec):
 truth = {}      # (boot, seq) -> (scheduled ms on the virtual clock, dark, light)
 host = {}       # what the host has read and stored before acknowledging
 open_keys = {}  # samples neither with the host nor excused by an earlier cut (lost inside its window)
-kit = SimKit(blocks=40, settings={"interval_ms": 1000, "durability_ms": WINDOW, "segment_bytes": 2048,
+kit = SimKit(blocks=40, settings={"interval_ms": INTERVAL, "durability_ms": WINDOW, "segment_bytes": 2048,
                                   "warmup_ms": 0, "marker_samples": 2, "reads": 4, "settle_ms": 2}, cuts=True)
 
 def hook():
@@ -136,7 +137,7 @@ def sync_and_ack():
 def action():
     x = random.random()
     if x < 0.45:
-        kit.run_ms(random.randint(500, 8000))
+        kit.run_ms(random.randint(INTERVAL // 2, 8 * INTERVAL))
     elif x < 0.55:
         kit.request(b"91 note n%d" % random.randint(0, 99))
     elif x < 0.62:
@@ -204,6 +205,8 @@ print("boot_cuts=%d" % boot_cuts)
 print("boots=%d" % kit.lg.boot_id)
 print("samples_taken=%d" % len(truth))
 print("worst_lost_ms=%d" % worst)
+print("window_ms=%d" % WINDOW)
+print("interval_ms=%d" % INTERVAL)
 print("segments=%d" % len(segments))
 print("tail=%d" % kit.lg.journal.tail)
 print("head=%d" % kit.lg.journal.head)
@@ -220,8 +223,9 @@ if DUMP:
 """
 
 
-def run_campaign(cuts: int, seed: int, dump: str | None = None) -> dict[str, str]:
-    args = [str(cuts), str(seed)] + ([dump] if dump else [])
+def run_campaign(cuts: int, seed: int, dump: str | None = None, interval_ms: int = 1000,
+                 window_ms: int = 3000) -> dict[str, str]:
+    args = [str(cuts), str(seed), dump or "-", str(interval_ms), str(window_ms)]
     return results(run_mp(CAMPAIGN, *args, timeout=1800))
 
 
