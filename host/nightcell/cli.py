@@ -249,7 +249,11 @@ def _check_text(what: str, text: str, verb: str, max_bytes: int | None = None) -
     if max_bytes is not None and len(text.encode("utf-8")) > max_bytes:
         raise InputError(f"{what} {text!r} is {len(text.encode('utf-8'))} bytes; the board keeps at most "
                          f"{max_bytes}: shorten it")
-    if len(encode_request(65535, verb, "-0.000000000000000000000000001", quote_text(text))) > 250:
+    try:
+        too_long = len(encode_request(65535, verb, "-0.000000000000000000000000001", quote_text(text))) > 250
+    except ValueError:  # the codec refuses lines longer than the protocol allows
+        too_long = True
+    if too_long:
         raise InputError(f"{what} is too long for one request to the board: keep it under about 60 characters")
     return text
 
