@@ -62,7 +62,7 @@ def resolve_run(store: Store, text: str | None) -> Run:
 
 def run_name(run: Run) -> str:
     """A file name stem for a run: its label and key, sanitised (never a path, never markup)."""
-    label = _report.safe_filename(run.label, default="run")
+    label = _report.safe_filename(run.label, default="run").strip("-_") or "run"
     return f"{label}-{_report.safe_filename(run.key.replace(':', '-'))}"
 
 

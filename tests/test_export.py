@@ -1,0 +1,192 @@
+"""The database commands (list, report, export, rate) on a database synced from a simulated board, with a run label
+that is HTML and SQL at once: it is stored as text, shown inert everywhere, and every table survives. Files are
+written whole or not at all; a run the data cannot support is a clean exit 5."""
+
+from __future__ import annotations
+
+import csv
+import json
+import sqlite3
+import time
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from nightcell import export as export_module
+from nightcell.cli import cli
+from nightcell.link import Board
+from nightcell.simulate import SimulatedBoard
+
+HOSTILE = "<script>alert(1)</script>'; DROP TABLE samples;--"
+RAW_TABLES = ("boots", "samples", "marks", "mark_counts", "anchors", "events", "settings_records", "health")
+
+
+def _cli(*args, env=None):
+    return CliRunner().invoke(cli, [str(a) for a in args], env={"COLUMNS": "250", **(env or {})})
+
+
+@pytest.fixture(scope="module")
+def db(tmp_path_factory) -> Path:
+    """A run with no blank before it, then a blank and a run with the hostile label, synced through the CLI."""
+    work = tmp_path_factory.mktemp("hostile")
+    sim = SimulatedBoard(work / "board", device="5ec0000000000003", speed=20.0, seed=8,
+                         settings={"interval_ms": 1000, "durability_ms": 1000})
+    sim.start()
+    env = {"NIGHTCELL_PORT": sim.url}
+    try:
+        deadline = time.monotonic() + 20
+        while _cli("hello", env=env).exit_code != 0:
+            assert time.monotonic() < deadline, sim.stderr_text()
+            time.sleep(0.1)
+        for args in (("start", "--label", "before any blank"), ("stop",), ("dark",), ("blank", "--label", HOSTILE)):
+            if args == ("stop",):
+                time.sleep(0.4)
+            r = _cli(*args, env=env)
+            assert r.exit_code == 0, r.output
+        sim.set_cell({"reaction": {"a0": 0.8, "a_inf": 0.0, "k_per_s": 0.01}})
+        assert _cli("start", "--label", HOSTILE, env=env).exit_code == 0
+        time.sleep(1.0)  # 20 board-seconds: about 20 samples
+        for args in (("stop",), ("sync", "--db", work / "hostile.db")):
+            r = _cli(*args, env=env)
+            assert r.exit_code == 0, r.output
+    finally:
+        sim.stop()
+    return work / "hostile.db"
+
+
+def _key(db: Path, label: str) -> str:
+    runs = json.loads(_cli("list", "runs", "--db", db, "--json").output)
+    return next(r["key"] for r in runs if r["label"] == label)
+
+
+def test_hostile_label_is_stored_as_text_and_the_tables_survive(db):
+    con = sqlite3.connect(db)
+    labels = [r[0] for r in con.execute("SELECT label FROM marks WHERE mark = 'run_start' ORDER BY seq")]
+    assert labels == ["before any blank", HOSTILE]
+    tables = {r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+    assert set(RAW_TABLES) <= tables
+    assert con.execute("SELECT count(*) FROM samples").fetchone()[0] >= 10
+    con.close()
+
+
+def test_listings_show_the_label_as_typed(db):
+    for what in ("runs", "blanks"):
+        r = _cli("list", what, "--db", db)
+        assert r.exit_code == 0, r.output
+        assert HOSTILE in r.output, r.output
+    data = json.loads(_cli("list", "runs", "--db", db, "--json").output)
+    assert [d["label"] for d in data] == ["before any blank", HOSTILE]
+    assert data[1]["samples"] >= 10 and data[1]["state"] == "stopped"
+    devices = json.loads(_cli("list", "devices", "--db", db, "--json").output)
+    assert devices[0]["device"] == "5ec0000000000003" and devices[0]["runs"] == 2
+
+
+def test_report_escapes_the_label_and_names_files_safely(db, tmp_path):
+    r = _cli("report", "--db", db, "--run", HOSTILE, "--out", tmp_path)
+    assert r.exit_code == 0, r.output
+    pages = list(tmp_path.glob("*.html"))
+    assert len(pages) == 1
+    assert all(set(p.name) <= set("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789._-")
+               for p in tmp_path.iterdir())
+    page = pages[0].read_text(encoding="utf-8")
+    assert "<script" not in page.lower()
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;&#x27;; DROP TABLE samples;--" in page
+    assert {p.suffix for p in tmp_path.iterdir()} == {".html", ".png", ".svg"}
+    svg = next(tmp_path.glob("*-run.svg")).read_text(encoding="utf-8")
+    assert "<script" not in svg.lower()
+
+
+def test_report_all_skips_a_run_without_blank_and_says_why(db, tmp_path):
+    r = _cli("report", "--db", db, "--all", "--out", tmp_path, "--json")
+    assert r.exit_code == 0, r.output
+    data = json.loads(r.output)
+    assert len([f for f in data["files"] if f.endswith(".html")]) == 1
+    assert len(data["skipped"]) == 1 and "before any blank" in data["skipped"][0]
+    assert "take a blank first" in data["skipped"][0]
+
+
+def test_rate_on_a_run_without_blank_is_exit_5_and_saves_nothing(db):
+    before = sqlite3.connect(db).execute("SELECT count(*) FROM results").fetchone()[0]
+    r = _cli("rate", "--db", db, "--run", "before any blank")
+    assert r.exit_code == 5 and "has no blank before" in r.output and "nightcell blank" in r.output
+    assert sqlite3.connect(db).execute("SELECT count(*) FROM results").fetchone()[0] == before
+
+
+def test_rate_by_key_saves_a_result_naming_its_inputs(db):
+    key = _key(db, HOSTILE)
+    r = _cli("rate", "--db", db, "--run", key, "--model", "first_order", "--json")
+    assert r.exit_code == 0, r.output
+    data = json.loads(r.output)
+    row = sqlite3.connect(db).execute("SELECT kind, label, inputs_json FROM results WHERE id = ?",
+                                      (data["result_id"],)).fetchone()
+    assert row[0] == "rate" and row[1] == HOSTILE
+    inputs = json.loads(row[2])
+    assert inputs["run"] == key and inputs["blank"] and inputs["blank_rule"]
+    assert HOSTILE in _cli("list", "results", "--db", db).output
+
+
+def test_export_writes_raw_and_derived_csv(db, tmp_path):
+    r = _cli("export", "--db", db, "--out", tmp_path, "--json")
+    assert r.exit_code == 0, r.output
+    data = json.loads(r.output)
+    names = sorted(Path(f).name for f in data["files"])
+    assert "marks.csv" in names and len(names) == 4  # marks, two sample files, one absorbance file
+    assert any("before any blank" in s and "absorbance" in s for s in data["skipped"])
+    with open(tmp_path / "marks.csv", newline="", encoding="utf-8") as fh:
+        marks = list(csv.DictReader(fh))
+    assert HOSTILE in {m["label"] for m in marks}  # CSV quoting keeps the label whole
+    samples = next(tmp_path.glob("script_alert_1_script_DROP_TABLE_samples-*-samples.csv"))
+    with open(samples, newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    con = sqlite3.connect(db)
+    key = _key(db, HOSTILE).split(":")
+    stored = con.execute("SELECT seq, dark, light FROM samples WHERE device = ? AND boot = ? AND seq > ? "
+                         "ORDER BY seq", (key[0], int(key[1]), int(key[2]))).fetchall()
+    # raw counts leave the database unchanged (up to the run's stop mark)
+    assert [(int(r["seq"]), int(r["dark"]), int(r["light"])) for r in rows] == stored[:len(rows)]
+    absorbance = next(tmp_path.glob("*-absorbance.csv"))
+    with open(absorbance, newline="", encoding="utf-8") as fh:
+        derived = list(csv.DictReader(fh))
+    assert len(derived) == len(rows) and float(derived[0]["time_s"]) == 0.0
+    assert 0.5 < float(derived[0]["absorbance"]) < 0.85  # the reaction started at A = 0.8 (invented for this test)
+
+
+def test_write_atomic_leaves_nothing_when_the_rename_fails(tmp_path, monkeypatch):
+    target = tmp_path / "page.html"
+    target.write_text("old page")
+
+    def broken(src, dst):
+        raise OSError("disk full")
+
+    monkeypatch.setattr(export_module.os, "replace", broken)
+    with pytest.raises(OSError):
+        export_module.write_atomic(target, b"new page")
+    assert target.read_text() == "old page"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["page.html"]
+
+
+@pytest.mark.parametrize("args, code, message", [
+    (["list", "runs", "--db", "missing.db"], 2, "no database at missing.db"),
+    (["report", "--db", "DB", "--run", "no such run", "--out", "OUT"], 2, "no run 'no such run'"),
+    (["report", "--db", "DB", "--run", "x", "--all", "--out", "OUT"], 2, "give --run or --all, not both"),
+    (["report", "--db", "DB", "--out", "OUT"], 2, "holds 2 runs: name one with --run KEY"),
+    (["calibrate", "--db", "DB"], 5, "has no standards: record some with `nightcell standard`"),
+    (["calibrate", "--db", "DB", "--device", "nope"], 2, "no device 'nope'"),
+    (["rate", "--db", "DB", "--run", "x", "--t-start", "3"], 2, "--t-start and --a-end apply to CSV files"),
+    (["rate"], 2, "give a CSV file (time_s,absorbance) or --db DATABASE"),
+])
+def test_database_command_errors(db, tmp_path, args, code, message):
+    args = [str(db) if a == "DB" else str(tmp_path / "out") if a == "OUT" else a for a in args]
+    r = _cli(*args)
+    assert r.exit_code == code, r.output
+    assert message in r.output and "Traceback" not in r.output
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+
+
+def test_not_a_database_is_exit_4(tmp_path):
+    bad = tmp_path / "notes.db"
+    bad.write_text("this is not SQLite")
+    r = _cli("list", "runs", "--db", bad)
+    assert r.exit_code == 4 and "Traceback" not in r.output
+    assert bad.read_text() == "this is not SQLite"
