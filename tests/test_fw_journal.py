@@ -49,8 +49,8 @@ def sample_seqs(recs):
 """
 
 FULL = COMMON + r"""
-kit = SimKit(blocks=20, settings={"interval_ms": 1000, "warmup_ms": 0, "durability_ms": 1000, "segment_bytes": 2048,
-                                  "reads": 64})
+kit = SimKit(blocks=24, settings={"interval_ms": 1000, "warmup_ms": 0, "durability_ms": 1000, "segment_bytes": 2048,
+                                  "reads": 256})
 kit.request(b"1 start")
 t = 0
 while not kit.lg.journal.full and t < 400:
