@@ -73,6 +73,7 @@ class Cell:
         self.version = None
         self.spec = {"absorbance": 0.0}
         self.t0 = 0
+        self.unix0 = 0.0
         self._stamp = None
 
     def check(self, now_ms):
@@ -96,6 +97,7 @@ class Cell:
         self.version = spec.get("version")
         self.spec = spec
         self.t0 = now_ms
+        self.unix0 = time.time()
 
     def absorbance(self, ch, now_ms):
         s = self.spec
@@ -104,8 +106,9 @@ class Cell:
         r = s.get("reaction")
         if r:
             t = (now_ms - self.t0) / 1000
-            if "since_unix" in r:  # the cuvette's own clock: the reaction goes on through a power cut
-                t = (time.time() - r["since_unix"]) * self.speed
+            if "since_unix" in r:  # the reaction goes on through a power cut: place it once on the computer's
+                # clock, then follow the board's, so a loaded CPU does not jitter each reading's reaction time
+                t += (self.unix0 - r["since_unix"]) * self.speed
             a0 = _pick(r.get("a0", 0.0), ch)
             ainf = _pick(r.get("a_inf", 0.0), ch)
             return ainf + (a0 - ainf) * math.exp(-r.get("k_per_s", 0.0) * t)
