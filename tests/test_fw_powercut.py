@@ -112,13 +112,15 @@ def check(t_cut, boot):
                 assert k in truth, "sample %r was never taken" % (k,)
                 assert truth[k][1:] == v, "sample %r counts changed" % (k,)
     lost = 0
+    count = 0
     for k in list(open_keys):
         if k not in seen and k not in host:
             age = t_cut - truth[k][0]
+            count += 1
             del open_keys[k]  # lost young in this cut: it may not come back later either
             assert age < WINDOW + MARGIN, "sample %r taken %d ms before the cut is lost" % (k, age)
             lost = max(lost, age)
-    return lost, len(recs)
+    return lost, count, len(recs)
 
 def sync_and_ack():
     recs = read_all()
@@ -162,6 +164,7 @@ hook()
 kit.request(b"1 start")
 cuts = torn = boot_cuts = 0
 segments = {}
+worst_count = 0
 worst = 0
 max_recs = 0
 while cuts < CUTS:
@@ -189,7 +192,8 @@ while cuts < CUTS:
             boot_cuts += 1
             kit.dev.cut_at = -1
     hook()
-    lost, n = check(t_cut, kit.lg.boot_id)
+    lost, count, n = check(t_cut, kit.lg.boot_id)
+    worst_count = max(worst_count, count)
     for st in kit.lg.journal.starts:
         segments[st] = 1
     worst = max(worst, lost)
@@ -206,6 +210,7 @@ print("boots=%d" % kit.lg.boot_id)
 print("samples_taken=%d" % len(truth))
 print("worst_lost_ms=%d" % worst)
 print("window_ms=%d" % WINDOW)
+print("worst_lost_samples=%d" % worst_count)
 print("interval_ms=%d" % INTERVAL)
 print("segments=%d" % len(segments))
 print("tail=%d" % kit.lg.journal.tail)
