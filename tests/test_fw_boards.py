@@ -264,3 +264,54 @@ for bad in ({"interval_ms": 10}, {"reads": 0}, {"colour": 1}, {"channels": []}, 
     assert msgs[0] == "interval_ms must be a whole number from 200 to 86400000, not 10"
     assert msgs[2].startswith("unknown setting \"colour\": the settings are board, button_pin, channels")
     assert msgs[7] == "board must be one of pico, pico2, esp32, sim, not \"uno\""
+
+
+PROBE_AND_CHANNELS = FAKES + r"""
+import binascii
+class OneWire:
+    def __init__(self, pin): self.pin = pin
+class DS18X20:
+    def __init__(self, ow): self.ow = ow
+    def scan(self): return [b"\x28\x01\x02\x03\x04\x05\x06\x07"]
+    def convert_temp(self): pass
+    def read_temp(self, rom): return 23.456
+class OW: OneWire = OneWire
+class DS: DS18X20 = DS18X20
+from boards.pico import PicoBoard
+from nightcell_fw import settings as S
+from nightcell_fw.logger import Logger
+s = S.validate({"temp_pin": 22, "reference_adc": 27, "warmup_ms": 0, "interval_ms": 1000,
+                "channels": [{"name": "main", "led": 15, "adc": 26}, {"name": "second", "led": 14, "adc": 26}]})
+b = PicoBoard(Machine(), Port(), Clock, OS(), onewire=OW, ds18x20=DS)
+b.configure(s)
+lg = Logger(b, s, None, "/flash")
+lg.boot()
+lg.start_run(0, "")
+t0 = Clock.t
+while Clock.t - t0 < 10000:
+    lg.run(1)
+lg.close_block()
+buf = bytearray(4096)
+start, n = lg.journal.read(0, 4096, memoryview(buf))
+print("journal=" + binascii.hexlify(buf[:n]).decode())
+print("adcs=" + json.dumps(ADC.made))
+"""
+
+
+def test_probe_temperature_second_led_and_reference_channel_are_journaled():
+    from nightcell import frames as F
+
+    res = results(run_mp(PROBE_AND_CHANNELS))
+    recs = list(F.iter_records(bytes.fromhex(res["journal"]), 0))  # decoded by the host's reference codec
+    blocks = [r for r in recs if r.kind == F.KIND_SAMPLES]
+    assert blocks and all(r.fields["channels"] == 3 and r.fields["options"] == 1 for r in blocks)
+    samples = [s for r in blocks for s in r.samples()]
+    assert len(samples) >= 8
+    # the first reading comes before the first conversion has finished; after that, 23.456 °C in centi-degrees
+    assert samples[-1].temp_centi == 2346
+    for smp in samples:
+        # the stand-in photodiode on GP26 sees light only while LED GP15 is lit: main lit, second dark, and the
+        # reference (GP27) read while the first channel's LED is on
+        assert smp.light[0] == 16 * 3000 and smp.light[1] == 16 * 200 and smp.light[2] == 16 * 3000
+        assert smp.dark == [16 * 200] * 3
+    assert json.loads(res["adcs"]) == [26, 26, 27, 4]
