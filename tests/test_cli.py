@@ -6,7 +6,11 @@ from nightcell.cli import cli
 
 
 def _all_commands(group, prefix=()):
-    for name, cmd in group.commands.items():
+    import click
+
+    ctx = click.Context(group)
+    for name in group.list_commands(ctx):  # loads the commands other rooms register
+        cmd = group.get_command(ctx, name)
         yield prefix + (name,), cmd
         if hasattr(cmd, "commands"):
             yield from _all_commands(cmd, prefix + (name,))
@@ -15,7 +19,7 @@ def _all_commands(group, prefix=()):
 def test_every_command_has_help_text_and_an_example():
     for path, cmd in _all_commands(cli):
         assert cmd.help and cmd.help.strip(), f"{' '.join(path)} has no help text"
-        assert "Example" in cmd.help or hasattr(cmd, "commands"), f"{' '.join(path)} has no example"
+        assert "Example:" in cmd.help, f"{' '.join(path)} has no example"
 
 
 def test_port_that_does_not_exist():
@@ -40,3 +44,15 @@ def test_demo_refuses_a_non_empty_folder(tmp_path):
     assert "not empty" in r.output and "--force" in r.output
     assert (tmp_path / "mine.txt").read_text() == "keep me"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["mine.txt"]
+
+
+def test_help_lists_the_exit_codes():
+    r = CliRunner().invoke(cli, ["--help"])
+    assert r.exit_code == 0
+    for line in ("2  bad input", "3  board", "4  database", "5  analysis"):
+        assert line in r.output
+
+
+def test_an_unknown_command_is_a_usage_error():
+    r = CliRunner().invoke(cli, ["calibrat"])
+    assert r.exit_code == 2 and "No such command 'calibrat'" in r.output

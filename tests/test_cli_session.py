@@ -43,6 +43,7 @@ class Step:
 
 
 def run_session(workdir: Path, *, interval_s: float = 0.5, run_s: float = 8.0, watch_polls: int = 2,
+                watch_every: float = 1.0,
                 label: str = "dye fading", db_name: str = "bench.db") -> tuple[list[Step], SimulatedBoard]:
     """Run the session in ``workdir`` against a fresh simulated board (real time: speed 1); returns every step."""
     sim = SimulatedBoard(workdir / "board", device="5e55000000000001", speed=1.0, seed=11,
@@ -79,7 +80,7 @@ def run_session(workdir: Path, *, interval_s: float = 0.5, run_s: float = 8.0, w
                                    "since_unix": time.time()}})
         run("start", "--label", label)
         time.sleep(2.0)
-        run("watch", "--every", "1", "--polls", str(watch_polls))
+        run("watch", "--every", f"{watch_every:g}", "--polls", str(watch_polls))
         run("note", "stirred once")
         sim.unplug()  # the host goes away; the board logs on its own
         time.sleep(run_s)
@@ -191,5 +192,6 @@ if __name__ == "__main__":  # capture the README's session
 
     with tempfile.TemporaryDirectory() as d:
         steps, _ = run_session(Path(d), interval_s=float(sys.argv[1]) if len(sys.argv) > 1 else 2.0,
-                               run_s=float(sys.argv[2]) if len(sys.argv) > 2 else 60.0)
+                               run_s=float(sys.argv[2]) if len(sys.argv) > 2 else 60.0, watch_polls=4,
+                               watch_every=2.0)
         print("\n\n".join(s.shown() for s in steps))

@@ -37,9 +37,14 @@ def test_journal_fill_and_time_until_full_from_head_growth():
     statuses = [_status(i, 1000, head=10_000 + 100 * i, uptime_ms=10_000 * i, used=10_000 + 100 * i,
                         free=500_000 - 100 * i) for i in range(5)]
     fill = journal_fill(statuses)
-    # 400 bytes over 40 s = 10 bytes/s; 499 600 bytes free → 49 960 s
+    # from the first block that arrived (i = 1) to the last (i = 4): 300 bytes over 30 s = 10 bytes/s;
+    # 499 600 bytes free → 49 960 s
     assert fill["bytes_per_s"] == pytest.approx(10.0)
     assert fill["seconds_left"] == pytest.approx(49_960.0)
+    # blocks of 480 bytes every 48 s, polled every 10 s: the rate is 10 bytes/s whatever the polls' phase
+    blocky = [_status(i, 1000, head=10_000 + 480 * ((10 * i + 7) // 48), uptime_ms=10_000 * i) for i in range(30)]
+    assert journal_fill(blocky)["bytes_per_s"] == pytest.approx(10.0)
+    assert journal_fill(blocky[:6])["seconds_left"] is None  # one block arrived: not yet
     assert fill["fraction"] == pytest.approx(10_400 / 510_000)
     # a board that restarted (uptime went back) or a new journal (head went back): only the statuses after it count
     restarted = statuses + [_status(9, 1000, head=10_500, uptime_ms=500, used=10_500, free=499_500)]

@@ -124,7 +124,7 @@ class _Cli(click.Group):
 def cli() -> None:
     """nightcell: log a colorimeter cell unattended, then sync, analyse and report.
 
-    Start with `nightcell demo` (no hardware needed). A session: `boards` to find the board, `setup`, `clock`,
+    Start with `nightcell demo` (no hardware needed). A session: `roll-call` to find the board, `setup`, `clock`,
     `dark`, `blank`, `standard` for each standard, `start`, `watch`, unplug and let it log, plug in, `stop`, `sync`,
     then `list runs`, `calibrate`, `rate`, `report` and `export` on the database.
 
@@ -166,29 +166,18 @@ def demo(out: Path, force: bool, interpreter: str, as_json: bool) -> None:
 # -- boards ----------------------------------------------------------------------------------------------------------
 
 @cli.command()
-@click.option("--ask", is_flag=True, help="Also ask each port who is there (device id, label, journal).")
 @json_option
 @friendly
-def boards(ask: bool, as_json: bool) -> None:
-    """List serial ports whose USB id a nightcell board can have.
+def boards(as_json: bool) -> None:
+    """List serial ports whose USB id a nightcell board can have (`nightcell roll-call` also asks who is there).
 
-    Example: nightcell boards --ask
+    Example: nightcell boards
     """
-    from .link import candidate_ports, discover
+    from .link import candidate_ports
 
-    found = discover() if ask else candidate_ports()
-    lines = []
-    for p in found:
-        line = f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}"
-        if "hello" in p:
-            h = p["hello"]
-            line += f"  device {h['device']} {h.get('label') or ''}".rstrip()
-            line += f", {'logging' if h.get('running') else 'idle'}"
-        elif "error" in p:
-            line += f"  (no nightcell board: {p['error']})"
-        lines.append(line)
-    if not lines:
-        lines = ["no candidate boards found: plug one in (see hardware_notes/linux.md for permissions)"]
+    found = candidate_ports()
+    lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" for p in found] or \
+        ["no candidate boards found: plug one in (see hardware_notes/linux.md for permissions)"]
     _emit(found, as_json, "\n".join(lines))
 
 
@@ -319,7 +308,7 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
             if reply.get("after_reset"):
                 after_reset.append(key)
     lines = [f"{info['device']}: " + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
-    lines.append(f"settings now {reply.get('settings_crc')} (crc), journaled on the board")
+    lines.append(f"journaled on the board; its settings crc is now {reply.get('settings_crc')}")
     if after_reset:
         lines.append(f"{', '.join(after_reset)} take effect when the board restarts (unplug and plug it in)")
     _emit({"device": info["device"], "applied": applied, "after_reset": after_reset,

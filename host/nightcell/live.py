@@ -111,7 +111,8 @@ def reading_absorbance(status: dict[str, Any], blank: Blank | None) -> list[floa
 def journal_fill(statuses: Sequence[dict[str, Any]]) -> dict[str, Any]:
     """How full the journal is and, from how fast its head grew over these statuses, board seconds until full.
 
-    ``seconds_left`` is None while the growth cannot be seen yet (fewer than two distinct heads, or not logging).
+    ``seconds_left`` is None while the growth cannot be seen yet (fewer than two blocks arrived while watched, or not
+    logging).
     """
     st = statuses[-1]
     used = int(st.get("used_bytes", 0))
@@ -126,13 +127,16 @@ def journal_fill(statuses: Sequence[dict[str, Any]]) -> dict[str, Any]:
                 int(prev.get("uptime_ms", 0)) > int(since[0].get("uptime_ms", 0)):
             break
         since.insert(0, prev)
-    first, last = since[0], since[-1]
-    grown = int(last.get("head", 0)) - int(first.get("head", 0))
-    span_s = (int(last.get("uptime_ms", 0)) - int(first.get("uptime_ms", 0))) / 1000.0
-    if grown > 0 and span_s > 0 and st.get("running"):
-        rate = grown / span_s
-        out["bytes_per_s"] = rate
-        out["seconds_left"] = free / rate
+    # the board adds to its journal a whole block of samples at a time: measure from one block's arrival to a later
+    # one's, never from an arbitrary first poll (which would count a block that began before the watch)
+    arrivals = [b for a, b in zip(since, since[1:]) if int(b.get("head", 0)) > int(a.get("head", 0))]
+    if len(arrivals) >= 2 and st.get("running"):
+        first, last = arrivals[0], arrivals[-1]
+        grown = int(last.get("head", 0)) - int(first.get("head", 0))
+        span_s = (int(last.get("uptime_ms", 0)) - int(first.get("uptime_ms", 0))) / 1000.0
+        if grown > 0 and span_s > 0:
+            out["bytes_per_s"] = grown / span_s
+            out["seconds_left"] = free / out["bytes_per_s"]
     return out
 
 
@@ -238,7 +242,8 @@ def render(statuses: Sequence[dict[str, Any]], blank: Blank | None, info: dict[s
             left = Text(f"full in about {format_duration(fill['seconds_left'])} of board time at "
                         f"{fill['bytes_per_s']:.1f} bytes/s (sync before then)")
         elif st.get("running"):
-            left = Text("full in: estimating (needs the journal to grow while watched)")
+            left = Text("full in: estimating (the journal grows a block of samples at a time; this needs two "
+                        "blocks to arrive while watched)")
         else:
             left = Text("not filling: no run is logging")
         journal.add_row("", left)
