@@ -39,7 +39,8 @@ class Step:
     def shown(self) -> str:
         quoted = " ".join(a if a and all(c.isalnum() or c in "-_./:=" for c in a) else json.dumps(a, ensure_ascii=False)
                           for a in self.args)
-        return f"$ nightcell {quoted}\n{self.output.rstrip()}"
+        body = "\n".join(line.rstrip() for line in self.output.rstrip().splitlines())  # tables pad with spaces
+        return f"$ nightcell {quoted}\n{body}"
 
 
 def run_session(workdir: Path, *, interval_s: float = 0.5, run_s: float = 8.0, watch_polls: int = 2,
