@@ -1,0 +1,193 @@
+"""Per-run and per-study reports: self-contained HTML, figures also as PNG and SVG, hostile labels kept inert, and
+figures that draw what the fits say (checked against published values and reference libraries)."""
+
+from __future__ import annotations
+
+import base64
+import math
+import re
+import xml.etree.ElementTree as ET
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pytest  # noqa: E402
+from numpy.testing import assert_allclose  # noqa: E402
+from scipy import stats  # noqa: E402
+
+from nightcell import report, study  # noqa: E402
+from nightcell.analyse import (  # noqa: E402
+    analyse_run,
+    analyse_study,
+    calibrate_from_store,
+    run_conditions,
+    run_provenance,
+    set_run_condition,
+)
+from nightcell.errors import InputError  # noqa: E402
+from test_analyse import DEV, N2O5_K, N2O5_T, UNIX0, RunBuilder, _plateau  # noqa: E402
+
+HOSTILE = "<script>alert(1)</script>'; DROP TABLE samples;--"
+HOSTILE_MATH = HOSTILE + " costs $5 and $6 \\"
+
+
+def _hostile_store(store, n_runs: int = 1, label: str = HOSTILE_MATH):
+    rb = RunBuilder(store)
+    rb.boot(1, UNIX0, settings={"interval_ms": 10000, "label": label})
+    rb.anchor(1, 1.0)
+    rb.mark(1, 2.0, "blank", 0.0, label=label)
+    for c in (2.0, 4.0, 6.0, 8.0, 10.0):
+        rb.mark(1, 3.0 + c, "standard", 0.087 * c + 0.002 * math.sin(c), value=f"{c:g}", label=label)
+    t = 100.0
+    for i in range(n_runs):
+        rb.mark(1, t, "run_start", label=label if i == 0 else f"{label} #{i}")
+        times = t + 2.0 + np.arange(0.0, 1200.0, 10.0)
+        a = _plateau(times - times[0], 0.78, 0.035, 0.004 * (1 + i))
+        a = a + 0.003 * np.sin(times / 37.0)  # a little structure so residuals are not all zero
+        rb.samples(1, times, a)
+        rb.mark(1, times[-1] + 1.0, "run_stop")
+        t = times[-1] + 20.0
+    rb.anchor(1, t)
+    rb.commit()
+    return store
+
+
+def _assert_self_contained_and_inert(page: str) -> None:
+    assert "http://" not in page and "https://" not in page
+    assert "<script" not in page.lower()
+    assert not re.search(r"<(link|iframe|object|embed)\b", page, re.I)
+    srcs = re.findall(r"src='([^']*)'", page)
+    assert srcs, "the report embeds its figures"
+    for src in srcs:
+        assert src.startswith("data:image/png;base64,")
+        assert base64.b64decode(src.split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n"
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in page
+    assert "DROP TABLE samples;--" in page  # shown as text
+
+
+def _assert_figure_pair(png_path, svg_path) -> None:
+    assert png_path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    root = ET.fromstring(svg_path.read_bytes())  # well-formed XML
+    assert root.tag.endswith("svg")
+    assert not [el for el in root.iter() if el.tag.endswith("script")]
+
+
+def test_run_report_with_a_hostile_label_is_inert_self_contained_and_complete(store, tmp_path):
+    _hostile_store(store)
+    before = store.count("samples")
+    run = store.runs(DEV)[0]
+    assert run.label == HOSTILE_MATH  # stored as the text it is
+    cal = calibrate_from_store(store, DEV)
+    a = analyse_run(store, run, calibration=cal)
+    set_run_condition(store, run, "temperature_K", 298.15, HOSTILE)
+    prov = run_provenance(store, a, cal)
+    files = report.run_report(a, tmp_path / "out", calibration=cal, provenance=prov,
+                              conditions=run_conditions(store)[run.key], name=run.label)
+    assert store.count("samples") == before and "samples" in store.db.table_names()
+    # the file name is made safe; the page sits in the folder asked for
+    assert files.html.parent == tmp_path / "out" and "<" not in files.html.name and "/" not in files.html.stem
+    page = files.html.read_text(encoding="utf-8")
+    _assert_self_contained_and_inert(page)
+    assert len(re.findall(r"<img ", page)) == 2  # absorbance with fit and residuals; calibration
+    for needed in ("standard error", "Rate laws compared", "first_order_plateau", "Provenance", "firmware 0.1.0",
+                   "interval_ms", "298.15", "LOD", "blank"):
+        assert needed in page, needed
+    pngs = sorted(p for p in files.figures if p.suffix == ".png")
+    svgs = sorted(p for p in files.figures if p.suffix == ".svg")
+    assert len(pngs) == len(svgs) == 2
+    for png, svg in zip(pngs, svgs):
+        assert png.stem == svg.stem
+        _assert_figure_pair(png, svg)
+    # no half-written files left behind
+    assert not list((tmp_path / "out").glob("*.part"))
+
+
+def test_study_report_links_run_pages_and_keeps_labels_inert(store, tmp_path):
+    _hostile_store(store, n_runs=3)
+    for i, run in enumerate(store.runs(DEV)):
+        set_run_condition(store, run, "temperature_K", 298.15, "sheet")
+        set_run_condition(store, run, "conc_hydroxide_M", 0.01 * (1 + i), "sheet")
+    s = analyse_study(store)
+    assert len(s.runs) == 3 and "hydroxide" in s.orders
+    pages = {it.run.key: f"runs/{report.safe_filename(it.run.label)}.html" for it in s.runs}
+    pages[s.runs[0].run.key] = "javascript:alert(1)"
+    files = report.study_report(s, tmp_path, intro=HOSTILE, provenance={"note": HOSTILE}, run_pages=pages)
+    page = files.html.read_text(encoding="utf-8")
+    _assert_self_contained_and_inert(page)
+    assert "javascript:" not in page  # a link is a relative file name or nothing
+    hrefs = re.findall(r"href='([^']*)'", page)
+    assert len(hrefs) == 2 and all(h.startswith("runs/") and h.endswith(".html") and ":" not in h for h in hrefs)
+    assert "Order in hydroxide" in page and "Calibration of" in page
+    stems = {p.stem for p in files.figures}
+    assert {"study-runs", "study-order-hydroxide", f"study-calibration-{DEV}"} <= stems
+    for stem in stems:
+        _assert_figure_pair(tmp_path / f"{stem}.png", tmp_path / f"{stem}.svg")
+
+
+def test_report_into_a_file_path_is_refused_and_writes_nothing(store, tmp_path):
+    _hostile_store(store)
+    a = analyse_run(store, store.runs(DEV)[0])
+    target = tmp_path / "taken"
+    target.write_text("keep me")
+    with pytest.raises(InputError, match="is a file: give a folder for the report"):
+        report.run_report(a, target)
+    assert target.read_text() == "keep me"
+    assert {p.name for p in tmp_path.iterdir()} <= {"taken", "test.db", "test.db-shm", "test.db-wal"}
+
+
+def test_arrhenius_plot_draws_the_published_n2o5_line():
+    fit = study.arrhenius(N2O5_T, N2O5_K)
+    fig, ax = plt.subplots()
+    try:
+        assert report.plot_arrhenius(fit, ax=ax) is ax
+        line = [ln for ln in ax.get_lines() if ln.get_linestyle() == "-"][0]
+        x, y = line.get_xdata(), line.get_ydata()
+        slope = (y[-1] - y[0]) / (x[-1] - x[0])  # d ln k / d(1000/T) = −Ea/(1000·R)
+        # N2O5 decomposition (Daniels & Johnston 1921 [memory for the table]): Ea = 102.9 ± 0.5 kJ/mol [reproduced]
+        assert_allclose(-slope * 1000 * study.GAS_CONSTANT / 1000, 102.9, atol=0.05)
+        # the points are the table's ln k at 1000/T
+        pts = ax.containers[0].lines[0]
+        assert_allclose(pts.get_xdata(), 1000 / N2O5_T)
+        assert_allclose(pts.get_ydata(), np.log(N2O5_K))
+        assert any("Ea 102.9 ± 0.5 kJ/mol" in t.get_text() for t in ax.get_legend().get_texts())
+    finally:
+        plt.close(fig)
+    fe = study.eyring(N2O5_T, N2O5_K)
+    fig, ax = plt.subplots()
+    try:
+        report.plot_arrhenius(fe, ax=ax)
+        pts = ax.containers[0].lines[0]
+        assert_allclose(pts.get_ydata(), np.log(N2O5_K / N2O5_T))
+    finally:
+        plt.close(fig)
+
+
+def test_order_plot_draws_the_fitted_power_law():
+    # synthetic rates with a known order of 1.5 and a little scatter (scipy.stats.linregress as the reference)
+    c = np.array([0.01, 0.02, 0.04, 0.08])
+    r = 0.3 * c**1.5 * np.array([1.01, 0.99, 1.02, 0.985])
+    st = study.orders(r, {"acid": c})
+    fig, ax = plt.subplots()
+    try:
+        assert report.plot_orders(st, ax=ax, reactant="acid") is ax
+        assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
+        line = [ln for ln in ax.get_lines() if ln.get_linestyle() == "-"][0]
+        x, y = line.get_xdata(), line.get_ydata()
+        slope = (math.log(y[-1]) - math.log(y[0])) / (math.log(x[-1]) - math.log(x[0]))
+        ref = stats.linregress(np.log(c), np.log(r))
+        assert_allclose(slope, ref.slope, rtol=1e-9)
+        assert "[acid]" in ax.get_xlabel()
+    finally:
+        plt.close(fig)
+
+
+def test_plain_text_keeps_dollars_literal_in_figures(tmp_path):
+    fig, ax = plt.subplots()
+    try:
+        ax.set_title(report.plain_text(HOSTILE_MATH))
+        report.save_figure(fig, tmp_path / "t.png")  # would raise a mathtext parse error on "$5 and $"
+        assert ax.get_title() == HOSTILE_MATH.replace("$", r"\$")
+    finally:
+        plt.close(fig)
