@@ -191,3 +191,19 @@ def test_plain_text_keeps_dollars_literal_in_figures(tmp_path):
         assert ax.get_title() == HOSTILE_MATH.replace("$", r"\$")
     finally:
         plt.close(fig)
+
+
+@pytest.mark.parametrize("value, se", [(1.00022, 0.00124106), (57.074, 0.0674), (0.0019990, 1.7e-6),
+                                       (346.7, 0.3), (-107.666, 0.292317), (0.5, 0.25)])
+def test_plus_minus_rounds_like_the_uncertainties_library(value, se):
+    unc = pytest.importorskip("uncertainties")
+    # uncertainties' "two significant digits on the uncertainty" format (reference library from the package index)
+    ref = format(unc.ufloat(value, se), ".2u").replace("+/-", " ± ")
+    assert report.plus_minus(value, se) == ref
+
+
+def test_plus_minus_uses_one_power_of_ten_far_from_one():
+    assert report.plus_minus(1.234e-7, 5.1e-9) == "(1.234 ± 0.051)e-07"
+    assert report.plus_minus(3.989e7, 1.1e6) == "(3.99 ± 0.11)e+07"
+    assert report.plus_minus(float("nan"), 1.0) == "—"
+    assert report.plus_minus(2.5, float("nan")) == "2.5"

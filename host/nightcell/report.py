@@ -37,7 +37,7 @@ from . import __version__  # noqa: E402
 
 __all__ = ["plot_calibration", "plot_run", "plot_orders", "plot_arrhenius", "figure_png", "figure_svg",
            "save_figure", "html_report", "fit_table", "write_csv", "safe_filename", "ReportFiles", "run_report",
-           "study_report", "plain_text"]
+           "study_report", "plain_text", "plus_minus"]
 
 
 def plain_text(label: Any) -> str:
@@ -349,14 +349,33 @@ def _two_panel() -> tuple[Any, Any, Any]:
     return fig, ax, rax
 
 
-def _pm(value: Any, se: Any, digits: int = 4) -> str:
+def plus_minus(value: Any, se: Any, digits: int = 4) -> str:
+    """``value ± se`` with the standard error to two significant digits and the value to the same decimal place.
+
+    Values far from 1 (below 10⁻³ or from 10⁶ up) share one power of ten: ``(1.23 ± 0.05)e-07``. Without a usable
+    standard error the value is given to ``digits`` significant digits; a missing value is "—".
+    """
     try:
         v, e = float(value), float(se)
     except (TypeError, ValueError):
-        return "—"
+        try:
+            return f"{float(value):.{digits}g}"
+        except (TypeError, ValueError):
+            return "—"
     if not math.isfinite(v):
         return "—"
-    return f"{v:.{digits}g} ± {e:.2g}" if math.isfinite(e) else f"{v:.{digits}g}"
+    if not (math.isfinite(e) and e > 0):
+        return f"{v:.{digits}g}"
+    last = math.floor(math.log10(e)) - 1  # the decimal place of the SE's second significant digit
+    if v == 0 or 1e-3 <= abs(v) < 1e6:
+        d = max(0, -last)
+        return f"{v:.{d}f} ± {e:.{d}f}"
+    power = math.floor(math.log10(abs(v)))
+    d = max(0, power - last)
+    return f"({v / 10**power:.{d}f} ± {e / 10**power:.{d}f})e{power:+03d}"
+
+
+_pm = plus_minus
 
 
 def _conditions_text(conditions: dict[str, Any] | None) -> str:
@@ -374,6 +393,19 @@ def _conditions_text(conditions: dict[str, Any] | None) -> str:
             txt = f"{q} {v:g}"
         parts.append(txt + (f" — {src}" if src else ""))
     return "; ".join(parts)
+
+
+def _shade_restarts(analysis: Any, axes: Sequence[Any]) -> None:
+    """Grey bands where the board restarted inside the run (no readings: the time without power)."""
+    boots = [b for b, _ in analysis.seqs]
+    t = np.asarray(analysis.time_s, dtype=float)
+    for i in range(1, len(boots)):
+        if boots[i] != boots[i - 1]:
+            for j, ax in enumerate(axes):
+                ax.axvspan(t[i - 1], t[i], color="#888888", alpha=0.2, lw=0,
+                           label=f"restart (boot {boots[i]})" if j == 0 else None)
+    if len(set(boots)) > 1:
+        axes[0].legend(loc="best", fontsize="small")
 
 
 def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, provenance: dict[str, Any] | None = None,
@@ -395,6 +427,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
     try:
         plot_run(analysis.time_s, analysis.absorbance, best, ax=ax, resid_ax=rax, flags=analysis.flags,
                  title=run.label or run.key)
+        _shade_restarts(analysis, (ax, rax))
         run_png = _figure_files(fig, out / f"{name}-absorbance", figs)
     finally:
         plt.close(fig)
@@ -517,7 +550,8 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         if ini is not None and reactant in ini.per_reactant:
             g = ini.per_reactant[reactant]
             text += (f"\n\nFrom initial rates (dA/dt over an early window, same runs): order "
-                     f"{_pm(g.values['order'], g.stderr['order'])}.")
+                     f"{_pm(g.values['order'], g.stderr['order'])}. A cross-check only: it holds when every run "
+                     "starts from the same absorbance, and the window's curvature pulls fast runs' rates low.")
             html_parts += fit_table(g)
         sections.append({"title": f"Order in {reactant}", "text": text, "html": html_parts, "figures": [png]})
     if study.arrhenius is not None:
