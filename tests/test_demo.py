@@ -39,7 +39,11 @@ def test_demo_writes_the_database_the_study_report_and_one_report_per_run(demo):
         assert page.parent == out / "runs" and page.stat().st_size > 10_000
     # every figure exists as PNG and as SVG
     stems = {p.with_suffix("") for p in outcome.figures}
-    assert len(stems) >= 2 * len(SC.runs) + 4  # per run: absorbance and calibration; study: runs, order, T, cals
+    # per run its absorbance; per board its calibration (drawn once for its runs' pages, once for the study);
+    # the study: every run, the order plot, the Arrhenius plot
+    assert len(stems) == len(SC.runs) + 2 * len(SC.devices) + 3
+    for page in outcome.run_reports:
+        assert page.with_name(page.stem + "-absorbance.svg") in outcome.figures
     for stem in stems:
         assert stem.with_suffix(".png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
         assert b"<svg" in stem.with_suffix(".svg").read_bytes()[:2000]

@@ -313,15 +313,16 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
         run_files: list[Path] = []
         figures: list[Path] = []
         rows = []
+        shared: dict = {}
         for it in study.runs:
             p = planned[(it.run.device, it.run.label)]
             prov = run_provenance(store, it.analysis, it.calibration)
             name = _report.safe_filename(f"{sc.benches[p.bench]}-{it.run.label}")
             files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
-                                       conditions=conds.get(it.run.key), name=name)
+                                       conditions=conds.get(it.run.key), name=name, cache=shared, unit="µM")
             pages[it.run.key] = f"runs/{files.html.name}"
             run_files.append(files.html)
-            figures += files.figures
+            figures += [f for f in files.figures if f not in figures]
             rows.append({"run": it.run.key, "label": it.run.label, "bench": sc.benches[p.bench],
                          "hydroxide_M": p.hydroxide_M, "temperature_C": p.temperature_C,
                          "k_per_s": it.k, "k_se_per_s": it.k_se, "k_true_per_s": sc.k_true(p),
@@ -365,7 +366,8 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
              "logged its runs with the host unplugged, and bench B lost power in the middle of its 15 °C run. The "
              "host then synced each board once into one database.\n\n" + SAFETY)
     files = _report.study_report(study, out, name="report", title="nightcell demo — a dye fading in alkali",
-                                 intro=intro, provenance=study_prov, run_pages=pages, extra_sections=extra)
+                                 intro=intro, provenance=study_prov, run_pages=pages, extra_sections=extra,
+                                 unit="µM")
     figures = files.figures + figures
     _report.write_csv(out / "runs.csv", list(rows[0]), [[r[k] if k != "boots" else " ".join(map(str, r[k]))
                                                         for k in rows[0]] for r in rows])
