@@ -201,3 +201,34 @@ def test_a_silent_board_times_out_with_a_clear_message(tmp_path):
             board.hello(timeout=0.1)
         with pytest.raises(DeviceTimeout, match="no reply to 'ack'"):
             board.ack(5)
+
+
+def test_board_ticks_wrap_keeps_uptime_continuous_and_the_clock_fitted(tmp_path):
+    """The board's ticks_ms wraps at 2^30 ms (as on an RP2040); start 20 board-seconds before it."""
+    speed = 200.0
+    sim = SimulatedBoard(tmp_path / "wrap", device="5e1f00000000aaff", speed=speed, seed=8,
+                         settings={"interval_ms": 1000, "durability_ms": 1000}, ticks_start_ms=2**30 - 20_000)
+    t0 = time.time()
+    board_clock = lambda: t0 + (time.time() - t0) * speed  # noqa: E731 - host time at the board's pace
+    sim.start()
+    try:
+        with Board.open(sim.url) as board, Store.open(tmp_path / "w.db") as store:
+            board.hello(timeout=5.0)
+            board.start("across the wrap")
+            time.sleep(1.0)
+            sync_board(board, store, clock=board_clock)
+            time.sleep(1.5)
+            last = sync_board(board, store, clock=board_clock)
+            rows = store.query("SELECT seq, uptime_s, late_ms FROM sample_readings ORDER BY seq")
+            clock = store.query("SELECT * FROM boot_clocks")
+    finally:
+        sim.stop()
+    assert last.warnings == []
+    ups = [r["uptime_s"] - r["late_ms"] / 1000 for r in rows]  # scheduled times
+    steps = [round(b - a, 3) for a, b in zip(ups, ups[1:])]
+    # On the schedule's grid and moving forward: whole intervals apart (a busy machine may make the simulated board
+    # skip a few), never the 2^30 ms (12.4 days) jump a mishandled wrap would leave.
+    assert len(rows) > 300 and all(s in {float(k) for k in range(1, 61)} for s in steps), steps
+    assert steps.count(1.0) > 0.8 * len(steps)
+    assert [c["quality"] for c in clock] == ["fitted"]
+    assert abs(clock[0]["rate"] - 1.0) < 0.05  # anchors at an accelerated pace are only as good as the USB latency
