@@ -136,14 +136,20 @@ class Store:
             else:
                 conn = sqlite3.connect(str(p), isolation_level=None, timeout=BUSY_TIMEOUT_S)
             conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
-            if not readonly:
-                conn.execute("PRAGMA journal_mode = WAL")
             conn.execute("PRAGMA foreign_keys = ON")
         except sqlite3.DatabaseError as exc:
             raise StoreError(f"cannot open {p} as a database ({exc}): is it a nightcell database file?") from exc
         store = cls(conn, str(p))
         try:
             store._migrate(readonly=readonly)
+            if not readonly:
+                # Only once the file is known to be ours: WAL rewrites the header of any SQLite file it is set on,
+                # and another program's database given by mistake must be left exactly as it was.
+                try:
+                    conn.execute("PRAGMA journal_mode = WAL")
+                except sqlite3.DatabaseError as exc:
+                    raise StoreError(f"cannot open {p} for writing ({exc}): another program holds it, or it is "
+                                     "read-only") from exc
         except BaseException:
             conn.close()
             raise
@@ -156,7 +162,7 @@ class Store:
             applied = {m.name for m in migrations.applied(self.db)}
             tables = set(self.db.table_names())
         except sqlite3.DatabaseError as exc:
-            raise StoreError(f"{self.path} is not a database nightcell can read ({exc}): check the --db path") from exc
+            raise StoreError(f"{self.path} is not a nightcell database ({exc}): check the --db path") from exc
         unknown = applied - known
         if unknown:
             raise SchemaTooNew(
@@ -192,6 +198,13 @@ class Store:
             raise StoreError(f"cannot write {self.path} ({exc}): another program holds it, or it is read-only") from exc
         try:
             yield self.conn
+        except sqlite3.OperationalError as exc:
+            # a write refused inside the transaction (a read-only file or folder, a full disk) is the database's
+            # error, said as such, not a traceback
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            raise StoreError(f"cannot write {self.path} ({exc}): is the file or its folder read-only, or the disk "
+                             "full?") from exc
         except BaseException:
             self.conn.execute("ROLLBACK")
             raise
