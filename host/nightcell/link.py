@@ -21,6 +21,13 @@ from typing import Any, Callable, Iterator
 import serial
 from serial.tools import list_ports
 
+try:  # POSIX: when a tty vanishes, pyserial's flush (tcdrain) lets termios.error through, and it is no OSError
+    import termios
+
+    _PORT_ERRORS: tuple[type[BaseException], ...] = (serial.SerialException, OSError, termios.error)
+except ImportError:  # pragma: no cover — Windows
+    _PORT_ERRORS = (serial.SerialException, OSError)
+
 from .errors import DeviceError, DeviceNotFound, DeviceTimeout, NightcellError, ProtocolError
 from .frames import REPLY_DATA, REPLY_ERR, REPLY_OK, Reply, ReplyReader, encode_request, quote_text
 
@@ -118,14 +125,14 @@ class Transport:
     def close(self) -> None:
         try:
             self.port.close()
-        except (serial.SerialException, OSError):
+        except _PORT_ERRORS:
             pass
 
     def send(self, line: bytes) -> None:
         try:
             self.port.write(line)
             self.port.flush()
-        except (serial.SerialException, OSError) as exc:
+        except _PORT_ERRORS as exc:
             raise DeviceTimeout(f"lost the board on {self.url} while sending ({exc}): check the cable") from exc
         self.bytes_out += len(line)
 
@@ -133,7 +140,7 @@ class Transport:
         """Drop anything already received (stale replies, a REPL banner)."""
         try:
             self.port.reset_input_buffer()
-        except (serial.SerialException, OSError):
+        except _PORT_ERRORS:
             pass
         self.reader = ReplyReader()
 
@@ -142,7 +149,7 @@ class Transport:
         try:
             waiting = self.port.in_waiting
             data = self.port.read(max(1, min(waiting, 65536)))
-        except (serial.SerialException, OSError) as exc:
+        except _PORT_ERRORS as exc:
             raise DeviceTimeout(f"lost the board on {self.url} while reading ({exc}): check the cable") from exc
         if data:
             self.bytes_in += len(data)
