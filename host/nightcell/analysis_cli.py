@@ -97,9 +97,16 @@ def read_columns(
     return out
 
 
+def _out_folder_exists(ctx: click.Context, param: click.Parameter, out: Path | None) -> Path | None:
+    # checked before anything runs: with --db the result is saved in the database before the file is written
+    if out is not None and not out.resolve().parent.is_dir():
+        raise click.BadParameter(f"the folder {out.parent} does not exist: create it first, or give another path")
+    return out
+
+
 def _out_option(fn: Callable[..., Any]) -> Callable[..., Any]:
     return click.option(
-        "--out", type=click.Path(dir_okay=False, path_type=Path), default=None,
+        "--out", type=click.Path(dir_okay=False, path_type=Path), default=None, callback=_out_folder_exists,
         help="Also write the result as JSON to this file (written only if the analysis succeeds).",
     )(fn)
 
@@ -138,7 +145,10 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) ->
     payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
     if out is not None:
         # write beside the target and rename, so a failure never leaves a half-written file
-        fd, tmp = tempfile.mkstemp(prefix=".nightcell-", suffix=".json", dir=out.parent if str(out.parent) else ".")
+        try:
+            fd, tmp = tempfile.mkstemp(prefix=".nightcell-", suffix=".json", dir=out.parent if str(out.parent) else ".")
+        except OSError as exc:
+            raise InputError(f"cannot write {out}: {exc}") from None
         try:
             with os.fdopen(fd, "w", encoding="utf-8") as fh:
                 fh.write(payload + "\n")
