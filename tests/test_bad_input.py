@@ -1,0 +1,563 @@
+"""Bad input, table-driven: every row names the input, the command or function it goes to, the documented exit code
+(or exception) and a fragment of the message, and checks that the database is unchanged afterwards (row counts and a
+hash of every row of every table, taken before and after).
+
+Inputs cover the CLI, CSV import, settings files (the board's ``settings.json``, read by the firmware's own loader),
+database files (truncated, wrong schema, newer version, read-only, locked, a folder), the serial side (nothing on
+the port, another device talking, garbage, a board that vanishes in the middle of a command, a foreign protocol) and
+hostile labels. Exit codes are the README's table (2 bad input, 3 board, 4 database, 5 analysis, 1 usage).
+
+The database every row runs against is built here from encoded journal records (the layout of schema/records.md):
+a boot with two clock anchors, a dark, a blank, five standards and a 40-sample first-order run — numbers invented
+for the test, as the demo's are (they are not checked against anything; the rows check refusals).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import pty
+import shutil
+import sqlite3
+import sys
+import threading
+import time
+import tty
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+import pytest
+from click.testing import CliRunner
+
+from nightcell import frames as F
+from nightcell import link as link_module
+from nightcell import store as store_module
+from nightcell.cli import cli
+from nightcell.errors import StoreError
+from nightcell.store import Store
+from nightcell.timeline import rebuild_clocks
+
+ROOT = Path(__file__).resolve().parent.parent
+DEVICE = "5eba000000000007"
+RUN_LABEL = "fading 25 C"
+
+
+# -- a database built from journal records ---------------------------------------------------------------------------
+
+def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_label: str = "water",
+                    n_samples: int = 40) -> list[bytes]:
+    """Encoded records of one boot: anchors, dark, blank, five standards, a run of ``n_samples`` and its stop."""
+    recs: list[bytes] = []
+    seq = 0
+    up = 0
+
+    def add(kind: int, fields: dict[str, Any], step: int = 1000, count: int = 1) -> None:
+        nonlocal seq, up
+        recs.append(F.encode_record(kind, 1, seq, up, fields))
+        seq += count
+        up += step
+
+    add(F.KIND_BOOT, {"reset_cause": 0, "settings_crc": 1, "firmware": "0.1.0", "device": device, "board": "sim"})
+    add(F.KIND_ANCHOR, {"host_unix_ms": 1_796_000_000_000 + up})
+    led, dark, reads = 3000, 100, 16
+
+    def mark(kind_mark: int, absorbance: float | None, label: str, value: str = "") -> None:
+        light = dark if absorbance is None else dark + led * 10 ** (-absorbance)
+        add(F.KIND_MARK, {"mark": kind_mark, "source": 0, "reads": reads, "dark": [dark * reads],
+                          "light": [int(round(light * reads))], "label": label, "value": value})
+
+    mark(1, None, "lid on")
+    mark(2, 0.0, blank_label)
+    for conc in (2, 4, 6, 8, 10):
+        mark(3, 0.075 * conc, f"dye {conc}", str(conc))
+    add(F.KIND_MARK, {"mark": 4, "source": 0, "reads": 0, "dark": [], "light": [], "label": run_label,
+                      "value": ""})
+    samples = []
+    for i in range(n_samples):
+        a = 0.05 + 0.6 * math.exp(-0.02 * 2.0 * i)
+        samples.append({"late_ms": 0, "flags": 0, "dark": [dark * reads],
+                        "light": [int(round((dark + led * 10 ** (-a)) * reads))]})
+    add(F.KIND_SAMPLES, {"interval_ms": 2000, "reads": reads, "channels": 1, "options": 0, "samples": samples},
+        step=2000 * n_samples, count=n_samples)
+    add(F.KIND_MARK, {"mark": 5, "source": 0, "reads": 0, "dark": [], "light": [], "label": "", "value": ""})
+    add(F.KIND_ANCHOR, {"host_unix_ms": 1_796_000_000_000 + up})
+    return recs
+
+
+def make_db(path: Path, **kwargs: Any) -> Path:
+    """A nightcell database holding ``journal_records(**kwargs)``, as a sync would have stored them."""
+    records = [F.decode_record(r)[0] for r in journal_records(**kwargs)]
+    device = records[0].fields["device"]
+    with Store.open(path) as store:
+        with store.write():
+            store.touch_device(device, board="sim", firmware="0.1.0", label="bench")
+            store.ingest(device, records, journal=1)
+            rebuild_clocks(store, device)
+    return path
+
+
+def snapshot(path: Path) -> dict[str, tuple[int, str]]:
+    """(row count, sha256 of every row in order) per table; {} when the file is not a readable database."""
+    if not path.is_file():
+        return {"<no file>": (0, "")}
+    raw = path.read_bytes()
+    out: dict[str, tuple[int, str]] = {"<file bytes>": (len(raw), hashlib.sha256(raw).hexdigest())}
+    try:
+        con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
+        try:
+            names = [r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")]
+            for name in names:
+                rows = sorted(con.execute(f'SELECT * FROM "{name}"').fetchall(), key=repr)
+                out[name] = (len(rows), hashlib.sha256(repr(rows).encode()).hexdigest())
+        finally:
+            con.close()
+    except sqlite3.DatabaseError:
+        pass
+    return out
+
+
+@pytest.fixture(scope="module")
+def template(tmp_path_factory) -> Path:
+    return make_db(tmp_path_factory.mktemp("template") / "good.db")
+
+
+# -- files a row may need -----------------------------------------------------------------------------------------
+
+def _csv(text: str | bytes) -> Callable[[Path], Path]:
+    def make(d: Path) -> Path:
+        p = d / "input.csv"
+        p.write_bytes(text if isinstance(text, bytes) else text.encode("utf-8"))
+        return p
+    return make
+
+
+GOOD_CAL = "concentration,absorbance\n0,0.01\n2,0.16\n4,0.31\n6,0.46\n8,0.61\n"
+GOOD_RATE = "time_s,absorbance\n" + "".join(f"{2 * i},{0.05 + 0.6 * math.exp(-0.04 * i):.5f}\n" for i in range(20))
+
+
+def _truncated(template: Path, d: Path) -> Path:
+    p = d / "truncated.db"
+    raw = template.read_bytes()
+    p.write_bytes(raw[: len(raw) // 3])
+    return p
+
+
+def _foreign(template: Path, d: Path) -> Path:
+    p = d / "foreign.db"
+    con = sqlite3.connect(p)
+    con.execute("CREATE TABLE inventory (item TEXT, qty INTEGER)")
+    con.execute("INSERT INTO inventory VALUES ('cuvettes', 100)")
+    con.commit()
+    con.close()
+    return p
+
+
+def _newer(template: Path, d: Path) -> Path:
+    p = d / "newer.db"
+    shutil.copy(template, p)
+    con = sqlite3.connect(p)
+    con.execute("INSERT INTO _sqlite_migrations (migration_set, name, applied_at) VALUES "
+                "('nightcell', '0099_from_the_future', '2031-01-01')")
+    con.commit()
+    con.close()
+    return p
+
+
+def _text_file(template: Path, d: Path) -> Path:
+    p = d / "notes.db"
+    p.write_text("these are my notes, not a database\n" * 50)
+    return p
+
+
+def _copy(template: Path, d: Path) -> Path:
+    p = d / "class.db"
+    shutil.copy(template, p)
+    return p
+
+
+# -- a fake device on a pseudo-terminal ------------------------------------------------------------------------------
+
+class FakePort:
+    """A pty whose far end is played by ``behaviour(line) -> bytes | None`` (None: vanish — close the pty)."""
+
+    def __init__(self, behaviour: Callable[[bytes], bytes | None] | None, chatter: bytes = b""):
+        self.master, slave = pty.openpty()
+        tty.setraw(slave)
+        self.path = os.ttyname(slave)
+        self._slave = slave
+        self.behaviour = behaviour
+        self.chatter = chatter
+        self.lines: list[bytes] = []
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._serve, daemon=True)
+        self._thread.start()
+
+    def _serve(self) -> None:
+        import select
+
+        buf = b""
+        while not self._stop.is_set():
+            if self.chatter:
+                try:
+                    os.write(self.master, self.chatter)
+                except OSError:
+                    return
+            r, _, _ = select.select([self.master], [], [], 0.05)
+            if not r:
+                continue
+            try:
+                data = os.read(self.master, 4096)
+            except OSError:
+                return
+            buf += data
+            while b"\n" in buf:
+                line, buf = buf.split(b"\n", 1)
+                self.lines.append(line)
+                if self.behaviour is None:
+                    continue
+                reply = self.behaviour(line)
+                if reply is None:
+                    self.close()
+                    return
+                try:
+                    os.write(self.master, reply)
+                except OSError:
+                    return
+
+    def close(self) -> None:
+        self._stop.set()
+        for fd in (self.master, self._slave):
+            try:
+                os.close(fd)
+            except OSError:
+                pass
+
+
+HELLO = {"protocol": 1, "device": DEVICE, "board": "sim", "firmware": "0.1.0", "boot": 1, "uptime_ms": 5,
+         "journal": 1, "head": 0, "tail": 0, "running": True, "label": "", "interval_ms": 2000,
+         "free_bytes": 10 ** 6, "settings_crc": 1}
+
+
+def board_then_vanish(vanish_on: str, hello: dict[str, Any] | None = None) -> Callable[[bytes], bytes | None]:
+    """Answers ``hello`` (with ``hello``), then vanishes when the verb ``vanish_on`` arrives."""
+    info = HELLO if hello is None else hello
+
+    def behaviour(line: bytes) -> bytes | None:
+        tag, verb = line.decode("ascii", "replace").split(" ")[:2]
+        if verb == vanish_on:
+            return None
+        if verb == "hello":
+            return F.encode_reply(F.REPLY_OK, int(tag), json.dumps(info).encode())
+        return F.encode_reply(F.REPLY_OK, int(tag), b"{}")
+    return behaviour
+
+
+def echo_other_device(line: bytes) -> bytes:
+    """Another device: a serial console that echoes and answers in its own words."""
+    return line + b"\r\n>>> unknown command\r\n"
+
+
+def garbage(line: bytes) -> bytes:
+    rnd = hashlib.sha256(line).digest() * 8
+    return rnd.replace(b"\xa7\x5c", b"\x00\x00")
+
+
+def frame_with_bad_crc(line: bytes) -> bytes:
+    tag = int(line.split(b" ")[0])
+    good = F.encode_reply(F.REPLY_OK, tag, json.dumps(HELLO).encode())
+    return good[:-1] + bytes([good[-1] ^ 0xFF])
+
+
+class _QuickDeadline(link_module.Deadline):
+    """Every wait of the link shortened (a test of refusals, not of patience): at most 0.3 s."""
+
+    def __init__(self, seconds: float):
+        super().__init__(min(seconds, 0.3))
+
+
+# -- the table -------------------------------------------------------------------------------------------------------
+
+@dataclass
+class Case:
+    """One bad input: what it is, where it goes, and what must come back."""
+
+    name: str
+    args: list[Any]                     # CLI arguments; "{db}", "{csv}", "{port}", "{dir}" are filled in
+    code: int                           # the documented exit code
+    message: str                        # a fragment of the one-line message
+    db: Callable[[Path, Path], Path] = _copy   # the database the row runs against (made from the template)
+    csv: Callable[[Path], Path] | None = None
+    port: Any = None                    # FakePort behaviour, "missing", or a URL string
+    chatter: bytes = b""
+    setup: Callable[[Path, Path], Any] | None = None   # (db, dir) -> something to undo (a lock)
+    env: dict[str, str] = field(default_factory=dict)
+
+
+CASES = [
+    # -- the command line ------------------------------------------------------------------------------------------
+    Case("unknown command", ["calibrat"], 2, "No such command 'calibrat'"),
+    Case("unknown option", ["list", "runs", "--db", "{db}", "--colour"], 2, "No such option '--colour'"),
+    Case("calibrate with neither CSV nor --db", ["calibrate"], 2, "give a CSV file"),
+    Case("calibrate with both CSV and --db", ["calibrate", "{csv}", "--db", "{db}"], 2, "not both", csv=_csv(GOOD_CAL)),
+    Case("report --run and --all together", ["report", "--db", "{db}", "--run", RUN_LABEL, "--all", "--out", "{dir}/r"],
+         2, "give --run or --all, not both"),
+    Case("rate --t-start with --db", ["rate", "--db", "{db}", "--t-start", "10"], 2,
+         "--t-start and --a-end apply to CSV files"),
+    Case("rate --window without initial_rate", ["rate", "--db", "{db}", "--window", "0", "10"], 2,
+         "--window applies to --model initial_rate"),
+    Case("unknown rate model", ["rate", "--db", "{db}", "--model", "third_order"], 2, "Invalid value for '--model'"),
+    Case("run that does not exist", ["rate", "--db", "{db}", "--run", "no such run"], 2, "no such run"),
+    Case("calibrate an unknown device", ["calibrate", "--db", "{db}", "--device", "ffff000000000000"], 2,
+         "no device 'ffff000000000000'"),
+    Case("negative channel", ["export", "--db", "{db}", "--out", "{dir}/x", "--channel", "-1"], 2,
+         "Invalid value for '--channel'"),
+    Case("export into a file, not a folder", ["export", "--db", "{db}", "--out", "{csv}"], 2, "",
+         csv=_csv("not a folder\n")),
+    Case("setup with nothing to set", ["setup"], 2, "nothing to set", port="missing"),
+    Case("setup interval below 0.2 s", ["setup", "--interval", "0.05"], 2, "interval must be from 0.2", port="missing"),
+    Case("setup path length beyond 10 cm", ["setup", "--path-cm", "11"], 2, "--path-cm must be from 0.01 to 10",
+         port="missing"),
+    Case("setup channel not NAME:LED:ADC", ["setup", "--channel", "red"], 2, "must be NAME:LED:ADC", port="missing"),
+    Case("empty note", ["note", "   "], 2, "the note is empty", port="missing"),
+    Case("sync with no port given", ["sync", "--db", "{db}"], 2, "Missing option '--port'", env={"NIGHTCELL_PORT": ""}),
+    # -- CSV import ------------------------------------------------------------------------------------------------
+    Case("CSV empty file", ["calibrate", "{csv}"], 2, "is empty; it needs a header row", csv=_csv("")),
+    Case("CSV header only", ["calibrate", "{csv}"], 2, "has 0 data rows", csv=_csv("concentration,absorbance\n")),
+    Case("CSV missing column", ["calibrate", "{csv}"], 2, "has no column 'absorbance'",
+         csv=_csv("concentration,abs\n0,0\n1,1\n2,2\n")),
+    Case("CSV text where a number goes", ["calibrate", "{csv}"], 2, "'zero' is not a number",
+         csv=_csv("concentration,absorbance\nzero,0.0\n2,0.16\n4,0.31\n6,0.46\n")),
+    Case("CSV NaN", ["calibrate", "{csv}"], 2, "is not a finite number",
+         csv=_csv("concentration,absorbance\n0,nan\n2,0.16\n4,0.31\n6,0.46\n")),
+    Case("CSV infinity", ["rate", "{csv}"], 2, "is not a finite number",
+         csv=_csv(GOOD_RATE.replace("\n2,", "\n2,inf,", 1).replace(",inf,", ",").replace("\n4,", "\n4,inf\n6,", 1))),
+    Case("CSV not UTF-8", ["calibrate", "{csv}"], 2, "cannot read",
+         csv=_csv(b"concentration,absorbance\n\xff\xfe0,0\n2,0.16\n4,0.31\n")),
+    Case("CSV binary junk", ["rate", "{csv}"], 2, "", csv=_csv(bytes(range(256)) * 4)),
+    Case("CSV too few rows for a rate", ["rate", "{csv}"], 2, "this analysis needs at least 4",
+         csv=_csv("time_s,absorbance\n0,0.5\n2,0.4\n")),
+    Case("CSV times not increasing", ["rate", "{csv}"], 2, "goes back at point 2",
+         csv=_csv("time_s,absorbance\n0,0.5\n4,0.4\n2,0.45\n6,0.35\n8,0.3\n10,0.27\n")),
+    Case("CSV all concentrations equal", ["calibrate", "{csv}"], 5, "",
+         csv=_csv("concentration,absorbance\n1,0.1\n1,0.11\n1,0.09\n1,0.1\n")),
+    Case("CSV file that does not exist", ["calibrate", "{dir}/nowhere.csv"], 2, "does not exist"),
+    Case("CSV given as a folder", ["calibrate", "{dir}"], 2, "is a directory"),
+    Case("CSV --out into a missing folder", ["calibrate", "{csv}", "--out", "{dir}/no/such/folder/fit.json"], 2,
+         "does not exist: create it first", csv=_csv(GOOD_CAL)),
+    Case("--db result with --out into a missing folder", ["rate", "--db", "{db}", "--out", "{dir}/none/fit.json"], 2,
+         "does not exist: create it first"),
+    # -- database files --------------------------------------------------------------------------------------------
+    Case("DB that does not exist", ["list", "runs", "--db", "{dir}/missing.db"], 2, "no database at"),
+    Case("DB path is a folder", ["list", "runs", "--db", "{dir}"], 2, "is a directory"),
+    Case("DB truncated", ["list", "runs", "--db", "{db}"], 4, "", db=_truncated),
+    Case("DB is a text file", ["list", "devices", "--db", "{db}"], 4, "", db=_text_file),
+    Case("DB of another program", ["list", "runs", "--db", "{db}"], 4, "not a nightcell database", db=_foreign),
+    Case("DB from a newer nightcell", ["list", "runs", "--db", "{db}"], 4, "written by a newer nightcell", db=_newer),
+    Case("DB locked by another writer (calibrate saves)", ["calibrate", "--db", "{db}"], 4, "another program holds it",
+         setup=lambda db, d: _lock(db)),
+    Case("DB newer version, merge", ["merge", "{db}", "--db", "{dir}/target.db"], 4, "written by a newer nightcell",
+         db=_newer),
+    Case("merge a database into itself", ["merge", "{db}", "--db", "{db}"], 2, "is the database being merged into"),
+    Case("merge a text file", ["merge", "{dir}/notes.txt", "--db", "{db}"], 4, "",
+         setup=lambda db, d: (d / "notes.txt").write_text("not sqlite\n" * 100)),
+    # -- the serial side -------------------------------------------------------------------------------------------
+    Case("port that does not exist", ["hello", "--port", "/dev/nightcell-no-such-port"], 3, "no board at", port=None),
+    Case("port URL of an unknown kind", ["hello", "--port", "bogus://x"], 3, "no board at", port=None),
+    Case("nothing answers on the port", ["hello"], 3, "no board answered", port="silent"),
+    Case("another device on the port", ["stop"], 3, "no board answered", port=echo_other_device),
+    Case("garbage from the port", ["sync", "--db", "{db}"], 3, "", port=garbage),
+    Case("frames with a bad CRC", ["hello"], 3, "no board answered", port=frame_with_bad_crc),
+    Case("chatter with no frame in it", ["status" if False else "hello"], 3, "no board answered", port="silent",
+         chatter=b"\x1b[2J MicroPython v1.99 REPL >>> " * 4),
+    Case("a board of another protocol", ["hello"], 3, "speaks an unknown protocol",
+         port=board_then_vanish("never", dict(HELLO, protocol=7))),
+    Case("board vanishes mid-command (stop)", ["stop"], 3, "", port=board_then_vanish("stop")),
+    Case("board vanishes mid-sync (anchor)", ["sync", "--db", "{db}"], 3, "", port=board_then_vanish("anchor")),
+    Case("board vanishes mid-mark (blank)", ["blank", "--label", "water"], 3, "", port=board_then_vanish("blank")),
+    # -- hostile labels --------------------------------------------------------------------------------------------
+    Case("label with SQL in --run", ["rate", "--db", "{db}", "--run", "x' OR '1'='1"], 2, "no run"),
+    Case("label that is a path in --run", ["report", "--db", "{db}", "--run", "../../etc/passwd", "--out", "{dir}/r"],
+         2, "no run"),
+    Case("device label beyond 32 bytes (multi-byte)", ["setup", "--label", "µ" * 17], 2, "at most 32",
+         port="missing"),
+    Case("run label too long for one request", ["start", "--label", "<b> µ" * 30], 2, "too long", port="missing"),
+    Case("note too long for one request", ["note", "%" * 120], 2, "too long", port="missing"),
+]
+
+
+def _lock(db: Path) -> Any:
+    con = sqlite3.connect(db, isolation_level=None, timeout=0)
+    con.execute("BEGIN EXCLUSIVE")
+    return con
+
+
+def _fill(arg: Any, subs: dict[str, str]) -> str:
+    text = str(arg)
+    for k, v in subs.items():
+        text = text.replace("{" + k + "}", v)
+    return text
+
+
+def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPatch) -> tuple[Any, Path, dict, dict]:
+    monkeypatch.setattr(link_module, "Deadline", _QuickDeadline)
+    monkeypatch.setattr(store_module, "BUSY_TIMEOUT_S", 0.2)
+    db = case.db(template, work)
+    subs = {"db": str(db), "dir": str(work)}
+    if case.csv is not None:
+        subs["csv"] = str(case.csv(work))
+    fake = None
+    env = {"COLUMNS": "200", "NO_COLOR": "1"}
+    if case.port == "missing":
+        env["NIGHTCELL_PORT"] = "/dev/nightcell-never-opened"
+    elif case.port == "silent":
+        fake = FakePort(None, case.chatter)
+    elif callable(case.port):
+        fake = FakePort(case.port, case.chatter)
+    if fake is not None:
+        env["NIGHTCELL_PORT"] = fake.path
+    env.update(case.env)
+    undo = case.setup(db, work) if case.setup else None
+    before = snapshot(db)
+    try:
+        result = CliRunner().invoke(cli, [_fill(a, subs) for a in case.args], env=env)
+    finally:
+        if hasattr(undo, "close"):
+            undo.rollback() if hasattr(undo, "rollback") else None
+            undo.close()
+        if fake is not None:
+            fake.close()
+    return result, db, before, snapshot(db)
+
+
+@pytest.mark.parametrize("case", CASES, ids=[c.name for c in CASES])
+def test_bad_input(case: Case, template: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch):
+    result, db, before, after = _invoke(case, template, tmp_path, monkeypatch)
+    output = result.output
+    assert result.exit_code == case.code, f"exit {result.exit_code}, expected {case.code}:\n{output}\n{result.exception!r}"
+    assert case.message in output, output
+    assert "Traceback" not in output
+    # one clear message, not a dump: an error line that says something
+    assert output.strip(), "no message at all"
+    assert len(output.strip().splitlines()) <= 8, output
+    assert not isinstance(result.exception, (AssertionError, TypeError, AttributeError, KeyError, IndexError)), output
+    assert after == before, f"the database changed: {before} -> {after}"
+
+
+def test_the_table_has_at_least_forty_rows_across_every_kind():
+    assert len(CASES) >= 40
+    assert len({c.name for c in CASES}) == len(CASES)
+    assert sum(1 for c in CASES if c.port not in (None, "missing") or "port" in c.name) >= 8
+    assert sum(1 for c in CASES if c.csv is not None or "CSV" in c.name) >= 10
+    assert sum(1 for c in CASES if c.name.startswith(("DB", "merge"))) >= 8
+
+
+# -- database files the OS will not let us write ---------------------------------------------------------------------
+
+class _ReadOnlySqlite:
+    """``sqlite3`` as the store sees it on a read-only medium: every file opens with ``mode=ro``.
+
+    Root may write any file whatever its permission bits, so when the tests run as root this stands in for the
+    permission check the OS makes for everyone else (SQLite then refuses writes with the same error).
+    """
+
+    def __init__(self, real: Any):
+        self._real = real
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._real, name)
+
+    def connect(self, database: Any, *args: Any, uri: bool = False, **kwargs: Any) -> Any:
+        target = str(database)
+        if not uri:
+            target, uri = f"file:{target}?mode=ro", True
+        elif "mode=" not in target:
+            target += ("&" if "?" in target else "?") + "mode=ro"
+        return self._real.connect(target, *args, uri=uri, **kwargs)
+
+
+@pytest.fixture
+def readonly_db(tmp_path: Path, template: Path, monkeypatch: pytest.MonkeyPatch):
+    other = make_db(tmp_path / "other.db", device="5eba0000000000ff")
+    d = tmp_path / "ro"
+    d.mkdir()
+    db = d / "class.db"
+    shutil.copy(template, db)
+    db.chmod(0o444)
+    d.chmod(0o555)
+    if os.geteuid() == 0:
+        monkeypatch.setattr(store_module, "sqlite3", _ReadOnlySqlite(sqlite3))
+    monkeypatch.setattr(store_module, "BUSY_TIMEOUT_S", 0.2)
+    yield db, other
+    d.chmod(0o755)
+    db.chmod(0o644)
+
+
+@pytest.mark.parametrize("args, code, message", [
+    (["calibrate", "--db", "{db}"], 4, "read-only"),
+    (["rate", "--db", "{db}"], 4, "read-only"),
+    (["merge", "{other}", "--db", "{db}"], 4, "read-only"),
+])
+def test_read_only_database_gives_a_clear_error_and_stays_as_it_was(readonly_db, args, code, message):
+    readonly_db, other = readonly_db
+    before = snapshot(readonly_db)
+    result = CliRunner().invoke(cli, [a.replace("{db}", str(readonly_db)).replace("{other}", str(other))
+                                      for a in args], env={"COLUMNS": "200"})
+    assert result.exit_code == code, (result.output, result.exception)
+    assert message in result.output and "Traceback" not in result.output, result.output
+    assert snapshot(readonly_db) == before
+
+
+# -- settings files (the board's settings.json, read by the firmware's own loader) ----------------------------------
+
+SETTINGS_CASES = [
+    ("not JSON", b"{interval_ms: 5000", "settings.json ignored, safe defaults used"),
+    ("not UTF-8", b'{"label": "\xff\xfe"}', "settings.json ignored"),
+    ("a list, not an object", b"[1, 2, 3]", "settings must be a JSON object"),
+    ("interval below range", b'{"interval_ms": 10}', "interval_ms must be a whole number from 200"),
+    ("interval as text", b'{"interval_ms": "5000"}', "interval_ms must be a whole number"),
+    ("interval as true", b'{"interval_ms": true}', "interval_ms must be a whole number"),
+    ("unknown key", b'{"intervall_ms": 5000}', "unknown setting"),
+    ("unknown board", b'{"board": "uno"}', "board must be one of"),
+    ("label beyond 32 bytes", ('{"label": "%s"}' % ("µ" * 20)).encode(), "label must be text of at most 32 bytes"),
+    ("five channels", json.dumps({"channels": [{"name": f"c{i}", "led": i, "adc": 26} for i in range(5)]}).encode(),
+     "channels must be a list of 1 to 4"),
+    ("channel with an extra key", b'{"channels": [{"name": "a", "led": 1, "adc": 26, "cmd": "x"}]}',
+     "exactly name, led and adc"),
+    ("pin beyond 255", b'{"temp_pin": 400}', "temp_pin must be a pin number"),
+    ("path length NaN", b'{"path_cm": NaN}', "path_cm must be a number from 0.01 to 10"),
+    ("i2c of another sensor", b'{"i2c": {"sda": 1, "scl": 2, "sensor": "other", "address": 41}}',
+     "i2c sensor must be tsl2591"),
+]
+
+
+def _firmware_settings():
+    sys.path.insert(0, str(ROOT / "firmware"))
+    try:
+        import boards.cpy  # noqa: F401 — the const() shim the firmware needs in CPython
+        from nightcell_fw import settings
+    finally:
+        sys.path.remove(str(ROOT / "firmware"))
+    return settings
+
+
+@pytest.mark.parametrize("name, content, message", SETTINGS_CASES, ids=[c[0] for c in SETTINGS_CASES])
+def test_bad_settings_file_falls_back_to_defaults_with_a_reason(tmp_path, name, content, message):
+    settings = _firmware_settings()
+    path = tmp_path / "settings.json"
+    path.write_bytes(content)
+    got, problem = settings.load(str(path))
+    # schema/settings.md: a bad file is reported (EVENT 2) and the board runs on the defaults, never crashes
+    assert got == settings.defaults()
+    assert problem is not None and message in problem, problem
+    assert path.read_bytes() == content  # the file is left for the user to fix, not rewritten
+
+
+def test_settings_defaults_file_loads_cleanly(tmp_path):
+    settings = _firmware_settings()
+    path = tmp_path / "settings.json"
+    shutil.copy(ROOT / "schema" / "settings_default.json", path)
+    got, problem = settings.load(str(path))
+    assert problem is None and got == settings.defaults()
