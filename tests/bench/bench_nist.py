@@ -1,0 +1,97 @@
+"""NIST digits: how many significant digits nightcell's fits agree with the certified values of two NIST
+Statistical Reference Datasets (StRD; public-domain work of the US National Institute of Standards and Technology).
+
+- Norris (linear, 36 observations), fitted as a calibration line by ``calibration.fit_calibration`` — the path a
+  user's standards take. Certified B0, B1, their SDs and the residual SD. Goal (StRD guidance, as in
+  shared/REFERENCES.md): at least 9 digits.
+- Misra1a (nonlinear, y = b1·(1 − exp(−b2·x)), 14 observations) from both NIST starts, by ``fitting.nonlinear_lstsq``
+  (the machinery under every rate law). Goal: parameters and residual sum of squares to 6 digits, SDs to 4.
+
+Digits are the log relative error, LRE = −log10(|fitted − certified| / |certified|), capped at the digits the
+certificate gives (15 for Norris, 11 for Misra1a): the StRD way of scoring agreement. The tables are copied from
+shared/REFERENCES.md (which quotes the NIST files); the benchmark prints the lowest LRE of each group.
+
+    python tests/bench/bench_nist.py
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+
+import numpy as np
+
+from nightcell.calibration import fit_calibration
+from nightcell.fitting import nonlinear_lstsq
+
+# NIST StRD Norris, y then x (copied from shared/REFERENCES.md).
+NORRIS_Y = np.array([
+    0.1, 338.8, 118.1, 888.0, 9.2, 228.1, 668.5, 998.5, 449.1, 778.9, 559.2, 0.3, 0.1, 778.1, 668.8, 339.3, 448.9, 10.8,
+    557.7, 228.3, 998.0, 888.8, 119.6, 0.3, 0.6, 557.6, 339.3, 888.0, 998.5, 778.9, 10.2, 117.6, 228.9, 668.4, 449.2, 0.2,
+])
+NORRIS_X = np.array([
+    0.2, 337.4, 118.2, 884.6, 10.1, 226.5, 666.3, 996.3, 448.6, 777.0, 558.2, 0.4, 0.6, 775.5, 666.9, 338.0, 447.5, 11.6,
+    556.0, 228.1, 995.8, 887.6, 120.2, 0.3, 0.3, 556.8, 339.1, 887.2, 999.0, 779.0, 11.1, 118.3, 229.2, 669.1, 448.9, 0.5,
+])
+NORRIS_CERTIFIED = {"intercept": -0.262323073774029, "slope": 1.00211681802045}
+NORRIS_CERTIFIED_SD = {"intercept": 0.232818234301152, "slope": 0.429796848199937e-03}
+NORRIS_RESIDUAL_SD = 0.884796396144373
+
+# NIST StRD Misra1a (the NIST file lists y first).
+MISRA_Y = np.array([10.07, 14.73, 17.94, 23.93, 29.61, 35.18, 40.02, 44.82, 50.76, 55.05, 61.01, 66.40, 75.47, 81.78])
+MISRA_X = np.array([77.6, 114.9, 141.1, 190.8, 239.9, 289.0, 332.8, 378.4, 434.8, 477.3, 536.8, 593.1, 689.1, 760.0])
+MISRA_STARTS = ((500.0, 1e-4), (250.0, 5e-4))
+MISRA_CERTIFIED = {"b1": 2.3894212918e02, "b2": 5.5015643181e-04}
+MISRA_CERTIFIED_SD = {"b1": 2.7070075241e00, "b2": 7.2668688436e-06}
+MISRA_RSS = 1.2455138894e-01
+
+
+def lre(value: float, certified: float, cap: float) -> float:
+    """Log relative error: the number of leading significant digits that agree, at most ``cap``."""
+    if not math.isfinite(value):
+        return 0.0
+    err = abs(value - certified) / abs(certified)
+    return cap if err == 0 else max(0.0, min(cap, -math.log10(err)))
+
+
+def norris_digits() -> dict[str, float]:
+    cal = fit_calibration(NORRIS_X, NORRIS_Y)
+    params = min(lre(cal.param(k), v, 15) for k, v in NORRIS_CERTIFIED.items())
+    sds = min(lre(cal.se(k), v, 15) for k, v in NORRIS_CERTIFIED_SD.items())
+    return {"params": params, "sds": min(sds, lre(cal.residual_sd, NORRIS_RESIDUAL_SD, 15))}
+
+
+def misra_digits() -> dict[str, float]:
+    def model(x, b1, b2):
+        return b1 * (1.0 - np.exp(-b2 * x))
+
+    params = sds = math.inf
+    for start in MISRA_STARTS:
+        fit = nonlinear_lstsq(model, MISRA_X, MISRA_Y, start, ("b1", "b2"), model="misra1a")
+        params = min(params, lre(fit.rss, MISRA_RSS, 11), *(lre(fit.param(k), v, 11) for k, v in MISRA_CERTIFIED.items()))
+        sds = min(sds, *(lre(fit.se(k), v, 11) for k, v in MISRA_CERTIFIED_SD.items()))
+    return {"params": params, "sds": sds}
+
+
+def run(quick: bool) -> list[dict]:
+    """The same in quick and full runs (it takes milliseconds)."""
+    n, m = norris_digits(), misra_digits()
+    return [
+        {"name": "NIST Norris digits, B0 and B1 (calibration line)", "value": round(n["params"], 2), "goal": ">= 9",
+         "ok": n["params"] >= 9},
+        {"name": "NIST Norris digits, SDs and residual SD", "value": round(n["sds"], 2), "goal": ">= 9",
+         "ok": n["sds"] >= 9},
+        {"name": "NIST Misra1a digits, b1, b2 and RSS (both starts)", "value": round(m["params"], 2), "goal": ">= 6",
+         "ok": m["params"] >= 6},
+        {"name": "NIST Misra1a digits, SDs (both starts)", "value": round(m["sds"], 2), "goal": ">= 4",
+         "ok": m["sds"] >= 4},
+    ]
+
+
+def main() -> None:
+    for row in run("--quick" in sys.argv):
+        print(f"{row['name']}: {row['value']} (goal {row['goal']}){'' if row['ok'] else '  MISSED'}")
+
+
+if __name__ == "__main__":
+    main()
