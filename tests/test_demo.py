@@ -110,7 +110,8 @@ def test_the_power_cut_run_continues_across_boots(demo):
 
 def test_conditions_come_from_the_bench_sheet_and_name_their_source(demo):
     _, _, con = demo
-    rows = con.execute("SELECT quantity, count(*), min(source) FROM run_condition_readings GROUP BY quantity").fetchall()
+    rows = con.execute("SELECT quantity, count(*), min(source) FROM run_condition_readings "
+                       "GROUP BY quantity").fetchall()
     assert {(q, n) for q, n, _ in rows} == {("temperature_K", len(SC.runs)), ("conc_hydroxide_M", len(SC.runs))}
     assert all("bench sheet" in s for _, _, s in rows)
 

@@ -487,8 +487,8 @@ class StudyAnalysis:
         try:
             return self.orders[reactant].per_reactant[reactant]
         except KeyError:
-            raise AnalysisError(f"no order fit for {reactant!r}: {self.skipped.get('order ' + reactant, 'not in study')}"
-                                ) from None
+            why = self.skipped.get("order " + reactant, "no run records its concentration")
+            raise AnalysisError(f"no order fit for {reactant!r}: {why}") from None
 
     def to_dict(self) -> dict[str, Any]:
         return jsonable({
@@ -553,8 +553,8 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
     for run in runs:
         c = conds.get(run.key, {})
         if "temperature_K" not in c or not any(q.startswith("conc_") for q in c):
-            out.skipped[run.key] = ("no recorded temperature_K and starting concentration: record them with "
-                                    "set_run_condition (or `nightcell` condition commands)")
+            out.skipped[run.key] = ("no recorded temperature_K and starting concentration: record the run's "
+                                    "temperature_K and conc_<reactant>_M (analyse.set_run_condition) first")
             continue
         if run.device not in cals:
             try:

@@ -94,7 +94,7 @@ class DemoScenario:
         "led_counts": 3000.0, "dark_counts": 60.0, "noise_counts": 8.0, "stray": 0.001, "ambient_counts": 40.0})
 
     def k_true(self, run: PlannedRun) -> float:
-        """The rate constant the simulated cuvette follows: k_ref · ([OH⁻]/ref)^n · exp(−Ea/R · (1/T − 1/T_ref))."""
+        """The k the simulated cuvette follows: k_ref · ([OH⁻]/ref)^n · exp(−Ea/R · (1/T − 1/T_ref))."""
         t, t_ref = run.temperature_C + 273.15, self.ref_temperature_C + 273.15
         return (self.k_ref_per_s * (run.hydroxide_M / self.ref_hydroxide_M) ** self.order_hydroxide
                 * math.exp(-self.ea_J_per_mol / GAS_CONSTANT * (1.0 / t - 1.0 / t_ref)))
@@ -344,22 +344,24 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
                       "condition source": source,
                       **{f"sync of {b.name}": f"{b.sync['records']} records, {b.sync['bytes']} bytes, acknowledged to "
                                              f"{b.sync['acked_to']}" for b in benches}}
-    truth_rows = [(r["label"], r["bench"], _report._pm(r["k_per_s"], r["k_se_per_s"]), f"{r['k_true_per_s']:.5g}",
+    pm = _report.plus_minus
+    truth_rows = [(r["label"], r["bench"], pm(r["k_per_s"], r["k_se_per_s"]), f"{r['k_true_per_s']:.5g}",
                    f"{(r['k_per_s'] - r['k_true_per_s']) / r['k_se_per_s']:+.2f}") for r in rows]
     ea = study.arrhenius.extra if study.arrhenius is not None else {}
-    truth_rows.append(("order in hydroxide", "", _report._pm(order.values["order"], order.stderr["order"]),
-                       f"{sc.order_hydroxide:g}", f"{(order.values['order'] - sc.order_hydroxide) / order.stderr['order']:+.2f}"))
+    truth_rows.append(("order in hydroxide", "", pm(order.values["order"], order.stderr["order"]),
+                       f"{sc.order_hydroxide:g}",
+                       f"{(order.values['order'] - sc.order_hydroxide) / order.stderr['order']:+.2f}"))
     if ea:
-        truth_rows.append(("Ea (kJ/mol)", "", _report._pm(ea["Ea_kJ_per_mol"], ea["Ea_se_kJ_per_mol"]),
+        truth_rows.append(("Ea (kJ/mol)", "", pm(ea["Ea_kJ_per_mol"], ea["Ea_se_kJ_per_mol"]),
                            f"{sc.ea_J_per_mol / 1000:g}",
                            f"{(ea['Ea_kJ_per_mol'] - sc.ea_J_per_mol / 1000) / ea['Ea_se_kJ_per_mol']:+.2f}"))
     extra = [{"title": "The scenario's own numbers against what the fits recovered",
               "text": "The demo's cuvettes follow invented rate constants; a fit is good when it lands within a few "
                       "of its standard errors of them (the last column, in standard errors).",
-              "html": _report._table(["quantity", "bench", "recovered ± SE", "scenario", "difference / SE"],
+              "html": _report.html_table(["quantity", "bench", "recovered ± SE", "scenario", "difference / SE"],
                                      truth_rows)},
              {"title": "The power cut", "text": cut.get("what_happened", "no power cut in this scenario")
-              + (f". Events journaled at the restart: {'; '.join(cut.get('events', []))}." if cut.get("events") else "")}]
+              + (f". Events journaled at the restart: {'; '.join(cut['events'])}." if cut.get("events") else "")}]
     intro = ("A demonstration on two simulated boards running the real nightcell firmware; the scenario and every "
              "number in it are invented. A class followed a violet dye fading in alkali: bench A at three hydroxide "
              "concentrations at 25 °C, bench B at 15, 25 and 35 °C. Each bench took a blank and five standards, "

@@ -37,7 +37,7 @@ from . import __version__  # noqa: E402
 
 __all__ = ["plot_calibration", "plot_run", "plot_orders", "plot_arrhenius", "figure_png", "figure_svg",
            "save_figure", "html_report", "fit_table", "write_csv", "safe_filename", "ReportFiles", "run_report",
-           "study_report", "plain_text", "plus_minus"]
+           "study_report", "plain_text", "plus_minus", "html_table"]
 
 
 def plain_text(label: Any) -> str:
@@ -140,6 +140,11 @@ def _table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
     return "".join(out)
 
 
+def html_table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
+    """An HTML table; every header and cell is escaped (numbers to 6 significant digits)."""
+    return _table(headers, rows)
+
+
 def _fmt(v: Any) -> str:
     if isinstance(v, float):
         if not np.isfinite(v):
@@ -201,9 +206,17 @@ def write_csv(path: str | Path, headers: Sequence[str], rows: Iterable[Sequence[
         w = csv.writer(fh)
         w.writerow(headers)
         for row in rows:
-            w.writerow(["" if (isinstance(v, float) and not np.isfinite(v)) else v for v in row])
+            w.writerow(["" if (isinstance(v, float) and not np.isfinite(v)) else _inert_cell(v) for v in row])
     tmp.replace(p)
     return p
+
+
+def _inert_cell(v: Any) -> Any:
+    """Text a spreadsheet would run as a formula (a label typed as ``=HYPERLINK(…)``) is written with a leading
+    apostrophe, so opening an export never runs what a board or a user wrote; numbers are written as they are."""
+    if isinstance(v, str) and v[:1] in ("=", "+", "-", "@", "\t", "\r"):
+        return "'" + v
+    return v
 
 
 # -- several runs ---------------------------------------------------------------------------------------------------
@@ -387,8 +400,6 @@ def plus_minus(value: Any, se: Any, digits: int = 4) -> str:
     return f"({v / 10**power:.{d}f} ± {e / 10**power:.{d}f})e{power:+03d}"
 
 
-_pm = plus_minus
-
 
 def _conditions_text(conditions: dict[str, Any] | None) -> str:
     if not conditions:
@@ -458,8 +469,8 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
     rows = []
     for m, f in sorted(analysis.fits.items(), key=lambda kv: kv[1].aic):
         key = "k" if "k" in f.values else "rate"
-        rows.append((m, f.aic, f.aic - best.aic, f.residual_sd, _pm(f.values.get(key), f.stderr.get(key)),
-                     _pm(f.extra.get("half_life_s"), f.extra.get("half_life_se_s"))))
+        rows.append((m, f.aic, f.aic - best.aic, f.residual_sd, plus_minus(f.values.get(key), f.stderr.get(key)),
+                     plus_minus(f.extra.get("half_life_s"), f.extra.get("half_life_se_s"))))
     sections.append({"title": "Rate laws compared",
                      "html": _table(["rate law", "AIC", "ΔAIC", "residual SD (A)", "k or rate ± SE",
                                      "half-life (s) ± SE"], rows)})
@@ -525,8 +536,9 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         concs = "; ".join(f"{q[5:-2]} {v:.4g} M" for q, v in sorted(c.items()) if q.startswith("conc_"))
         t = c.get("temperature_K")
         rows.append((it.run.label or it.run.key, it.run.key, "—" if t is None else f"{t - 273.15:.1f}", concs,
-                     _pm(it.k, it.k_se), _pm(it.fit.extra.get("half_life_s"), it.fit.extra.get("half_life_se_s")),
-                     _pm(it.fit.values.get("A_inf"), it.fit.stderr.get("A_inf"), 3),
+                     plus_minus(it.k, it.k_se),
+                     plus_minus(it.fit.extra.get("half_life_s"), it.fit.extra.get("half_life_se_s")),
+                     plus_minus(it.fit.values.get("A_inf"), it.fit.stderr.get("A_inf"), 3),
                      ", ".join(map(str, it.analysis.boots)), len(it.analysis.time_s)))
     sections.append({"title": "Runs",
                      "text": f"Rate constants from the model {study.model} (first order towards a plateau, offset "
@@ -569,13 +581,14 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         finally:
             plt.close(fig)
         html_parts = fit_table(f)
-        text = (f"ln k against ln [{reactant}] over runs {', '.join(keys)}. Order {_pm(f.values['order'], f.stderr['order'])}"
-                f"; Birge ratio {f.extra.get('birge_ratio', float('nan')):.3g}.")
+        text = (f"ln k against ln [{reactant}] over runs {', '.join(keys)}. "
+                f"Order {plus_minus(f.values['order'], f.stderr['order'])}; "
+                f"Birge ratio {f.extra.get('birge_ratio', float('nan')):.3g}.")
         ini = study.initial_orders.get(reactant)
         if ini is not None and reactant in ini.per_reactant:
             g = ini.per_reactant[reactant]
             text += (f"\n\nFrom initial rates (dA/dt over an early window, same runs): order "
-                     f"{_pm(g.values['order'], g.stderr['order'])}. A cross-check only: it holds when every run "
+                     f"{plus_minus(g.values['order'], g.stderr['order'])}. A cross-check only: it holds when every run "
                      "starts from the same absorbance, and the window's curvature pulls fast runs' rates low.")
             html_parts += fit_table(g)
         sections.append({"title": f"Order in {reactant}", "text": text, "html": html_parts, "figures": [png]})
@@ -591,12 +604,14 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         finally:
             plt.close(fig)
         ex = fa.extra
-        text = (f"Runs {', '.join(keys)}. Ea = {_pm(ex.get('Ea_kJ_per_mol'), ex.get('Ea_se_kJ_per_mol'))} kJ/mol; "
-                f"A = {_pm(ex.get('A'), ex.get('A_se'))} s⁻¹; Birge ratio {ex.get('birge_ratio', float('nan')):.3g}.")
+        text = (f"Runs {', '.join(keys)}. Ea = {plus_minus(ex.get('Ea_kJ_per_mol'), ex.get('Ea_se_kJ_per_mol'))} "
+                f"kJ/mol; A = {plus_minus(ex.get('A'), ex.get('A_se'))} s⁻¹; "
+                f"Birge ratio {ex.get('birge_ratio', float('nan')):.3g}.")
         if fe is not None:
             text += (f"\n\nEyring (transmission coefficient 1): ΔH‡ = "
-                     f"{_pm(fe.values['dH_J_per_mol'] / 1000, fe.stderr['dH_J_per_mol'] / 1000)} kJ/mol, ΔS‡ = "
-                     f"{_pm(fe.values['dS_J_per_mol_K'], fe.stderr['dS_J_per_mol_K'])} J/(mol·K).")
+                     f"{plus_minus(fe.values['dH_J_per_mol'] / 1000, fe.stderr['dH_J_per_mol'] / 1000)} kJ/mol, "
+                     "ΔS‡ = "
+                     f"{plus_minus(fe.values['dS_J_per_mol_K'], fe.stderr['dS_J_per_mol_K'])} J/(mol·K).")
         sections.append({"title": "Temperature dependence", "text": text,
                          "html": fit_table(fa) + (fit_table(fe) if fe is not None else ""), "figures": [png]})
     cals: dict[str, Any] = {}
@@ -613,8 +628,8 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             plt.close(fig)
         sections.append({"title": f"Calibration of {device}", "html": fit_table(cal),
                          "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; LOD "
-                                 f"{cal.extra.get('lod', float('nan')):.3g}, LOQ {cal.extra.get('loq', float('nan')):.3g}"
-                                 " in the unit of the standards' values.",
+                                 f"{cal.extra.get('lod', float('nan')):.3g}, "
+                                 f"LOQ {cal.extra.get('loq', float('nan')):.3g} in the unit of the standards' values.",
                          "figures": [png]})
     sections.extend(extra_sections)
     notes = [f"{k}: {v}" for k, v in study.rules.items()] + [f"left out — {k}: {v}" for k, v in study.skipped.items()]
