@@ -1,0 +1,269 @@
+"""Security: what a board, a file or another host's database can make nightcell do (the threat model is in
+DEVELOPERS.md). Nothing that came from outside is evaluated as code; SQL text is built only from our own schema's
+names, data always travels as parameters; file names made from labels stay inside the folder asked for; HTML, SVG,
+CSV and the terminal show labels as inert text; the board answers only the documented verbs and trims only what
+was acknowledged and is durable.
+"""
+
+from __future__ import annotations
+
+import ast
+import csv
+import html as html_module
+import json
+import re
+import sqlite3
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from nightcell import export as export_module
+from nightcell import report as report_module
+from nightcell.cli import cli
+from nightcell.merge import merge_database
+from nightcell.store import Store
+from test_bad_input import make_db
+
+ROOT = Path(__file__).resolve().parent.parent
+SOURCES = sorted((ROOT / "host" / "nightcell").glob("*.py")) + sorted((ROOT / "firmware").rglob("*.py"))
+HOSTILE_LABELS = [
+    "<script>alert(1)</script>",
+    "'; DROP TABLE samples;--",
+    "../../../etc/cron.d/x",
+    "=HYPERLINK(\"http://example.invalid\",\"click\")",
+    "[bold red]not markup[/]",
+    "$\\frac{a}{b}$ \\n",
+    "\u202eevil.png",
+    "@SUM(A1:A9)",
+]
+
+
+# -- no code from outside --------------------------------------------------------------------------------------------
+
+FORBIDDEN_CALLS = {"eval", "exec", "compile", "__import__", "execfile"}
+FORBIDDEN_MODULES = {"pickle", "marshal", "shelve", "yaml", "dill"}
+# Reviewed: the firmware's boot imports optional driver modules by names written in main.py itself.
+REVIEWED_CALLS = {("main.py", "__import__")}
+
+
+@pytest.mark.parametrize("path", SOURCES, ids=lambda p: str(p.relative_to(ROOT)))
+def test_no_eval_exec_pickle_or_shell_anywhere(path):
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Call):
+            f = node.func
+            name = f.id if isinstance(f, ast.Name) else ""  # the builtins; re.compile and the like are fine
+            assert name not in FORBIDDEN_CALLS or (path.name, name) in REVIEWED_CALLS, \
+                f"{path.name}:{node.lineno} calls {name}"
+            assert not (name in ("system", "popen") and isinstance(f, ast.Attribute)
+                        and getattr(f.value, "id", "") == "os"), f"{path.name}:{node.lineno} runs a shell"
+            for kw in node.keywords:
+                assert not (kw.arg == "shell" and isinstance(kw.value, ast.Constant) and kw.value.value), \
+                    f"{path.name}:{node.lineno} runs a shell"
+        if isinstance(node, (ast.Import, ast.ImportFrom)):
+            names = [a.name for a in node.names] if isinstance(node, ast.Import) else [node.module or ""]
+            assert not {n.split(".")[0] for n in names} & FORBIDDEN_MODULES, f"{path.name}:{node.lineno}"
+
+
+# -- SQL with parameters only ------------------------------------------------------------------------------------
+
+# Every place that builds SQL text at run time, and why what it splices in is never data: each splices only table and
+# column names from our own schema (constants in the module, or PRAGMA table_info of our own main database), or
+# "?" placeholders. A new place must be reviewed and added here.
+REVIEWED_DYNAMIC_SQL = {
+    ("analyse.py", "run_conditions"): "fixed WHERE clauses with ? placeholders",
+    ("cli.py", "_results"): "a fixed WHERE clause with a ? placeholder",
+    ("merge.py", "_insert_missing"): "table names from RAW_IDENTITY, columns from PRAGMA of main",
+    ("merge.py", "_device_conflicts"): "column names from _DEVICE_METADATA",
+    ("merge.py", "_merge_sync_sessions"): "columns from PRAGMA of main",
+    ("merge.py", "_conflicts"): "table and key names from RAW_IDENTITY, columns from PRAGMA of main",
+    ("merge.py", "_columns"): "table names from RAW_IDENTITY",
+    ("simulate.py", "raw_rows"): "table names from RAW_TABLES (test support)",
+    ("store.py", "query"): "the caller's SQL text; callers pass data as params",
+    ("store.py", "marks"): "fixed WHERE clauses with ? placeholders",
+    ("store.py", "run_samples"): "fixed clauses with ? placeholders",
+    ("store.py", "open"): "an integer from a module constant",
+    ("store.py", "insert_rows"): "table names from ingest's own dict, ? placeholders",
+    ("store.py", "_migrations"): "statements from schema/migrations",
+    ("store.py", "apply"): "statements from schema/migrations",
+    ("store.py", "_last_uptime"): "table names from _RAW_TABLES",
+    ("store.py", "count"): "a table name checked against the database's own table list",
+    ("timeline.py", "rebuild_clocks"): "a fixed WHERE clause with ? placeholders",
+}
+
+
+def _dynamic_sql_sites() -> set[tuple[str, str]]:
+    sites = set()
+    for path in sorted((ROOT / "host" / "nightcell").glob("*.py")):
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        for fn in ast.walk(tree):
+            if not isinstance(fn, (ast.FunctionDef, ast.AsyncFunctionDef)):
+                continue
+            for node in ast.walk(fn):
+                if (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.args
+                        and node.func.attr in ("execute", "executemany", "executescript", "query")
+                        and not (isinstance(node.args[0], ast.Constant) and isinstance(node.args[0].value, str))):
+                    sites.add((path.name, fn.name))
+    return sites
+
+
+def test_sql_text_is_built_only_in_reviewed_places():
+    new = _dynamic_sql_sites() - set(REVIEWED_DYNAMIC_SQL)
+    assert not new, f"SQL built at run time in unreviewed places (use ? parameters, or review and list): {new}"
+
+
+def test_hostile_labels_are_stored_as_given_and_every_table_survives(tmp_path):
+    for i, label in enumerate(HOSTILE_LABELS):
+        db = make_db(tmp_path / f"h{i}.db", run_label=label, blank_label=label)
+        con = sqlite3.connect(db)
+        labels = {r[0] for r in con.execute("SELECT label FROM marks WHERE mark IN ('run_start', 'blank')")}
+        assert labels == {label}
+        assert con.execute("SELECT count(*) FROM samples").fetchone()[0] == 40
+        con.close()
+        r = CliRunner().invoke(cli, ["list", "runs", "--db", str(db), "--json"])
+        assert r.exit_code == 0 and json.loads(r.output)[0]["label"] == label
+
+
+def test_merging_a_hostile_database_takes_rows_as_data(tmp_path):
+    here = make_db(tmp_path / "here.db")
+    other = make_db(tmp_path / "other.db", device="5eba0000000000aa", run_label=HOSTILE_LABELS[1])
+    with Store.open(here) as store:
+        report = merge_database(store, other)
+        assert report.applied and report.new > 0
+        assert {r.label for r in store.runs()} == {"fading 25 C", HOSTILE_LABELS[1]}
+        assert store.count("samples") == 80
+
+
+# -- files named from labels ---------------------------------------------------------------------------------------
+
+@settings(max_examples=300, deadline=None)
+@given(st.text(max_size=120))
+def test_file_names_from_any_label_are_plain_names(label):
+    name = report_module.safe_filename(label)
+    assert name and len(name) <= 80
+    assert re.fullmatch(r"[A-Za-z0-9._-]+", name)
+    assert not name.startswith(".") and name not in (".", "..")
+    assert Path(name).name == name
+
+
+def test_export_and_report_of_hostile_labels_stay_inside_the_folder_and_are_inert(tmp_path):
+    for i, label in enumerate(HOSTILE_LABELS):
+        db = make_db(tmp_path / f"h{i}.db", run_label=label, blank_label=label)
+        out = tmp_path / f"out{i}"
+        for args in (["export", "--db", db, "--out", out], ["report", "--db", db, "--all", "--out", out]):
+            r = CliRunner().invoke(cli, [str(a) for a in args])
+            assert r.exit_code == 0, r.output
+        written = [p for p in tmp_path.rglob("*") if p.is_file() and p.parent != tmp_path]
+        assert list(out.glob("*.html")) and list(out.glob("*.csv"))
+        assert all(p.relative_to(tmp_path).parts[0].startswith("out") for p in written), written
+        assert not (tmp_path.parent / "etc").exists() and not (tmp_path / "etc").exists()
+        for page in out.glob("*.html"):
+            html = page.read_text(encoding="utf-8")
+            assert "<script" not in html.lower(), page  # the page has no script of its own either
+            assert label not in html or not any(c in label for c in "<>&\"'")
+        for svg in out.glob("*.svg"):
+            assert "<script" not in svg.read_text(encoding="utf-8").lower()
+        for sheet in out.glob("*.csv"):
+            with open(sheet, newline="", encoding="utf-8") as fh:
+                for row in csv.reader(fh):
+                    assert not any(cell[:1] in ("=", "+", "@") for cell in row), (sheet, row)
+
+
+def test_csv_cells_a_spreadsheet_would_run_are_written_as_text(tmp_path):
+    # the formula prefixes = + - @ (and tab, carriage return), as commonly listed for spreadsheet formula injection
+    # [memory: OWASP's CSV injection page]; numbers, negative ones included, stay numbers
+    path = report_module.write_csv(tmp_path / "x.csv", ["label", "value"],
+                                   [["=1+1", -2.5], ["+A1", 3], ["-B2", "plain"], ["@SUM(A1)", "\tx"]])
+    rows = list(csv.reader(open(path, newline="", encoding="utf-8")))
+    assert rows[1:] == [["'=1+1", "-2.5"], ["'+A1", "3"], ["'-B2", "plain"], ["'@SUM(A1)", "'\tx"]]
+
+
+def test_terminal_tables_show_rich_markup_in_labels_literally(tmp_path):
+    db = make_db(tmp_path / "m.db", run_label="[bold red]not markup[/]")
+    r = CliRunner().invoke(cli, ["list", "runs", "--db", str(db)], env={"COLUMNS": "250"})
+    assert r.exit_code == 0 and "[bold red]not markup[/]" in r.output
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.text(max_size=60), st.text(max_size=60).filter(lambda t: "\n\n" not in t))
+def test_html_pages_escape_any_title_and_text(title, para):
+    page = report_module.html_report(title, [{"title": title, "text": para}])
+    plain = report_module.html_report("t", [{"title": "t", "text": "p" if para else ""}])
+    # whatever the text, the page has the same tags as one with plain words: nothing in it became markup
+    assert page.count("<") == plain.count("<") and page.count(">") == plain.count(">")
+    assert html_module.escape(para) in page and html_module.escape(title) in page
+
+
+# -- the board: documented verbs only, trims only what was acknowledged ----------------------------------------------
+
+def _protocol_verbs() -> set[str]:
+    text = (ROOT / "schema" / "protocol.md").read_text(encoding="utf-8")
+    return set(re.findall(r"^\| `([a-z]+)` \|", text, flags=re.MULTILINE))
+
+
+def test_the_board_knows_exactly_the_documented_verbs():
+    from fwharness import results, run_mp
+
+    out = results(run_mp("from nightcell_fw.commands import VERBS\nprint('verbs=' + ' '.join(sorted(VERBS)))"))
+    assert set(out["verbs"].split()) == _protocol_verbs() and len(_protocol_verbs()) == 15
+
+
+BOARD = r"""
+import struct
+from boards.simkit import SimKit
+kit = SimKit(blocks=64, settings={"interval_ms": 1000, "warmup_ms": 0, "marker_samples": 1, "reads": 2,
+                                  "segment_bytes": 1024, "durability_ms": 1000})
+lg = kit.lg
+
+def reply(line):
+    kit.port.sent = bytearray()
+    kit.port.feed(line + b"\n")
+    for _ in range(3):
+        lg.run(1)
+    b = bytes(kit.port.sent)
+    kind, tag, n = struct.unpack_from("<BHH", b, 2)
+    return kind, b[7:7 + n]
+
+for i, line in enumerate([b"1 exec print(1)", b"2 __import__ os", b"3 eval 1+1", b"4 HELLO", b"5 hello x",
+                          b"6 set __class__ 1", b"7 set label", b"8 ack -1", b"9 read 0 99999", b"10 reset now",
+                          b"11 status;reset", b"12  hello"]):
+    kind, text = reply(line)
+    assert kind == 2, (line, kind, text)
+    print("refused%d=%s" % (i, text.decode()))
+kit.request(b"20 start")
+kit.run_ms(1200000)
+kit.request(b"21 stop")
+kit.request(b"22 flush")
+j = lg.journal
+head, tail, segs = j.head, j.tail, len(j.starts)
+print("segments=%d" % segs)
+kind, text = reply(b"23 ack %d" % (head + 1))
+print("past_head=%d %s" % (kind, text.decode()))
+assert (j.tail, len(j.starts)) == (tail, segs)
+second = j.starts[1]
+kind, text = reply(b"24 ack %d" % (second - 1))
+print("mid_first=%d" % kind)
+assert j.tail == tail and len(j.starts) == segs  # the first segment still holds unacknowledged bytes
+kind, text = reply(b"25 ack %d" % second)
+print("at_second=%d tail=%d" % (kind, j.tail))
+assert j.tail == second and len(j.starts) == segs - 1
+s, n = j.read(second, 4096, memoryview(bytearray(4096)))
+print("still_readable=%d" % n)
+print("errors=%d" % lg.errors)
+"""
+
+
+def test_the_board_refuses_undocumented_commands_and_trims_only_what_was_acknowledged():
+    from fwharness import results, run_mp
+
+    res = results(run_mp(BOARD))
+    refusals = [res[f"refused{i}"] for i in range(12)]
+    assert all("unknown command" in t for t in refusals[:4])
+    assert "usage: hello" in refusals[4] and "unknown setting" in refusals[5]
+    assert int(res["segments"]) >= 3
+    assert res["past_head"].startswith("2 ") and "past the durable head" in res["past_head"]
+    assert res["mid_first"] == "1" and res["at_second"].startswith("1 ")
+    assert int(res["still_readable"]) > 0 and res["errors"] == "0"
