@@ -199,3 +199,36 @@ def test_sync_all_and_merge_commands(sim, tmp_path):
     assert res.exit_code == 2 and "no database at" in res.output
     for command in ("sync-all", "merge", "deploy", "roll-call"):
         assert "Example:" in runner.invoke(cli, [command, "--help"]).output
+
+
+class _FakeTransport:
+    """Replies fed by the test; requests recorded (no port)."""
+
+    def __init__(self):
+        from nightcell.frames import ReplyReader
+
+        self.reader = ReplyReader()
+        self.sent = []
+        self.url = "fake://"
+        self.bytes_in = 0
+
+    def send(self, line):
+        self.sent.append(line)
+
+    def receive(self):
+        time.sleep(0.001)
+        return 0
+
+
+def test_a_duplicated_reply_after_the_last_chunk_is_ignored():
+    """The last chunk arrives and a duplicate of a reply is already arriving behind it (a duplicated stretch on the
+    cable): the pull ends cleanly with nothing in flight. (Found by the fault campaign.)"""
+    from nightcell import frames as F
+
+    t = _FakeTransport()
+    board = Board(t, timeout=0.2, retries=2)
+    record = F.encode_record(F.KIND_ANCHOR, 1, 0, 0, {"host_unix_ms": 5})
+    reply = F.encode_reply(F.REPLY_DATA, 1, (0).to_bytes(4, "little") + record)
+    t.reader.feed(reply + reply[:15])  # the whole reply to tag 1, then the start of a copy of it
+    got = list(JournalPull(board, 0, len(record)))
+    assert got == [(0, record)] and len(t.sent) == 1

@@ -232,3 +232,4 @@ def test_board_ticks_wrap_keeps_uptime_continuous_and_the_clock_fitted(tmp_path)
     assert steps.count(1.0) > 0.8 * len(steps)
     assert [c["quality"] for c in clock] == ["fitted"]
     assert abs(clock[0]["rate"] - 1.0) < 0.05  # anchors at an accelerated pace are only as good as the USB latency
+

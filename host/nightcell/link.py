@@ -334,7 +334,7 @@ class JournalPull:
     def _top_up(self, allow_ahead: bool = True) -> None:
         if not self._inflight and not self._finished and self._wanted(self.cursor):
             self._send(self.cursor)
-        if not allow_ahead or len(self._inflight) >= self.depth:
+        if not allow_ahead or not self._inflight or len(self._inflight) >= self.depth:
             return
         header = self.board.transport.reader.peek_header()
         if header is None:
