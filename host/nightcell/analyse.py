@@ -73,7 +73,8 @@ class BlankChoice:
     def stray_text(self) -> str:
         if self.stray_mark is None:
             return "no opaque mark before it: stray light not corrected"
-        return f"stray-light fraction {self.stray:.3g} from opaque mark {self.stray_mark} ({STRAY_RULE})"
+        return (f"stray-light fraction {self.stray:.3g} from opaque mark {self.stray_mark} ({STRAY_RULE}; its own "
+                "uncertainty is not carried into standard errors)")
 
 
 STRAY_RULE = "nearest preceding opaque mark of the same device, read against the same blank"

@@ -160,7 +160,7 @@ class _Bench:
         self.sim = SimulatedBoard(workdir, device=self.device, speed=sc.speed, seed=sc.seed + 17 * index,
                                   interpreter=interpreter, optics=sc.optics,
                                   settings={"interval_ms": int(sc.interval_s * 1000), "durability_ms": 10000,
-                                            "label": self.name, "path_cm": sc.path_cm, "marker_samples": 8})
+                                            "label": self.name, "path_cm": sc.path_cm, "marker_samples": 32})
         for stale in (self.sim.flash_path, self.sim.cell_path):
             if stale.is_dir():
                 shutil.rmtree(stale)
@@ -343,7 +343,9 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
                       "firmware interpreter": benches[0].sim.interpreter, "readings (channel 0)": n_samples,
                       "condition source": source,
                       **{f"sync of {b.name}": f"{b.sync['records']} records, {b.sync['bytes']} bytes, acknowledged to "
-                                             f"{b.sync['acked_to']}" for b in benches}}
+                                             f"{b.sync['acked_to']}" for b in benches},
+                      **{f"device {d}": f"{label or ''}, board profile {board}, firmware {fw}" for d, board, fw, label
+                         in store.conn.execute("SELECT device, board, firmware, label FROM devices ORDER BY device")}}
     pm = _report.plus_minus
     truth_rows = [(r["label"], r["bench"], pm(r["k_per_s"], r["k_se_per_s"]), f"{r['k_true_per_s']:.5g}",
                    f"{(r['k_per_s'] - r['k_true_per_s']) / r['k_se_per_s']:+.2f}") for r in rows]
