@@ -135,7 +135,6 @@ def _csv(text: str | bytes) -> Callable[[Path], Path]:
 
 
 GOOD_CAL = "concentration,absorbance\n0,0.01\n2,0.16\n4,0.31\n6,0.46\n8,0.61\n"
-GOOD_RATE = "time_s,absorbance\n" + "".join(f"{2 * i},{0.05 + 0.6 * math.exp(-0.04 * i):.5f}\n" for i in range(20))
 
 
 def _truncated(template: Path, d: Path) -> Path:
@@ -333,7 +332,7 @@ CASES = [
     Case("CSV NaN", ["calibrate", "{csv}"], 2, "is not a finite number",
          csv=_csv("concentration,absorbance\n0,nan\n2,0.16\n4,0.31\n6,0.46\n")),
     Case("CSV infinity", ["rate", "{csv}"], 2, "is not a finite number",
-         csv=_csv(GOOD_RATE.replace("\n2,", "\n2,inf,", 1).replace(",inf,", ",").replace("\n4,", "\n4,inf\n6,", 1))),
+         csv=_csv("time_s,absorbance\n0,0.65\n2,0.61\n4,inf\n6,0.55\n8,0.52\n")),
     Case("CSV not UTF-8", ["calibrate", "{csv}"], 2, "cannot read",
          csv=_csv(b"concentration,absorbance\n\xff\xfe0,0\n2,0.16\n4,0.31\n")),
     Case("CSV binary junk", ["rate", "{csv}"], 2, "", csv=_csv(bytes(range(256)) * 4)),
@@ -370,7 +369,7 @@ CASES = [
     Case("another device on the port", ["stop"], 3, "no board answered", port=echo_other_device),
     Case("garbage from the port", ["sync", "--db", "{db}"], 3, "", port=garbage),
     Case("frames with a bad CRC", ["hello"], 3, "no board answered", port=frame_with_bad_crc),
-    Case("chatter with no frame in it", ["status" if False else "hello"], 3, "no board answered", port="silent",
+    Case("chatter with no frame in it", ["hello"], 3, "no board answered", port="silent",
          chatter=b"\x1b[2J MicroPython v1.99 REPL >>> " * 4),
     Case("a board of another protocol", ["hello"], 3, "speaks an unknown protocol",
          port=board_then_vanish("never", dict(HELLO, protocol=7))),
@@ -424,8 +423,8 @@ def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPa
     try:
         result = CliRunner().invoke(cli, [_fill(a, subs) for a in case.args], env=env)
     finally:
-        if hasattr(undo, "close"):
-            undo.rollback() if hasattr(undo, "rollback") else None
+        if isinstance(undo, sqlite3.Connection):  # the lock another writer held
+            undo.rollback()
             undo.close()
         if fake is not None:
             fake.close()
