@@ -354,7 +354,9 @@ class JournalPull:
         deadline = Deadline(self.timeout)
         while self._inflight and not deadline.expired():
             for frame in self.board.transport.reader.frames():
-                self._take(frame)
+                got = self._take(frame)
+                if got is not None:
+                    self._parked[got[0]] = got[1]
             if self._inflight:
                 self.board.transport.receive()
         self._inflight.clear()
