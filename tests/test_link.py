@@ -232,3 +232,12 @@ def test_a_duplicated_reply_after_the_last_chunk_is_ignored():
     t.reader.feed(reply + reply[:15])  # the whole reply to tag 1, then the start of a copy of it
     got = list(JournalPull(board, 0, len(record)))
     assert got == [(0, record)] and len(t.sent) == 1
+
+
+def test_spy_url_logs_the_exchange(sim, tmp_path):
+    """pyserial's spy:// wrapper (its documented URL handler) sits in front of the real port for debugging."""
+    log = tmp_path / "spy.txt"
+    with Board.open(f"spy://{sim.url}?file={log}") as board:
+        assert board.hello(timeout=5.0)["device"] == "5e1f0000000000c1"
+    text = log.read_text()
+    assert "1 hello" in text and "RX" in text and "A7" in text  # our request line, the reply with its sync byte
