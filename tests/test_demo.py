@@ -161,3 +161,46 @@ def test_results_are_stored_with_their_inputs(demo):
     for (inputs,) in con.execute("SELECT inputs_json FROM results WHERE kind = 'rate'"):
         doc = json.loads(inputs)
         assert doc["blank_rule"] and doc["run"].count(":") == 2 and not math.isnan(float(doc["points_used"]))
+
+
+# -- the demo's database through the commands a class would type afterwards ------------------------------------------
+
+def _cli(*args):
+    from click.testing import CliRunner
+
+    from nightcell.cli import cli
+
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+def test_study_report_command_on_the_demo_database(demo, tmp_path):
+    outcome, _, _ = demo
+    db = tmp_path / "copy.db"
+    src = sqlite3.connect(outcome.db)
+    dst = sqlite3.connect(db)
+    src.backup(dst)
+    src.close()
+    dst.close()
+    r = _cli("report", "--db", db, "--study", "--out", tmp_path / "rep", "--json")
+    assert r.exit_code == 0, r.output
+    files = json.loads(r.output)["files"]
+    assert files[0].endswith("study.html")
+    pages = [f for f in files if f.endswith(".html")]
+    assert len(pages) == 1 + len(SC.runs)
+    study = (tmp_path / "rep" / "study.html").read_text(encoding="utf-8")
+    assert "Arrhenius" in study and "hydroxide" in study
+    # the conditions the demo recorded can be listed, changed with their source named, and are refused when bad
+    r = _cli("list", "conditions", "--db", db, "--json")
+    conds = json.loads(r.output)
+    assert len(conds) == len(SC.runs)
+    key = sorted(conds)[0]
+    r = _cli("condition", "--db", db, "--run", key, "--temperature-c", "25.5", "--source", "probe check", "--json")
+    assert r.exit_code == 0, r.output
+    got = json.loads(r.output)["conditions"]["temperature_K"]
+    assert got == {"value": pytest.approx(298.65), "source": "probe check"}
+    r = _cli("condition", "--db", db, "--run", key, "--temperature-k", "25")
+    assert r.exit_code == 2 and "kelvin" in r.output
+    r = _cli("condition", "--db", db, "--run", key, "--conc", "hydroxide")
+    assert r.exit_code == 2 and "REACTANT=MOLAR" in r.output
+    r = _cli("report", "--db", db, "--study", "--all", "--out", tmp_path / "x")
+    assert r.exit_code == 2 and "one of --run, --all or --study" in r.output

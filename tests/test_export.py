@@ -93,7 +93,7 @@ def test_report_escapes_the_label_and_names_files_safely(db, tmp_path):
     assert "<script" not in page.lower()
     assert "&lt;script&gt;alert(1)&lt;/script&gt;&#x27;; DROP TABLE samples;--" in page
     assert {p.suffix for p in tmp_path.iterdir()} == {".html", ".png", ".svg"}
-    svg = next(tmp_path.glob("*-run.svg")).read_text(encoding="utf-8")
+    svg = next(tmp_path.glob("*-absorbance.svg")).read_text(encoding="utf-8")
     assert "<script" not in svg.lower()
 
 

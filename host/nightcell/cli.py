@@ -149,7 +149,8 @@ def cli() -> None:
 @json_option
 @friendly
 def demo(out: Path, force: bool, interpreter: str, as_json: bool) -> None:
-    """Run the whole job on a simulated board: calibrate, log unattended, sync, analyse, report.
+    """Run the whole job on two simulated boards: calibrate, log unattended through a power cut, sync, analyse
+    orders and activation energy, report.
 
     Example: nightcell demo --out demo-run
     """
@@ -534,7 +535,7 @@ def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) ->
 
 @cli.group("list")
 def list_group() -> None:
-    """List what a database holds: devices, runs, blanks, calibrations, results.
+    """List what a database holds: devices, runs, blanks, calibrations, results, conditions.
 
     Example: nightcell list runs --db class.db
     """
@@ -664,26 +665,101 @@ def list_results(store: Any) -> tuple:
             "no results saved yet: run `nightcell calibrate --db DB` or `nightcell rate --db DB`")
 
 
+@_list_command("conditions")
+def list_conditions(store: Any) -> tuple:
+    """Recorded run conditions (temperature, starting concentrations), each with where it came from.
+
+    Example: nightcell list conditions --db class.db
+    """
+    from .analyse import run_conditions
+
+    conds = run_conditions(store)
+    rows = [(key, q, f"{v['value']:g}", v["source"]) for key, qs in conds.items() for q, v in sorted(qs.items())]
+    return ("run conditions", ("run", "quantity", "value", "source"), rows, conds,
+            "no conditions recorded yet: record them with `nightcell condition`")
+
+
+def _concentration(text: str) -> tuple[str, float]:
+    name, sep, value = text.partition("=")
+    if not sep or not name.strip() or not value.strip():
+        raise InputError(f"--conc {text!r}: write REACTANT=MOLAR, e.g. --conc hydroxide=0.02")
+    try:
+        return f"conc_{name.strip().lower()}_M", float(value)
+    except ValueError:
+        raise InputError(f"--conc {text!r}: {value!r} is not a number of mol/L") from None
+
+
+@cli.command()
+@db_option
+@click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
+@click.option("--temperature-c", "temperature_c", type=float, help="The run's temperature in °C.")
+@click.option("--temperature-k", "temperature_k", type=float, help="The run's temperature in kelvin.")
+@click.option("--conc", "concentrations", multiple=True, metavar="REACTANT=MOLAR",
+              help="A starting concentration in mol/L, e.g. hydroxide=0.02 (repeat for each reactant).")
+@click.option("--source", default="typed in by the user", show_default=True,
+              help="Where the values come from, e.g. 'bench sheet' (kept beside each value).")
+@json_option
+@friendly
+def condition(db: Path, run_text: str | None, temperature_c: float | None, temperature_k: float | None,
+              concentrations: tuple[str, ...], source: str, as_json: bool) -> None:
+    """Record a run's conditions (temperature, starting concentrations) for studies of order and activation energy.
+
+    Example: nightcell condition --db class.db --run "fading 1" --temperature-c 25 --conc hydroxide=0.02
+    """
+    from .analyse import run_conditions, set_run_condition
+    from .export import resolve_run
+
+    if temperature_c is not None and temperature_k is not None:
+        raise InputError("give the temperature once: --temperature-c or --temperature-k")
+    values: list[tuple[str, float]] = [_concentration(c) for c in concentrations]
+    if temperature_c is not None:
+        values.insert(0, ("temperature_K", temperature_c + 273.15))
+    elif temperature_k is not None:
+        values.insert(0, ("temperature_K", temperature_k))
+    if not values:
+        raise InputError("nothing to record: give --temperature-c/--temperature-k and/or --conc REACTANT=MOLAR")
+    with _open_store(db) as store:
+        run = resolve_run(store, run_text)
+        for quantity, value in values:
+            set_run_condition(store, run, quantity, value, source)
+        recorded = run_conditions(store, run).get(run.key, {})
+    text = "\n".join(f"{run.key} {q} = {v['value']:g} ({v['source']})" for q, v in sorted(recorded.items()))
+    _emit({"run": run.key, "conditions": recorded}, as_json, text)
+
+
 @cli.command()
 @db_option
 @click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
 @click.option("--all", "all_runs", is_flag=True, help="One report per run in the database.")
+@click.option("--study", "study", is_flag=True,
+              help="A study page over every run with recorded conditions (orders, Arrhenius, Eyring), linking "
+                   "one page per run.")
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the HTML pages and figures.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
 @json_option
 @friendly
-def report(db: Path, run_text: str | None, all_runs: bool, out: Path, channel: int, as_json: bool) -> None:
-    """Write one self-contained HTML report per run (figures embedded), with each figure also as PNG and SVG.
+def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int,
+           as_json: bool) -> None:
+    """Write self-contained HTML reports (figures embedded; each figure also as PNG and SVG): one per run, or a
+    study over several runs with their recorded conditions (see `nightcell condition`).
 
     Example: nightcell report --db class.db --all --out reports
+
+    Example: nightcell report --db class.db --study --out reports
     """
     from .errors import AnalysisError
-    from .export import Written, resolve_run, run_report
+    from .export import Written, resolve_run, run_report, study_report
 
-    if all_runs and run_text:
-        raise InputError("give --run or --all, not both")
+    if sum([all_runs, bool(run_text), study]) > 1:
+        raise InputError("give one of --run, --all or --study")
     done = Written()
+    if study:
+        with _open_store(db) as store:
+            done = study_report(store, out, channel)
+        lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
+        _emit(done.to_dict(), as_json, "\n".join(lines))
+        return
     with _open_store(db) as store:
         runs = store.runs() if all_runs else [resolve_run(store, run_text)]
         if not runs:

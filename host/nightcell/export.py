@@ -15,23 +15,19 @@ Example::
 
 from __future__ import annotations
 
-import html
-import io
 import os
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable, Sequence
 
-import numpy as np
-
 from . import report as _report
-from .analyse import analyse_run, calibrate_from_store, run_series
+from .analyse import analyse_run, calibrate_from_store, run_conditions, run_provenance, run_series
 from .errors import AnalysisError, InputError
 from .optics import flag_names
 from .store import Run, Store
 
-__all__ = ["resolve_run", "run_name", "export_csv", "run_report", "Written", "write_atomic"]
+__all__ = ["resolve_run", "run_name", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
 
 
 def resolve_run(store: Store, text: str | None) -> Run:
@@ -154,94 +150,54 @@ def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None,
     return done
 
 
-def _figure_files(fig: Any, stem: Path) -> tuple[bytes, list[Path]]:
-    """The figure as PNG bytes (for embedding) and written as ``stem.png`` and ``stem.svg``."""
-    png = _report.figure_png(fig)
-    buf = io.BytesIO()
-    fig.savefig(buf, format="svg", bbox_inches="tight")
-    paths = [write_atomic(stem.with_suffix(".png"), png), write_atomic(stem.with_suffix(".svg"), buf.getvalue())]
-    return png, paths
-
-
-def _html_table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
-    def cell(v: Any) -> str:
-        if isinstance(v, float):
-            return f"{v:.6g}" if np.isfinite(v) else "—"
-        return str(v)
-
-    head = "".join(f"<th>{html.escape(str(h))}</th>" for h in headers)
-    body = "".join("<tr>" + "".join(f"<td>{html.escape(cell(v))}</td>" for v in row) + "</tr>" for row in rows)
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
-
-
-def run_report(store: Store, run: Run, out: str | Path, channel: int = 0) -> Written:
+def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cache: dict | None = None) -> Written:
     """One self-contained HTML page for a run (figures embedded), and its figures as PNG and SVG beside it.
 
     The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AIC). When its
-    device recorded standards the calibration is fitted, shown, and used to give concentrations.
+    device recorded standards the calibration is fitted, shown, and used to give concentrations. The page itself is
+    drawn by ``report.run_report``; this function gathers what it shows from the store.
     """
-    import matplotlib.pyplot as plt
-
     out = _out_dir(out)
     done = Written()
     cal = None
-    cal_note = ""
     try:
         cal = calibrate_from_store(store, run.device, channel)
-    except AnalysisError as exc:
-        cal_note = f"No calibration: {exc}"
+    except AnalysisError:
+        cal = None  # no standards (or none usable) on this device: the page shows absorbance only
     analysis = analyse_run(store, run, channel=channel, calibration=cal)
-    name = run_name(run)
-    best = analysis.fits[analysis.best]
-
-    fig, (ax, rax) = plt.subplots(2, 1, figsize=(6.4, 6.0), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
-    try:
-        _report.plot_run(analysis.time_s, analysis.absorbance, best, ax=ax, resid_ax=rax, flags=analysis.flags,
-                         title=run.label)
-        run_png, paths = _figure_files(fig, out / f"{name}-run")
-    finally:
-        plt.close(fig)
-    done.files += paths
-    sections: list[dict[str, Any]] = [{
-        "title": f"Run {run.label or run.key}",
-        "text": (f"Device {run.device}, run {run.key}. Time basis: {analysis.time_basis}. "
-                 f"Blank: mark {analysis.blank.boot}:{analysis.blank.seq} ({analysis.blank.rule}). "
-                 f"{len(analysis.time_s)} readings, {int(np.count_nonzero(analysis.flags))} flagged and left out "
-                 f"of the fits. Best rate law by AIC: {analysis.best}."),
-        "figures": [run_png],
-    }]
-    comparison = _html_table(
-        ["rate law", "AIC", "residual SD", "k or rate", "standard error"],
-        [(m, f.aic, f.residual_sd, f.values.get("k", f.values.get("rate", float("nan"))),
-          f.stderr.get("k", f.stderr.get("rate", float("nan")))) for m, f in sorted(
-            analysis.fits.items(), key=lambda kv: kv[1].aic)])
-    sections.append({"title": "Rate laws compared", "html": comparison})
-    half = best.extra.get("half_life_s")
-    sections.append({"title": f"Best fit: {analysis.best}", "html": _report.fit_table(best),
-                     "text": f"Half-life {half:.4g} s." if isinstance(half, float) and np.isfinite(half) else ""})
-    if cal is not None:
-        fig, (ax, rax) = plt.subplots(2, 1, figsize=(6.4, 6.0), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
-        try:
-            _report.plot_calibration(cal, ax=ax, resid_ax=rax)
-            ax.set_title(f"Calibration of {run.device}")
-            cal_png, paths = _figure_files(fig, out / f"{name}-calibration")
-        finally:
-            plt.close(fig)
-        done.files += paths
-        start_c = analysis.concentration[0] if analysis.concentration is not None else float("nan")
-        sections.append({"title": "Calibration", "html": _report.fit_table(cal),
-                         "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; concentration at the "
-                                 f"first reading {start_c:.4g} (units of the standards' values).",
-                         "figures": [cal_png]})
-    elif cal_note:
-        sections.append({"title": "Calibration", "text": cal_note})
-    if analysis.warnings:
-        sections.append({"title": "Warnings", "text": "\n\n".join(analysis.warnings)})
-    provenance = {"database": store.path, "run": run.key, "device": run.device, "label": run.label,
-                  "channel": channel, "blank": f"{analysis.blank.boot}:{analysis.blank.seq}",
-                  "blank rule": analysis.blank.rule, "first reading": "%d:%d" % analysis.seqs[0],
-                  "last reading": "%d:%d" % analysis.seqs[-1]}
-    page = _report.html_report(f"nightcell run report — {run.label or run.key}", sections, provenance)
-    done.files.insert(0, write_atomic(out / f"{name}.html", page.encode("utf-8")))
+    provenance = run_provenance(store, analysis, cal)
+    conditions = run_conditions(store, run).get(run.key)
+    files = _report.run_report(analysis, out, calibration=cal, provenance=provenance, conditions=conditions,
+                               name=run_name(run), cache=cache)
+    done.files += files.files
     return done
 
+
+def study_report(store: Store, out: str | Path, channel: int = 0) -> Written:
+    """A study page (``study.html``) over every run with recorded conditions, linking one page per run (``runs/``).
+
+    Orders and Arrhenius/Eyring come from ``analyse.analyse_study``; runs without a recorded temperature and starting
+    concentration are listed as skipped with what to record (``nightcell condition``).
+    """
+    from .analyse import analyse_study
+
+    out = _out_dir(out)
+    done = Written()
+    study = analyse_study(store, channel=channel)
+    if not study.runs:
+        raise AnalysisError("no run has both a temperature_K and a conc_<reactant>_M recorded: record them with "
+                            "`nightcell condition` first")
+    conds = run_conditions(store)
+    pages: dict[str, str] = {}
+    cache: dict = {}
+    for it in study.runs:
+        prov = run_provenance(store, it.analysis, it.calibration)
+        files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
+                                   conditions=conds.get(it.run.key), name=run_name(it.run), cache=cache)
+        pages[it.run.key] = f"runs/{files.html.name}"
+        done.files += files.files
+    prov = {"database": store.path, "runs": len(study.runs), "channel": channel}
+    files = _report.study_report(study, out, name="study", provenance=prov, run_pages=pages)
+    done.files = files.files + done.files
+    done.skipped += [f"run {key}: {why}" for key, why in study.skipped.items()]
+    return done
