@@ -302,7 +302,7 @@ CASES = [
     Case("calibrate with neither CSV nor --db", ["calibrate"], 2, "give a CSV file"),
     Case("calibrate with both CSV and --db", ["calibrate", "{csv}", "--db", "{db}"], 2, "not both", csv=_csv(GOOD_CAL)),
     Case("report --run and --all together", ["report", "--db", "{db}", "--run", RUN_LABEL, "--all", "--out", "{dir}/r"],
-         2, "give --run or --all, not both"),
+         2, "give one of --run, --all or --study"),
     Case("rate --t-start with --db", ["rate", "--db", "{db}", "--t-start", "10"], 2,
          "--t-start and --a-end apply to CSV files"),
     Case("rate --window without initial_rate", ["rate", "--db", "{db}", "--window", "0", "10"], 2,

@@ -169,7 +169,7 @@ def test_write_atomic_leaves_nothing_when_the_rename_fails(tmp_path, monkeypatch
 @pytest.mark.parametrize("args, code, message", [
     (["list", "runs", "--db", "missing.db"], 2, "no database at missing.db"),
     (["report", "--db", "DB", "--run", "no such run", "--out", "OUT"], 2, "no run 'no such run'"),
-    (["report", "--db", "DB", "--run", "x", "--all", "--out", "OUT"], 2, "give --run or --all, not both"),
+    (["report", "--db", "DB", "--run", "x", "--all", "--out", "OUT"], 2, "give one of --run, --all or --study"),
     (["report", "--db", "DB", "--out", "OUT"], 2, "holds 2 runs: name one with --run KEY"),
     (["calibrate", "--db", "DB"], 5, "has no standards: record some with `nightcell standard`"),
     (["calibrate", "--db", "DB", "--device", "nope"], 2, "no device 'nope'"),
