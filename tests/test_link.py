@@ -47,7 +47,9 @@ def sim(tmp_path):
 
 
 def test_discovery_asks_each_candidate_and_says_who_did_not_answer(sim):
-    found = discover(timeout=0.3, ports=[{"port": sim.url, "vid": 0x2E8A, "pid": 0x0005},
+    with Board.open(sim.url) as board:
+        board.hello(timeout=5.0)  # booted (a loaded machine may take a while to start the interpreter)
+    found = discover(timeout=1.0, ports=[{"port": sim.url, "vid": 0x2E8A, "pid": 0x0005},
                                          {"port": "loop://", "vid": 0x10C4, "pid": 0xEA60}])
     assert found[0]["hello"]["device"] == "5e1f0000000000c1" and found[0]["hello"]["protocol"] == 1
     assert "error" in found[1] and "running nightcell firmware" in found[1]["error"]
