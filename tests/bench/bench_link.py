@@ -50,7 +50,7 @@ def _full_sync(sim: SimulatedBoard, image: Path, db: Path, depth: int) -> dict:
 
 
 def run(quick: bool = False) -> list[dict]:
-    size = 20_000 if quick else 60_000
+    size = 30_000 if quick else 60_000
     repeats = 1 if quick else 3
     with tempfile.TemporaryDirectory() as tmp:
         root = Path(tmp)
