@@ -303,7 +303,7 @@ class SimulatedBoard:
                  interpreter: str = "auto", baud: int | None = None,
                  fault: Callable[[str, bytes], bytes] | None = None, ticks_start_ms: int = 0,
                  flash_blocks: int = 352):
-        self.workdir = Path(workdir)
+        self.workdir = Path(workdir).resolve()  # the firmware runs in its own folder: paths must be absolute
         self.workdir.mkdir(parents=True, exist_ok=True)
         self.device = device
         self.speed = speed
@@ -592,7 +592,7 @@ class UnixRepl:
     """
 
     def __init__(self, workdir: str | Path):
-        self.workdir = Path(workdir)
+        self.workdir = Path(workdir).resolve()  # the firmware runs in its own folder: paths must be absolute
         self.workdir.mkdir(parents=True, exist_ok=True)
         self.process: subprocess.Popen | None = None
         self.relay: Relay | None = None
