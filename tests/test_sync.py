@@ -217,7 +217,7 @@ def test_board_ticks_wrap_keeps_uptime_continuous_and_the_clock_fitted(tmp_path)
             board.start("across the wrap")
             time.sleep(1.0)
             sync_board(board, store, clock=board_clock)
-            time.sleep(1.5)
+            time.sleep(3.6)  # > 600 board-seconds between the anchors: the least span a drift is fitted over
             last = sync_board(board, store, clock=board_clock)
             rows = store.query("SELECT seq, uptime_s, late_ms FROM sample_readings ORDER BY seq")
             clock = store.query("SELECT * FROM boot_clocks")

@@ -120,3 +120,12 @@ def test_one_anchor_boot_borrows_the_drift_of_a_fitted_boot(tmp_path):
     assert abs(rows[2]["wall_clock_unix_s"] - float(true2(2 * 86400_000))) < 1.0
     # No anchor: relative time only.
     assert 4 not in clocks and rows[4]["wall_clock_unix_s"] is None and rows[4]["uptime_s"] == 5.0
+
+
+def test_anchors_seconds_apart_do_not_fit_a_drift():
+    # Two anchors 5 s apart whose host times carry 25 ms of USB jitter would "show" a 5000 ppm drift; a board's
+    # crystal drifts tens of ppm (common practice), so such a pair is averaged at rate 1, not fitted.
+    anchors = [(10_000, 1_790_000_010_000), (15_000, 1_790_000_015_025)]
+    clock = fit_boot_clock(anchors)
+    assert clock.quality == "one-anchor" and clock.rate == 1.0
+    assert abs(clock.to_unix(12_500) - 1_790_000_012.5125) < 0.02

@@ -27,8 +27,10 @@ __all__ = ["BootClock", "fit_boot_clock", "rebuild_clocks", "unwrap_uptimes", "U
 UPTIME_WRAP_MS = 1 << 32
 """Record uptimes are u32 milliseconds (schema/records.md): they wrap after 49.7 days."""
 
-_MIN_SPAN_S = 1.0
-"""Anchors closer together than this cannot show drift; they are treated as one."""
+_MIN_SPAN_S = 600.0
+"""Anchors closer together than this cannot show drift; they are treated as one. An anchor's host time carries the
+USB round trip's jitter (tens of ms at worst); over 600 s that is below the ~50 ppm a board crystal drifts, whereas
+two anchors a few seconds apart once gave a fitted rate 5000 ppm off."""
 
 
 @dataclass
