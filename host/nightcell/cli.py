@@ -25,7 +25,7 @@ from typing import Any, Callable, Iterator, Sequence
 import click
 
 from . import __version__
-from .errors import InputError, NightcellError
+from .errors import DeviceError, InputError, NightcellError
 
 __all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES"]
 
@@ -162,6 +162,99 @@ def demo(out: Path, force: bool, interpreter: str, as_json: bool) -> None:
                **outcome.summary}, True, "")
     else:
         click.echo(f"done in {outcome.seconds:.1f} s")
+
+
+# -- a simulated board to try every command on -----------------------------------------------------------------------
+
+SIM_DEVICE = "5e1fc0ffee000001"
+
+
+def _sim_folder(path: Path) -> Path:
+    if path.exists() and not path.is_dir():
+        raise InputError(f"{path} is a file: give --dir a folder for the simulated board's flash and cuvette")
+    return path
+
+
+@cli.command("sim-board")
+@click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
+              show_default=True, help="Folder for the board's flash image and cuvette file (kept between runs).")
+@click.option("--speed", type=click.FloatRange(min=1.0, max=1000.0), default=1.0, show_default=True,
+              help="How many times faster than real time the board's clock runs.")
+@click.option("--seconds", type=click.FloatRange(min=0.1), default=None,
+              help="Stop by itself after this many real seconds (default: run until Ctrl-C).")
+@click.option("--interpreter", type=click.Choice(["auto", "micropython", "cpython"]), default="auto",
+              show_default=True, help="Run the firmware in MicroPython's unix port or in CPython.")
+@friendly
+def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: str) -> None:
+    """Run the real firmware on a simulated board and print its port, to try every board command without hardware.
+
+    Leave it running; in another terminal give its port to the other commands and change its cuvette with
+    `nightcell sim-cuvette`. Ctrl-C switches it off (its flash is kept in --dir, so it starts again where it was).
+
+    Example: nightcell sim-board --dir my-sim
+    """
+    import time
+
+    from .simulate import SimulatedBoard
+
+    sim = SimulatedBoard(_sim_folder(folder), device=SIM_DEVICE, speed=speed, interpreter=interpreter)
+    sim.start()
+    try:
+        click.echo(f"port: {sim.url}")
+        click.echo(f"simulated board {SIM_DEVICE} running the firmware in {sim.interpreter}, clock x{speed:g}; "
+                   f"its cuvette holds {sim.cell_path.name} in {sim.workdir}")
+        click.echo(f"try: NIGHTCELL_PORT={sim.url} nightcell hello   — Ctrl-C switches the board off")
+        sys.stdout.flush()
+        end = None if seconds is None else time.monotonic() + seconds
+        while end is None or time.monotonic() < end:
+            time.sleep(0.2)
+            if not sim.alive():
+                raise DeviceError("the simulated board stopped by itself:\n" + sim.stderr_text()[-2000:])
+    except KeyboardInterrupt:
+        pass
+    finally:
+        sim.stop()
+    click.echo("simulated board switched off (its flash is kept)")
+
+
+@cli.command("sim-cuvette")
+@click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
+              show_default=True, help="The folder a running `nightcell sim-board` was given.")
+@click.option("--absorbance", type=float, help="A solution of this absorbance (0 for the blank's solvent).")
+@click.option("--fading", metavar="A0:A_END:K",
+              help="A reaction: absorbance A0 fading (or growing) to A_END with rate constant K per second.")
+@click.option("--blocked", is_flag=True, help="Block the light path (for `nightcell opaque`).")
+@json_option
+@friendly
+def sim_cuvette(folder: Path, absorbance: float | None, fading: str | None, blocked: bool, as_json: bool) -> None:
+    """Put something in the simulated board's cuvette: a solution, a reaction, or nothing at all (blocked).
+
+    Example: nightcell sim-cuvette --absorbance 0.35
+    """
+    import math
+
+    from .simulate import SimulatedBoard
+
+    if sum([absorbance is not None, fading is not None, blocked]) != 1:
+        raise InputError("give exactly one of --absorbance, --fading A0:A_END:K or --blocked")
+    if not (_sim_folder(folder) / f"{SIM_DEVICE}.cell.json").exists():
+        raise InputError(f"no simulated board in {folder}: start one with `nightcell sim-board --dir {folder}`")
+    if absorbance is not None:
+        if not math.isfinite(absorbance) or not -0.1 <= absorbance <= 5.0:
+            raise InputError(f"--absorbance {absorbance:g} is not a plausible absorbance: give 0 to 5")
+        content: dict[str, Any] = {"absorbance": absorbance}
+    elif fading is not None:
+        try:
+            a0, a_end, k = (float(v) for v in fading.split(":"))
+        except ValueError:
+            raise InputError(f"--fading {fading!r}: write A0:A_END:K, e.g. 0.8:0.05:0.01") from None
+        if not all(math.isfinite(v) for v in (a0, a_end, k)) or k <= 0 or not (0 <= a0 <= 5 and 0 <= a_end <= 5):
+            raise InputError(f"--fading {fading!r}: absorbances 0 to 5 and a positive rate constant, please")
+        content = {"reaction": {"a0": a0, "a_inf": a_end, "k_per_s": k}}
+    else:
+        content = {"opaque": True}
+    SimulatedBoard(folder, device=SIM_DEVICE).set_cell(content)
+    _emit(content, as_json, f"the simulated cuvette now holds {json.dumps(content)}")
 
 
 # -- boards ----------------------------------------------------------------------------------------------------------
@@ -503,12 +596,14 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
 
     Example: nightcell sync --port /dev/ttyACM0 --db class.db
     """
+    from .board_cli import sync_progress
     from .link import Board
     from .store import Store
     from .sync import sync_board
 
-    with Board.open(port) as board, Store.open(db) as store:
-        summary = sync_board(board, store, acknowledge=not no_ack)
+    with Board.open(port) as board, Store.open(db) as store, sync_progress(not as_json) as update:
+        summary = sync_board(board, store, acknowledge=not no_ack,
+                             progress=lambda done, total, records: update(port, done, total, records))
     new = sum(summary.new_rows.values())
     text = (f"{summary.device}: {summary.records} records, {summary.bytes} bytes, {new} new rows "
             f"in {summary.seconds:.1f} s; journal stored to {summary.end}")

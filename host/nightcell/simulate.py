@@ -447,8 +447,15 @@ class SimulatedBoard:
     # -- the virtual cuvette --------------------------------------------------------------------------------------
 
     def set_cell(self, content: dict[str, Any]) -> None:
-        """Put something in the cuvette (see schema/simulation.md); the board sees it before its next sample."""
-        self._cell_version += 1
+        """Put something in the cuvette (see schema/simulation.md); the board sees it before its next sample.
+
+        The version continues from the one in the cell file, so another process (``nightcell sim-cuvette``) can
+        change the cuvette of a board it did not start."""
+        try:
+            current = int(json.loads(self.cell_path.read_text()).get("version", 0))
+        except (OSError, ValueError, TypeError, AttributeError):
+            current = 0
+        self._cell_version = max(self._cell_version, current) + 1
         doc = dict(content, version=self._cell_version)
         tmp = self.cell_path.with_suffix(".tmp")
         tmp.write_text(json.dumps(doc))

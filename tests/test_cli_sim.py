@@ -1,0 +1,69 @@
+"""`nightcell sim-board` and `nightcell sim-cuvette`: a new user tries every board command without hardware.
+
+The board is the real firmware behind a pty; the cuvette's contents are the test's own (absorbance 0.5 and a blank).
+"""
+
+import json
+import math
+import signal
+import subprocess
+import sys
+import time
+
+from click.testing import CliRunner
+
+from nightcell.cli import cli
+
+
+def _cli(*args):
+    return CliRunner().invoke(cli, [str(a) for a in args])
+
+
+def test_sim_board_then_commands_against_its_port(tmp_path):
+    folder = tmp_path / "sim"
+    proc = subprocess.Popen([sys.executable, "-m", "nightcell.cli", "sim-board", "--dir", str(folder),
+                             "--seconds", "60"], stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    try:
+        line = proc.stdout.readline()
+        assert line.startswith("port: "), line
+        port = line.split(": ", 1)[1].strip()
+        deadline = time.monotonic() + 20
+        while True:
+            r = _cli("hello", "--port", port, "--json")
+            if r.exit_code == 0 or time.monotonic() > deadline:
+                break
+        assert r.exit_code == 0, r.output
+        assert json.loads(r.output)["board"] == "sim"
+        assert _cli("sim-cuvette", "--dir", folder, "--absorbance", "0").exit_code == 0
+        blank = json.loads(_cli("blank", "--port", port, "--json").output)
+        r = _cli("sim-cuvette", "--dir", folder, "--absorbance", "0.5")
+        assert r.exit_code == 0 and "0.5" in r.output
+        std = json.loads(_cli("standard", "0.5", "--port", port, "--json").output)
+        # the board measured what was put in: A = -log10((I - I_dark)/(I0 - I0_dark)) ≈ 0.5 (stray light lowers it
+        # slightly; the simulated cell's default stray fraction is 0.2 %)
+        a = -math.log10((std["light"][0] - std["dark"][0]) / (blank["light"][0] - blank["dark"][0]))
+        assert 0.48 < a < 0.51, a
+        assert _cli("sim-cuvette", "--dir", folder, "--blocked").exit_code == 0
+        opaque = json.loads(_cli("opaque", "--port", port, "--json").output)
+        assert opaque["light"][0] - opaque["dark"][0] < 0.02 * (blank["light"][0] - blank["dark"][0])
+    finally:
+        proc.send_signal(signal.SIGINT)
+        out, _ = proc.communicate(timeout=20)
+    assert proc.returncode == 0, out
+    assert "switched off" in out
+
+
+def test_sim_cuvette_refusals(tmp_path):
+    r = _cli("sim-cuvette", "--dir", tmp_path / "none", "--absorbance", "0.2")
+    assert r.exit_code == 2 and "start one with `nightcell sim-board" in r.output
+    r = _cli("sim-cuvette", "--dir", tmp_path, "--absorbance", "0.2", "--blocked")
+    assert r.exit_code == 2 and "exactly one of" in r.output
+    (tmp_path / "5e1fc0ffee000001.cell.json").write_text('{"version": 3, "absorbance": 0}')
+    r = _cli("sim-cuvette", "--dir", tmp_path, "--fading", "0.8:0.05")
+    assert r.exit_code == 2 and "A0:A_END:K" in r.output
+    r = _cli("sim-cuvette", "--dir", tmp_path, "--absorbance", "nan")
+    assert r.exit_code == 2
+    r = _cli("sim-cuvette", "--dir", tmp_path, "--fading", "0.8:0.05:0.01", "--json")
+    assert r.exit_code == 0
+    doc = json.loads((tmp_path / "5e1fc0ffee000001.cell.json").read_text())
+    assert doc["version"] == 4 and doc["reaction"]["k_per_s"] == 0.01
