@@ -27,8 +27,8 @@ KNOWN_MISSES = {
                             "goal 3x",
     "sync_ingest_vs_executemany": "ingest measured at 0.6-0.75 of bare executemany on this machine, goal 0.7",
 }
-# Figures no module prints yet (the runner lists them as "missing: …").
-KNOWN_GAPS = {"missing: concurrency"}
+# Figures no module prints yet (the runner lists them as "missing: …"): none today.
+KNOWN_GAPS: set[str] = set()
 
 
 @pytest.fixture(scope="module")

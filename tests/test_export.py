@@ -159,7 +159,7 @@ def test_write_atomic_leaves_nothing_when_the_rename_fails(tmp_path, monkeypatch
     def broken(src, dst):
         raise OSError("disk full")
 
-    monkeypatch.setattr(export_module.os, "replace", broken)
+    monkeypatch.setattr(export_module._report.os, "replace", broken)
     with pytest.raises(OSError):
         export_module.write_atomic(target, b"new page")
     assert target.read_text() == "old page"

@@ -15,8 +15,6 @@ Example::
 
 from __future__ import annotations
 
-import os
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable, Sequence
@@ -25,6 +23,7 @@ from . import report as _report
 from .analyse import analyse_run, calibrate_from_store, run_conditions, run_provenance, run_series
 from .errors import AnalysisError, InputError
 from .optics import flag_names
+from .report import out_folder, write_atomic
 from .store import Run, Store
 
 __all__ = ["resolve_run", "run_name", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
@@ -62,30 +61,6 @@ def run_name(run: Run) -> str:
     return f"{label}-{_report.safe_filename(run.key.replace(':', '-'))}"
 
 
-def write_atomic(path: Path, data: bytes) -> Path:
-    """Write ``data`` to a temporary file beside ``path``, then rename it over ``path``."""
-    fd, tmp = tempfile.mkstemp(prefix=".nightcell-", suffix=".part", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return path
-
-
-def _out_dir(out: str | Path) -> Path:
-    p = Path(out)
-    if p.exists() and not p.is_dir():
-        raise InputError(f"{p} is a file: give --out a folder")
-    try:
-        p.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise InputError(f"cannot make folder {p} ({exc}): give --out a folder you may write to") from exc
-    return p
-
-
 @dataclass
 class Written:
     """Files written and things skipped (with the reason)."""
@@ -117,7 +92,7 @@ def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None,
     """Write ``marks.csv`` (every mark with its counts), and per run ``<name>-samples.csv`` (raw rows as stored,
     sums of ``reads`` ADC reads) and ``<name>-absorbance.csv`` (time from the first sample, absorbance against the
     run's blank, flags). A run with no blank or no samples is skipped with the reason."""
-    out = _out_dir(out)
+    out = out_folder(out)
     done = Written()
     rows = []
     for m in store.marks():
@@ -157,7 +132,7 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
     device recorded standards the calibration is fitted, shown, and used to give concentrations. The page itself is
     drawn by ``report.run_report``; this function gathers what it shows from the store.
     """
-    out = _out_dir(out)
+    out = out_folder(out)
     done = Written()
     cal = None
     try:
@@ -181,7 +156,7 @@ def study_report(store: Store, out: str | Path, channel: int = 0) -> Written:
     """
     from .analyse import analyse_study
 
-    out = _out_dir(out)
+    out = out_folder(out)
     done = Written()
     study = analyse_study(store, channel=channel)
     if not study.runs:

@@ -37,7 +37,7 @@ from . import __version__  # noqa: E402
 
 __all__ = ["plot_calibration", "plot_run", "plot_orders", "plot_arrhenius", "figure_png", "figure_svg",
            "save_figure", "html_report", "fit_table", "write_csv", "safe_filename", "ReportFiles", "run_report",
-           "study_report", "plain_text", "plus_minus", "html_table"]
+           "study_report", "plain_text", "plus_minus", "html_table", "write_atomic", "out_folder"]
 
 
 def plain_text(label: Any) -> str:
@@ -320,7 +320,7 @@ def figure_svg(fig: Any) -> bytes:
     return buf.getvalue()
 
 
-def _write_atomic(path: Path, data: bytes) -> Path:
+def write_atomic(path: Path, data: bytes) -> Path:
     """Write to a temporary file beside ``path`` and rename it into place: never half a file."""
     fd, tmp = tempfile.mkstemp(prefix="." + path.name + ".", suffix=".part", dir=str(path.parent))
     try:
@@ -336,7 +336,7 @@ def _write_atomic(path: Path, data: bytes) -> Path:
     return path
 
 
-def _out_dir(out: str | Path) -> Path:
+def out_folder(out: str | Path) -> Path:
     from .errors import InputError
 
     p = Path(out)
@@ -360,8 +360,8 @@ def _figure_files(fig: Any, stem: Path, done: list[Path]) -> bytes:
     png = buf.getvalue()
     buf = io.BytesIO()
     fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
-    done.append(_write_atomic(stem.with_suffix(".png"), png))
-    done.append(_write_atomic(stem.with_suffix(".svg"), buf.getvalue()))
+    done.append(write_atomic(stem.with_suffix(".png"), png))
+    done.append(write_atomic(stem.with_suffix(".svg"), buf.getvalue()))
     return png
 
 
@@ -443,7 +443,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
     reports of several runs in one folder to draw a shared calibration once (``calibration-<device>.png/.svg``).
     ``unit`` is the unit of the standards' values (for axis labels).
     """
-    out = _out_dir(out)
+    out = out_folder(out)
     run = analysis.run
     name = safe_filename(name or f"run-{run.key.replace(':', '-')}")
     figs: list[Path] = []
@@ -508,7 +508,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
         sections.append({"title": "Warnings", "text": "\n\n".join(analysis.warnings)})
     prov = dict(provenance or {"device": run.device, "run": run.key, "run label": run.label})
     page = html_report(title or f"nightcell run report — {run.label or run.key}", sections, prov)
-    path = _write_atomic(out / f"{name}.html", page.encode("utf-8"))
+    path = write_atomic(out / f"{name}.html", page.encode("utf-8"))
     return ReportFiles(path, figs)
 
 
@@ -523,7 +523,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
     residuals and the Eyring parameters, each device's calibration, the rules that chose runs, and provenance.
     ``run_pages`` maps run keys to the file names of their own pages (linked by relative path).
     """
-    out = _out_dir(out)
+    out = out_folder(out)
     name = safe_filename(name, "study")
     figs: list[Path] = []
     sections: list[dict[str, Any]] = []
@@ -635,7 +635,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
     notes = [f"{k}: {v}" for k, v in study.rules.items()] + [f"left out — {k}: {v}" for k, v in study.skipped.items()]
     sections.append({"title": "How runs were chosen", "text": "\n\n".join(notes)})
     page = html_report(title, sections, provenance)
-    path = _write_atomic(out / f"{name}.html", page.encode("utf-8"))
+    path = write_atomic(out / f"{name}.html", page.encode("utf-8"))
     return ReportFiles(path, figs)
 
 
