@@ -1,8 +1,8 @@
 """Demo time: wall time of ``nightcell demo`` into an empty temporary folder, as a new user runs it (a fresh
 process, the console script installed beside this Python), and what it wrote.
 
-The demo is the README's first command; a newcomer waits for it. Goal: under 3 minutes on a shared 2-core machine
-(our own target, not an outside figure). The run counts only if it exits 0 and leaves the report and the database.
+The demo is the README's first command; a newcomer waits for it. Goal: under 30 s on 2 cores (the goal its issue
+set; measured 16–19 s on an otherwise idle machine). The run counts only if it exits 0 and leaves the report and the database.
 
     python tests/bench/bench_demo.py
 """
@@ -17,7 +17,7 @@ import tempfile
 import time
 from pathlib import Path
 
-GOAL_S = 180.0
+GOAL_S = 30.0
 
 
 def _command() -> list[str]:
