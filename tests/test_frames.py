@@ -152,3 +152,30 @@ def test_peek_header_sees_a_data_frame_before_its_payload(vectors):
     r.feed(frame[20:])
     (got,) = list(r.frames())
     assert got.data() == (4096, b"\xc5" * 100)
+
+
+def test_ack_and_anchor_carry_their_check_on_the_wire(vectors):
+    # the check is the CRC-32 of "<verb> <value>" (schema/protocol.md); the vector was made by the same rule
+    lines = {v["verb"]: v["line"] for v in vectors["protocol"]["requests"] if len(v["args"]) == 2
+             and v["verb"] in ("ack", "anchor")}
+    assert lines["ack"] == f"6 ack 4096 {zlib.crc32(b'ack 4096'):08x}\n"
+    assert F.check_field("anchor", 1796131200123) == lines["anchor"].split()[-1]
+
+    from nightcell.errors import DeviceTimeout
+    from nightcell.link import Board, Transport
+
+    sent = []
+
+    class Capture(Transport):
+        def send(self, line):
+            sent.append(line)
+
+        def frames_until(self, deadline):
+            return None
+
+    board = Board(Capture(port=None, url="capture://"), timeout=0.01, retries=1)
+    for call in (lambda: board.ack(4096), lambda: board.anchor(1796131200123)):
+        with pytest.raises(DeviceTimeout):
+            call()
+    assert sent[0].split(b" ", 1)[1] == b"ack 4096 " + F.check_field("ack", 4096).encode() + b"\n"
+    assert sent[1].endswith(F.check_field("anchor", 1796131200123).encode() + b"\n")

@@ -187,8 +187,17 @@ def test_every_verb_answers_per_protocol(tmp_path, interp):
             for i, smp in enumerate(r.samples()):
                 assert smp.uptime_ms - smp.late_ms == r.uptime_ms + i * 1000
 
-        tail = sim.ok("ack", recs[-1].position)["tail"]
+        # ack and anchor carry a check (schema/protocol.md): a value damaged on the way is refused, nothing changes
+        pos = recs[-1].position
+        good = F.check_field("ack", pos)
+        damaged = sim.send("ack", pos + 1, good)
+        assert damaged.kind == F.REPLY_ERR and "check field" in damaged.text()
+        assert sim.send("anchor", 1796131200999, F.check_field("anchor", 1796131200123)).kind == F.REPLY_ERR
+        assert sim.ok("anchor", 1796131200999, F.check_field("anchor", 1796131200999))["boot"] >= 1
+        tail = sim.ok("ack", pos, good)["tail"]
         assert tail == 0  # one segment holds it all: nothing to trim yet
+        assert not any(r.kind == F.KIND_ANCHOR and r.fields["host_unix_ms"] == 1796131200123 + 0 and r.seq > recs[-1].seq
+                       for r in sim.journal())  # the refused anchor left no record
 
         assert sim.ok("reset") == {}
         assert sim.proc.wait(10) == 0
@@ -229,7 +238,10 @@ def test_sigkill_power_cut_keeps_samples_older_than_the_window(tmp_path, interp)
         seqs = {s.seq for r in recs if r.boot == 1 for s in r.samples()}
         # at most the durability window (3 samples at 1 s) plus the one in flight may be lost
         assert taken - max(seqs) <= 4, (taken, max(seqs))
-        assert seqs == set(range(min(seqs), max(seqs) + 1))
+        # no gap: every seq between the first and last sample is a sample or another record (on a busy machine a
+        # late sample is journaled as an EVENT, which takes a seq of its own)
+        others = {r.seq for r in recs if r.boot == 1 and r.kind != F.KIND_SAMPLES}
+        assert set(range(min(seqs), max(seqs) + 1)) <= seqs | others
         assert any(r.kind == F.KIND_EVENT and r.fields["code"] == 3 for r in recs if r.boot == 2)
     finally:
         sim.close()

@@ -10,6 +10,7 @@ Usage::
 
 import json
 from nightcell_fw import VERSION, records as R
+from nightcell_fw.records import crc32
 from nightcell_fw.link import parse, unquote, OK, MAX_READ, NO_TAG
 from nightcell_fw.journal import JournalFull
 
@@ -26,6 +27,16 @@ def _int(text, name, lo, hi):
 def _nargs(args, lo, hi, usage):
     if not lo <= len(args) <= hi:
         raise ValueError("usage: %s" % usage)
+
+
+def _checked(verb, args, usage):
+    """The value of a request that must not be misread (``ack`` may delete, ``anchor`` sets the clock). Its optional
+    last argument is the CRC-32 of ``"<verb> <value>"`` in 8 lower-case hex digits; when given, a damaged digit is
+    refused. (A line cut short can only lose digits, which asks for less, never more.)"""
+    _nargs(args, 1, 2, usage)
+    if len(args) == 2 and args[1] != "%08x" % crc32(("%s %s" % (verb, args[0])).encode()):
+        raise ValueError("check field does not match: the request was damaged on the way; send it again")
+    return args[0]
 
 
 def _label(args, i):
@@ -52,8 +63,7 @@ def _hello(lg, tag, args):
 
 
 def _anchor(lg, tag, args):
-    _nargs(args, 1, 1, "anchor <host_unix_ms>")
-    host_ms = _int(args[0], "host_unix_ms", 0, (1 << 64) - 1)
+    host_ms = _int(_checked("anchor", args, "anchor <host_unix_ms> [check]"), "host_unix_ms", 0, (1 << 64) - 1)
     lg.close_block()
     seq = lg.seq
     up = lg.now()
@@ -110,8 +120,7 @@ def _read(lg, tag, args):
 
 
 def _ack(lg, tag, args):
-    _nargs(args, 1, 1, "ack <position>")
-    pos = _int(args[0], "position", 0, 0xFFFFFFFF)
+    pos = _int(_checked("ack", args, "ack <position> [check]"), "position", 0, 0xFFFFFFFF)
     j = lg.journal
     if j.trim(pos):
         lg.event(R.EVENT_TRIMMED, "tail %d" % j.tail)

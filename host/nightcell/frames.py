@@ -41,6 +41,7 @@ __all__ = [
     "encode_reply",
     "ReplyReader",
     "encode_request",
+    "check_field",
     "quote_text",
     "unquote_text",
 ]
@@ -594,6 +595,12 @@ def unquote_text(text: str) -> str:
             raw += text[i].encode("ascii")
             i += 1
     return raw.decode("utf-8")
+
+
+def check_field(verb: str, value: Any) -> str:
+    """The check argument of ``ack`` and ``anchor``: CRC-32 of ``"<verb> <value>"`` as 8 lower-case hex digits, so
+    the board refuses a value damaged on the way (schema/protocol.md)."""
+    return f"{zlib.crc32(f'{verb} {value}'.encode('ascii')):08x}"
 
 
 def encode_request(tag: int, verb: str, *args: Any) -> bytes:

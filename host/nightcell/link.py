@@ -29,7 +29,7 @@ except ImportError:  # pragma: no cover — Windows
     _PORT_ERRORS = (serial.SerialException, OSError)
 
 from .errors import DeviceError, DeviceNotFound, DeviceTimeout, NightcellError, ProtocolError
-from .frames import REPLY_DATA, REPLY_ERR, REPLY_OK, Reply, ReplyReader, encode_request, quote_text
+from .frames import REPLY_DATA, REPLY_ERR, REPLY_OK, Reply, ReplyReader, check_field, encode_request, quote_text
 
 __all__ = ["Deadline", "Transport", "Board", "JournalPull", "BOARD_USB_IDS", "candidate_ports", "discover"]
 
@@ -242,7 +242,8 @@ class Board:
         return info
 
     def anchor(self, host_unix_ms: int) -> dict[str, Any]:
-        return self._json("anchor", int(host_unix_ms), retry=False)
+        value = int(host_unix_ms)
+        return self._json("anchor", value, check_field("anchor", value), retry=False)
 
     def mark(self, kind: str, label: str = "", value: str | None = None, timeout: float = 60.0) -> dict[str, Any]:
         """Take and journal a dark/blank/opaque/standard mark (standard needs ``value``)."""
@@ -274,7 +275,8 @@ class Board:
         return self._json("set", key, quote_text(text), retry=False)
 
     def ack(self, position: int) -> dict[str, Any]:
-        return self._json("ack", int(position))
+        value = int(position)
+        return self._json("ack", value, check_field("ack", value))
 
     def read(self, position: int, max_bytes: int = READ_CHUNK) -> tuple[int, bytes]:
         """Journal bytes from ``position`` (whole records)."""

@@ -51,7 +51,9 @@ def main() -> None:
 
     requests = []
     for tag, verb, args in [(1, "hello", []), (2, "anchor", [1796131200123]), (3, "standard", ["0.250", F.quote_text("dye 0.25 µM")]),
-                            (65535, "read", [4096, 4096]), (5, "note", [F.quote_text("100% done")])]:
+                            (65535, "read", [4096, 4096]), (5, "note", [F.quote_text("100% done")]),
+                            (6, "ack", [4096, F.check_field("ack", 4096)]),
+                            (7, "anchor", [1796131200123, F.check_field("anchor", 1796131200123)])]:
         requests.append({"tag": tag, "verb": verb, "args": [str(a) for a in args],
                          "line": F.encode_request(tag, verb, *args).decode("ascii")})
     replies = []
