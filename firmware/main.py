@@ -2,7 +2,10 @@
 
 Copy ``main.py``, ``nightcell_fw/`` and ``boards/`` to the board (the host's deploy command does it, or
 ``mpremote cp -r``). Ctrl-C (what mpremote sends on connect) stops the loop cleanly: the LEDs go off, the journal
-is synced, and the REPL is yours; a reset starts logging again.
+is synced, and the REPL is yours; but the watchdog, once started, cannot be stopped on an RP2040, so the board resets
+within ~8 s and logs again. To copy files, first send the ``hold`` request (the host's deploy does): the board
+journals it, writes ``/nc_hold`` and resets; the next boot finds the file, removes it, and stays in the REPL with
+no watchdog and no logger — once; the following reset logs again.
 
 Never reformat: the rp2 boot script reformats a filesystem that fails to mount, and the journal is written so that
 littlefs always mounts (whole-record appends with sync, atomic renames); do not add code here that could change that.
@@ -15,7 +18,7 @@ import time
 import machine
 
 from nightcell_fw import settings as S
-from nightcell_fw.logger import Logger
+from nightcell_fw.logger import Logger, HOLD_FILE
 
 _WDT_MS = 8000  # the RP2040's limit is about 8.3 s
 
@@ -76,4 +79,22 @@ def main():
         lg.journal.close()
 
 
-main()
+def held():
+    """True once after the host asked for a hold (``hold`` verb): the file is removed first, so the next reset logs
+    again even if nobody comes back. A held board runs no watchdog, so copying a firmware update cannot be cut short
+    by a watchdog reset."""
+    try:
+        os.stat(HOLD_FILE)
+    except OSError:
+        return False
+    try:
+        os.remove(HOLD_FILE)
+    except OSError:
+        pass
+    return True
+
+
+if held():
+    print("nightcell: held for maintenance; watchdog off; reset to log again")
+else:
+    main()

@@ -55,3 +55,28 @@ def test_deploy_to_a_unix_repl_and_leave_it_logging(tmp_path):
         assert second.after["running"] is True  # logging again, whether it resumed or was started again
         assert second.after["head"] >= head  # the journal on flash is kept
         assert "logging" in second.text()
+
+
+def test_a_running_board_is_held_before_anything_is_copied(tmp_path):
+    """Before copying, deploy asks a board that answers `hello` to restart held (no watchdog, no logger, once), so a
+    watchdog reset cannot cut the copy short; the board journals why it reset."""
+    from nightcell import deploy as deploy_module
+    from nightcell.simulate import SimulatedBoard
+    from nightcell.store import Store
+    from nightcell.sync import sync_board
+    from nightcell.link import Board
+
+    sim = SimulatedBoard(tmp_path / "held", device="5e1f0000000000d7", speed=20.0)
+    sim.start()
+    try:
+        assert deploy_module._hello(sim.url, 20) is not None
+        deploy_module._hold(sim.url, 5.0)
+        assert sim.wait_exit(10) == 0  # the simulated board "resets" by ending its process
+        sim.start()  # power back (the sim has no REPL: it logs again, which is what a second reset does)
+        assert deploy_module._hello(sim.url, 20) is not None
+        with Board.open(sim.url) as board, Store.open(tmp_path / "h.db") as store:
+            sync_board(board, store)
+            events = store.query("SELECT text FROM events WHERE code = 5")
+    finally:
+        sim.stop()
+    assert any("held for maintenance" in e["text"] for e in events)

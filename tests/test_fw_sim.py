@@ -264,3 +264,26 @@ def test_unmountable_image_is_refused_not_reformatted(tmp_path):
                           timeout=30, stdin=subprocess.DEVNULL)
     assert proc.returncode == 3 and "does not mount" in proc.stderr
     assert img.read_bytes() == junk
+
+
+@pytest.mark.parametrize("interp", INTERPRETERS)
+def test_hold_journals_itself_and_leaves_the_one_shot_hold_file(tmp_path, interp):
+    """`hold` (schema/protocol.md): the board journals EVENT 5 saying it was held, writes the hold file that makes
+    main.py skip the watchdog and the logger for one boot, and resets."""
+    cfg = _config(tmp_path, interp)
+    sim = SimProcess(_interp(interp), cfg)
+    try:
+        assert sim.ok("hold") == {}
+        assert sim.proc.wait(10) == 0
+    finally:
+        sim.close()
+    sim = SimProcess(_interp(interp), cfg)
+    try:
+        recs = sim.journal()
+        held = [r for r in recs if r.kind == F.KIND_EVENT and r.fields["code"] == 5]
+        assert held and "held for maintenance" in held[-1].fields["text"]
+        assert [r.fields["reset_cause"] for r in recs if r.kind == F.KIND_BOOT] == [0, 3]
+    finally:
+        sim.close()
+    if interp == "cpython":  # the flash is a plain folder here: the hold file is visible
+        assert (tmp_path / "flash" / "nc_hold").read_text().startswith("held by the host")

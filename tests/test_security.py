@@ -208,7 +208,7 @@ def test_the_board_knows_exactly_the_documented_verbs():
     from fwharness import results, run_mp
 
     out = results(run_mp("from nightcell_fw.commands import VERBS\nprint('verbs=' + ' '.join(sorted(VERBS)))"))
-    assert set(out["verbs"].split()) == _protocol_verbs() and len(_protocol_verbs()) == 15
+    assert set(out["verbs"].split()) == _protocol_verbs() and len(_protocol_verbs()) == 16
 
 
 BOARD = r"""

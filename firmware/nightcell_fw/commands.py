@@ -157,11 +157,19 @@ def _reset(lg, tag, args):
     return None
 
 
+def _hold(lg, tag, args):
+    _nargs(args, 0, 0, "hold")
+    lg.out.ok(tag, b"{}")
+    lg.reset(hold=True)
+    return None
+
+
 _MARK_NAMES = {R.MARK_DARK: "dark", R.MARK_BLANK: "blank", R.MARK_OPAQUE: "opaque"}
 VERBS = {
     "hello": _hello, "anchor": _anchor, "dark": _measure(R.MARK_DARK, False), "blank": _measure(R.MARK_BLANK),
     "standard": _standard, "opaque": _measure(R.MARK_OPAQUE), "start": _start, "stop": _stop, "note": _note,
     "flush": _flush, "read": _read, "ack": _ack, "status": _status, "set": _set, "reset": _reset,
+    "hold": _hold,
 }
 
 

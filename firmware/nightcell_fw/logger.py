@@ -26,6 +26,7 @@ from nightcell_fw import commands
 HEALTH_MIN_MS = const(600000)  # a HEALTH record rides on a block close at most every 10 min ...
 HEALTH_MAX_MS = const(3600000)  # ... and is forced after an hour
 _MAX_WAIT = const(1000)  # longest sleep between loop turns: the watchdog is fed every turn
+HOLD_FILE = "/nc_hold"  # present at boot: stay in the REPL with the watchdog off, once (see main.py)
 
 
 class Logger:
@@ -310,9 +311,14 @@ class Logger:
         if self.errors > 10:
             self.board.sleep_ms(1000)  # a fault that repeats every turn: slow down, keep feeding the watchdog
 
-    def reset(self):
+    def reset(self, hold=False):
+        """Journal the reset (so it is not mistaken for a crash), then reset. With ``hold`` the next boot stays in the
+        REPL with the watchdog off, once, so a firmware update can be copied (``main.py`` reads the hold file)."""
         self.close_block()
-        self.event(R.EVENT_RESET, "reset requested by the host", True)
+        if hold:
+            with open(self.root + HOLD_FILE, "w") as f:
+                f.write("held by the host for maintenance\n")
+        self.event(R.EVENT_RESET, "held for maintenance by the host" if hold else "reset requested by the host", True)
         self.journal.close()
         self.board.reset()
 

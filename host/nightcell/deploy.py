@@ -14,6 +14,7 @@ Example::
 
 from __future__ import annotations
 
+import os
 import re
 import shutil
 import subprocess
@@ -46,11 +47,13 @@ class DeployReport:
     before: dict[str, Any] | None = None
     after: dict[str, Any] | None = None
     restarted_run: bool = False
+    held: bool = False
     seconds: float = 0.0
 
     def to_dict(self) -> dict[str, Any]:
         return {"port": self.port, "version": self.version, "files": self.files, "before": self.before,
-                "after": self.after, "restarted_run": self.restarted_run, "seconds": round(self.seconds, 2)}
+                "after": self.after, "restarted_run": self.restarted_run, "held": self.held,
+                "seconds": round(self.seconds, 2)}
 
     def text(self) -> str:
         was = "not running nightcell" if self.before is None else f"firmware {self.before.get('firmware')}"
@@ -149,6 +152,23 @@ def _hello(port: str, seconds: float) -> dict[str, Any] | None:
             time.sleep(0.3)
 
 
+def _hold(port: str, seconds: float) -> None:
+    """Ask a running board to restart held (``hold``): its next boot stays in the REPL with the watchdog off, so the
+    copy cannot be cut short by a watchdog reset (the RP2040's cannot be stopped once started). Waits for the port to
+    come back after the restart."""
+    with Board.open(port, timeout=2.0) as board:
+        board.hold()
+    time.sleep(1.0)  # the board resets and its USB device leaves and comes back
+    deadline = Deadline(seconds)
+    while not deadline.expired():
+        if not port.startswith("/") or os.path.exists(port):
+            time.sleep(1.0)  # let the held boot finish printing to its REPL
+            return
+        time.sleep(0.2)
+    raise DeviceNotFound(f"the board on {port} did not come back after it was asked to hold: press its reset button "
+                         "(the journal is safe), then deploy again")
+
+
 def deploy(port: str, *, compile: bool = True, include_sim: bool = False, resume: bool = False,
            start_code: str | None = None, wait: float = 20.0, timeout: float = 60.0) -> DeployReport:
     """Copy the firmware to the board on ``port``, restart it, and check it answers with the new version.
@@ -161,6 +181,9 @@ def deploy(port: str, *, compile: bool = True, include_sim: bool = False, resume
     version = firmware_version()
     report = DeployReport(port, version)
     report.before = _hello(port, 1.5)
+    if report.before is not None and not resume:
+        _hold(port, wait)
+        report.held = True
     with tempfile.TemporaryDirectory(prefix="nightcell-deploy-") as tmp:
         files = build_firmware(tmp, compile=compile, include_sim=include_sim)
         folders = sorted({str(Path(f).parent) for f in files if str(Path(f).parent) != "."})

@@ -288,6 +288,10 @@ class Board:
             raise ProtocolError(f"asked for position {position}, the board sent {pos}")
         return pos, data
 
+    def hold(self) -> dict[str, Any]:
+        """Restart the board held: its next boot stays in the REPL with the watchdog off (for a firmware update)."""
+        return self._json("hold", retry=False)
+
     def reset(self) -> dict[str, Any]:
         return self._json("reset", retry=False)
 
