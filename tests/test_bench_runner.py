@@ -27,6 +27,8 @@ KNOWN_MISSES = {
                             "goal 3x",
     "sync_ingest_vs_executemany": "ingest measured at 0.6-0.75 of bare executemany on this machine, goal 0.7",
     "parallel_sync_speedup_two_boards": "two syncs at once on 2 shared cores: 1.3-1.9x measured, goal 1.4x",
+    "full_sync_fraction_of_115200_baud": "a 30 KB quick sync under load measured 0.84-0.90 of the link, goal 0.85; "
+                                         "the full run (61 KB) gave 0.924",
     "demo time, seconds (nightcell demo into an empty folder)": "wall time on a shared machine: 16-19 s measured "
                                                                 "alone, goal 30 s; the runner still reports a miss",
 }
