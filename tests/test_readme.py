@@ -87,11 +87,14 @@ def test_setup_commands_are_one_line_each_and_ci_reads_the_test_command():
     test = [ln for ln in _between("test-command").splitlines() if ln.strip() and not ln.startswith("```")]
     assert len(demo) == 1 and "nightcell demo" in demo[0]
     assert len(test) == 1 and "pytest" in test[0]
-    # run .ci/run's own extraction line on this README: it must find exactly the README's test command
+    # .ci/run states the command it runs and runs exactly that; its README check must find the same line here
     ci = (ROOT / ".ci" / "run").read_text(encoding="utf-8")
-    extract = next(ln for ln in ci.splitlines() if ln.startswith('cmd="$('))
-    out = subprocess.run(["bash", "-c", extract + '\nprintf "%s" "$cmd"'], cwd=ROOT, capture_output=True, text=True,
-                         check=True).stdout
+    stated = next(ln for ln in ci.splitlines() if ln.startswith("TEST_COMMAND="))
+    assert stated == 'TEST_COMMAND="' + test[0] + '"'
+    assert any(ln.startswith("{ " + test[0] + "; }") for ln in ci.splitlines()), "the command .ci/run runs"
+    extract = next(ln for ln in ci.splitlines() if ln.startswith('readme="$('))
+    out = subprocess.run(["bash", "-c", extract + '\nprintf "%s" "$readme"'], cwd=ROOT, capture_output=True,
+                         text=True, check=True).stdout
     assert out == test[0]
 
 
