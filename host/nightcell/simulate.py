@@ -295,6 +295,20 @@ class Relay:
         return True
 
 
+def _unplug_ptys(owner: Any) -> None:
+    """Stop ``owner.relay`` and close the pty ends in ``owner._fds`` (a simulated board's or a REPL's)."""
+    if owner.relay is not None:
+        owner.relay.stop()
+        owner.relay.join(timeout=2)
+        owner.relay = None
+    for fd in owner._fds:
+        try:
+            os.close(fd)
+        except OSError:
+            pass
+    owner._fds = []
+
+
 class SimulatedBoard:
     """One simulated board: its flash image, its cell file and its firmware process behind a pty relay."""
 
@@ -385,16 +399,7 @@ class SimulatedBoard:
 
     def stop(self) -> None:
         self.power_cut()
-        if self.relay is not None:
-            self.relay.stop()
-            self.relay.join(timeout=2)
-            self.relay = None
-        for fd in self._fds:
-            try:
-                os.close(fd)
-            except OSError:
-                pass
-        self._fds = []
+        _unplug_ptys(self)
         if getattr(self, "_log", None):
             self._log.close()
 
@@ -643,16 +648,7 @@ class UnixRepl:
         if self.process and self.process.poll() is None:
             os.killpg(self.process.pid, signal.SIGKILL)
             self.process.wait(timeout=10)
-        if self.relay is not None:
-            self.relay.stop()
-            self.relay.join(timeout=2)
-            self.relay = None
-        for fd in self._fds:
-            try:
-                os.close(fd)
-            except OSError:
-                pass
-        self._fds = []
+        _unplug_ptys(self)
 
     def __enter__(self) -> "UnixRepl":
         return self.start()

@@ -368,10 +368,11 @@ class Store:
 
     # -- queries ------------------------------------------------------------------------------------------------
 
-    def query(self, sql: str, params: Iterable[Any] = ()) -> list[sqlite3.Row]:
+    def query(self, sql: str, params: Iterable[Any] = ()) -> list[dict[str, Any]]:
+        """Rows of a read query as dicts keyed by column name."""
         cur = self.conn.execute(sql, tuple(params))
         cols = [d[0] for d in cur.description]
-        return [dict(zip(cols, row)) for row in cur.fetchall()]  # type: ignore[misc]
+        return [dict(zip(cols, row)) for row in cur.fetchall()]
 
     def devices(self) -> list[dict[str, Any]]:
         return self.query("SELECT * FROM devices ORDER BY device")

@@ -13,7 +13,7 @@ Usage: python tests/bench/bench_analysis.py [--quick]
 
 from __future__ import annotations
 
-import argparse
+import sys
 import time
 
 import numpy as np
@@ -73,14 +73,7 @@ def run(quick: bool) -> list[dict]:
     ]
 
 
-def main() -> None:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="fewer runs")
-    args = parser.parse_args()
-    for row in run(args.quick):
-        value = f"{row['value']:.4g}" if isinstance(row["value"], float) else row["value"]
-        print(f"{row['name']}: {value} (goal {row['goal']}){'' if row['ok'] else '  FAILED'}")
+if __name__ == "__main__":  # the same as: python tests/bench/run.py --only NAME [--quick] [--json]
+    from run import script
 
-
-if __name__ == "__main__":
-    main()
+    sys.exit(script(__file__))

@@ -16,7 +16,7 @@ Usage: python tests/bench/bench_coverage.py [--quick]
 
 from __future__ import annotations
 
-import argparse
+import sys
 import math
 
 import numpy as np
@@ -102,13 +102,7 @@ def run(quick: bool) -> list[dict]:
     return coverage_k(runs) + coverage_calibration(runs) + coverage_arrhenius(runs)
 
 
-def main() -> None:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="about 300 runs per campaign")
-    args = parser.parse_args()
-    for row in run(args.quick):
-        print(f"{row['name']}: {row['value']:.4f} (goal {row['goal']}){'' if row['ok'] else '  FAILED'}")
+if __name__ == "__main__":  # the same as: python tests/bench/run.py --only NAME [--quick] [--json]
+    from run import script
 
-
-if __name__ == "__main__":
-    main()
+    sys.exit(script(__file__))

@@ -29,13 +29,7 @@ def run(quick: bool) -> list[dict]:
     return rows
 
 
-def main() -> None:
-    rows = run("--quick" in sys.argv)
-    for row in rows:
-        print(f"{row['name']}: {row['value']} (goal {row['goal']}){'' if row['ok'] else '  MISSED'}")
-    missed = [r for r in rows if not r["ok"]]
-    print(f"firmware goals met: {len(rows) - len(missed)}/{len(rows)}")
+if __name__ == "__main__":  # the same as: python tests/bench/run.py --only NAME [--quick] [--json]
+    from run import script
 
-
-if __name__ == "__main__":
-    main()
+    sys.exit(script(__file__))

@@ -39,10 +39,7 @@ def run(quick: bool) -> list[dict]:
     ]
 
 
-def main() -> None:
-    for row in run("--quick" in sys.argv):
-        print(f"{row['name']}: {row['value']} (goal {row['goal']}){'' if row['ok'] else '  MISSED'}")
+if __name__ == "__main__":  # the same as: python tests/bench/run.py --only NAME [--quick] [--json]
+    from run import script
 
-
-if __name__ == "__main__":
-    main()
+    sys.exit(script(__file__))

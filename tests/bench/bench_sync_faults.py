@@ -98,13 +98,7 @@ def run(quick: bool = False, schedules: int | None = None, seed: int = 2024) -> 
     ]
 
 
-def main(argv: list[str]) -> int:
-    rows = run(quick="--quick" in argv)
-    for r in rows:
-        goal = f" (goal {r['goal']})" if r["goal"] else ""
-        print(f"{r['name']}: {r['value']}{goal}")
-    return 0 if all(r["ok"] is not False for r in rows) else 1
+if __name__ == "__main__":  # the same as: python tests/bench/run.py --only NAME [--quick] [--json]
+    from run import script
 
-
-if __name__ == "__main__":
-    sys.exit(main(sys.argv[1:]))
+    sys.exit(script(__file__))

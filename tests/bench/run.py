@@ -209,6 +209,11 @@ def line(row: dict[str, Any]) -> str:
     return f"{row['name']}: {value} (goal {row['goal']}){'' if row['ok'] else '  MISSED'}"
 
 
+def script(module_file: str) -> int:
+    """A bench module run as a script: the same as ``python tests/bench/run.py --only NAME`` plus its arguments."""
+    return main(["--only", _short(Path(module_file)), *sys.argv[1:]])
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description="Run every nightcell benchmark and campaign; one line per figure.")
     parser.add_argument("--quick", action="store_true", help="CI-sized runs (a few minutes in all)")
