@@ -191,6 +191,7 @@ class FakePort:
         self.chatter = chatter
         self.lines: list[bytes] = []
         self._stop = threading.Event()
+        self._lock = threading.Lock()
         self._thread = threading.Thread(target=self._serve, daemon=True)
         self._thread.start()
 
@@ -227,12 +228,17 @@ class FakePort:
                     return
 
     def close(self) -> None:
+        """Close both ends once. The serving thread is stopped first (it may call this itself, to vanish): a file
+        descriptor closed twice, or used after its close, may by then belong to another file — the database."""
         self._stop.set()
-        for fd in (self.master, self._slave):
-            try:
+        if threading.current_thread() is not self._thread:
+            self._thread.join(timeout=10)
+            assert not self._thread.is_alive(), "the fake port's thread did not stop"
+        with self._lock:
+            fds, self.master, self._slave = (self.master, self._slave), -1, -1
+        for fd in fds:
+            if fd >= 0:
                 os.close(fd)
-            except OSError:
-                pass
 
 
 HELLO = {"protocol": 1, "device": DEVICE, "board": "sim", "firmware": "0.1.0", "boot": 1, "uptime_ms": 5,

@@ -88,16 +88,19 @@ class SimProcess:
     def kill(self) -> None:
         self.proc.send_signal(signal.SIGKILL)
         self.proc.wait(10)
-        os.close(self.master)
+        self._close_master()
 
     def close(self) -> None:
         if self.proc.poll() is None:
             self.proc.kill()
             self.proc.wait(10)
-        try:
-            os.close(self.master)
-        except OSError:
-            pass
+        self._close_master()
+
+    def _close_master(self) -> None:
+        # Once only: closed twice, the number may by then be another file's.
+        fd, self.master = self.master, -1
+        if fd >= 0:
+            os.close(fd)
 
 
 INTERPRETERS = ["micropython", "cpython"]

@@ -119,7 +119,8 @@ def relay():
     r.start()
     yield r, bs, hs
     r.stop()
-    r.join(2)
+    r.join(30)
+    assert not r.alive(), "the relay's pumps did not stop: closing their ptys now could hit a reused descriptor"
     for fd in (bm, bs, hm, hs):
         os.close(fd)
 

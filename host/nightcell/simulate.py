@@ -153,6 +153,10 @@ class Relay:
         for t in self._threads:
             t.join(timeout)
 
+    def alive(self) -> bool:
+        """True while a pump thread still runs (and may touch the pty ends)."""
+        return any(t.is_alive() for t in self._threads)
+
     def schedule(self, faults: Iterable[Fault]) -> None:
         """Inject these faults, counting bytes from now on in each direction."""
         with self._lock:
@@ -299,14 +303,19 @@ def _unplug_ptys(owner: Any) -> None:
     """Stop ``owner.relay`` and close the pty ends in ``owner._fds`` (a simulated board's or a REPL's)."""
     if owner.relay is not None:
         owner.relay.stop()
-        owner.relay.join(timeout=2)
+        owner.relay.join(timeout=30)
+        if owner.relay.alive():
+            # A pump still holds the numbers: closed now, they could be reused by another file (a database) and
+            # the pump would read or write that file. Better to leave them open until the process ends.
+            owner._fds = []
+            return
         owner.relay = None
-    for fd in owner._fds:
+    fds, owner._fds = owner._fds, []
+    for fd in fds:
         try:
             os.close(fd)
         except OSError:
             pass
-    owner._fds = []
 
 
 class SimulatedBoard:
