@@ -87,10 +87,9 @@ def _stray(store: Store, device: str, before: tuple[int, int] | None, channel: i
     absorbances read low (A_obs = −log10((T + s)/(1 + s))). Correcting by ``optics.correct_stray`` keeps a run's
     curve exponential.
     """
-    earlier = [m for m in store.marks(device, "opaque") if before is None or (m["boot"], m["seq"]) < tuple(before)]
-    if not earlier:
+    m = _mark_before(store, device, "opaque", before)
+    if m is None:
         return
-    m = earlier[-1]
     light, dark = _mark_means(m, channel)
     b.stray = _optics.stray_fraction_from_opaque(light, dark, b.light, b.dark)
     b.stray_mark = f"{m['boot']}:{m['seq']}"
@@ -108,6 +107,32 @@ def _absorbance(light: Any, dark: Any, b: "BlankChoice") -> "_optics.OpticsResul
     return res
 
 
+_NO_END = 1 << 62  # beyond any boot or seq: "before" everything
+
+
+def _with_counts(store: Store, mark: dict[str, Any] | None) -> dict[str, Any] | None:
+    """A marks row with its per-channel counts as lists ``dark`` and ``light`` (the shape ``Store.marks`` gives)."""
+    if mark is None:
+        return None
+    counts = store.conn.execute(
+        "SELECT dark, light FROM mark_counts WHERE device = ? AND boot = ? AND seq = ? ORDER BY channel",
+        (mark["device"], mark["boot"], mark["seq"])).fetchall()
+    mark["dark"] = [c[0] for c in counts]
+    mark["light"] = [c[1] for c in counts]
+    return mark
+
+
+def _mark_before(store: Store, device: str, kind: str, before: tuple[int, int] | None) -> dict[str, Any] | None:
+    """The last ``kind`` mark of a device before (boot, seq) ``before`` (the last of all when None), or None.
+
+    One indexed query, so finding a run's blank does not read every mark of a database that holds many runs.
+    """
+    b, q = (_NO_END, _NO_END) if before is None else (int(before[0]), int(before[1]))
+    rows = store.query("SELECT * FROM marks WHERE device = ? AND mark = ? AND (boot, seq) < (?, ?) "
+                       "ORDER BY boot DESC, seq DESC LIMIT 1", (device, kind, b, q))
+    return _with_counts(store, rows[0] if rows else None)
+
+
 def _mark_means(mark: dict[str, Any], channel: int) -> tuple[float, float]:
     if mark["reads"] <= 0 or channel >= len(mark["light"]):
         raise AnalysisError(f"mark {mark['boot']}:{mark['seq']} has no counts for channel {channel}")
@@ -118,19 +143,18 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
                  blank: tuple[int, int] | None = None) -> BlankChoice:
     """The blank for readings of ``device`` taken at (boot, seq) ``before``: the nearest preceding blank mark,
     or the one named by ``blank`` = (boot, seq). ``AnalysisError`` when there is none."""
-    blanks = store.marks(device, "blank")
     if blank is not None:
-        chosen = [m for m in blanks if (m["boot"], m["seq"]) == tuple(blank)]
+        chosen = store.query("SELECT * FROM marks WHERE device = ? AND mark = 'blank' AND boot = ? AND seq = ?",
+                             (device, blank[0], blank[1]))
         if not chosen:
             raise InputError(f"no blank {blank[0]}:{blank[1]} on device {device}: list blanks with `nightcell list`")
-        m = chosen[0]
+        m = _with_counts(store, chosen[0])
         rule = "named by the user"
     else:
-        earlier = [m for m in blanks if before is None or (m["boot"], m["seq"]) < tuple(before)]
-        if not earlier:
+        m = _mark_before(store, device, "blank", before)
+        if m is None:
             raise AnalysisError(f"device {device} has no blank before {before}: take a blank first "
                                 "(`nightcell blank`) or name one")
-        m = earlier[-1]
         rule = BLANK_RULE
     light, dark = _mark_means(m, channel)
     choice = BlankChoice(device, m["boot"], m["seq"], channel, light, dark, rule)
@@ -218,11 +242,14 @@ def run_bounds(store: Store, run: Run) -> dict[str, Any]:
     end = None if run.stop_boot is None else (run.stop_boot, run.stop_seq)
     rule = "the run's stop mark"
     resumed: list[tuple[int, int]] = []
-    for m in store.marks(run.device, "run_start"):
-        key = (m["boot"], m["seq"])
-        if key <= start or (end is not None and key >= end):
-            continue
-        if m["source"] == RESUME_SOURCE:
+    # run_start marks after the start, in order (one range scan, not every mark of the device)
+    for boot, seq, source in store.conn.execute(
+            "SELECT boot, seq, source FROM marks WHERE device = ? AND mark = 'run_start' AND (boot, seq) > (?, ?) "
+            "ORDER BY boot, seq", (run.device, run.start_boot, run.start_seq)):
+        key = (boot, seq)
+        if end is not None and key >= end:
+            break
+        if source == RESUME_SOURCE:
             resumed.append(key)
             continue
         if end is None:
@@ -236,52 +263,73 @@ def run_bounds(store: Store, run: Run) -> dict[str, Any]:
 
 def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] | None = None) -> dict[str, Any]:
     """Time (s from the first sample), absorbance and flags of a run, with the blank and time basis used."""
-    rows = store.run_samples(run, channel)
+    cols = store.run_sample_columns(run, channel)
     bounds = run_bounds(store, run)
     warnings = []
     if run.stop_boot is None:
         if bounds["end"] is not None:
-            rows = [r for r in rows if (r["boot"], r["seq"]) < bounds["end"]]
+            eb, es = bounds["end"]
+            before_end = (cols["boot"] < eb) | ((cols["boot"] == eb) & (cols["seq"] < es))
+            cols = {k: (v[before_end] if isinstance(v, np.ndarray) else v) for k, v in cols.items()}
         warnings.append("the run has no stop mark (stopped by a power cut, or still going when synced): "
                         + bounds["rule"])
-    if not rows:
+    if cols["seq"].size == 0:
         raise AnalysisError(f"run {run.key} ({run.label!r}) has no samples yet: sync the board first")
     b = choose_blank(store, run.device, (run.start_boot, run.start_seq), channel, blank)
-    light = np.array([r["light"] / r["reads"] for r in rows])
-    dark = np.array([r["dark"] / r["reads"] for r in rows])
+    light = cols["light"] / cols["reads"]
+    dark = cols["dark"] / cols["reads"]
     res = _absorbance(light, dark, b)
     flags = res.flags.copy()
-    board_flags = np.array([r["flags"] for r in rows])
-    flags |= np.where(board_flags & 1, _optics.FLAG_SATURATED, 0)
-    boots = sorted({r["boot"] for r in rows})
+    flags |= np.where(cols["flags"] & 1, _optics.FLAG_SATURATED, 0)
+    boot_col = cols["boot"]
+    boots = sorted(int(v) for v in np.unique(boot_col))
     if len(boots) > 1:
         how = (f"the board resumed it by itself at {', '.join('%d:%d' % k for k in bounds['resumed'])}"
                if bounds["resumed"] else "no resume mark was found")
         warnings.append(f"the run spans boots {', '.join(map(str, boots))} (a restart in the middle: {how}); "
                         "readings are placed in time by each boot's clock")
-    clocked = all(r["unix_at_zero"] is not None for r in rows)
-    if clocked:
-        t = np.array([r["unix_at_zero"] + r["rate"] * r["uptime_ms"] / 1000.0 for r in rows])
-        basis = "wall clock from anchors (" + ", ".join(sorted({r["quality"] for r in rows})) + ")"
+    clocks = cols["clocks"]
+    up = cols["uptime_ms"]
+    keep = None
+    if all(bt in clocks for bt in boots):
+        t = _wall_clock(boot_col, up, boots, clocks)
+        basis = "wall clock from anchors (" + ", ".join(sorted({clocks[bt][2] for bt in boots})) + ")"
     elif len(boots) == 1:
-        t = np.array([r["uptime_ms"] / 1000.0 for r in rows])
+        t = up / 1000.0
         basis = "board uptime (no clock anchor yet)"
     else:
-        keep = np.array([r["unix_at_zero"] is not None for r in rows])
+        keep = np.isin(boot_col, [bt for bt in boots if bt in clocks])
         if not keep.any():
             raise AnalysisError(f"run {run.key} spans boots {boots} with no clock anchors: connect the board and "
                                 "sync so its time can be placed")
         warnings.append("samples from boots without a clock anchor were left out")
-        rows = [r for r, k in zip(rows, keep) if k]
-        t = np.array([r["unix_at_zero"] + r["rate"] * r["uptime_ms"] / 1000.0 for r in rows])
+        boot_col, up = boot_col[keep], up[keep]
+        t = _wall_clock(boot_col, up, [bt for bt in boots if bt in clocks], clocks)
         res_a, flags = res.absorbance[keep], flags[keep]
         res = _optics.OpticsResult(res.transmittance[keep], res_a, flags, res.signal[keep], res.reference,
                                    res.stray, res.ceiling, res.message)
         basis = "wall clock from anchors (partial)"
+    seq_col = cols["seq"] if keep is None else cols["seq"][keep]
     t = t - t[0]
     return {"time_s": t, "absorbance": res.absorbance, "flags": flags, "blank": b, "time_basis": basis,
-            "seqs": [(r["boot"], r["seq"]) for r in rows], "warnings": warnings,
-            "boots": sorted({r["boot"] for r in rows}), "resumed": bounds["resumed"], "end_rule": bounds["rule"]}
+            "seqs": list(zip(boot_col.tolist(), seq_col.tolist())), "warnings": warnings,
+            "boots": sorted(int(v) for v in np.unique(boot_col)), "resumed": bounds["resumed"],
+            "end_rule": bounds["rule"]}
+
+
+def _wall_clock(boot: np.ndarray, uptime_ms: np.ndarray, boots: list[int],
+                clocks: dict[int, tuple[float, float, str]]) -> np.ndarray:
+    """Wall-clock seconds of each sample from its boot's clock (the same arithmetic as the ``sample_readings``
+    view: unix_at_zero + rate·uptime_ms/1000)."""
+    if len(boots) == 1:
+        zero, rate, _ = clocks[boots[0]]
+        return zero + rate * uptime_ms / 1000.0
+    zero = np.empty(boot.size)
+    rate = np.empty(boot.size)
+    for bt in boots:
+        sel = boot == bt
+        zero[sel], rate[sel] = clocks[bt][0], clocks[bt][1]
+    return zero + rate * uptime_ms / 1000.0
 
 
 def analyse_run(store: Store, run: Run, *, channel: int = 0, calibration: Any = None,

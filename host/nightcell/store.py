@@ -45,6 +45,7 @@ from .timeline import unwrap_uptimes
 __all__ = ["Store", "migration_files", "Run"]
 
 BUSY_TIMEOUT_S = 30.0
+_NO_END = 1 << 62  # beyond any boot or seq: the upper bound of a run that has no stop mark
 MIGRATION_SET = "nightcell"
 
 
@@ -426,14 +427,50 @@ class Store:
         sql = (
             "SELECT s.*, c.unix_at_zero, c.rate, c.quality FROM samples s "
             "LEFT JOIN boot_clocks c ON c.device = s.device AND c.boot = s.boot "
-            "WHERE s.device = ? AND s.channel = ? AND (s.boot > ? OR (s.boot = ? AND s.seq > ?))"
+            "WHERE s.device = ? AND s.channel = ? AND (s.boot, s.seq) > (?, ?)"
         )
-        params: list[Any] = [run.device, channel, run.start_boot, run.start_boot, run.start_seq]
+        # row values, so SQLite scans only the run's range of the primary key (an OR of the two halves scanned
+        # every sample of the device: 30 ms a run in a database of 200 runs)
+        params: list[Any] = [run.device, channel, run.start_boot, run.start_seq]
         if run.stop_boot is not None:
-            sql += " AND (s.boot < ? OR (s.boot = ? AND s.seq < ?))"
-            params += [run.stop_boot, run.stop_boot, run.stop_seq]
+            sql += " AND (s.boot, s.seq) < (?, ?)"
+            params += [run.stop_boot, run.stop_seq]
         sql += " ORDER BY s.boot, s.seq"
         return self.query(sql, params)
+
+    def run_sample_columns(self, run: Run, channel: int = 0) -> dict[str, Any]:
+        """A run's samples as numpy columns, in (boot, seq) order across boots, and the clocks of their boots.
+
+        Returns ``boot``, ``seq``, ``uptime_ms``, ``flags``, ``reads``, ``dark``, ``light`` (int64 arrays, one entry per
+        sample; the same rows as ``run_samples``) and ``clocks``: ``{boot: (unix_at_zero, rate, quality)}`` for the
+        boots that have a clock. Made for the analysis of many runs: one range scan of the samples' primary key,
+        each column read as one text (SQLite writes the digits; numpy parses them), with no per-row Python objects.
+        """
+        stop = (run.stop_boot, run.stop_seq) if run.stop_boot is not None else (_NO_END, _NO_END)
+        row = self.conn.execute(
+            "SELECT count(*), group_concat(boot), group_concat(seq), group_concat(uptime_ms), group_concat(flags), "
+            "group_concat(reads), group_concat(dark), group_concat(light) FROM (SELECT * FROM samples "
+            "WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?) ORDER BY boot, seq)",
+            (run.device, channel, run.start_boot, run.start_seq, *stop)).fetchone()
+        names = ("boot", "seq", "uptime_ms", "flags", "reads", "dark", "light")
+        n = int(row[0])
+        if n == 0:
+            cols = {name: np.zeros(0, dtype=np.int64) for name in names}
+        else:
+            cols = {name: np.fromstring(text, dtype=np.int64, sep=",") for name, text in zip(names, row[1:])}
+            if any(c.size != n for c in cols.values()):
+                raise StoreError(f"run {run.key}: a sample column did not read back whole; check the database with "
+                                 "`sqlite3 DB 'PRAGMA integrity_check'`")
+            key_b, key_s = cols["boot"], cols["seq"]
+            if np.any((key_b[1:] < key_b[:-1]) | ((key_b[1:] == key_b[:-1]) & (key_s[1:] <= key_s[:-1]))):
+                # SQLite does not promise the order in which group_concat meets rows; put them in order if it moved
+                order = np.lexsort((key_s, key_b))
+                cols = {name: c[order] for name, c in cols.items()}
+        clocks = {b: (u, r, q) for b, u, r, q in self.conn.execute(
+            "SELECT boot, unix_at_zero, rate, quality FROM boot_clocks WHERE device = ? AND boot >= ? AND boot <= ?",
+            (run.device, run.start_boot, stop[0]))}
+        cols["clocks"] = clocks
+        return cols
 
     def save_result(self, kind: str, label: str, inputs: dict[str, Any], result: dict[str, Any]) -> int:
         """Store a derived result with its inputs; returns its id."""
