@@ -43,6 +43,15 @@ __all__ = [
 
 def jsonable(value: Any) -> Any:
     """Turn numpy scalars/arrays, tuples and non-finite floats into plain JSON types (NaN/inf become ``None``)."""
+    kind = type(value)  # the plain types first: results are mostly these, and the checks below are slower
+    if kind is str or kind is int or value is None or kind is bool:
+        return value
+    if kind is float:
+        return value if math.isfinite(value) else None
+    if kind is dict:
+        return {k if type(k) is str else str(k): jsonable(v) for k, v in value.items()}
+    if kind is list:
+        return [jsonable(v) for v in value]
     if isinstance(value, Mapping):
         return {str(k): jsonable(v) for k, v in value.items()}
     if isinstance(value, np.ndarray):
@@ -278,15 +287,16 @@ def _package(
     n, k = int(y.size), len(names)
     dof = n - k
     s = math.sqrt(rss / dof) if dof > 0 else math.nan
-    se = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    cov = np.asarray(cov, dtype=float)
+    se = np.sqrt(np.clip(cov.diagonal(), 0.0, None)).tolist()
     ex = {"aicc": _aicc(rss, n, k)}
     ex.update(extra or {})
     return FitResult(
         model=model,
         names=tuple(names),
         values={nm: float(v) for nm, v in zip(names, beta)},
-        stderr={nm: float(v) for nm, v in zip(names, se)},
-        cov=[[float(c) for c in row] for row in np.asarray(cov)],
+        stderr=dict(zip(names, se)),
+        cov=cov.tolist(),
         n=n,
         dof=dof,
         residual_sd=s,

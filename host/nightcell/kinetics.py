@@ -21,7 +21,15 @@ Conventions (all fits are least squares on absorbance itself, so the noise is tr
 - ``second_order``: ``A = a_end + D0/(1 + k·|D0|·τ)`` with ``D0 = A0 − a_end`` (from 1/[X] = 1/[X]0 + k·t);
   k is in (absorbance·s)⁻¹; multiply by ε·l to get M⁻¹ s⁻¹.
 - ``first_order_plateau``: ``A = A_inf + (A0 − A_inf)·exp(−k·τ)`` with A_inf free; works for fading and growth.
-  Starting values come from a grid over k on which the model is linear in (A0, A_inf), so no guess is needed.
+  No guess is needed: the start comes from the integrated law (a straight line in τ and ∫A dτ), or from a grid
+  over k where that fails.
+- How the laws are fitted: each is linear in all its parameters but one once that one is fixed, so the search is
+  over k alone (variable projection; see "the fast path" below), and the standard errors come from the full
+  Jacobian at the minimum, cov = s²·(JᵀWJ)⁻¹ — the minimum and the covariance of MINPACK's leastsq and of
+  ``curve_fit(absolute_sigma=False)``. Where that search cannot settle (a law that cannot pin its parameters on
+  these points), MINPACK's Levenberg–Marquardt (``fitting.nonlinear_lstsq``) decides, as it always did. The search
+  runs to a relative step of 1e-10 in k, so on badly fitting laws it can end a little beyond where MINPACK's own
+  stopping rule halts (a lower RSS, differences far below a standard error).
 - Initial-rate window rule (automatic): growing windows from the first point (at least 6 points, ×1.25 each step);
   the window chosen is the longest one whose added quadratic term is not significant (two-sided t test,
   p ≥ 0.05; the shortest window if every one is curved); the rate is the slope of a straight line over it, so any
@@ -38,7 +46,7 @@ import numpy as np
 from scipy import stats as _stats
 
 from .errors import AnalysisError, FitFailed, InputError, NonFiniteInput, TimeOrderError, TooFewPoints
-from .fitting import FitResult, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq, runs_test
+from .fitting import FitResult, _package, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq, runs_test
 
 __all__ = [
     "MODELS",
@@ -158,7 +166,359 @@ def _plateau_start(tau: np.ndarray, a: np.ndarray) -> tuple[float, float, float]
     return c + d, c, float(ks[i])
 
 
+# -- the fast path: one nonlinear parameter, the others linear ---------------------------------------------------
+#
+# Each nonlinear law is linear in all but one parameter once that one is fixed (variable projection):
+#   first_order          A − a_end = d0·e^(−kτ)                      linear in d0 given k
+#   second_order         A − a_end = d0/(1 + c·τ),  c = k·sign·d0   linear in d0 given c
+#   first_order_plateau  A = A_inf + d·e^(−kτ),     d = A0 − A_inf  linear in (A_inf, d) given k
+# so the fit is a 1-D search over k (or c): Gauss–Newton on the reduced sum of squares (Kaufman's step: the model's
+# derivative with the part the linear parameters can absorb projected out), with step halving so the weighted RSS
+# never rises. Every weighted sum an iteration needs comes from one small matrix product of [f, f²(, f³, f⁴)] with
+# the per-fit moments [w, w·A, w·τ, w·τ², w·τ·A], shared by the models. At the minimum the standard errors come
+# from the full Jacobian in the reported parameters, cov = s²·(JᵀWJ)⁻¹ with s² = RSS/(n − p): the same convention
+# and the same minimum as MINPACK's leastsq / curve_fit(absolute_sigma=False), to far below their own tolerance.
+# Anything unusual (no convergence, a start that cannot be found, a nearly singular Jacobian) falls back to
+# ``nonlinear_lstsq`` from the original start values, so hard cases keep exactly the reference behaviour.
+
+_FAST_MAX_ITER = 60
+_EPS = float(np.finfo(float).eps)
+_FAST_XTOL = 1e-10  # relative step in k (or c) at which the search stops: far below curve_fit's 1.5e-8
+_FAST_COND = 1e-10  # smallest determinant of the unit-diagonal JᵀWJ the fast path accepts (else the SVD path decides)
+
+
+class _Moments:
+    """Per-fit arrays shared by the models: τ, A, weights and the moment matrix [w, wA, wτ, wτ², wτA]."""
+
+    def __init__(self, tau: np.ndarray, a: np.ndarray, w: np.ndarray | None):
+        self.tau, self.a, self.w = tau, a, w
+        wv = np.ones_like(tau) if w is None else w
+        self.wv = wv
+        wt = wv * tau
+        self.M = np.column_stack([wv, wv * a, wt, wt * tau, wt * a])
+        self.sums = self.M.sum(axis=0).tolist()  # Σw, ΣwA, Σwτ, Σwτ², ΣwτA
+        self.sw, self.swa = self.sums[0], self.sums[1]
+        self.sum_waa = float(wv @ (a * a))
+        self.span = float(tau[-1]) if tau[-1] > 0 else 1.0
+        self.ntau = -tau
+        self._integral: np.ndarray | None = None
+
+    def integral(self) -> np.ndarray:
+        """∫A dτ from the first point (trapezoid rule)."""
+        if self._integral is None:
+            steps = np.diff(self.tau) * (self.a[1:] + self.a[:-1]) * 0.5
+            self._integral = np.concatenate(([0.0], np.cumsum(steps)))
+        return self._integral
+
+
+def _line(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """(intercept, slope) of an unweighted straight line through (x, y)."""
+    xm, ym = x.mean(), y.mean()
+    dx = x - xm
+    sxx = float(dx @ dx)
+    if not sxx > 0:
+        return math.nan, math.nan
+    slope = float(dx @ (y - ym)) / sxx
+    return float(ym - slope * xm), slope
+
+
+def _search(step_at: Any, theta: float, valid: Any, slack: float) -> tuple[float, tuple] | None:
+    """Minimise the reduced RSS over one parameter θ. None if it fails.
+
+    ``step_at(θ)`` gives (rss, Gauss–Newton step, state, slope) where slope is a multiple of d(rss)/dθ that keeps its
+    scale along the search. The first step is Gauss–Newton; later ones are secant steps on the slope (superlinear
+    where Gauss–Newton is only linear: the models that fit badly) whenever the slope rose with θ as it must near a
+    minimum. A step is halved until the RSS does not rise by more than ``slack`` (the rounding of its formula).
+    """
+    got = step_at(theta)
+    if got is None:
+        return None
+    rss, step, state, slope = got
+    prev: tuple[float, float] | None = None
+    for _ in range(_FAST_MAX_ITER):
+        if prev is not None and theta != prev[0]:
+            curv = (slope - prev[1]) / (theta - prev[0])
+            if curv > 0 and math.isfinite(curv):
+                step = -slope / curv
+        if not math.isfinite(step):
+            return None
+        if abs(step) <= _FAST_XTOL * abs(theta):
+            return theta, state
+        first = abs(step)
+        for _ in range(40):
+            new = theta + step
+            got = step_at(new) if valid(new) else None
+            if got is not None and got[0] <= rss + slack:
+                break
+            step *= 0.5
+        else:
+            # no step lowers the RSS: at the minimum to rounding if the step asked for was already tiny
+            return (theta, state) if first <= 1e-6 * abs(theta) else None
+        prev = (theta, slope)
+        theta = new
+        rss, step, state, slope = got
+    return None
+
+
+def _fast_exponential(m: _Moments, k0: float, a_end: float | None) -> tuple[float, float, float, list] | None:
+    """Weighted LS over k of A = c0 + d·e^(−kτ): the plateau when ``a_end`` is None (c0 free), else first order
+    (c0 = a_end). Returns (k, c0, d, sums at k) at the minimum, or None."""
+    sw, swa = m.sw, m.swa
+    E = np.empty((2, m.tau.size))
+    plateau = a_end is None
+    yy = m.sum_waa if plateau else m.sum_waa - 2.0 * a_end * swa + a_end * a_end * sw
+
+    def step_at(k: float) -> tuple[float, float, tuple, float] | None:
+        np.multiply(m.ntau, k, out=E[0])
+        np.exp(E[0], out=E[0])
+        np.multiply(E[0], E[0], out=E[1])
+        S = (E @ m.M).tolist()  # rows e, e²; columns w, wA, wτ, wτ², wτA
+        (se, sea, ste, _, sta), (see, _, stee, sttee, _) = S
+        try:
+            if plateau:
+                det = sw * see - se * se
+                if not det > 0:
+                    return None
+                d = (sw * sea - se * swa) / det
+                c0 = (see * swa - se * sea) / det
+                # Σw·r² from the sums (r = A − c0 − d·e); only used to compare steps
+                rss = yy - c0 * swa - d * sea
+                # Σw·τe·r, and τe with its part in span{1, e} projected out
+                g = sta - c0 * ste - d * stee
+                perp = sttee - (ste * (see * ste - se * stee) + stee * (sw * stee - se * ste)) / det
+            else:
+                if not see > 0:
+                    return None
+                sey = sea - a_end * se
+                d = sey / see
+                c0 = a_end
+                rss = yy - d * sey
+                g = (sta - a_end * ste) - d * stee
+                perp = sttee - stee * stee / see
+            if not (perp > 0 and d != 0):
+                return None
+            # model c0 + d·e, derivative in k: −d·τe; Gauss–Newton step = (vᵀWr)/(v⊥ᵀWv⊥) with v = −d·τe
+            return rss, -g / (d * perp), (c0, d, S), d * g
+        except (ZeroDivisionError, OverflowError):
+            return None
+
+    out = _search(step_at, k0, lambda k: abs(k) * m.span < 300.0, 64 * _EPS * yy)
+    if out is None:
+        return None
+    k, (c0, d, S) = out
+    return k, c0, d, S
+
+
+def _fast_second(m: _Moments, c_start: float, a_end: float) -> tuple[float, float, list] | None:
+    """Weighted LS over c of A − a_end = d0/(1 + c·τ). Returns (c, d0, sums at c) at the minimum, or None."""
+    sw, swa = m.sw, m.swa
+    U = np.empty((4, m.tau.size))
+    yy = m.sum_waa - 2.0 * a_end * swa + a_end * a_end * sw
+    tmax = m.span
+
+    def step_at(c: float) -> tuple[float, float, tuple, float] | None:
+        np.multiply(m.tau, c, out=U[0])
+        U[0] += 1.0
+        np.reciprocal(U[0], out=U[0])
+        np.multiply(U[0], U[0], out=U[1])
+        np.multiply(U[1], U[0], out=U[2])
+        np.multiply(U[1], U[1], out=U[3])
+        S = (U @ m.M).tolist()  # rows 1/u, 1/u², 1/u³, 1/u⁴; columns w, wA, wτ, wτ², wτA
+        try:
+            sbb = S[1][0]
+            if not sbb > 0:
+                return None
+            sby = S[0][1] - a_end * S[0][0]
+            d0 = sby / sbb
+            rss = yy - d0 * sby
+            # derivative of b = 1/u in c: −τ/u²; Σw·(τ/u²)·r, Σw·b·(τ/u²), Σw·(τ/u²)²
+            g = (S[1][4] - a_end * S[1][2]) - d0 * S[2][2]
+            sbd = S[2][2]
+            perp = S[3][3] - sbd * sbd / sbb
+            if not (perp > 0 and d0 != 0):
+                return None
+            return rss, -g / (d0 * perp), (d0, S), d0 * g
+        except (ZeroDivisionError, OverflowError):
+            return None
+
+    out = _search(step_at, c_start, lambda c: 1.0 + c * tmax > 1e-9, 64 * _EPS * max(yy, 0.0))
+    if out is None:
+        return None
+    c, (d0, S) = out
+    return c, d0, S
+
+
+def _inverse_scaled(N: list[list[float]]) -> list[list[float]] | None:
+    """Inverse of a 2×2 or 3×3 symmetric positive definite matrix, through its unit-diagonal scaling; None when the
+    scaled matrix is too close to singular for the normal equations (determinant ≤ ``_FAST_COND``; its smallest
+    eigenvalue is then at most that, so the reference path's SVD judges the fit)."""
+    p = len(N)
+    d = [math.sqrt(N[i][i]) if N[i][i] > 0 else 0.0 for i in range(p)]
+    if not all(v > 0 and math.isfinite(v) for v in d):
+        return None
+    S = [[N[i][j] / (d[i] * d[j]) for j in range(p)] for i in range(p)]
+    if p == 2:
+        r = S[0][1]
+        det = 1.0 - r * r
+        if not det > _FAST_COND:
+            return None
+        inv = [[1.0 / det, -r / det], [-r / det, 1.0 / det]]
+    else:
+        a, b, c = S[0][1], S[0][2], S[1][2]
+        det = 1.0 + 2.0 * a * b * c - a * a - b * b - c * c
+        if not det > _FAST_COND:
+            return None
+        inv = [[(1.0 - c * c) / det, (b * c - a) / det, (a * c - b) / det],
+               [(b * c - a) / det, (1.0 - b * b) / det, (a * b - c) / det],
+               [(a * c - b) / det, (a * b - c) / det, (1.0 - a * a) / det]]
+    return [[inv[i][j] / (d[i] * d[j]) for j in range(p)] for i in range(p)]
+
+
+def _fast_package(m: _Moments, model: str, names: tuple[str, ...], beta: list[float], pred: np.ndarray,
+                  normal: list[list[float]], inputs: Mapping[str, Any]) -> FitResult | None:
+    """FitResult at the minimum: cov = s²·(JᵀWJ)⁻¹ from ``normal`` = JᵀWJ in the reported parameters, s² = RSS/(n−p)
+    (None when it is too close to singular, so the reference path can judge it)."""
+    if not all(map(math.isfinite, beta)):
+        return None
+    inv = _inverse_scaled(normal)
+    if inv is None:
+        return None
+    resid = m.a - pred
+    rss = float(m.wv @ (resid * resid))
+    s2 = rss / (m.a.size - len(names))
+    cov = np.array(inv) * s2
+    return _package(model, names, beta, cov, m.tau, m.a, resid, rss, inputs=inputs)
+
+
+def _fast_line(m: _Moments, inputs: Mapping[str, Any]) -> FitResult | None:
+    """Weighted straight line A = A0 + rate·τ from the moments (the zero-order law)."""
+    sw, swa, swt, swtt, swta = m.sums
+    try:
+        det = sw * swtt - swt * swt
+        if not det > _FAST_COND * sw * swtt:
+            return None
+        rate = (sw * swta - swt * swa) / det
+        a0 = (swtt * swa - swt * swta) / det
+    except (ZeroDivisionError, OverflowError):
+        return None
+    return _fast_package(m, "zero_order", ("A0", "rate"), [a0, rate], a0 + rate * m.tau,
+                         [[sw, swt], [swt, swtt]], inputs)
+
+
+def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) -> FitResult | None:
+    """The variable-projection fit of one law, or None to use the reference path."""
+    tau, a = m.tau, m.a
+    if model == "zero_order":
+        return _fast_line(m, inputs)
+    if model == "first_order_plateau":
+        c = math.nan
+        X = np.column_stack([np.ones_like(tau), tau, m.integral()])
+        try:
+            coef = np.linalg.solve(X.T @ X, X.T @ a)  # A = A0 + k·A_inf·τ − k·∫A dτ (the law, integrated)
+            c = -float(coef[2])
+        except np.linalg.LinAlgError:
+            pass
+        k0 = c if math.isfinite(c) and 0.05 < c * m.span < 200.0 else _plateau_start(tau, a)[2]
+        got = _fast_exponential(m, k0, None)
+        if got is None:
+            return None
+        k, a_inf, d, S = got
+        (se, _, ste, _, _), (see, _, stee, sttee, _) = S
+        sw = m.sw
+        # JᵀWJ in (A_inf, d, k) — columns 1, e, −d·τe: sums of positive terms — then carried to (A0, A_inf, k)
+        # with A0 = A_inf + d, an exact linear change of parameters: cov = T·C·Tᵀ.
+        inner = _inverse_scaled([[sw, se, -d * ste], [se, see, -d * stee], [-d * ste, -d * stee, d * d * sttee]])
+        if inner is None:
+            return None
+        (c11, c12, c13), (_, c22, c23), (_, _, c33) = inner
+        # rows/columns of the reported order A0 = A_inf + d, A_inf, k
+        T = [[c11 + 2 * c12 + c22, c11 + c12, c13 + c23], [c11 + c12, c11, c13], [c13 + c23, c13, c33]]
+        beta = [a_inf + d, a_inf, k]
+        if not all(map(math.isfinite, beta)):
+            return None
+        pred = a_inf + d * np.exp(m.ntau * k)
+        resid = m.a - pred
+        rss = float(m.wv @ (resid * resid))
+        cov = np.array(T) * (rss / (m.a.size - 3))
+        return _package(model, ("A0", "A_inf", "k"), beta, cov, m.tau, m.a, resid, rss, inputs=inputs)
+    integral_d = m.integral() - a_end * tau  # ∫(A − a_end) dτ
+    d = a - a_end
+    if model == "first_order":
+        _, slope = _line(integral_d, d)  # D = D0 − k·∫D dτ (the law, integrated)
+        k0 = -slope
+        if not (math.isfinite(k0) and k0 > 0):
+            k0 = _first_order_start(tau, d)
+        got = _fast_exponential(m, k0, a_end)
+        if got is None:
+            return None
+        k, _, d0, S = got
+        (_, _, _, _, _), (see, _, stee, sttee, _) = S
+        # J = [e, −d0·τe]
+        normal = [[see, -d0 * stee], [-d0 * stee, d0 * d0 * sttee]]
+        return _fast_package(m, model, ("A0", "k"), [a_end + d0, k], a_end + d0 * np.exp(m.ntau * k), normal,
+                             inputs)
+    if model == "second_order":
+        sign = _second_sign(d)
+        # D = D0 − (c/D0)·∫D² dτ (the law, integrated)
+        sq = d * d
+        integral_sq = np.concatenate(([0.0], np.cumsum(np.diff(tau) * (sq[1:] + sq[:-1]) * 0.5)))
+        d0_line, slope = _line(integral_sq, d)
+        c0 = -slope * d0_line
+        if not (math.isfinite(c0) and c0 > 0):
+            k_start, inv_d0 = _second_order_start(tau, d, sign)
+            c0 = k_start / inv_d0
+        got = _fast_second(m, c0, a_end)
+        if got is None:
+            return None
+        c, d0, S = got
+        k = c / (sign * d0)
+        u4w, _, u4wt, u4wtt, _ = S[3]
+        # J = [1/u², −sign·d0²·τ/u²]
+        f = -sign * d0 * d0
+        normal = [[u4w, f * u4wt], [f * u4wt, f * f * u4wtt]]
+        return _fast_package(m, model, ("A0", "k"), [a_end + d0, k], a_end + d0 / (1.0 + c * tau), normal, inputs)
+    return None
+
+
+def _first_order_start(tau: np.ndarray, d: np.ndarray) -> float:
+    """k from a straight line through ln|A − a_end| (the reference path's start)."""
+    good = d * np.sign(d[0] if d[0] != 0 else np.median(d)) > 0
+    k0 = 1.0 / float(tau[-1] - tau[0])
+    if good.sum() >= 2:
+        slope, _ = np.polyfit(tau[good], np.log(np.abs(d[good])), 1)
+        k0 = max(-slope, 1e-3 * k0) if np.isfinite(slope) else k0
+    return k0
+
+
+def _second_sign(d: np.ndarray) -> float:
+    return 1.0 if (d[0] if d[0] != 0 else np.median(d)) >= 0 else -1.0
+
+
+def _second_order_start(tau: np.ndarray, d: np.ndarray, sign: float) -> tuple[float, float]:
+    """(k, 1/|D0|) from a straight line through 1/|A − a_end| (the reference path's start)."""
+    good = d * sign > 0
+    k0, inv_d0 = 1.0 / (float(tau[-1] - tau[0]) * max(abs(d[0]), 1e-6)), 1.0 / max(abs(d[0]), 1e-6)
+    if good.sum() >= 2:
+        slope, icpt = np.polyfit(tau[good], 1.0 / np.abs(d[good]), 1)
+        if np.isfinite(slope) and slope > 0:
+            k0 = slope
+        if np.isfinite(icpt) and icpt > 0:
+            inv_d0 = icpt
+    return k0, inv_d0
+
+
 def _fit_one(
+    tau: np.ndarray, a: np.ndarray, model: str, a_end: float, inputs: Mapping[str, Any], w: np.ndarray | None,
+    moments: _Moments | None = None,
+) -> FitResult:
+    if model in MODELS:
+        fast = _fast_fit(moments if moments is not None else _Moments(tau, a, w), model, a_end, inputs)
+        if fast is not None:
+            return fast
+    return _fit_reference(tau, a, model, a_end, inputs, w)
+
+
+def _fit_reference(
     tau: np.ndarray, a: np.ndarray, model: str, a_end: float, inputs: Mapping[str, Any], w: np.ndarray | None
 ) -> FitResult:
     if model == "zero_order":
@@ -166,11 +526,7 @@ def _fit_one(
                             inputs=inputs, weights=w)
     d = a - a_end
     if model == "first_order":
-        good = d * np.sign(d[0] if d[0] != 0 else np.median(d)) > 0
-        k0 = 1.0 / float(tau[-1] - tau[0])
-        if good.sum() >= 2:
-            slope, _ = np.polyfit(tau[good], np.log(np.abs(d[good])), 1)
-            k0 = max(-slope, 1e-3 * k0) if np.isfinite(slope) else k0
+        k0 = _first_order_start(tau, d)
         # a simple line in log space gives the start; the fit itself is on absorbance
         def f(x: np.ndarray, a0: float, k: float) -> np.ndarray:
             return _first(x, a0, k, a_end=a_end)
@@ -182,15 +538,8 @@ def _fit_one(
         return nonlinear_lstsq(f, tau, a, (a[0], k0), ("A0", "k"), model=model, jac=jac, inputs=inputs, tol=_TOL,
                                weights=w)
     if model == "second_order":
-        sign = 1.0 if (d[0] if d[0] != 0 else np.median(d)) >= 0 else -1.0
-        good = d * sign > 0
-        k0, inv_d0 = 1.0 / (float(tau[-1] - tau[0]) * max(abs(d[0]), 1e-6)), 1.0 / max(abs(d[0]), 1e-6)
-        if good.sum() >= 2:
-            slope, icpt = np.polyfit(tau[good], 1.0 / np.abs(d[good]), 1)
-            if np.isfinite(slope) and slope > 0:
-                k0 = slope
-            if np.isfinite(icpt) and icpt > 0:
-                inv_d0 = icpt
+        sign = _second_sign(d)
+        k0, inv_d0 = _second_order_start(tau, d, sign)
 
         def f2(x: np.ndarray, a0: float, k: float) -> np.ndarray:
             d0 = a0 - a_end
@@ -241,12 +590,44 @@ def fit_model(
     """
     if model not in MODELS:
         raise InputError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
+    return _fit_prepared(_points(t, A, mask, t_start, weights), model, inputs, t_start, a_end)
+
+
+@dataclass
+class _Points:
+    """The checked points of a run, shared by every model fitted to it."""
+
+    t: Any
+    A: Any
+    weights: Any
+    keep: np.ndarray
+    tv: np.ndarray
+    av: np.ndarray
+    w: np.ndarray | None = None
+    checked: bool = False
+    moments: _Moments | None = None
+
+
+def _points(t: Any, A: Any, mask: Any, t_start: float | None, weights: Any) -> _Points:
+    tv, av, keep = _prepare(t, A, mask, t_start, 0, "fit")
+    return _Points(t, A, weights, keep, tv, av)
+
+
+def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_start: float | None,
+                  a_end: float) -> FitResult:
+    tv, av = p.tv, p.av
     k = 3 if model == "first_order_plateau" else 2
-    tv, av, keep = _prepare(t, A, mask, t_start, k + 2, model)
-    w = None
-    if weights is not None:
-        _, _, wall, _ = check_pairs(t, A, "time_s", "absorbance", weights=weights, mask=~keep)
-        w = wall[keep]
+    if tv.size < k + 2:
+        raise TooFewPoints(
+            f"{model}: {tv.size} usable points, need at least {k + 2}; record a longer run, a shorter interval, "
+            "or mask fewer points"
+        )
+    if not p.checked:  # the weights are checked after the count, as each model's own check did
+        if p.weights is not None:
+            _, _, wall, _ = check_pairs(p.t, p.A, "time_s", "absorbance", weights=p.weights, mask=~p.keep)
+            p.w = wall[p.keep]
+        p.checked = True
+    w = p.w
     if np.ptp(av) == 0:
         raise FitFailed(f"{model}: the absorbance does not change at all; check that the reaction started")
     if not math.isfinite(a_end):
@@ -257,7 +638,9 @@ def fit_model(
     if model in ("zero_order", "first_order", "second_order"):
         rec["a_end"] = a_end
     rec["weighted"] = w is not None
-    result = _fit_one(tv - t0, av, model, a_end, rec, w)
+    if p.moments is None:
+        p.moments = _Moments(tv - t0, av, w)
+    result = _fit_one(tv - t0, av, model, a_end, rec, w, p.moments)
     result.x = tv
     _half_life(result)
     return _finish(result, t0, {})
@@ -398,10 +781,12 @@ def fit_all(
     results: dict[str, FitResult] = {}
     failures: dict[str, str] = {}
     for model in models:
+        if model not in MODELS:
+            raise InputError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
+    points = _points(t, A, mask, t_start, weights)  # checked once, shared by every model
+    for model in models:
         try:
-            results[model] = fit_model(
-                t, A, model, mask=mask, inputs=inputs, t_start=t_start, a_end=a_end, weights=weights
-            )
+            results[model] = _fit_prepared(points, model, inputs, t_start, a_end)
         except InputError:
             raise
         except AnalysisError as exc:
