@@ -208,3 +208,60 @@ def test_half_life_and_ranking_unchanged_in_shape(no_reference):
     assert_allclose(hl_se, math.log(2) * best.se("k") / best.param("k") ** 2, rtol=1e-12)
     assert best.extra["runs_test"]["p_value"] is not None
     assert set(comparison.results) == set(kinetics.MODELS)
+
+
+# -- the read a fast analysis rests on ----------------------------------------------------------------------------
+
+def test_columnar_read_of_a_run_equals_the_row_read(store):
+    """``Store.run_sample_columns`` (group_concat text parsed by numpy) gives exactly the rows ``run_samples`` gives,
+    including a run across two boots whose reads and flags vary, and a run with no stop mark."""
+    from nightcell.store import Run
+
+    rng = np.random.default_rng(8)
+    rows = {"marks": [], "mark_counts": [], "samples": []}
+    rows["marks"].append(("dev", 1, 2, 0, "run_start", 0, 0, "a", ""))
+    for boot, first in ((1, 3), (2, 1)):
+        for i in range(300):
+            seq = first + i
+            reads = 16 if i % 7 else 8
+            rows["samples"].append(("dev", boot, seq, 0, 1000 * seq + int(rng.integers(0, 5)), 0,
+                                    int(i % 11 == 0), reads, 100 * reads + int(rng.integers(0, 30)),
+                                    int(rng.integers(500, 60000)), None))
+            rows["samples"].append(("dev", boot, seq, 1, 1000 * seq, 0, 0, reads, 1, 2, None))  # another channel
+    rows["marks"].append(("dev", 2, 400, 0, "run_stop", 0, 0, "", ""))
+    rows["samples"].append(("dev", 2, 401, 0, 401000, 0, 0, 16, 1, 2, None))  # after the stop
+    with store.write():
+        store.insert_rows(rows)
+    for run in (Run("dev", "a", 1, 2, 2, 400), Run("dev", "a", 1, 2, None, None), Run("dev", "a", 2, 100, 2, 150)):
+        cols = store.run_sample_columns(run)
+        expect = store.run_samples(run)
+        assert len(expect) == cols["seq"].size > 0
+        for name in ("boot", "seq", "uptime_ms", "flags", "reads", "dark", "light"):
+            assert cols[name].tolist() == [r[name] for r in expect], name
+    empty = store.run_sample_columns(Run("dev", "a", 3, 0, None, None))
+    assert empty["seq"].size == 0 and empty["clocks"] == {}
+
+
+def test_kept_mark_list_follows_changes_from_this_and_other_connections(store, tmp_path):
+    import sqlite3
+
+    from nightcell.analyse import _mark_before
+
+    def blank(boot, seq):
+        return {"marks": [("dev", boot, seq, 0, "blank", 0, 16, "water", "")],
+                "mark_counts": [("dev", boot, seq, 0, 1600, 50000)]}
+
+    with store.write():
+        store.insert_rows(blank(1, 5))
+    assert _mark_before(store, "dev", "blank", (1, 100))["seq"] == 5
+    assert _mark_before(store, "dev", "blank", (1, 5)) is None
+    with store.write():  # this connection adds a nearer blank
+        store.insert_rows(blank(1, 50))
+    assert _mark_before(store, "dev", "blank", (1, 100))["seq"] == 50
+    other = sqlite3.connect(store.path, isolation_level=None)  # another program adds a nearer one still
+    other.execute("INSERT INTO marks VALUES ('dev', 1, 70, 0, 'blank', 0, 16, 'water', '')")
+    other.execute("INSERT INTO mark_counts VALUES ('dev', 1, 70, 0, 1600, 50000)")
+    other.close()
+    assert _mark_before(store, "dev", "blank", (1, 100))["seq"] == 70
+    assert _mark_before(store, "dev", "blank", None)["seq"] == 70
+    assert _mark_before(store, "dev", "opaque", None) is None

@@ -22,6 +22,7 @@ Example::
 
 from __future__ import annotations
 
+import bisect
 import json
 import math
 import re
@@ -107,9 +108,6 @@ def _absorbance(light: Any, dark: Any, b: "BlankChoice") -> "_optics.OpticsResul
     return res
 
 
-_NO_END = 1 << 62  # beyond any boot or seq: "before" everything
-
-
 def _with_counts(store: Store, mark: dict[str, Any] | None) -> dict[str, Any] | None:
     """A marks row with its per-channel counts as lists ``dark`` and ``light`` (the shape ``Store.marks`` gives)."""
     if mark is None:
@@ -125,11 +123,15 @@ def _with_counts(store: Store, mark: dict[str, Any] | None) -> dict[str, Any] | 
 def _mark_before(store: Store, device: str, kind: str, before: tuple[int, int] | None) -> dict[str, Any] | None:
     """The last ``kind`` mark of a device before (boot, seq) ``before`` (the last of all when None), or None.
 
-    One indexed query, so finding a run's blank does not read every mark of a database that holds many runs.
+    From the store's list of that kind's marks (read once while the database is unchanged), so finding the blank
+    of each run in a database of many runs does not read every earlier mark each time.
     """
-    b, q = (_NO_END, _NO_END) if before is None else (int(before[0]), int(before[1]))
-    rows = store.query("SELECT * FROM marks WHERE device = ? AND mark = ? AND (boot, seq) < (?, ?) "
-                       "ORDER BY boot DESC, seq DESC LIMIT 1", (device, kind, b, q))
+    keys = store.mark_keys(device, kind)
+    i = len(keys) if before is None else bisect.bisect_left(keys, (int(before[0]), int(before[1])))
+    if i == 0:
+        return None
+    boot, seq = keys[i - 1]
+    rows = store.query("SELECT * FROM marks WHERE device = ? AND boot = ? AND seq = ?", (device, boot, seq))
     return _with_counts(store, rows[0] if rows else None)
 
 

@@ -109,6 +109,18 @@ class Run:
         }
 
 
+_SAMPLE_COLUMNS = ("boot", "seq", "uptime_ms", "flags", "reads", "dark", "light")
+
+
+def _int_column(text: str, n: int, run: Run) -> np.ndarray:
+    """``n`` integers from SQLite's comma-separated group_concat text."""
+    col = np.fromstring(text, dtype=np.int64, sep=",")
+    if col.size != n:
+        raise StoreError(f"run {run.key}: a sample column did not read back whole; check the database with "
+                         "`sqlite3 DB 'PRAGMA integrity_check'`")
+    return col
+
+
 class Store:
     """One nightcell database file."""
 
@@ -444,23 +456,44 @@ class Store:
         Returns ``boot``, ``seq``, ``uptime_ms``, ``flags``, ``reads``, ``dark``, ``light`` (int64 arrays, one entry per
         sample; the same rows as ``run_samples``) and ``clocks``: ``{boot: (unix_at_zero, rate, quality)}`` for the
         boots that have a clock. Made for the analysis of many runs: one range scan of the samples' primary key,
-        each column read as one text (SQLite writes the digits; numpy parses them), with no per-row Python objects.
+        each column read as one text (SQLite writes the digits; numpy parses them), with no per-row Python objects;
+        boot, reads and flags, the same for every sample of most runs, are read as text only when they vary. The
+        range scan meets rows in key order; the order is checked, and restored if it ever were not.
         """
         stop = (run.stop_boot, run.stop_seq) if run.stop_boot is not None else (_NO_END, _NO_END)
-        row = self.conn.execute(
-            "SELECT count(*), group_concat(boot), group_concat(seq), group_concat(uptime_ms), group_concat(flags), "
-            "group_concat(reads), group_concat(dark), group_concat(light) FROM (SELECT * FROM samples "
-            "WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?) ORDER BY boot, seq)",
-            (run.device, channel, run.start_boot, run.start_seq, *stop)).fetchone()
-        names = ("boot", "seq", "uptime_ms", "flags", "reads", "dark", "light")
+        key = (run.device, channel, run.start_boot, run.start_seq, *stop)
+        if run.stop_boot == run.start_boot:  # a run within one boot: plain bounds on seq scan a little faster
+            row = self.conn.execute(
+                "SELECT count(*), min(boot), max(boot), min(reads), max(reads), min(flags), max(flags), "
+                "group_concat(seq), group_concat(uptime_ms), group_concat(dark), group_concat(light) FROM samples "
+                "WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?",
+                (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)).fetchone()
+        else:
+            row = self.conn.execute(
+                "SELECT count(*), min(boot), max(boot), min(reads), max(reads), min(flags), max(flags), "
+                "group_concat(seq), group_concat(uptime_ms), group_concat(dark), group_concat(light) FROM samples "
+                "WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?)", key).fetchone()
         n = int(row[0])
         if n == 0:
-            cols = {name: np.zeros(0, dtype=np.int64) for name in names}
+            cols = {name: np.zeros(0, dtype=np.int64) for name in _SAMPLE_COLUMNS}
         else:
-            cols = {name: np.fromstring(text, dtype=np.int64, sep=",") for name, text in zip(names, row[1:])}
-            if any(c.size != n for c in cols.values()):
-                raise StoreError(f"run {run.key}: a sample column did not read back whole; check the database with "
-                                 "`sqlite3 DB 'PRAGMA integrity_check'`")
+            both = np.fromstring(",".join(row[7:]), dtype=np.int64, sep=",")  # one parse for the four texts
+            if both.size != 4 * n:
+                raise StoreError(f"run {run.key}: a sample column did not read back whole; check the database "
+                                 "with `sqlite3 DB 'PRAGMA integrity_check'`")
+            cols = dict(zip(("seq", "uptime_ms", "dark", "light"), both.reshape(4, n)))
+            if row[1] == row[2] and row[3] == row[4] and row[5] == row[6]:
+                for name, value in (("boot", row[1]), ("reads", row[3]), ("flags", row[5])):
+                    cols[name] = np.full(n, value, dtype=np.int64)
+            else:
+                more = self.conn.execute(
+                    "SELECT group_concat(seq), group_concat(boot), group_concat(reads), group_concat(flags) FROM "
+                    "samples WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?)",
+                    key).fetchone()
+                if not np.array_equal(_int_column(more[0], n, run), cols["seq"]):
+                    raise StoreError(f"run {run.key}: its samples changed while they were read; read it again")
+                for name, text in zip(("boot", "reads", "flags"), more[1:]):
+                    cols[name] = _int_column(text, n, run)
             key_b, key_s = cols["boot"], cols["seq"]
             if np.any((key_b[1:] < key_b[:-1]) | ((key_b[1:] == key_b[:-1]) & (key_s[1:] <= key_s[:-1]))):
                 # SQLite does not promise the order in which group_concat meets rows; put them in order if it moved
@@ -471,6 +504,23 @@ class Store:
             (run.device, run.start_boot, stop[0]))}
         cols["clocks"] = clocks
         return cols
+
+    def mark_keys(self, device: str, mark: str) -> list[tuple[int, int]]:
+        """(boot, seq) of every mark of one kind (``"blank"``, ``"opaque"``...) of a device, in journal order.
+
+        The marks table has no index by kind, so finding "the blank before this run" would read every earlier mark;
+        this list is read once and kept while the database is unchanged (SQLite's ``data_version`` for commits by
+        other connections, this connection's ``total_changes`` for its own), so analysing many runs reads it once.
+        """
+        state = (self.conn.execute("PRAGMA data_version").fetchone()[0], self.conn.total_changes)
+        cache = self.__dict__.setdefault("_mark_keys", {})
+        hit = cache.get((device, mark))
+        if hit is not None and hit[0] == state:
+            return hit[1]
+        keys = self.conn.execute("SELECT boot, seq FROM marks WHERE device = ? AND mark = ? ORDER BY boot, seq",
+                                 (device, mark)).fetchall()
+        cache[(device, mark)] = (state, keys)
+        return keys
 
     def save_result(self, kind: str, label: str, inputs: dict[str, Any], result: dict[str, Any]) -> int:
         """Store a derived result with its inputs; returns its id."""
