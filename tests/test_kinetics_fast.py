@@ -265,3 +265,22 @@ def test_kept_mark_list_follows_changes_from_this_and_other_connections(store, t
     assert _mark_before(store, "dev", "blank", (1, 100))["seq"] == 70
     assert _mark_before(store, "dev", "blank", None)["seq"] == 70
     assert _mark_before(store, "dev", "opaque", None) is None
+
+
+def test_results_of_many_runs_can_share_one_transaction(store):
+    import json
+    import sqlite3
+
+    first = store.save_result("rate", "alone", {"run": "a"}, {"k": 1.5})  # committed on its own
+    with store.write():
+        ids = [store.save_result("rate", f"batch {i}", {"run": str(i)}, {"k": float(i)}) for i in range(3)]
+    assert ids == [first + 1, first + 2, first + 3]
+    with pytest.raises(RuntimeError):
+        with store.write():
+            store.save_result("rate", "rolled back", {}, {"k": 0.0})
+            raise RuntimeError("analysis failed half-way")
+    other = sqlite3.connect(store.path)  # what another program sees: the committed rows, none of the rolled back
+    rows = other.execute("SELECT label, inputs_json, result_json FROM results ORDER BY id").fetchall()
+    other.close()
+    assert [r[0] for r in rows] == ["alone", "batch 0", "batch 1", "batch 2"]
+    assert json.loads(rows[1][1]) == {"run": "0"} and json.loads(rows[3][2]) == {"k": 2.0}

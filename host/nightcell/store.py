@@ -45,6 +45,7 @@ from .timeline import unwrap_uptimes
 __all__ = ["Store", "migration_files", "Run"]
 
 BUSY_TIMEOUT_S = 30.0
+_COMPACT = (",", ":")  # JSON of stored results without the padding spaces
 _NO_END = 1 << 62  # beyond any boot or seq: the upper bound of a run that has no stop mark
 MIGRATION_SET = "nightcell"
 
@@ -523,12 +524,21 @@ class Store:
         return keys
 
     def save_result(self, kind: str, label: str, inputs: dict[str, Any], result: dict[str, Any]) -> int:
-        """Store a derived result with its inputs; returns its id."""
+        """Store a derived result with its inputs; returns its id.
+
+        Inside a caller's ``write()`` transaction the row joins it, so the results of many runs can be committed
+        (and synced to disk) once; otherwise the result is committed on its own.
+        """
+        if self.conn.in_transaction:
+            return self._insert_result(kind, label, inputs, result)
         with self.write():
-            cur = self.conn.execute(
-                "INSERT INTO results(kind, label, created_unix, nightcell_version, inputs_json, result_json) "
-                "VALUES (?,?,?,?,?,?)",
-                (kind, label, time.time(), __version__, json.dumps(inputs, sort_keys=True),
-                 json.dumps(result, sort_keys=True)),
-            )
-            return int(cur.lastrowid)
+            return self._insert_result(kind, label, inputs, result)
+
+    def _insert_result(self, kind: str, label: str, inputs: dict[str, Any], result: dict[str, Any]) -> int:
+        cur = self.conn.execute(
+            "INSERT INTO results(kind, label, created_unix, nightcell_version, inputs_json, result_json) "
+            "VALUES (?,?,?,?,?,?)",
+            (kind, label, time.time(), __version__, json.dumps(inputs, sort_keys=True, separators=_COMPACT),
+             json.dumps(result, sort_keys=True, separators=_COMPACT)),
+        )
+        return int(cur.lastrowid)
