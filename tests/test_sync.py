@@ -6,6 +6,7 @@ row for row; the rules checked are those of issue 4 (resumable, idempotent, ackn
 
 import os
 import random
+import re
 import signal
 import subprocess
 import sys
@@ -14,7 +15,7 @@ import time
 
 import pytest
 
-from nightcell.errors import DeviceTimeout
+from nightcell.errors import DeviceTimeout, NightcellError
 from nightcell.link import Board
 from nightcell.simulate import (Fault, SimulatedBoard, fill_journal, random_faults, raw_rows,
                                 run_fault_schedule)
@@ -88,6 +89,59 @@ def test_garbage_and_damaged_frames_are_skipped_within_one_sync(journal, board_s
     out = run_fault_schedule(board_sim, journal["image"], faults, tmp_path / "c.db", timeout=0.5)
     assert out["first_error"] is None and out["injected"] == len(faults)
     assert raw_rows(tmp_path / "c.db", before_boot=out["before_boot"]) == journal["rows"]
+
+
+def _one_bit_larger(digits: bytes) -> bytes:
+    """The decimal position with one bit flipped so that it names a later position (the harmful direction: the board
+    would trim what the host has not stored)."""
+    for i, d in enumerate(digits):
+        ups = [d ^ (1 << b) for b in range(8) if 0x30 <= d ^ (1 << b) <= 0x39 and d ^ (1 << b) > d]
+        if ups:
+            return digits[:i] + bytes([max(ups)]) + digits[i + 1:]
+    raise AssertionError(f"no one-bit change of {digits!r} is larger")
+
+
+def test_a_flipped_digit_in_an_ack_is_refused_and_nothing_unacknowledged_is_trimmed(journal, board_sim, tmp_path):
+    """Line noise on a request: one bit of the first ``ack``'s position flipped, to a later position, on the way to
+    the board, and the cable lost just after (so no retry can mend it). The board refuses the damaged request (its
+    check no longer matches: test_fw_sim shows the refusal itself); here the whole sync is checked: the board's
+    journal still starts at or before what the host stored, and finishing the sync gives the fault-free rows.
+    (The host reads ahead of what it acknowledges, so this flip alone would not have lost rows even unchecked; the
+    check is what guarantees it when the acknowledged position is the last stored one.)"""
+    board_sim.restore_flash(journal["image"])
+    flipped: list[tuple[bytes, bytes]] = []
+
+    def flip_first_ack_then_cut(direction: str, data: bytes) -> bytes:
+        if direction != "to_board":
+            return data
+        if flipped:
+            return b""  # the cable is gone: nothing more reaches the board
+        m = re.search(rb" ack (\d+) ", data)
+        if m is None:
+            return data
+        noisy = _one_bit_larger(m.group(1))
+        flipped.append((m.group(1), noisy))
+        return data[:m.start(1)] + noisy + data[m.end(1):]
+
+    db = tmp_path / "flip.db"
+    with Store.open(db) as store, Board.open(board_sim.url, timeout=0.3) as board:
+        board.retries = 1
+        info = board.hello(timeout=5.0)
+        board_sim.relay.fault = flip_first_ack_then_cut
+        with pytest.raises(NightcellError):
+            sync_board(board, store, batch_bytes=2048)
+        board_sim.relay.fault = None
+        time.sleep(0.05)
+        board.transport.discard_input()
+        tail = int(board.hello()["tail"])
+        stored_to, _ = store.journal_state(board_sim.device, int(info["journal"]))
+        assert flipped and int(flipped[0][1]) > int(flipped[0][0]), f"no ack flipped to a later position: {flipped}"
+        assert tail <= stored_to, f"the board trimmed to {tail}, past the {stored_to} bytes the host stored"
+        sync_board(board, store, batch_bytes=2048)
+        final = board.hello()
+        stored_to, acked_to = store.journal_state(board_sim.device, int(final["journal"]))
+    assert raw_rows(db, before_boot=int(info["boot"])) == journal["rows"]
+    assert int(final["tail"]) <= acked_to == stored_to
 
 
 @pytest.mark.slow

@@ -89,12 +89,12 @@ def random_faults(rng: random.Random, *, to_host_bytes: int, to_board_bytes: int
                   max_seconds: float = 0.6) -> list[Fault]:
     """A random fault schedule over the first bytes of each direction.
 
-    ``board_kinds`` limits the faults on requests (host → board). By default a bit flip is not injected there: a
-    request line carries no checksum in protocol v1, so a flipped digit in ``ack`` could name a later position;
-    see schema/protocol.md.
+    ``board_kinds`` limits the faults on requests (host → board); by default every kind, bit flips included: the
+    two requests whose value the board keeps (``ack`` and ``anchor``) carry a check, and the board refuses one
+    that does not match (schema/protocol.md).
     """
     if board_kinds is None:
-        board_kinds = [k for k in kinds if k != "flip"]
+        board_kinds = list(kinds)
     out = []
     for _ in range(count):
         to_host = not board_kinds or rng.random() < 0.75

@@ -3,8 +3,8 @@
 After each schedule the database must equal, row for row, a fault-free sync of the same journal (the same saved
 flash), hold 0 corrupt rows (rows the journal does not have), and the board must not have trimmed anything beyond
 what this host acknowledged (its tail <= the acknowledged position, and no stored row missing). Faults: drop, bit flip,
-truncate, duplicate, delay, disconnect-and-reconnect, stray traceback; requests (host -> board) get all but the bit
-flip: protocol v1 requests carry no checksum, so a flipped digit in `ack` could name a later position.
+truncate, duplicate, delay, disconnect-and-reconnect, stray traceback, on replies (board -> host) and on requests
+(host -> board) alike; a flipped digit in `ack` or `anchor` is caught by the check those requests carry.
 
     python tests/bench/bench_sync_faults.py [--quick]      (>= 500 schedules; --quick runs 40)
 """
@@ -60,7 +60,7 @@ def run(quick: bool = False, schedules: int | None = None, seed: int = 2024) -> 
             for i in range(n):
                 faults = random_faults(rng, to_host_bytes=11_000, to_board_bytes=400, count=rng.randint(1, 5),
                                        max_seconds=0.4)
-                kinds.update(f.kind for f in faults)
+                kinds.update(f.kind + (" on a request" if f.direction == "to_board" else "") for f in faults)
                 db = root / f"s{i}.db"
                 try:
                     out = run_fault_schedule(sim, image, faults, db, timeout=0.3)
