@@ -95,15 +95,16 @@ def _prepare(
 def _finish(result: FitResult, t0: float, model_inputs: Mapping[str, Any]) -> FitResult:
     result.extra["time_origin_s"] = t0
     result.extra["runs_test"] = runs_test(result.residuals)
-    result.inputs.update(jsonable(dict(model_inputs)))
+    if model_inputs:
+        result.inputs.update(jsonable(dict(model_inputs)))
     return result
 
 
 def _half_life(result: FitResult) -> None:
     """Add half_life_s and half_life_se_s (delta method) to ``result.extra`` where the model defines one."""
-    v, c, names = result.values, result.cov_matrix, result.names
+    v, c, names = result.values, result.cov, result.names
     a_end = result.inputs.get("a_end", 0.0)
-    grad = np.zeros(len(names))
+    grad = [0.0] * len(names)
     if result.model in ("first_order", "first_order_plateau"):
         k = v["k"]
         value = _LN2 / k
@@ -121,7 +122,8 @@ def _half_life(result: FitResult) -> None:
     else:
         return
     result.extra["half_life_s"] = value
-    result.extra["half_life_se_s"] = math.sqrt(max(float(grad @ c @ grad), 0.0))
+    var = sum(gi * cij * gj for gi, row in zip(grad, c) for cij, gj in zip(row, grad))  # gradᵀ·cov·grad
+    result.extra["half_life_se_s"] = math.sqrt(max(var, 0.0))
 
 
 def half_life(result: FitResult) -> tuple[float, float]:
@@ -188,15 +190,21 @@ _FAST_COND = 1e-10  # smallest determinant of the unit-diagonal JᵀWJ the fast 
 
 
 class _Moments:
-    """Per-fit arrays shared by the models: τ, A, weights and the moment matrix [w, wA, wτ, wτ², wτA]."""
+    """Per-fit arrays shared by the models: τ, A, weights and the moment matrix [w, wA, wτ, wτ², wτA, wτ²A]."""
 
     def __init__(self, tau: np.ndarray, a: np.ndarray, w: np.ndarray | None):
         self.tau, self.a, self.w = tau, a, w
         wv = np.ones_like(tau) if w is None else w
         self.wv = wv
-        wt = wv * tau
-        self.M = np.column_stack([wv, wv * a, wt, wt * tau, wt * a])
-        self.sums = self.M.sum(axis=0).tolist()  # Σw, ΣwA, Σwτ, Σwτ², ΣwτA
+        rows = np.empty((6, tau.size))  # filled row by row (contiguous); used as its n×6 transpose
+        rows[0] = wv
+        np.multiply(wv, a, out=rows[1])
+        np.multiply(wv, tau, out=rows[2])
+        np.multiply(rows[2], tau, out=rows[3])
+        np.multiply(rows[2], a, out=rows[4])
+        np.multiply(rows[3], a, out=rows[5])
+        self.M = rows.T
+        self.sums = rows.sum(axis=1).tolist()  # Σw, ΣwA, Σwτ, Σwτ², ΣwτA, Σwτ²A
         self.sw, self.swa = self.sums[0], self.sums[1]
         self.sum_waa = float(wv @ (a * a))
         self.span = float(tau[-1]) if tau[-1] > 0 else 1.0
@@ -225,21 +233,16 @@ def _line(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
 def _search(step_at: Any, theta: float, valid: Any, slack: float) -> tuple[float, tuple] | None:
     """Minimise the reduced RSS over one parameter θ. None if it fails.
 
-    ``step_at(θ)`` gives (rss, Gauss–Newton step, state, slope) where slope is a multiple of d(rss)/dθ that keeps its
-    scale along the search. The first step is Gauss–Newton; later ones are secant steps on the slope (superlinear
-    where Gauss–Newton is only linear: the models that fit badly) whenever the slope rose with θ as it must near a
-    minimum. A step is halved until the RSS does not rise by more than ``slack`` (the rounding of its formula).
+    ``step_at(θ)`` gives (rss, step, state): the Newton step on the reduced RSS (its exact first and second
+    derivatives, which variable projection gives in closed form), or the Gauss–Newton step where the second
+    derivative is not positive. A step is halved until the RSS does not rise by more than ``slack`` (the rounding
+    of its formula).
     """
     got = step_at(theta)
     if got is None:
         return None
-    rss, step, state, slope = got
-    prev: tuple[float, float] | None = None
+    rss, step, state = got
     for _ in range(_FAST_MAX_ITER):
-        if prev is not None and theta != prev[0]:
-            curv = (slope - prev[1]) / (theta - prev[0])
-            if curv > 0 and math.isfinite(curv):
-                step = -slope / curv
         if not math.isfinite(step):
             return None
         if abs(step) <= _FAST_XTOL * abs(theta):
@@ -254,9 +257,8 @@ def _search(step_at: Any, theta: float, valid: Any, slack: float) -> tuple[float
         else:
             # no step lowers the RSS: at the minimum to rounding if the step asked for was already tiny
             return (theta, state) if first <= 1e-6 * abs(theta) else None
-        prev = (theta, slope)
         theta = new
-        rss, step, state, slope = got
+        rss, step, state = got
     return None
 
 
@@ -268,12 +270,15 @@ def _fast_exponential(m: _Moments, k0: float, a_end: float | None) -> tuple[floa
     plateau = a_end is None
     yy = m.sum_waa if plateau else m.sum_waa - 2.0 * a_end * swa + a_end * a_end * sw
 
-    def step_at(k: float) -> tuple[float, float, tuple, float] | None:
+    def step_at(k: float) -> tuple[float, float, tuple] | None:
         np.multiply(m.ntau, k, out=E[0])
         np.exp(E[0], out=E[0])
         np.multiply(E[0], E[0], out=E[1])
-        S = (E @ m.M).tolist()  # rows e, e²; columns w, wA, wτ, wτ², wτA
-        (se, sea, ste, _, sta), (see, _, stee, sttee, _) = S
+        S = (E @ m.M).tolist()  # rows e, e²; columns w, wA, wτ, wτ², wτA, wτ²A
+        (se, sea, ste, stte, sta, stta), (see, _, stee, sttee, _, _) = S
+        # The model is c0 + d·e with e = exp(−kτ); ∂/∂k of e is −τe, ∂²/∂k² is τ²e. With r the residual and
+        # g = Σw·τe·r, the reduced RSS has slope 2·d·g; its second derivative is 2·h with h below (variable
+        # projection: the linear parameters follow k, dc/dk from differentiating their normal equations).
         try:
             if plateau:
                 det = sw * see - se * se
@@ -281,11 +286,13 @@ def _fast_exponential(m: _Moments, k0: float, a_end: float | None) -> tuple[floa
                     return None
                 d = (sw * sea - se * swa) / det
                 c0 = (see * swa - se * sea) / det
-                # Σw·r² from the sums (r = A − c0 − d·e); only used to compare steps
-                rss = yy - c0 * swa - d * sea
-                # Σw·τe·r, and τe with its part in span{1, e} projected out
+                rss = yy - c0 * swa - d * sea  # Σw·r² from the sums; only used to compare steps
                 g = sta - c0 * ste - d * stee
-                perp = sttee - (ste * (see * ste - se * stee) + stee * (sw * stee - se * ste)) / det
+                rhs0, rhs1 = d * ste, d * stee - g
+                dc0 = (see * rhs0 - se * rhs1) / det
+                dd = (sw * rhs1 - se * rhs0) / det
+                h = (d * d * sttee - d * (dc0 * ste + dd * stee) - d * (stta - c0 * stte - d * sttee) + dd * g)
+                gn = d * d * (sttee - (ste * (see * ste - se * stee) + stee * (sw * stee - se * ste)) / det)
             else:
                 if not see > 0:
                     return None
@@ -294,11 +301,15 @@ def _fast_exponential(m: _Moments, k0: float, a_end: float | None) -> tuple[floa
                 c0 = a_end
                 rss = yy - d * sey
                 g = (sta - a_end * ste) - d * stee
-                perp = sttee - stee * stee / see
-            if not (perp > 0 and d != 0):
-                return None
-            # model c0 + d·e, derivative in k: −d·τe; Gauss–Newton step = (vᵀWr)/(v⊥ᵀWv⊥) with v = −d·τe
-            return rss, -g / (d * perp), (c0, d, S), d * g
+                dd = (d * stee - g) / see
+                h = d * d * sttee - d * dd * stee - d * ((stta - a_end * stte) - d * sttee) + dd * g
+                gn = d * d * (sttee - stee * stee / see)
+            slope = d * g
+            if h > 0:
+                return rss, -slope / h, (c0, d, S)
+            if gn > 0:
+                return rss, -slope / gn, (c0, d, S)
+            return None
         except (ZeroDivisionError, OverflowError):
             return None
 
@@ -316,14 +327,16 @@ def _fast_second(m: _Moments, c_start: float, a_end: float) -> tuple[float, floa
     yy = m.sum_waa - 2.0 * a_end * swa + a_end * a_end * sw
     tmax = m.span
 
-    def step_at(c: float) -> tuple[float, float, tuple, float] | None:
+    def step_at(c: float) -> tuple[float, float, tuple] | None:
         np.multiply(m.tau, c, out=U[0])
         U[0] += 1.0
         np.reciprocal(U[0], out=U[0])
         np.multiply(U[0], U[0], out=U[1])
         np.multiply(U[1], U[0], out=U[2])
         np.multiply(U[1], U[1], out=U[3])
-        S = (U @ m.M).tolist()  # rows 1/u, 1/u², 1/u³, 1/u⁴; columns w, wA, wτ, wτ², wτA
+        S = (U @ m.M).tolist()  # rows 1/u, 1/u², 1/u³, 1/u⁴; columns w, wA, wτ, wτ², wτA, wτ²A
+        # The model is d0·b with b = 1/u; ∂b/∂c = −τ/u², ∂²b/∂c² = 2τ²/u³. With g = Σw·(τ/u²)·r the reduced RSS
+        # has slope 2·d0·g and second derivative 2·h (variable projection, as for the exponential laws).
         try:
             sbb = S[1][0]
             if not sbb > 0:
@@ -331,13 +344,18 @@ def _fast_second(m: _Moments, c_start: float, a_end: float) -> tuple[float, floa
             sby = S[0][1] - a_end * S[0][0]
             d0 = sby / sbb
             rss = yy - d0 * sby
-            # derivative of b = 1/u in c: −τ/u²; Σw·(τ/u²)·r, Σw·b·(τ/u²), Σw·(τ/u²)²
             g = (S[1][4] - a_end * S[1][2]) - d0 * S[2][2]
             sbd = S[2][2]
-            perp = S[3][3] - sbd * sbd / sbb
-            if not (perp > 0 and d0 != 0):
-                return None
-            return rss, -g / (d0 * perp), (d0, S), d0 * g
+            sdd = S[3][3]
+            dd = (d0 * sbd - g) / sbb
+            h = d0 * d0 * sdd - dd * d0 * sbd - 2.0 * d0 * ((S[2][5] - a_end * S[2][3]) - d0 * sdd) + dd * g
+            gn = d0 * d0 * (sdd - sbd * sbd / sbb)
+            slope = d0 * g
+            if h > 0:
+                return rss, -slope / h, (d0, S)
+            if gn > 0:
+                return rss, -slope / gn, (d0, S)
+            return None
         except (ZeroDivisionError, OverflowError):
             return None
 
@@ -392,7 +410,7 @@ def _fast_package(m: _Moments, model: str, names: tuple[str, ...], beta: list[fl
 
 def _fast_line(m: _Moments, inputs: Mapping[str, Any]) -> FitResult | None:
     """Weighted straight line A = A0 + rate·τ from the moments (the zero-order law)."""
-    sw, swa, swt, swtt, swta = m.sums
+    sw, swa, swt, swtt, swta, _ = m.sums
     try:
         det = sw * swtt - swt * swt
         if not det > _FAST_COND * sw * swtt:
@@ -423,7 +441,7 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
         if got is None:
             return None
         k, a_inf, d, S = got
-        (se, _, ste, _, _), (see, _, stee, sttee, _) = S
+        (se, _, ste, _, _, _), (see, _, stee, sttee, _, _) = S
         sw = m.sw
         # JᵀWJ in (A_inf, d, k) — columns 1, e, −d·τe: sums of positive terms — then carried to (A0, A_inf, k)
         # with A0 = A_inf + d, an exact linear change of parameters: cov = T·C·Tᵀ.
@@ -452,7 +470,7 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
         if got is None:
             return None
         k, _, d0, S = got
-        (_, _, _, _, _), (see, _, stee, sttee, _) = S
+        see, _, stee, sttee, _, _ = S[1]
         # J = [e, −d0·τe]
         normal = [[see, -d0 * stee], [-d0 * stee, d0 * d0 * sttee]]
         return _fast_package(m, model, ("A0", "k"), [a_end + d0, k], a_end + d0 * np.exp(m.ntau * k), normal,
@@ -472,7 +490,7 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
             return None
         c, d0, S = got
         k = c / (sign * d0)
-        u4w, _, u4wt, u4wtt, _ = S[3]
+        u4w, _, u4wt, u4wtt, _, _ = S[3]
         # J = [1/u², −sign·d0²·τ/u²]
         f = -sign * d0 * d0
         normal = [[u4w, f * u4wt], [f * u4wt, f * f * u4wtt]]
@@ -605,6 +623,7 @@ class _Points:
     av: np.ndarray
     w: np.ndarray | None = None
     checked: bool = False
+    flat: bool | None = None
     moments: _Moments | None = None
 
 
@@ -628,7 +647,9 @@ def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_st
             p.w = wall[p.keep]
         p.checked = True
     w = p.w
-    if np.ptp(av) == 0:
+    if p.flat is None:
+        p.flat = bool(av.max() == av.min())
+    if p.flat:
         raise FitFailed(f"{model}: the absorbance does not change at all; check that the reaction started")
     if not math.isfinite(a_end):
         raise InputError("a_end must be a finite absorbance (0 when only the followed species absorbs)")
@@ -640,7 +661,7 @@ def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_st
     rec["weighted"] = w is not None
     if p.moments is None:
         p.moments = _Moments(tv - t0, av, w)
-    result = _fit_one(tv - t0, av, model, a_end, rec, w, p.moments)
+    result = _fit_one(p.moments.tau, av, model, a_end, rec, w, p.moments)
     result.x = tv
     _half_life(result)
     return _finish(result, t0, {})
