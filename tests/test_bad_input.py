@@ -100,22 +100,34 @@ def make_db(path: Path, **kwargs: Any) -> Path:
 
 
 def snapshot(path: Path) -> dict[str, tuple[int, str]]:
-    """(row count, sha256 of every row in order) per table; {} when the file is not a readable database."""
+    """What must not change: for a SQLite file, (row count, sha256 of every row) per table, its schema, the result of
+    an integrity check and the header's first 24 bytes (format, page size, and the journal-mode bytes a WAL switch
+    would rewrite); for any other file, every byte.
+
+    The page layout of a SQLite file is not compared: SQLite may rewrite it with no change of content (a checkpoint
+    folding in a write-ahead log, which truncates the file to its last page). A file SQLite cannot read is compared
+    byte for byte — a damaged or foreign file must be left exactly as it was.
+    """
     if not path.is_file():
         return {"<no file>": (0, "")}
     raw = path.read_bytes()
-    out: dict[str, tuple[int, str]] = {"<file bytes>": (len(raw), hashlib.sha256(raw).hexdigest())}
+    whole = {"<file bytes>": (len(raw), hashlib.sha256(raw).hexdigest())}
+    if not raw.startswith(b"SQLite format 3\x00"):
+        return whole
+    out: dict[str, tuple[int, str]] = {"<header 0-23>": (24, raw[:24].hex())}
     try:
         con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
         try:
-            names = [r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")]
-            for name in names:
+            schema = sorted(con.execute("SELECT type, name, tbl_name, sql FROM sqlite_master").fetchall(), key=repr)
+            out["<schema>"] = (len(schema), hashlib.sha256(repr(schema).encode()).hexdigest())
+            out["<integrity>"] = (0, con.execute("PRAGMA integrity_check").fetchone()[0])
+            for name in sorted(r[1] for r in schema if r[0] == "table"):
                 rows = sorted(con.execute(f'SELECT * FROM "{name}"').fetchall(), key=repr)
                 out[name] = (len(rows), hashlib.sha256(repr(rows).encode()).hexdigest())
         finally:
             con.close()
     except sqlite3.DatabaseError:
-        pass
+        return whole  # truncated or damaged: every byte must stay
     return out
 
 
