@@ -284,7 +284,7 @@ def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] 
     flags = res.flags.copy()
     flags |= np.where(cols["flags"] & 1, _optics.FLAG_SATURATED, 0)
     boot_col = cols["boot"]
-    boots = sorted(int(v) for v in np.unique(boot_col))
+    boots = _boots_of(boot_col)
     if len(boots) > 1:
         how = (f"the board resumed it by itself at {', '.join('%d:%d' % k for k in bounds['resumed'])}"
                if bounds["resumed"] else "no resume mark was found")
@@ -315,8 +315,15 @@ def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] 
     t = t - t[0]
     return {"time_s": t, "absorbance": res.absorbance, "flags": flags, "blank": b, "time_basis": basis,
             "seqs": list(zip(boot_col.tolist(), seq_col.tolist())), "warnings": warnings,
-            "boots": sorted(int(v) for v in np.unique(boot_col)), "resumed": bounds["resumed"],
+            "boots": boots if keep is None else _boots_of(boot_col), "resumed": bounds["resumed"],
             "end_rule": bounds["rule"]}
+
+
+def _boots_of(boot_col: np.ndarray) -> list[int]:
+    """The distinct boots of a run's samples, in order (most runs have one)."""
+    if boot_col.size and boot_col[0] == boot_col[-1] and (boot_col == boot_col[0]).all():
+        return [int(boot_col[0])]
+    return sorted(int(v) for v in np.unique(boot_col))
 
 
 def _wall_clock(boot: np.ndarray, uptime_ms: np.ndarray, boots: list[int],
