@@ -174,14 +174,16 @@ def _plateau_start(tau: np.ndarray, a: np.ndarray) -> tuple[float, float, float]
 #   first_order          A − a_end = d0·e^(−kτ)                      linear in d0 given k
 #   second_order         A − a_end = d0/(1 + c·τ),  c = k·sign·d0   linear in d0 given c
 #   first_order_plateau  A = A_inf + d·e^(−kτ),     d = A0 − A_inf  linear in (A_inf, d) given k
-# so the fit is a 1-D search over k (or c): Gauss–Newton on the reduced sum of squares (Kaufman's step: the model's
-# derivative with the part the linear parameters can absorb projected out), with step halving so the weighted RSS
-# never rises. Every weighted sum an iteration needs comes from one small matrix product of [f, f²(, f³, f⁴)] with
-# the per-fit moments [w, w·A, w·τ, w·τ², w·τ·A], shared by the models. At the minimum the standard errors come
-# from the full Jacobian in the reported parameters, cov = s²·(JᵀWJ)⁻¹ with s² = RSS/(n − p): the same convention
-# and the same minimum as MINPACK's leastsq / curve_fit(absolute_sigma=False), to far below their own tolerance.
-# Anything unusual (no convergence, a start that cannot be found, a nearly singular Jacobian) falls back to
-# ``nonlinear_lstsq`` from the original start values, so hard cases keep exactly the reference behaviour.
+# so the fit is a 1-D search over k (or c): Newton on the reduced sum of squares, whose first and second derivatives
+# variable projection gives in closed form (Gauss–Newton, Kaufman's step, where the second derivative is not
+# positive), with step halving so the weighted RSS never rises. Every weighted sum an iteration needs comes from one
+# small matrix product of [f, f²(, f³, f⁴)] with the per-fit moments [w, w·A, w·τ, w·τ², w·τ·A, w·τ²·A], shared by
+# the models (the zero-order line comes from the moments directly). At the minimum the standard errors come from
+# JᵀWJ in the reported parameters, also from the moments, cov = s²·(JᵀWJ)⁻¹ with s² = RSS/(n − p): the same
+# convention and the same minimum as MINPACK's leastsq / curve_fit(absolute_sigma=False), to far below their own
+# tolerance (tests/test_kinetics_fast.py). Anything unusual (no convergence, a start that cannot be found, a nearly
+# singular JᵀWJ) falls back to ``nonlinear_lstsq`` / ``linear_lstsq`` from the original start values, so hard cases
+# keep the reference behaviour.
 
 _FAST_MAX_ITER = 60
 _EPS = float(np.finfo(float).eps)
