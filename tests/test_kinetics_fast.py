@@ -213,8 +213,8 @@ def test_half_life_and_ranking_unchanged_in_shape(no_reference):
 # -- the read a fast analysis rests on ----------------------------------------------------------------------------
 
 def test_columnar_read_of_a_run_equals_the_row_read(store):
-    """``Store.run_sample_columns`` (group_concat text parsed by numpy) gives exactly the rows ``run_samples`` gives,
-    including a run across two boots whose reads and flags vary, and a run with no stop mark."""
+    """``Store.run_sample_columns`` (group_concat text parsed by numpy) gives exactly the rows ``run_samples`` gives:
+    a run across two boots, a run with no stop mark, runs within one boot whose reads and flags vary or do not."""
     from nightcell.store import Run
 
     rng = np.random.default_rng(8)
@@ -232,7 +232,8 @@ def test_columnar_read_of_a_run_equals_the_row_read(store):
     rows["samples"].append(("dev", 2, 401, 0, 401000, 0, 0, 16, 1, 2, None))  # after the stop
     with store.write():
         store.insert_rows(rows)
-    for run in (Run("dev", "a", 1, 2, 2, 400), Run("dev", "a", 1, 2, None, None), Run("dev", "a", 2, 100, 2, 150)):
+    for run in (Run("dev", "a", 1, 2, 2, 400), Run("dev", "a", 1, 2, None, None), Run("dev", "a", 2, 100, 2, 150),
+                Run("dev", "a", 1, 3, 1, 10)):  # ... and one whose reads and flags do not vary
         cols = store.run_sample_columns(run)
         expect = store.run_samples(run)
         assert len(expect) == cols["seq"].size > 0

@@ -110,16 +110,15 @@ class Run:
         }
 
 
-_SAMPLE_COLUMNS = ("boot", "seq", "uptime_ms", "flags", "reads", "dark", "light")
-
-
-def _int_column(text: str, n: int, run: Run) -> np.ndarray:
-    """``n`` integers from SQLite's comma-separated group_concat text."""
-    col = np.fromstring(text, dtype=np.int64, sep=",")
-    if col.size != n:
+def _int_columns(names: tuple[str, ...], texts: tuple, n: int, run: Run) -> dict[str, np.ndarray]:
+    """Columns of ``n`` integers each from SQLite's comma-separated group_concat texts (parsed in one go)."""
+    if n == 0:
+        return {name: np.zeros(0, dtype=np.int64) for name in names}
+    values = np.fromstring(",".join(texts), dtype=np.int64, sep=",")
+    if values.size != len(names) * n:
         raise StoreError(f"run {run.key}: a sample column did not read back whole; check the database with "
                          "`sqlite3 DB 'PRAGMA integrity_check'`")
-    return col
+    return dict(zip(names, values.reshape(len(names), n)))
 
 
 class Store:
@@ -457,44 +456,44 @@ class Store:
         Returns ``boot``, ``seq``, ``uptime_ms``, ``flags``, ``reads``, ``dark``, ``light`` (int64 arrays, one entry per
         sample; the same rows as ``run_samples``) and ``clocks``: ``{boot: (unix_at_zero, rate, quality)}`` for the
         boots that have a clock. Made for the analysis of many runs: one range scan of the samples' primary key,
-        each column read as one text (SQLite writes the digits; numpy parses them), with no per-row Python objects;
-        boot, reads and flags, the same for every sample of most runs, are read as text only when they vary. The
-        range scan meets rows in key order; the order is checked, and restored if it ever were not.
+        each column read as one text (SQLite writes the digits; numpy parses them), with no per-row Python objects.
+        In a run within one boot the boot is known, and reads and flags (the same for every sample of most runs)
+        are read as text only when they vary. The range scan meets rows in key order; the order is checked, and
+        restored if it ever were not.
         """
         stop = (run.stop_boot, run.stop_seq) if run.stop_boot is not None else (_NO_END, _NO_END)
-        key = (run.device, channel, run.start_boot, run.start_seq, *stop)
-        if run.stop_boot == run.start_boot:  # a run within one boot: plain bounds on seq scan a little faster
+        names = ("seq", "uptime_ms", "dark", "light")
+        if run.stop_boot == run.start_boot:
+            # a run within one boot (most runs): plain bounds on seq, the boot known, and reads and flags checked
+            # with three cheap aggregates (each extra column of text costs more than the scan itself)
+            where = (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)
             row = self.conn.execute(
-                "SELECT count(*), min(boot), max(boot), min(reads), max(reads), min(flags), max(flags), "
-                "group_concat(seq), group_concat(uptime_ms), group_concat(dark), group_concat(light) FROM samples "
-                "WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?",
-                (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)).fetchone()
-        else:
-            row = self.conn.execute(
-                "SELECT count(*), min(boot), max(boot), min(reads), max(reads), min(flags), max(flags), "
-                "group_concat(seq), group_concat(uptime_ms), group_concat(dark), group_concat(light) FROM samples "
-                "WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?)", key).fetchone()
-        n = int(row[0])
-        if n == 0:
-            cols = {name: np.zeros(0, dtype=np.int64) for name in _SAMPLE_COLUMNS}
-        else:
-            both = np.fromstring(",".join(row[7:]), dtype=np.int64, sep=",")  # one parse for the four texts
-            if both.size != 4 * n:
-                raise StoreError(f"run {run.key}: a sample column did not read back whole; check the database "
-                                 "with `sqlite3 DB 'PRAGMA integrity_check'`")
-            cols = dict(zip(("seq", "uptime_ms", "dark", "light"), both.reshape(4, n)))
-            if row[1] == row[2] and row[3] == row[4] and row[5] == row[6]:
-                for name, value in (("boot", row[1]), ("reads", row[3]), ("flags", row[5])):
-                    cols[name] = np.full(n, value, dtype=np.int64)
-            else:
+                "SELECT count(*), min(reads), max(reads), sum(flags <> 0), group_concat(seq), group_concat(uptime_ms), "
+                "group_concat(dark), group_concat(light) FROM samples "
+                "WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?", where).fetchone()
+            n = int(row[0])
+            cols = _int_columns(names, row[4:], n, run)
+            cols["boot"] = np.full(n, run.start_boot, dtype=np.int64)
+            if n and row[1] == row[2] and row[3] == 0:
+                cols["reads"] = np.full(n, row[1], dtype=np.int64)
+                cols["flags"] = np.zeros(n, dtype=np.int64)
+            elif n:
                 more = self.conn.execute(
-                    "SELECT group_concat(seq), group_concat(boot), group_concat(reads), group_concat(flags) FROM "
-                    "samples WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?)",
-                    key).fetchone()
-                if not np.array_equal(_int_column(more[0], n, run), cols["seq"]):
+                    "SELECT group_concat(seq), group_concat(reads), group_concat(flags) FROM samples "
+                    "WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?", where).fetchone()
+                extra = _int_columns(("seq", "reads", "flags"), more, n, run)
+                if not np.array_equal(extra.pop("seq"), cols["seq"]):
                     raise StoreError(f"run {run.key}: its samples changed while they were read; read it again")
-                for name, text in zip(("boot", "reads", "flags"), more[1:]):
-                    cols[name] = _int_column(text, n, run)
+                cols.update(extra)
+        else:
+            row = self.conn.execute(
+                "SELECT count(*), group_concat(seq), group_concat(uptime_ms), group_concat(dark), group_concat(light), "
+                "group_concat(boot), group_concat(reads), group_concat(flags) FROM samples "
+                "WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?)",
+                (run.device, channel, run.start_boot, run.start_seq, *stop)).fetchone()
+            n = int(row[0])
+            cols = _int_columns(names + ("boot", "reads", "flags"), row[1:], n, run)
+        if n:
             key_b, key_s = cols["boot"], cols["seq"]
             if np.any((key_b[1:] < key_b[:-1]) | ((key_b[1:] == key_b[:-1]) & (key_s[1:] <= key_s[:-1]))):
                 # SQLite does not promise the order in which group_concat meets rows; put them in order if it moved
