@@ -24,7 +24,8 @@ RUNNER = ROOT / "tests" / "bench" / "run.py"
 # noisy on a shared machine, so a miss cannot be required either). Remove a row once its goal is met for good.
 KNOWN_MISSES = {
     "full_over_bare_ratio": "a stored run read from SQLite, every rate law with SEs and AIC, result stored, against "
-                            "one bare curve_fit: 4.7-5.9x measured, goal 3x (the read alone 2.1-2.6x, the fits 1.7-2.1x)",
+                            "one bare curve_fit: 4.7-5.9x measured, goal 3x (the read alone 2.1-2.6x, the fits "
+                            "1.7-2.1x)",
     "sync_ingest_vs_executemany": "ingest measured at 0.6-0.75 of bare executemany on this machine, goal 0.7",
     "parallel_sync_speedup_two_boards": "two syncs at once on 2 shared cores: 1.3-1.9x measured, goal 1.4x",
     "full_sync_fraction_of_115200_baud": "a 30 KB quick sync under load measured 0.84-0.90 of the link, goal 0.85; "

@@ -48,7 +48,8 @@ def _plateau(t, a0, a_inf, k):
 
 
 def build_database(path: Path, n_runs: int, n_points: int, seed: int = 1234) -> list[tuple[float, float, float]]:
-    """A nightcell database of ``n_runs`` stored runs of ``n_points`` samples; returns each run's true (A0, A_inf, k)."""
+    """A nightcell database of ``n_runs`` stored runs of ``n_points`` samples; returns each run's true
+    (A0, A_inf, k)."""
     rng = np.random.default_rng(seed)
     recs: list[bytes] = []
     seq = up = 0
