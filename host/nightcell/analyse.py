@@ -109,15 +109,7 @@ def _absorbance(light: Any, dark: Any, b: "BlankChoice") -> "_optics.OpticsResul
 
 
 def _with_counts(store: Store, mark: dict[str, Any] | None) -> dict[str, Any] | None:
-    """A marks row with its per-channel counts as lists ``dark`` and ``light`` (the shape ``Store.marks`` gives)."""
-    if mark is None:
-        return None
-    counts = store.conn.execute(
-        "SELECT dark, light FROM mark_counts WHERE device = ? AND boot = ? AND seq = ? ORDER BY channel",
-        (mark["device"], mark["boot"], mark["seq"])).fetchall()
-    mark["dark"] = [c[0] for c in counts]
-    mark["light"] = [c[1] for c in counts]
-    return mark
+    return None if mark is None else store.with_counts(mark)
 
 
 def _mark_before(store: Store, device: str, kind: str, before: tuple[int, int] | None) -> dict[str, Any] | None:

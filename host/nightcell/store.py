@@ -407,14 +407,16 @@ class Store:
             params.append(mark)
         sql = "SELECT m.* FROM marks m" + (" WHERE " + " AND ".join(where) if where else "")
         sql += " ORDER BY m.device, m.boot, m.seq"
-        out = self.query(sql, params)
-        for m in out:
-            counts = self.conn.execute(
-                "SELECT dark, light FROM mark_counts WHERE device=? AND boot=? AND seq=? ORDER BY channel",
-                (m["device"], m["boot"], m["seq"])).fetchall()
-            m["dark"] = [c[0] for c in counts]
-            m["light"] = [c[1] for c in counts]
-        return out
+        return [self.with_counts(m) for m in self.query(sql, params)]
+
+    def with_counts(self, mark: dict[str, Any]) -> dict[str, Any]:
+        """A marks row given its per-channel counts as lists ``dark`` and ``light`` (in channel order)."""
+        counts = self.conn.execute(
+            "SELECT dark, light FROM mark_counts WHERE device = ? AND boot = ? AND seq = ? ORDER BY channel",
+            (mark["device"], mark["boot"], mark["seq"])).fetchall()
+        mark["dark"] = [c[0] for c in counts]
+        mark["light"] = [c[1] for c in counts]
+        return mark
 
     def runs(self, device: str | None = None) -> list[Run]:
         """Runs from their marks. A run_start journaled by the board itself (source 2) after a restart continues
