@@ -87,16 +87,20 @@ def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_labe
     return recs
 
 
-def make_db(path: Path, **kwargs: Any) -> Path:
-    """A nightcell database holding ``journal_records(**kwargs)``, as a sync would have stored them."""
-    records = [F.decode_record(r)[0] for r in journal_records(**kwargs)]
-    device = records[0].fields["device"]
+def store_as_synced(path: Path, device: str, records: list[F.Record]) -> Path:
+    """A nightcell database holding decoded journal ``records`` of ``device``, as a sync would have stored them."""
     with Store.open(path) as store:
         with store.write():
             store.touch_device(device, board="sim", firmware="0.1.0", label="bench")
             store.ingest(device, records, journal=1)
             rebuild_clocks(store, device)
     return path
+
+
+def make_db(path: Path, **kwargs: Any) -> Path:
+    """A nightcell database holding ``journal_records(**kwargs)``."""
+    records = [F.decode_record(r)[0] for r in journal_records(**kwargs)]
+    return store_as_synced(path, records[0].fields["device"], records)
 
 
 def snapshot(path: Path) -> dict[str, tuple[int, str]]:

@@ -35,7 +35,9 @@ from scipy.optimize import curve_fit
 from nightcell import analyse, kinetics
 from nightcell import frames as F
 from nightcell.store import Store
-from nightcell.timeline import rebuild_clocks
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+from test_bad_input import store_as_synced  # noqa: E402  (the database a sync would have made of these records)
 
 GOAL_RATIO = 3.0
 BATCH = 100  # runs whose results are committed together
@@ -84,12 +86,7 @@ def build_database(path: Path, n_runs: int, n_points: int, seed: int = 1234) -> 
                                  "samples": samples}, step=INTERVAL_MS * len(chunk), count=len(chunk))
         mark(5, "")
     add(F.KIND_ANCHOR, {"host_unix_ms": 1_796_000_000_000 + up})
-    records = [F.decode_record(r, lazy_samples=True)[0] for r in recs]
-    with Store.open(path) as store:
-        with store.write():
-            store.touch_device(DEVICE, board="sim", firmware="0.1.0", label="bench")
-            store.ingest(DEVICE, records, journal=1)
-            rebuild_clocks(store, DEVICE)
+    store_as_synced(path, DEVICE, [F.decode_record(r, lazy_samples=True)[0] for r in recs])
     return truths
 
 
