@@ -62,3 +62,34 @@ def results(out: str) -> dict[str, str]:
             k, _, v = line.partition("=")
             res[k.strip()] = v.strip()
     return res
+
+
+# MicroPython source shared by scripts that write records with the firmware's own encoders (no % signs: scripts
+# may be %-formatted). Needs ``R`` (nightcell_fw.records) and ``SampleBlock`` imported first.
+ENCODE_RECORD = r"""
+def encode_record(enc, k, b, s, u, f):
+    # (the record, the samples it holds) from a record's fields as schema/vectors/records.json lists them
+    if k == R.KIND_SAMPLES:
+        blk = SampleBlock()
+        blk.open(b, s, u, f["interval_ms"], f["reads"], f["channels"], bool(f["options"] & 1))
+        n = 0
+        for x in f["samples"]:
+            blk.add(x["late_ms"], x["flags"], x["dark"], x["light"], x.get("temp_centi"))
+            n += 1
+            if blk.full():
+                break
+        return blk.record(), n
+    if k == R.KIND_BOOT:
+        got = R.boot(enc, b, s, u, f["reset_cause"], f["settings_crc"], f["firmware"], f["device"], f["board"])
+    elif k == R.KIND_MARK:
+        got = R.mark(enc, b, s, u, f["mark"], f["source"], f["reads"], f["dark"], f["light"], f["label"], f["value"])
+    elif k == R.KIND_ANCHOR:
+        got = R.anchor(enc, b, s, u, f["host_unix_ms"])
+    elif k == R.KIND_EVENT:
+        got = R.event(enc, b, s, u, f["code"], f["text"])
+    elif k == R.KIND_SETTINGS:
+        got = R.settings(enc, b, s, u, f["json"])
+    else:
+        got = R.health(enc, b, s, u, f["chip_temp_centi"], f["free_kb"], f["vsys_mv"])
+    return got, 0
+"""

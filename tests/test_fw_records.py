@@ -7,7 +7,7 @@ and the settings' canonical JSON against CPython's own json module (sort_keys, c
 
 import json
 
-from fwharness import SCHEMA, results, run_mp
+from fwharness import ENCODE_RECORD, SCHEMA, results, run_mp
 
 ENCODE_ALL = r"""
 import json, binascii
@@ -15,31 +15,14 @@ from nightcell_fw import records as R
 from nightcell_fw.block import SampleBlock
 from nightcell_fw.link import Frames, unquote
 from boards.ports import ScriptedPort
-
+""" + ENCODE_RECORD + r"""
 vec = json.loads(open(%r).read())
 enc = R.Encoder()
 for v in vec["records"]:
     f = v["fields"]
     k = v["kind"]
     b, s, u = v["boot"], v["seq"], v["uptime_ms"]
-    if k == R.KIND_BOOT:
-        got = R.boot(enc, b, s, u, f["reset_cause"], f["settings_crc"], f["firmware"], f["device"], f["board"])
-    elif k == R.KIND_SAMPLES:
-        blk = SampleBlock()
-        blk.open(b, s, u, f["interval_ms"], f["reads"], f["channels"], bool(f["options"] & 1))
-        for x in f["samples"]:
-            blk.add(x["late_ms"], x["flags"], x["dark"], x["light"], x.get("temp_centi"))
-        got = blk.record()
-    elif k == R.KIND_MARK:
-        got = R.mark(enc, b, s, u, f["mark"], f["source"], f["reads"], f["dark"], f["light"], f["label"], f["value"])
-    elif k == R.KIND_ANCHOR:
-        got = R.anchor(enc, b, s, u, f["host_unix_ms"])
-    elif k == R.KIND_EVENT:
-        got = R.event(enc, b, s, u, f["code"], f["text"])
-    elif k == R.KIND_SETTINGS:
-        got = R.settings(enc, b, s, u, f["json"])
-    elif k == R.KIND_HEALTH:
-        got = R.health(enc, b, s, u, f["chip_temp_centi"], f["free_kb"], f["vsys_mv"])
+    got, _ = encode_record(enc, k, b, s, u, f)
     hexed = binascii.hexlify(bytes(got)).decode()
     assert hexed == v["hex"], (v["name"], hexed, v["hex"])
     assert R.parse_header(bytes(got)[:4]) == (k, len(got)), v["name"]

@@ -347,41 +347,22 @@ def test_settings_file_of_any_bytes_never_stops_the_board(tmp_path_factory, data
 
 # -- the firmware's decoders and encoder, in MicroPython ---------------------------------------------------------------
 
+from fwharness import ENCODE_RECORD  # noqa: E402  (MicroPython source of the record encoder dispatch)
+
 MP_SCRIPT = r"""
 import sys, json, binascii
 from nightcell_fw import records as R
 from nightcell_fw import settings as S
 from nightcell_fw.block import SampleBlock
 from nightcell_fw.link import parse, unquote
+""" + ENCODE_RECORD + r"""
 batch = json.loads(open(sys.argv[1]).read())
 out = []
 enc = R.Encoder()
 for item in batch["records"]:
     k, f, b, s, u = item
-    if k == R.KIND_BOOT:
-        got = R.boot(enc, b, s, u, f["reset_cause"], f["settings_crc"], f["firmware"], f["device"], f["board"])
-    elif k == R.KIND_SAMPLES:
-        blk = SampleBlock()
-        blk.open(b, s, u, f["interval_ms"], f["reads"], f["channels"], bool(f["options"] & 1))
-        n = 0
-        for x in f["samples"]:
-            blk.add(x["late_ms"], x["flags"], x["dark"], x["light"], x.get("temp_centi"))
-            n += 1
-            if blk.full():
-                break
-        got = blk.record()
-        k = (k, n)
-    elif k == R.KIND_MARK:
-        got = R.mark(enc, b, s, u, f["mark"], f["source"], f["reads"], f["dark"], f["light"], f["label"], f["value"])
-    elif k == R.KIND_ANCHOR:
-        got = R.anchor(enc, b, s, u, f["host_unix_ms"])
-    elif k == R.KIND_EVENT:
-        got = R.event(enc, b, s, u, f["code"], f["text"])
-    elif k == R.KIND_SETTINGS:
-        got = R.settings(enc, b, s, u, f["json"])
-    else:
-        got = R.health(enc, b, s, u, f["chip_temp_centi"], f["free_kb"], f["vsys_mv"])
-    out.append(["rec", k if isinstance(k, int) else k[1], binascii.hexlify(bytes(got)).decode()])
+    got, n = encode_record(enc, k, b, s, u, f)
+    out.append(["rec", n if k == R.KIND_SAMPLES else k, binascii.hexlify(bytes(got)).decode()])
 for line in batch["lines"]:
     try:
         tag, verb, args = parse(line.encode())

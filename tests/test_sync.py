@@ -17,7 +17,7 @@ import pytest
 
 from nightcell.errors import DeviceTimeout, NightcellError
 from nightcell.link import Board
-from nightcell.simulate import (Fault, SimulatedBoard, fill_journal, random_faults, raw_rows,
+from nightcell.simulate import (Fault, SimulatedBoard, random_faults, raw_rows, reference_journal,
                                 run_fault_schedule)
 from nightcell.store import Store
 from nightcell.sync import sync_board, sync_ports
@@ -33,16 +33,9 @@ def journal(tmp_path_factory):
     sim = SimulatedBoard(root / "fill", device="5e1f0000000000aa", speed=200.0, seed=5, settings=SETTINGS)
     sim.start()
     try:
-        fill_journal(sim, 14_000)
-        image = sim.save_flash(root / "image")
-        sim.restore_flash(image)
-        ref = root / "reference.db"
-        with Board.open(sim.url) as board, Store.open(ref) as store:
-            boot = board.hello(timeout=5.0)["boot"]
-            sync_board(board, store, acknowledge=False)
+        return reference_journal(sim, root, 14_000)
     finally:
         sim.stop()
-    return {"image": image, "reference": ref, "boot": boot, "rows": raw_rows(ref, before_boot=boot)}
 
 
 @pytest.fixture

@@ -22,11 +22,10 @@ CSV layouts (header row required, comma-separated, extra columns ignored):
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import json
 import math
-import os
-import tempfile
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
@@ -142,19 +141,13 @@ def _open(db: Path) -> Any:
 
 
 def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) -> None:
+    from .report import write_atomic
+
     payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
     if out is not None:
-        # write beside the target and rename, so a failure never leaves a half-written file
         try:
-            fd, tmp = tempfile.mkstemp(prefix=".nightcell-", suffix=".json", dir=out.parent if str(out.parent) else ".")
+            write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
         except OSError as exc:
-            raise InputError(f"cannot write {out}: {exc}") from None
-        try:
-            with os.fdopen(fd, "w", encoding="utf-8") as fh:
-                fh.write(payload + "\n")
-            os.replace(tmp, out)
-        except OSError as exc:
-            Path(tmp).unlink(missing_ok=True)
             raise InputError(f"cannot write {out}: {exc}") from None
     click.echo(payload if as_json else text)
 
@@ -364,29 +357,21 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
     conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
     if not conc:
         raise InputError(f"{csv_file} has no concentration columns; add one column per reactant named conc_<name>")
-    store = None
-    if db is not None:
-        store = _open(db)
-        try:
+    with contextlib.ExitStack() as opened:
+        store = None if db is None else opened.enter_context(_open(db))
+        if store is not None:
             runs = _runs_from_plan(store, cols["run"])
             fits = [_initial_rate_of(store, run, channel, None) for run in runs]
-        except BaseException:
-            store.close()
-            raise
-        cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
-        cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
-        inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
-                  "rate_rule": "initial_rate, window chosen automatically, flagged readings left out"}
-    try:
+            cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
+            cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
+            inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
+                      "rate_rule": "initial_rate, window chosen automatically, flagged readings left out"}
         result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
         data, text = result.to_dict(), result.report()
         if store is not None:
             saved = store.save_result("orders", csv_file.stem, inputs, data)
             data = dict(data, result_id=saved)
             text += f"\nsaved in {db} as result {saved}"
-    finally:
-        if store is not None:
-            store.close()
     _finish(data, text, as_json, out)
 
 
@@ -426,31 +411,26 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
     _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
-    store = None
     if db is not None:
         cols = read_columns(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
-        store = _open(db)
-        try:
-            runs = _runs_from_plan(store, cols["run"])
-            got = [_k_and_temperature(store, run, channel, model) for run in runs]
-        except BaseException:
-            store.close()
-            raise
-        if "temperature_K" not in cols:
-            missing = [r.key for r, g in zip(runs, got) if g[2] is None]
-            if missing:
-                store.close()
-                raise InputError(f"run {missing[0]} has no solution temperature (no probe): add a temperature_K "
-                                 f"column to {csv_file}")
-            cols["temperature_K"] = np.array([g[2] for g in got])
-        cols["k"] = np.array([g[0] for g in got])
-        cols["k_se"] = np.array([g[1] for g in got])
-        inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel, "model": model,
-                  "temperature": "from the CSV" if "temperature_K" in cols and not all(g[2] for g in got)
-                  else "CSV column, else the run's mean probe temperature"}
     else:
         cols = read_columns(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3)
-    try:
+    with contextlib.ExitStack() as opened:
+        store = None if db is None else opened.enter_context(_open(db))
+        if store is not None:
+            runs = _runs_from_plan(store, cols["run"])
+            got = [_k_and_temperature(store, run, channel, model) for run in runs]
+            if "temperature_K" not in cols:
+                missing = [r.key for r, g in zip(runs, got) if g[2] is None]
+                if missing:
+                    raise InputError(f"run {missing[0]} has no solution temperature (no probe): add a "
+                                     f"temperature_K column to {csv_file}")
+                cols["temperature_K"] = np.array([g[2] for g in got])
+            cols["k"] = np.array([g[0] for g in got])
+            cols["k_se"] = np.array([g[1] for g in got])
+            inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel, "model": model,
+                      "temperature": "from the CSV" if "temperature_K" in cols and not all(g[2] for g in got)
+                      else "CSV column, else the run's mean probe temperature"}
         fit = _study.arrhenius(cols["temperature_K"], cols["k"], cols.get("k_se"), inputs=inputs)
         data: dict[str, Any] = {"arrhenius": fit.to_dict()}
         text = fit.report()
@@ -462,9 +442,6 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             saved = store.save_result("arrhenius", csv_file.stem, inputs, data)
             data["result_id"] = saved
             text += f"\nsaved in {db} as result {saved}"
-    finally:
-        if store is not None:
-            store.close()
     _finish(data, text, as_json, out)
 
 

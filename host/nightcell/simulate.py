@@ -32,7 +32,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
-__all__ = ["SimulatedBoard", "Relay", "Fault", "random_faults", "STRAY_TRACEBACK", "firmware_dir",
+__all__ = ["SimulatedBoard", "Relay", "Fault", "random_faults", "STRAY_TRACEBACK", "firmware_dir", "reference_journal",
            "micropython_command", "DEFAULT_OPTICS"]
 
 DEFAULT_OPTICS = {"led_counts": 3000.0, "dark_counts": 60.0, "noise_counts": 2.5, "stray": 0.002,
@@ -526,6 +526,30 @@ def fill_journal(sim: SimulatedBoard, min_bytes: int, *, label: str = "fill", ti
         info = board.hello()
     sim.power_cut()
     return info
+
+
+def reference_journal(sim: SimulatedBoard, root: str | Path, min_bytes: int) -> dict[str, Any]:
+    """A journal to run many experiments on, and its fault-free sync: the reference every experiment is held to.
+
+    Fills the board's journal (``fill_journal``), saves its flash to ``root/image``, restores it and syncs it once
+    without acknowledging into ``root/reference.db``. Returns ``image``, ``reference`` (the database path), ``boot``
+    (the boot the restored board came up in), ``rows`` (``raw_rows`` of the earlier boots) and ``summary`` (the
+    reference sync's ``SyncSummary``).
+    """
+    from .link import Board
+    from .store import Store
+    from .sync import sync_board
+
+    root = Path(root)
+    fill_journal(sim, min_bytes)
+    image = sim.save_flash(root / "image")
+    sim.restore_flash(image)
+    reference = root / "reference.db"
+    with Board.open(sim.url) as board, Store.open(reference) as store:
+        boot = board.hello(timeout=10.0)["boot"]
+        summary = sync_board(board, store, acknowledge=False)
+    return {"image": image, "reference": reference, "boot": boot, "rows": raw_rows(reference, before_boot=boot),
+            "summary": summary}
 
 
 def raw_rows(db_path: str | Path, *, before_boot: int | None = None, tables: Sequence[str] = RAW_TABLES,

@@ -18,28 +18,22 @@ from __future__ import annotations
 
 import math
 import sys
+from pathlib import Path
 
 import numpy as np
 
 from nightcell.calibration import fit_calibration
 from nightcell.fitting import nonlinear_lstsq
 
-# NIST StRD Norris, y then x (copied from shared/REFERENCES.md).
-NORRIS_Y = np.array([
-    0.1, 338.8, 118.1, 888.0, 9.2, 228.1, 668.5, 998.5, 449.1, 778.9, 559.2, 0.3, 0.1, 778.1, 668.8, 339.3, 448.9, 10.8,
-    557.7, 228.3, 998.0, 888.8, 119.6, 0.3, 0.6, 557.6, 339.3, 888.0, 998.5, 778.9, 10.2, 117.6, 228.9, 668.4, 449.2, 0.2,
-])
-NORRIS_X = np.array([
-    0.2, 337.4, 118.2, 884.6, 10.1, 226.5, 666.3, 996.3, 448.6, 777.0, 558.2, 0.4, 0.6, 775.5, 666.9, 338.0, 447.5, 11.6,
-    556.0, 228.1, 995.8, 887.6, 120.2, 0.3, 0.3, 556.8, 339.1, 887.2, 999.0, 779.0, 11.1, 118.3, 229.2, 669.1, 448.9, 0.5,
-])
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+# NIST StRD Norris and Misra1a data, as the fitting tests hold them (copied from shared/REFERENCES.md)
+from test_fitting import MISRA_X, MISRA_Y, NORRIS_X, NORRIS_Y  # noqa: E402
+
 NORRIS_CERTIFIED = {"intercept": -0.262323073774029, "slope": 1.00211681802045}
 NORRIS_CERTIFIED_SD = {"intercept": 0.232818234301152, "slope": 0.429796848199937e-03}
 NORRIS_RESIDUAL_SD = 0.884796396144373
 
-# NIST StRD Misra1a (the NIST file lists y first).
-MISRA_Y = np.array([10.07, 14.73, 17.94, 23.93, 29.61, 35.18, 40.02, 44.82, 50.76, 55.05, 61.01, 66.40, 75.47, 81.78])
-MISRA_X = np.array([77.6, 114.9, 141.1, 190.8, 239.9, 289.0, 332.8, 378.4, 434.8, 477.3, 536.8, 593.1, 689.1, 760.0])
+# NIST StRD Misra1a: starts and certified values
 MISRA_STARTS = ((500.0, 1e-4), (250.0, 5e-4))
 MISRA_CERTIFIED = {"b1": 2.3894212918e02, "b2": 5.5015643181e-04}
 MISRA_CERTIFIED_SD = {"b1": 2.7070075241e00, "b2": 7.2668688436e-06}

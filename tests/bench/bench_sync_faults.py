@@ -18,10 +18,7 @@ import time
 from collections import Counter
 from pathlib import Path
 
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard, fill_journal, random_faults, raw_rows, run_fault_schedule
-from nightcell.store import Store
-from nightcell.sync import sync_board
+from nightcell.simulate import SimulatedBoard, random_faults, raw_rows, reference_journal, run_fault_schedule
 
 SETTINGS = {"interval_ms": 1000, "durability_ms": 2000, "segment_bytes": 4096,
             "channels": [{"name": "red", "led": 15, "adc": 26}, {"name": "green", "led": 14, "adc": 27}]}
@@ -49,13 +46,8 @@ def run(quick: bool = False, schedules: int | None = None, seed: int = 2024) -> 
         sim = SimulatedBoard(root / "board", device="fa0170000000000a", speed=200.0, seed=3, settings=SETTINGS)
         sim.start()
         try:
-            fill_journal(sim, 10_000)
-            image = sim.save_flash(root / "image")
-            sim.restore_flash(image)
-            with Board.open(sim.url) as board, Store.open(root / "reference.db") as store:
-                boot = board.hello(timeout=10.0)["boot"]
-                sync_board(board, store, acknowledge=False)
-            reference = raw_rows(root / "reference.db", before_boot=boot)
+            ref = reference_journal(sim, root, 10_000)
+            image, reference = ref["image"], ref["rows"]
             size = sum(len(v) for v in reference.values())
             for i in range(n):
                 faults = random_faults(rng, to_host_bytes=11_000, to_board_bytes=400, count=rng.randint(1, 5),

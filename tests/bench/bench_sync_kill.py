@@ -22,7 +22,7 @@ from collections import Counter
 from pathlib import Path
 
 from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard, fill_journal, raw_rows
+from nightcell.simulate import SimulatedBoard, raw_rows, reference_journal
 from nightcell.store import Store
 from nightcell.sync import sync_board
 
@@ -53,13 +53,8 @@ def run(quick: bool = False, rounds: int | None = None, seed: int = 99) -> list[
         sim = SimulatedBoard(root / "board", device="c1110000000000aa", speed=200.0, seed=4, settings=SETTINGS)
         sim.start()
         try:
-            fill_journal(sim, 12_000)
-            image = sim.save_flash(root / "image")
-            sim.restore_flash(image)
-            with Board.open(sim.url) as board, Store.open(root / "reference.db") as store:
-                boot = board.hello(timeout=10.0)["boot"]
-                ref_sync = sync_board(board, store, acknowledge=False)
-            reference = raw_rows(root / "reference.db", before_boot=boot)
+            ref = reference_journal(sim, root, 12_000)
+            image, boot, reference, ref_sync = ref["image"], ref["boot"], ref["rows"], ref["summary"]
             span = ref_sync.bytes * 10.0 / BAUD + 0.1  # roughly how long a sync lasts on this cable
             for i in range(n):
                 sim.restore_flash(image)
