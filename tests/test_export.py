@@ -115,7 +115,7 @@ def test_rate_on_a_run_without_blank_is_exit_5_and_saves_nothing(db):
 
 def test_rate_by_key_saves_a_result_naming_its_inputs(db):
     key = _key(db, HOSTILE)
-    r = _cli("rate", "--db", db, "--run", key, "--model", "first_order", "--json")
+    r = _cli("rate", "--db", db, "--run", key, "--model", "first_order_to_zero", "--json")
     assert r.exit_code == 0, r.output
     data = json.loads(r.output)
     row = sqlite3.connect(db).execute("SELECT kind, label, inputs_json FROM results WHERE id = ?",

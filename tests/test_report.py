@@ -91,7 +91,7 @@ def test_run_report_with_a_hostile_label_is_inert_self_contained_and_complete(st
     page = files.html.read_text(encoding="utf-8")
     _assert_self_contained_and_inert(page)
     assert len(re.findall(r"<img ", page)) == 2  # absorbance with fit and residuals; calibration
-    for needed in ("standard error", "Rate laws compared", "first_order_plateau", "Provenance", "firmware 0.1.0",
+    for needed in ("standard error", "Rate laws compared", "first_order_to_final", "Provenance", "firmware 0.1.0",
                    "interval_ms", "298.15", "LOD", "blank"):
         assert needed in page, needed
     pngs = sorted(p for p in files.figures if p.suffix == ".png")

@@ -586,7 +586,7 @@ def _pick_group(items: list[RunSummary], key: Any, level: Any) -> list[RunSummar
     return max(good, key=lambda g: (len({level(it) for it in g}), len(g)))
 
 
-def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str = "first_order_plateau",
+def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str = "first_order_to_final",
                   channel: int = 0) -> StudyAnalysis:
     """Every run with its recorded conditions → per-run k (``model``) → orders and Arrhenius/Eyring (study.py).
 

@@ -37,6 +37,8 @@ from . import kinetics as _kinetics
 from . import study as _study
 from .cli import friendly, json_option
 from .errors import InputError
+from .render import fit_layout as _layout
+from .science import laws as _laws
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
 
@@ -140,10 +142,11 @@ def _open(db: Path) -> Any:
     return Store.open(db, create=False)
 
 
-def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) -> None:
+def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None, *, sort_keys: bool = True) -> None:
     from .report import write_atomic
 
-    payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
+    # a fit result keeps its reading order (answer, fit, parameters, ranking, detail); other results sort their keys
+    payload = json.dumps(data, indent=1, sort_keys=sort_keys, allow_nan=False)
     if out is not None:
         try:
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
@@ -228,16 +231,51 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
     _finish(data, text, as_json, out)
 
 
-def _run_text(analysis: Any) -> str:
+class LawChoice(click.Choice):
+    """The rate laws by name; the names of version 0.1 still parse (hidden from --help) with a deprecation message."""
+
+    def __init__(self, extra: Sequence[str] = (), exclude: Sequence[str] = ()):
+        self.extra = tuple(extra)
+        super().__init__(self.extra + tuple(m for m in _kinetics.MODELS if m not in exclude))
+
+    def convert(self, value: Any, param: Any, ctx: Any) -> Any:
+        if isinstance(value, str) and value in _laws.OLD_NAMES and _laws.OLD_NAMES[value] in self.choices:
+            click.echo(f"warning: {_laws.deprecation(value)}", err=True)
+            value = _laws.OLD_NAMES[value]
+        return super().convert(value, param, ctx)
+
+
+def _detail_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    return click.option("--detail", is_flag=True,
+                        help="Also print the fit criteria (AIC, AICc), the runs test of the residual signs, and "
+                             "the marks the run was read against.")(fn)
+
+
+def _run_layout(analysis: Any) -> dict[str, Any]:
+    """A stored run's fits in the one layout, with where the readings came from (``detail`` holds the raw keys)."""
     run = analysis.run
-    lines = [f"run {run.key} {run.label!r}: {len(analysis.time_s)} readings, "
-             f"{int(np.count_nonzero(analysis.flags))} flagged and left out",
-             f"blank {analysis.blank.boot}:{analysis.blank.seq} ({analysis.blank.rule}); time: {analysis.time_basis}",
-             f"best rate law by AIC: {analysis.best}"]
-    for name, fit in sorted(analysis.fits.items(), key=lambda kv: kv[1].aic):
-        lines.append(f"  {name:<20} AIC = {fit.aic:10.2f}")
-    lines += analysis.warnings
-    lines.append(analysis.fits[analysis.best].report())
+    data = {"run": {"label": run.label, "key": run.key, "device": run.device},
+            "readings": {"used": int(len(analysis.time_s) - np.count_nonzero(analysis.flags)),
+                         "left_out_flagged": int(np.count_nonzero(analysis.flags)), "channel": analysis.channel},
+            **_layout.layout(analysis.fits)}
+    data["warnings"] = list(analysis.warnings)
+    data["detail"] = dict(data["detail"], blank=analysis.blank.to_dict(), time_basis=analysis.time_basis,
+                          boots=list(analysis.boots), end_rule=analysis.end_rule,
+                          resumed_at=[f"{b}:{q}" for b, q in analysis.resumed_at],
+                          calibration=analysis.calibration_id)
+    return data
+
+
+def _run_text(analysis: Any, data: dict[str, Any], detail: bool) -> str:
+    run = analysis.run
+    flagged = data["readings"]["left_out_flagged"]
+    lines = [f"run {run.label!r}: {len(analysis.time_s)} readings"
+             + (f", {flagged} flagged and left out" if flagged else ", none left out")]
+    lines += [f"warning: {w}" for w in analysis.warnings]
+    lines.append(_layout.text(data, detail=detail))
+    if detail:
+        lines.append(f"  run key {run.key}; blank mark {analysis.blank.boot}:{analysis.blank.seq} "
+                     f"({analysis.blank.rule}); time: {analysis.time_basis}")
     return "\n".join(lines)
 
 
@@ -256,19 +294,20 @@ def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, fl
 @_db_option
 @click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
 @_channel_option
-@click.option("--model", type=click.Choice(("all", "initial_rate") + _kinetics.MODELS), default="all",
+@click.option("--model", type=LawChoice(extra=("all", "initial_rate")), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
 @click.option("--window", type=(float, float), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
 @click.option("--t-start", type=float, default=None, help="Leave out readings before this time (s), e.g. mixing.")
 @click.option("--a-end", type=float, default=0.0, show_default=True,
               help="Absorbance when the followed species is used up (zero/first/second-order laws).")
+@_detail_option
 @json_option
 @_out_option
 @friendly
 def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, channel: int, model: str,
-                 window: tuple[float, float] | None, t_start: float | None, a_end: float, as_json: bool,
-                 out: Path | None) -> None:
+                 window: tuple[float, float] | None, t_start: float | None, a_end: float, detail: bool,
+                 as_json: bool, out: Path | None) -> None:
     """Fit rate laws to one run, from a CSV file or from a run in the database.
 
     CSV columns: time_s,absorbance (times strictly increasing). With --db the run's absorbance is read against its
@@ -297,24 +336,29 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                     raise InputError("--window applies to --model initial_rate")
                 analysis = analyse_run(store, run, channel=channel,
                                        models=None if model == "all" else (model,))
-                data, text = analysis.to_dict(), _run_text(analysis)
+                data = _run_layout(analysis)
+                text = _run_text(analysis, data, detail)
                 inputs = analysis.fits[analysis.best].inputs
             saved = store.save_result("rate", run.label or run.key, inputs, data)
         data = dict(data, result_id=saved)
-        _finish(data, text + f"\nsaved in {db} as result {saved}", as_json, out)
+        _finish(data, text + f"\nsaved in {db} as result {saved}", as_json, out, sort_keys=model == "initial_rate")
         return
     assert csv_file is not None
     cols = read_columns(csv_file, ["time_s", "absorbance"], min_rows=4)
     inputs = {"file": csv_file.name}
-    if model == "all":
-        result: Any = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end,
-                                        inputs=inputs)
-    elif model == "initial_rate":
+    if model == "initial_rate":
         result = _kinetics.initial_rate(cols["time_s"], cols["absorbance"], window, t_start=t_start, inputs=inputs)
+        _finish(result.to_dict(), result.report(), as_json, out)
+        return
+    if model == "all":
+        both = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end, inputs=inputs)
+        fits, failures = both.results, both.failures
     else:
-        result = _kinetics.fit_model(cols["time_s"], cols["absorbance"], model, t_start=t_start, a_end=a_end,
-                                     inputs=inputs)
-    _finish(result.to_dict(), result.report(), as_json, out)
+        fits = {model: _kinetics.fit_model(cols["time_s"], cols["absorbance"], model, t_start=t_start, a_end=a_end,
+                                           inputs=inputs)}
+        failures = {}
+    data = _layout.layout(fits, failures)
+    _finish(data, _layout.text(data, detail=detail), as_json, out, sort_keys=False)
 
 
 def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
@@ -390,8 +434,8 @@ def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[
 @_csv_argument
 @_db_option
 @_channel_option
-@click.option("--model", type=click.Choice([m for m in _kinetics.MODELS if m != "zero_order"]),
-              default="first_order_plateau", show_default=True,
+@click.option("--model", type=LawChoice(exclude=("zero_order",)),
+              default="first_order_to_final", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
 @json_option

@@ -1,7 +1,7 @@
 """Rate laws fitted to one run of absorbance against time.
 
 Owns: the initial rate (with an automatic early-window rule), the integrated zero-, first- and second-order laws,
-the exponential approach to a plateau with a free offset, half-lives with standard errors, and the comparison of all
+the first-order approach towards a final absorbance (offset free), half-lives with standard errors, and the comparison of all
 candidate models by AIC with a runs test of the residual signs.
 
 Must never: open a serial port or a database, print, or read files. It takes arrays ``(time_s, absorbance)``; points
@@ -17,10 +17,10 @@ Conventions (all fits are least squares on absorbance itself, so the noise is tr
   absorbance when that species is used up; 0 when only it absorbs and the blank is the solvent):
   ``D = A − a_end = ε·l·[X]`` for a fading species, ``a_end − A`` for a growing product.
 - ``zero_order``: ``A = A0 + rate·τ``; ``rate`` is dA/dt (absorbance s⁻¹); k = |rate|/(ε·l) in M s⁻¹.
-- ``first_order``: ``A = a_end + (A0 − a_end)·exp(−k·τ)``; k in s⁻¹, unchanged by the absorbance scale.
+- ``first_order_to_zero``: ``A = a_end + (A0 − a_end)·exp(−k·τ)``; k in s⁻¹, unchanged by the absorbance scale.
 - ``second_order``: ``A = a_end + D0/(1 + k·|D0|·τ)`` with ``D0 = A0 − a_end`` (from 1/[X] = 1/[X]0 + k·t);
   k is in (absorbance·s)⁻¹; multiply by ε·l to get M⁻¹ s⁻¹.
-- ``first_order_plateau``: ``A = A_inf + (A0 − A_inf)·exp(−k·τ)`` with A_inf free; works for fading and growth.
+- ``first_order_to_final``: ``A = A_inf + (A0 − A_inf)·exp(−k·τ)`` with A_inf free; works for fading and growth.
   No guess is needed: the start comes from the integrated law (a straight line in τ and ∫A dτ), or from a grid
   over k where that fails.
 - How the laws are fitted: each is linear in all its parameters but one once that one is fixed, so the search is
@@ -46,6 +46,7 @@ import numpy as np
 from scipy import stats as _stats
 
 from .errors import AnalysisError, FitFailed, InputError, NonFiniteInput, TimeOrderError, TooFewPoints
+from .science import laws as _laws
 from .fitting import FitResult, _package, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq, runs_test
 
 __all__ = [
@@ -57,7 +58,7 @@ __all__ = [
     "initial_rate",
 ]
 
-MODELS: tuple[str, ...] = ("zero_order", "first_order", "second_order", "first_order_plateau")
+MODELS: tuple[str, ...] = ("zero_order", "first_order_to_zero", "second_order", "first_order_to_final")
 _LN2 = math.log(2.0)
 _TOL = 1.49012e-08  # curve_fit's default: parameters settle far below any standard error
 _MIN_WINDOW = 6
@@ -105,7 +106,7 @@ def _half_life(result: FitResult) -> None:
     v, c, names = result.values, result.cov, result.names
     a_end = result.inputs.get("a_end", 0.0)
     grad = [0.0] * len(names)
-    if result.model in ("first_order", "first_order_plateau"):
+    if result.model in ("first_order_to_zero", "first_order_to_final"):
         k = v["k"]
         value = _LN2 / k
         grad[names.index("k")] = -_LN2 / k**2
@@ -127,9 +128,9 @@ def _half_life(result: FitResult) -> None:
 
 
 def half_life(result: FitResult) -> tuple[float, float]:
-    """``(half-life, its SE)`` in seconds from a fitted zero-, first-, second-order or plateau model."""
+    """``(half-life, its SE)`` in seconds from a fitted zero-, first- or second-order law."""
     if "half_life_s" not in result.extra:
-        raise InputError(f"model {result.model!r} has no half-life; fit first_order or first_order_plateau")
+        raise InputError(f"model {result.model!r} has no half-life; fit first_order_to_zero or first_order_to_final")
     return result.extra["half_life_s"], result.extra["half_life_se_s"]
 
 
@@ -171,9 +172,9 @@ def _plateau_start(tau: np.ndarray, a: np.ndarray) -> tuple[float, float, float]
 # -- the fast path: one nonlinear parameter, the others linear ---------------------------------------------------
 #
 # Each nonlinear law is linear in all but one parameter once that one is fixed (variable projection):
-#   first_order          A − a_end = d0·e^(−kτ)                      linear in d0 given k
+#   first_order_to_zero  A − a_end = d0·e^(−kτ)                      linear in d0 given k
 #   second_order         A − a_end = d0/(1 + c·τ),  c = k·sign·d0   linear in d0 given c
-#   first_order_plateau  A = A_inf + d·e^(−kτ),     d = A0 − A_inf  linear in (A_inf, d) given k
+#   first_order_to_final A = A_inf + d·e^(−kτ),     d = A0 − A_inf  linear in (A_inf, d) given k
 # so the fit is a 1-D search over k (or c): Newton on the reduced sum of squares, whose first and second derivatives
 # variable projection gives in closed form (Gauss–Newton, Kaufman's step, where the second derivative is not
 # positive), with step halving so the weighted RSS never rises. Every weighted sum an iteration needs comes from one
@@ -430,7 +431,7 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
     tau, a = m.tau, m.a
     if model == "zero_order":
         return _fast_line(m, inputs)
-    if model == "first_order_plateau":
+    if model == "first_order_to_final":
         c = math.nan
         X = np.column_stack([np.ones_like(tau), tau, m.integral()])
         try:
@@ -463,7 +464,7 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
         return _package(model, ("A0", "A_inf", "k"), beta, cov, m.tau, m.a, resid, rss, inputs=inputs)
     integral_d = m.integral() - a_end * tau  # ∫(A − a_end) dτ
     d = a - a_end
-    if model == "first_order":
+    if model == "first_order_to_zero":
         _, slope = _line(integral_d, d)  # D = D0 − k·∫D dτ (the law, integrated)
         k0 = -slope
         if not (math.isfinite(k0) and k0 > 0):
@@ -545,7 +546,7 @@ def _fit_reference(
         return linear_lstsq(np.column_stack([np.ones_like(tau), tau]), a, ("A0", "rate"), model=model, x=tau,
                             inputs=inputs, weights=w)
     d = a - a_end
-    if model == "first_order":
+    if model == "first_order_to_zero":
         k0 = _first_order_start(tau, d)
         # a simple line in log space gives the start; the fit itself is on absorbance
         def f(x: np.ndarray, a0: float, k: float) -> np.ndarray:
@@ -572,7 +573,7 @@ def _fit_reference(
 
         return nonlinear_lstsq(f2, tau, a, (a_end + sign / inv_d0, k0), ("A0", "k"), model=model, jac=jac2,
                                inputs=inputs, tol=_TOL, weights=w)
-    if model == "first_order_plateau":
+    if model == "first_order_to_final":
         start = _plateau_start(tau, a)
         return nonlinear_lstsq(_plateau, tau, a, start, ("A0", "A_inf", "k"), model=model, jac=_plateau_jac,
                                inputs=inputs, tol=_TOL, weights=w)
@@ -582,7 +583,7 @@ def _fit_reference(
 def fit_model(
     t: Any,
     A: Any,
-    model: str = "first_order_plateau",
+    model: str = "first_order_to_final",
     *,
     mask: Any = None,
     inputs: Mapping[str, Any] | None = None,
@@ -595,12 +596,12 @@ def fit_model(
     Parameters
     ----------
     t, A : times (s, strictly increasing) and absorbances of the run.
-    model : one of ``MODELS``.
+    model : one of ``MODELS`` (an old name of ``laws.OLD_NAMES`` still works, with a ``DeprecationWarning``).
     mask : boolean array, True where a point must be left out (e.g. ``optics_result.mask``); such points may be NaN.
     inputs : plain-JSON record of where the run came from (run id, blank id...), kept in ``result.inputs``.
     t_start : leave out points before this time (dead time while mixing and placing the cuvette).
-    a_end : absorbance when the followed species is used up (zero-, first- and second-order laws; the plateau
-        model fits it).
+    a_end : absorbance when the followed species is used up (zero-, first- and second-order laws; the law
+        first_order_to_final fits it).
     weights : relative weights (1/variance of A up to a constant), e.g. ``optics_result.weights`` when the count
         noise is about constant — A read at low light is noisier, and unweighted SEs then understate the truth.
 
@@ -608,8 +609,9 @@ def fit_model(
     -------
     FitResult with ``extra``: ``time_origin_s``, ``runs_test``, ``half_life_s``/``half_life_se_s`` where defined.
     """
+    model = _laws.resolve(model)
     if model not in MODELS:
-        raise InputError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
+        raise InputError(f"unknown rate law {model!r}; choose one of {', '.join(MODELS)}")
     return _fit_prepared(_points(t, A, mask, t_start, weights), model, inputs, t_start, a_end)
 
 
@@ -637,7 +639,7 @@ def _points(t: Any, A: Any, mask: Any, t_start: float | None, weights: Any) -> _
 def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_start: float | None,
                   a_end: float) -> FitResult:
     tv, av = p.tv, p.av
-    k = 3 if model == "first_order_plateau" else 2
+    k = 3 if model == "first_order_to_final" else 2
     if tv.size < k + 2:
         raise TooFewPoints(
             f"{model}: {tv.size} usable points, need at least {k + 2}; record a longer run, a shorter interval, "
@@ -658,7 +660,7 @@ def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_st
     t0 = float(tv[0])
     rec = dict(inputs or {})
     rec.update(model=model, t_start=t_start, points_used=int(tv.size))
-    if model in ("zero_order", "first_order", "second_order"):
+    if model in ("zero_order", "first_order_to_zero", "second_order"):
         rec["a_end"] = a_end
     rec["weighted"] = w is not None
     if p.moments is None:
@@ -803,9 +805,10 @@ def fit_all(
     """
     results: dict[str, FitResult] = {}
     failures: dict[str, str] = {}
+    models = [_laws.resolve(m) for m in models]
     for model in models:
         if model not in MODELS:
-            raise InputError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
+            raise InputError(f"unknown rate law {model!r}; choose one of {', '.join(MODELS)}")
     points = _points(t, A, mask, t_start, weights)  # checked once, shared by every model
     for model in models:
         try:
@@ -813,7 +816,7 @@ def fit_all(
         except InputError:
             raise
         except AnalysisError as exc:
-            if isinstance(exc, TooFewPoints) and model != "first_order_plateau":
+            if isinstance(exc, TooFewPoints) and model != "first_order_to_final":
                 raise
             failures[model] = str(exc)
     if not results:

@@ -1,0 +1,177 @@
+"""How a run's rate-law fits are laid out for a person, the same on the command line, in the report and in ``--json``.
+
+Owns: the order of a fit result — first the answer a chemist reports (the rate constant with its unit and interval,
+and the half-life), then how well the law fits (the residuals in a sentence, and which law fits best and by how
+much), then the full parameter table, then the laws ranked by ΔAICc; the runs test and the raw criteria only in the
+detail. ``layout`` builds that as plain JSON (full precision, keys named for what they are); ``text`` writes it for
+the terminal (numbers through ``render.numbers``). Must never: fit, read the store, or print.
+
+How "by how much" is put in words (common practice for Akaike differences, no source given here): ΔAICc below 2 —
+the data do not tell the two laws apart; 2 to 10 — the next law is clearly less supported; above 10 — the data rule
+it out.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Mapping
+
+from ..fitting import jsonable, t_quantile
+from ..science import laws as _laws
+from . import numbers as _n
+
+__all__ = ["criterion", "layout", "ranked", "text", "verdict"]
+
+LEVEL = 0.95
+
+
+def criterion(fit: Any) -> float:
+    """The ranking criterion of a fit: AICc where the fit has it (small samples), else AIC."""
+    v = fit.extra.get("aicc") if isinstance(fit.extra, Mapping) else None
+    return float(v) if v is not None and not (isinstance(v, float) and math.isnan(v)) else float(fit.aic)
+
+
+def ranked(fits: Mapping[str, Any]) -> list[str]:
+    """Law names, best (lowest AICc) first."""
+    return sorted(fits, key=lambda m: criterion(fits[m]))
+
+
+def _delta(d: float) -> str:
+    """ΔAICc in words' precision: differences of a few units matter, decimals beyond one do not."""
+    if not math.isfinite(d):
+        return "∞"
+    return f"{d:.0f}" if d >= 10 else f"{d:.1f}"
+
+
+def _how_far(delta: float) -> str:
+    if not math.isfinite(delta):
+        return "the data rule it out"
+    if delta < 2.0:
+        return "the data do not tell the two apart"
+    if delta <= 10.0:
+        return "clearly less supported"
+    return "the data rule it out"
+
+
+def verdict(fits: Mapping[str, Any]) -> str:
+    """One sentence: which law fits best and by how much."""
+    order = ranked(fits)
+    best = _laws.title(order[0])
+    if len(order) == 1:
+        return f"Only {best} was fitted."
+    nxt = order[1]
+    delta = criterion(fits[nxt]) - criterion(fits[order[0]])
+    return (f"{best[0].upper() + best[1:]} fits best; the next, {_laws.title(nxt)}, is "
+            f"{_delta(delta)} behind in AICc: {_how_far(delta)}.")
+
+
+def _residuals_sentence(fit: Any) -> str:
+    rt = fit.extra.get("runs_test", {}) or {}
+    p = rt.get("p_value")
+    if p is None:
+        return "Too few residuals to judge their pattern."
+    if p >= 0.05:
+        return "The residuals scatter evenly about the curve."
+    return ("The residuals run in long stretches on one side of the curve: this law misses the shape of the data "
+            "(see --detail).")
+
+
+def _param_row(fit: Any, name: str, law: Any) -> dict[str, Any]:
+    v, se = fit.values[name], fit.stderr.get(name)
+    half = t_quantile(LEVEL, fit.dof) * se if se is not None and math.isfinite(se) else math.nan
+    unit = law.rate_unit if law is not None and name == law.rate_parameter else ""  # absorbances have no unit
+    return {"name": name, "meaning": law.parameters.get(name, name) if law is not None else name,
+            "value": v, "standard_error": se, "interval_95": [v - half, v + half], "unit": unit}
+
+
+def layout(fits: Mapping[str, Any], failures: Mapping[str, str] | None = None, *,
+           law: str | None = None) -> dict[str, Any]:
+    """The ordered plain-JSON layout of one run's fits (module docstring); ``law`` picks the answer (default: the
+    best by AICc)."""
+    order = ranked(fits)
+    chosen = law or order[0]
+    fit = fits[chosen]
+    info = _laws.describe(chosen)
+    rate_name = info.rate_parameter if info is not None else ("k" if "k" in fit.values else "rate")
+    rate = _param_row(fit, rate_name, info)
+    answer: dict[str, Any] = {
+        "law": chosen,
+        "law_title": _laws.title(chosen),
+        "rate_constant" if rate_name == "k" else "rate": {
+            "value": rate["value"], "standard_error": rate["standard_error"], "unit": rate["unit"] or "s⁻¹",
+            "interval_95": rate["interval_95"]},
+    }
+    if "half_life_s" in fit.extra:
+        answer["half_life"] = {"value": fit.extra["half_life_s"], "standard_error": fit.extra["half_life_se_s"],
+                               "unit": "s"}
+    resid = [float(r) for r in getattr(fit, "residuals", [])]
+    worst = max(range(len(resid)), key=lambda i: abs(resid[i])) if resid else None
+    quality: dict[str, Any] = {
+        "points": fit.n,
+        "residual_sd": fit.residual_sd,
+        "largest_residual": None if worst is None else resid[worst],
+        "largest_residual_at_s": None if worst is None or len(fit.x) != len(resid) else float(fit.x[worst]),
+        "residual_unit": "absorbance",
+        "residuals_in_words": _residuals_sentence(fit),
+        "best_law_in_words": verdict(fits),
+    }
+    best_c = criterion(fits[order[0]])
+    ranking = [{"law": m, "law_title": _laws.title(m), "delta_aicc": criterion(fits[m]) - best_c} for m in order]
+    ranking += [{"law": m, "law_title": _laws.title(m), "not_fitted": why} for m, why in (failures or {}).items()]
+    detail = {
+        m: {"aic": f.aic, "aicc": f.extra.get("aicc"), "runs_test": f.extra.get("runs_test"), "n": f.n,
+            "dof": f.dof, "rss": f.rss, "time_origin_s": f.extra.get("time_origin_s"), "success": f.success,
+            "message": f.message, "inputs": f.inputs, "parameters": {n: f.values[n] for n in f.names},
+            "standard_errors": {n: f.stderr[n] for n in f.names}, "covariance": f.cov,
+            "parameter_order": list(f.names)}
+        for m, f in fits.items()
+    }
+    return jsonable({
+        "answer": answer,
+        "how_well_it_fits": quality,
+        "parameters": [_param_row(fit, n, info) for n in fit.names],
+        "laws_ranked": ranking,
+        "detail": detail,
+    })
+
+
+def text(data: Mapping[str, Any], *, detail: bool = False) -> str:
+    """The layout (``layout``'s result) as terminal text, every number rounded by its uncertainty with its unit."""
+    a, q = data["answer"], data["how_well_it_fits"]
+    lines = [f"answer: {a['law_title']}"]
+    key = "rate_constant" if "rate_constant" in a else "rate"
+    r = a[key]
+    word = "k" if key == "rate_constant" else "rate dA/dt"
+    lines.append(f"  {word} = {_n.measured(r['value'], r['standard_error'], r['unit'])}"
+                 f"  (95 % interval {_n.interval(*r['interval_95'], r['standard_error'], r['unit'])})")
+    if "half_life" in a:
+        h = a["half_life"]
+        lines.append(f"  half-life = {_n.measured(h['value'], h['standard_error'], 's')}")
+    lines.append("how well it fits")
+    res = f"  residual SD {_n.quantity(q['residual_sd'], 'absorbance', digits=2)} over {q['points']} readings"
+    if q.get("largest_residual") is not None:
+        res += f"; largest residual {_n.quantity(q['largest_residual'], digits=2)}"
+        if q.get("largest_residual_at_s") is not None:
+            res += f" at {_n.quantity(q['largest_residual_at_s'], 's', digits=3)}"
+    lines += [res, f"  {q['residuals_in_words']}", f"  {q['best_law_in_words']}"]
+    lines.append("parameters (value ± standard error, 95 % interval)")
+    width = max(len(p["meaning"]) for p in data["parameters"])
+    for p in data["parameters"]:
+        lines.append(f"  {p['meaning']:<{width}}  {p['name']:<5}  "
+                     f"{_n.measured(p['value'], p['standard_error'], p['unit'])}  "
+                     f"({_n.interval(*p['interval_95'], p['standard_error'], p['unit'])})")
+    lines.append("laws ranked (ΔAICc: how far behind the best; lower is better)")
+    for i, row in enumerate(data["laws_ranked"], start=1):
+        if "not_fitted" in row:
+            lines.append(f"  -  {row['law_title']}: not fitted ({row['not_fitted']})")
+        else:
+            lines.append(f"  {i}. {row['law_title']:<42} {_delta(row['delta_aicc'])}")
+    if detail:
+        lines.append("detail (criteria, runs test of the residual signs)")
+        for m, d in data["detail"].items():
+            rt = d.get("runs_test") or {}
+            p = rt.get("p_value")
+            lines.append(f"  {m}: AIC {_n.quantity(d['aic'])}, AICc {_n.quantity(d['aicc'])}, n {d['n']}, "
+                         f"dof {d['dof']}, RSS {_n.quantity(d['rss'], digits=3)}, runs-test p "
+                         f"{'n/a' if p is None else _n.quantity(p, digits=2)}")
+    return "\n".join(lines)
