@@ -92,3 +92,50 @@ def test_no_plateau_in_any_output(group, run_csv):
     for args in (["rate", str(run_csv), "--json"], ["rate", str(run_csv), "--detail"], ["rate", "--help"],
                  ["arrhenius", "--help"]):
         assert "plateau" not in CliRunner().invoke(group, args).output.lower()
+
+
+def _database_of_version_0_1(path):
+    """A database as nightcell 0.1 left it: migrations 0001–0003 and results saved under the old law names."""
+    import sqlite_utils
+
+    from nightcell.store import _statements, migration_files
+
+    db = sqlite_utils.Database(path)
+    migrations = sqlite_utils.Migrations("nightcell")
+    for name, sql in [m for m in migration_files() if m[0] < "0004"]:
+        @migrations(name=name)
+        def step(d, _sql=sql):
+            for stmt in _statements(_sql):
+                d.conn.execute(stmt)
+    migrations.apply(db)
+    old = {"best_model": "first_order_plateau",
+           "fits": {"first_order_plateau": {"model": "first_order_plateau", "values": {"k": 0.02}},
+                    "first_order": {"model": "first_order", "values": {"k": 0.019}},
+                    "zero_order": {"model": "zero_order", "values": {"rate": -1e-3}}}}
+    compact = {"sort_keys": True, "separators": (",", ":")}  # how 0.1 wrote result_json
+    db.conn.execute("INSERT INTO results(kind, label, created_unix, nightcell_version, inputs_json, result_json) "
+                    "VALUES ('rate', 'first_order_plateau run', 0, '0.1.0', ?, ?)",
+                    (json.dumps({"model": "first_order", "run": "d:1:2"}, **compact), json.dumps(old, **compact)))
+    db.conn.execute("INSERT INTO results(kind, label, created_unix, nightcell_version, inputs_json, result_json) "
+                    "VALUES ('calibration', 'bench A', 0, '0.1.0', '{}', '{\"model\":\"line\"}')")
+    db.conn.commit()
+    db.close()
+
+
+def test_migration_renames_the_laws_of_stored_results(tmp_path):
+    from nightcell.store import Store
+
+    path = tmp_path / "old.db"
+    _database_of_version_0_1(path)
+    with Store.open(path) as store:
+        rows = store.query("SELECT label, inputs_json, result_json FROM results ORDER BY id")
+    rate, cal = rows
+    result, inputs = json.loads(rate["result_json"]), json.loads(rate["inputs_json"])
+    assert result["best_model"] == "first_order_to_final"
+    assert set(result["fits"]) == {"first_order_to_final", "first_order_to_zero", "zero_order"}
+    assert result["fits"]["first_order_to_final"] == {"model": "first_order_to_final", "values": {"k": 0.02}}
+    assert result["fits"]["first_order_to_zero"]["model"] == "first_order_to_zero"
+    assert inputs == {"model": "first_order_to_zero", "run": "d:1:2"}
+    assert rate["label"] == "first_order_plateau run"  # a user's label is theirs: only law names are renamed
+    assert json.loads(cal["result_json"]) == {"model": "line"}
+    assert "plateau" not in rate["result_json"]
