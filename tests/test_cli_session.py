@@ -158,9 +158,11 @@ def test_calibration_recovers_the_invented_absorptivity(session):
 def test_rate_recovers_the_invented_fading_rate(session):
     _, by, _ = session
     out = by["rate"].output
-    assert "best rate law by AIC:" in out
-    k_line = next(line for line in out.splitlines() if line.strip().startswith("k "))
-    k, se = float(k_line.split()[1]), float(k_line.split()[3])
+    # the answer first: k with its unit, then how well the law fits, the parameters, the laws ranked
+    assert out.index("answer:") < out.index("how well it fits") < out.index("parameters") < out.index("laws ranked")
+    k_line = next(line for line in out.splitlines() if line.strip().startswith("k = "))
+    k, se = float(k_line.split()[2]), float(k_line.split()[4])
+    assert k_line.split()[5] == "s⁻¹"
     # times come from the host's clock anchors (clock and sync); the board runs in real time here
     assert abs(k - K_PER_S) < 4 * se
 
@@ -172,7 +174,8 @@ def test_report_and_export_write_their_files(session):
     assert len(html) == 1 and html[0].name.startswith("dye_fading-5e55000000000001-1-")
     assert len(list(reports.glob("*.png"))) == 2 and len(list(reports.glob("*.svg"))) == 2
     page = html[0].read_text(encoding="utf-8")
-    assert "data:image/png;base64," in page and "Rate laws compared" in page
+    assert "data:image/png;base64," in page and "Rate laws ranked" in page
+    assert "stirred once" in page  # the note taken during the run is on its page
     csv = workdir / "csv"
     names = sorted(p.name for p in csv.iterdir())
     assert "marks.csv" in names

@@ -429,6 +429,28 @@ def run_conditions(store: Store, run: Run | str | None = None) -> dict[str, dict
 _RESET_CAUSES = {0: "power on", 1: "watchdog", 2: "hard reset", 3: "reset requested by the host"}
 
 
+def run_notes(store: Store, analysis: RunAnalysis) -> list[dict[str, Any]]:
+    """Notes journaled during a run (``nightcell note`` or the board's button), placed on the run's time axis.
+
+    A note sits between two readings in the journal; it is given the time of the reading just before it (at most one
+    sample interval early). Returns ``[{"time_s", "text", "mark"}]`` in journal order; the mark key is for detail.
+    """
+    run = analysis.run
+    seqs = analysis.seqs
+    if not seqs:
+        return []
+    first, last = seqs[0], seqs[-1]
+    out = []
+    for m in store.marks(run.device, "note"):
+        key = (m["boot"], m["seq"])
+        if not (first <= key <= last):
+            continue
+        i = bisect.bisect_right(seqs, key) - 1
+        out.append({"time_s": float(analysis.time_s[max(i, 0)]), "text": m["label"] or m["value"] or "",
+                    "mark": f"{key[0]}:{key[1]}"})
+    return out
+
+
 def run_provenance(store: Store, analysis: RunAnalysis, calibration: Any = None) -> dict[str, Any]:
     """Where a run's numbers come from: device, firmware, boots, clocks, blank, calibration, settings and conditions.
 

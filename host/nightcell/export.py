@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any, Iterable, Sequence
 
 from . import report as _report
-from .analyse import analyse_run, calibrate_from_store, run_conditions, run_provenance, run_series
+from .analyse import analyse_run, calibrate_from_store, run_conditions, run_notes, run_provenance, run_series
 from .errors import AnalysisError, InputError
 from .optics import flag_names
 from .report import out_folder, write_atomic
@@ -143,7 +143,7 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
     provenance = run_provenance(store, analysis, cal)
     conditions = run_conditions(store, run).get(run.key)
     files = _report.run_report(analysis, out, calibration=cal, provenance=provenance, conditions=conditions,
-                               name=run_name(run), cache=cache)
+                               name=run_name(run), cache=cache, notes=run_notes(store, analysis))
     done.files += files.files
     return done
 
@@ -168,11 +168,13 @@ def study_report(store: Store, out: str | Path, channel: int = 0) -> Written:
     for it in study.runs:
         prov = run_provenance(store, it.analysis, it.calibration)
         files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
-                                   conditions=conds.get(it.run.key), name=run_name(it.run), cache=cache)
+                                   conditions=conds.get(it.run.key), name=run_name(it.run), cache=cache,
+                                   notes=run_notes(store, it.analysis))
         pages[it.run.key] = f"runs/{files.html.name}"
         done.files += files.files
     prov = {"database": store.path, "runs": len(study.runs), "channel": channel}
-    files = _report.study_report(study, out, name="study", provenance=prov, run_pages=pages)
+    files = _report.study_report(study, out, name="study", provenance=prov, run_pages=pages,
+                                 device_labels={d["device"]: d["label"] for d in store.devices()})
     done.files = files.files + done.files
     done.skipped += [f"run {key}: {why}" for key, why in study.skipped.items()]
     return done
