@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from nightcell import analysis_cli, kinetics
+from nightcell.cli import analysis as analysis_cli
+from nightcell.science import kinetics
 from nightcell.science import laws
 
 T = np.arange(0, 600, 10.0)
@@ -98,7 +99,7 @@ def _database_of_version_0_1(path):
     """A database as nightcell 0.1 left it: migrations 0001–0003 and results saved under the old law names."""
     import sqlite_utils
 
-    from nightcell.store import _statements, migration_files
+    from nightcell.store.database import _statements, migration_files
 
     db = sqlite_utils.Database(path)
     migrations = sqlite_utils.Migrations("nightcell")
@@ -123,7 +124,7 @@ def _database_of_version_0_1(path):
 
 
 def test_migration_renames_the_laws_of_stored_results(tmp_path):
-    from nightcell.store import Store
+    from nightcell.store.database import Store
 
     path = tmp_path / "old.db"
     _database_of_version_0_1(path)

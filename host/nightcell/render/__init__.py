@@ -1,1 +1,4 @@
-"""Render room: figures, HTML, files, and the one way numbers are written for people."""
+"""Rendering: figures, self-contained HTML and CSV files from results.
+
+Never opens the database or a port, and never imports the commands or the tasks.
+"""

@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 from typing import Any, Mapping
 
-from ..fitting import jsonable, t_quantile
+from ..science.fitting import jsonable, t_quantile
 from ..science import laws as _laws
 from . import numbers as _n
 

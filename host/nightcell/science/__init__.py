@@ -1,1 +1,4 @@
-"""Science room: optics, timeline, calibration, kinetics, studies and fitting (numpy/scipy only, no I/O)."""
+"""The science: optics, boot clocks, calibration, kinetics, several-run studies and the one fit-result shape.
+
+numpy and scipy only: no files, no database, no ports, no figures.
+"""
