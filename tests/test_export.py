@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import csv
 import json
+import re
 import sqlite3
 import time
 from pathlib import Path
@@ -110,6 +111,8 @@ def test_rate_on_a_run_without_blank_is_exit_5_and_saves_nothing(db):
     before = sqlite3.connect(db).execute("SELECT count(*) FROM results").fetchone()[0]
     r = _cli("rate", "--db", db, "--run", "before any blank")
     assert r.exit_code == 5 and "has no blank before" in r.output and "nightcell blank" in r.output
+    # the mark is named by its label and local time, never as a Python tuple such as "(1, 4)"
+    assert "the start of run 'before any blank'" in r.output and not re.search(r"\(\d+, \d+\)", r.output), r.output
     assert sqlite3.connect(db).execute("SELECT count(*) FROM results").fetchone()[0] == before
 
 

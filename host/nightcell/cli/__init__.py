@@ -46,10 +46,16 @@ def _connected(port: str) -> Iterator[tuple[Any, dict[str, Any]]]:
         yield board, board.hello()
 
 
-def _utc(unix_s: float | None) -> str:
-    if unix_s is None:
-        return ""
-    return datetime.datetime.fromtimestamp(unix_s, datetime.timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
+def _utc(unix_s: float | None, seconds: bool = True) -> str:
+    """A stored moment as a person reads it: local time with its zone named (stored in UTC)."""
+    from ..render.numbers import local_time
+
+    return local_time(unix_s, seconds=seconds)
+
+
+def _labels(store: Any) -> dict[str, str]:
+    """Device id → its label ("bench A"), or the id where it has none."""
+    return {d["device"]: d["label"] or d["device"] for d in store.devices()}
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
@@ -554,8 +560,9 @@ def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) ->
     from rich.text import Text
 
     table = Table(title=title, title_justify="left")
-    for c in columns:
-        table.add_column(c, overflow="fold")
+    for i, c in enumerate(columns):
+        # the first column names the row (a number or id that --run, --device take): never folded
+        table.add_column(c, overflow="fold", no_wrap=i == 0)
     for row in rows:
         table.add_row(*[Text("" if v is None else str(v)) for v in row])
     Console(highlight=False).print(table)
@@ -602,9 +609,9 @@ def list_devices(store: Any) -> tuple:
         n_samples = store.query("SELECT count(*) AS n FROM samples WHERE device = ? AND channel = 0",
                                 (d["device"],))[0]["n"]
         data.append(dict(d, runs=n_runs, samples=n_samples))
-    rows = [(d["device"], d["label"] or "", d["board"], d["firmware"], d["runs"], d["samples"],
-             _utc(d["last_seen_unix"])) for d in data]
-    return ("devices", ("device", "label", "board", "firmware", "runs", "samples", "last synced"), rows, data,
+    rows = [(d["label"] or "", d["device"], d["runs"], d["samples"], _utc(d["last_seen_unix"], seconds=False))
+            for d in data]
+    return ("devices", ("label", "device id", "runs", "readings", "last synced"), rows, data,
             "no devices yet: sync a board with `nightcell sync --port PORT --db DB`")
 
 
@@ -615,21 +622,26 @@ def _mark_times(store: Any, mark: str) -> dict[tuple[str, int, int], str]:
 
 @_list_command("runs")
 def list_runs(store: Any) -> tuple:
-    """Runs in the database: key (what --run takes), label, start time, samples, open or stopped.
+    """Runs in the database: number and label (either is what --run takes, as is the key in --json), bench, start
+    time, readings, open or stopped.
 
     Example: nightcell list runs --db class.db
     """
     starts = _mark_times(store, "run_start")
+    labels = _labels(store)
     data = []
-    for run in store.runs():
+    for number, run in enumerate(store.runs(), start=1):
         d = run.to_dict()
+        d["number"] = number
+        d["bench"] = labels.get(run.device, run.device)
         d["samples"] = len(store.run_samples(run))
         d["started_utc"] = starts.get((run.device, run.start_boot, run.start_seq), "")
         d["state"] = "stopped" if run.stop_seq is not None else "open (still logging, or not synced to its stop)"
         data.append(d)
-    rows = [(d["key"], d["label"], d["started_utc"], d["samples"], "stopped" if d["stop_seq"] is not None else "open")
-            for d in data]
-    return ("runs", ("run", "label", "started (UTC)", "samples", "state"), rows, data,
+    rows = [(f"#{d['number']}", d["label"], d["bench"], _utc(d["started_utc"] or None, seconds=False), d["samples"],
+             "stopped" if d["stop_seq"] is not None else "open") for d in data]
+    return ("runs (--run takes the number, e.g. --run 1, or the label)",
+            ("#", "run", "bench", "started", "readings", "state"), rows, data,
             "no runs yet: start one with `nightcell start`, then `nightcell sync`")
 
 
@@ -640,17 +652,19 @@ def list_blanks(store: Any) -> tuple:
     Example: nightcell list blanks --db class.db
     """
     times = _mark_times(store, "blank")
+    labels = _labels(store)
     data = []
     for m in store.marks(mark="blank"):
         reads = max(1, m["reads"])
-        data.append({"device": m["device"], "blank": f"{m['boot']}:{m['seq']}", "label": m["label"],
+        data.append({"device": m["device"], "bench": labels.get(m["device"], m["device"]),
+                     "blank": f"{m['boot']}:{m['seq']}", "label": m["label"],
                      "taken_utc": times.get((m["device"], m["boot"], m["seq"]), ""),
                      "light_per_read": [v / reads for v in m["light"]],
                      "dark_per_read": [v / reads for v in m["dark"]]})
-    rows = [(d["device"], d["blank"], d["label"], d["taken_utc"],
+    rows = [(d["bench"], d["label"], _utc(d["taken_utc"] or None, seconds=False),
              " ".join(f"{v:.1f}" for v in d["light_per_read"]), " ".join(f"{v:.1f}" for v in d["dark_per_read"]))
             for d in data]
-    return ("blanks", ("device", "blank", "label", "taken (UTC)", "light/read", "dark/read"), rows, data,
+    return ("blanks (counts per read)", ("bench", "label", "taken", "light", "dark"), rows, data,
             "no blanks yet: take one with `nightcell blank`, then `nightcell sync`")
 
 
@@ -668,15 +682,18 @@ def list_calibrations(store: Any) -> tuple:
 
     Example: nightcell list calibrations --db class.db
     """
+    from ..render.numbers import measured
+
     data = _results(store, "calibration")
+    labels = _labels(store)
     rows = []
     for r in data:
         res = r["result"]
         slope, se = res.get("values", {}).get("slope"), res.get("stderr", {}).get("slope")
-        rows.append((r["id"], r["label"], r["inputs"].get("device", ""), res.get("model", ""), res.get("n", ""),
-                     "" if slope is None else f"{slope:.6g} ± {se:.2g}" if se is not None else f"{slope:.6g}",
-                     _utc(r["created_unix"])))
-    return ("calibrations", ("id", "label", "device", "model", "standards", "slope ± SE", "saved"), rows, data,
+        device = r["inputs"].get("device", "")
+        rows.append((r["id"], r["label"], labels.get(device, device), res.get("model", ""), res.get("n", ""),
+                     measured(slope, se), _utc(r["created_unix"], seconds=False)))
+    return ("calibrations", ("id", "label", "bench", "curve", "standards", "slope ± SE", "saved"), rows, data,
             "no calibrations saved yet: fit one with `nightcell calibrate --db DB --device DEVICE`")
 
 
@@ -687,9 +704,16 @@ def list_results(store: Any) -> tuple:
     Example: nightcell list results --db class.db
     """
     data = _results(store, None)
-    rows = [(r["id"], r["kind"], r["label"], r["inputs"].get("run") or r["inputs"].get("device") or "",
-             r["nightcell_version"], _utc(r["created_unix"])) for r in data]
-    return ("results", ("id", "kind", "label", "input", "version", "saved"), rows, data,
+    labels = _labels(store)
+    runs = {run.key: run.label or run.key for run in store.runs()}
+    rows = []
+    for r in data:
+        ins = r["inputs"]
+        source = (runs.get(ins.get("run"), ins.get("run")) if ins.get("run") else
+                  labels.get(ins.get("device", ""), ins.get("device", "")) if ins.get("device") else
+                  ins.get("file", ""))
+        rows.append((r["id"], r["kind"], r["label"], source, _utc(r["created_unix"], seconds=False)))
+    return ("results", ("id", "kind", "label", "from", "saved"), rows, data,
             "no results saved yet: run `nightcell calibrate --db DB` or `nightcell rate --db DB`")
 
 
@@ -702,7 +726,9 @@ def list_conditions(store: Any) -> tuple:
     from ..tasks.analyse import run_conditions
 
     conds = run_conditions(store)
-    rows = [(key, q, f"{v['value']:g}", v["source"]) for key, qs in conds.items() for q, v in sorted(qs.items())]
+    runs = {run.key: run.label or run.key for run in store.runs()}
+    rows = [(runs.get(key, key), q, f"{v['value']:g}", v["source"]) for key, qs in conds.items()
+            for q, v in sorted(qs.items())]
     return ("run conditions", ("run", "quantity", "value", "source"), rows, conds,
             "no conditions recorded yet: record them with `nightcell condition`")
 
@@ -719,7 +745,8 @@ def _concentration(text: str) -> tuple[str, float]:
 
 @cli.command()
 @db_option
-@click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
+@click.option("--run", "run_text", metavar="RUN",
+              help="The run (its number in `list runs`, or its label); default: the only run.")
 @click.option("--temperature-c", "temperature_c", type=float, help="The run's temperature in °C.")
 @click.option("--temperature-k", "temperature_k", type=float, help="The run's temperature in kelvin.")
 @click.option("--conc", "concentrations", multiple=True, metavar="REACTANT=MOLAR",
@@ -757,7 +784,8 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 
 @cli.command()
 @db_option
-@click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
+@click.option("--run", "run_text", metavar="RUN",
+              help="The run (its number in `list runs`, or its label); default: the only run.")
 @click.option("--all", "all_runs", is_flag=True, help="One report per run in the database.")
 @click.option("--study", "study", is_flag=True,
               help="A study page over every run with recorded conditions (orders, Arrhenius, Eyring), linking "
@@ -808,7 +836,8 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
 
 @cli.command()
 @db_option
-@click.option("--run", "run_text", metavar="KEY", help="Only this run (key or label); default: every run.")
+@click.option("--run", "run_text", metavar="RUN",
+              help="Only this run (its number in `list runs`, or its label); default: every run.")
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the CSV files.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")

@@ -35,9 +35,10 @@ import numpy as np
 from ..science import calibration as _calibration
 from ..science import kinetics as _kinetics
 from ..science import study as _study
-from .options import friendly, json_option
+from .options import db_from_environment, friendly, json_option, source_db_option
 from ..errors import InputError
 from ..render import fit_layout as _layout
+from ..render import numbers as _n
 from ..science import laws as _laws
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
@@ -112,11 +113,7 @@ def _out_option(fn: Callable[..., Any]) -> Callable[..., Any]:
     )(fn)
 
 
-def _db_option(fn: Callable[..., Any]) -> Callable[..., Any]:
-    # the shared --db, without a default here: giving it is what switches a command from CSV to the database
-    return click.option("--db", "db", type=click.Path(dir_okay=False, path_type=Path), default=None,
-                        help="The SQLite database file: analyse stored readings instead of a CSV file, and save "
-                             "the result there.")(fn)
+_db_option = source_db_option
 
 
 def _channel_option(fn: Callable[..., Any]) -> Callable[..., Any]:
@@ -128,12 +125,28 @@ _csv_argument = click.argument("csv_file", required=False,
                                type=click.Path(exists=True, dir_okay=False, path_type=Path))
 
 
-def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: str) -> None:
-    """Exactly the inputs a command needs: a CSV file, or --db (with a run plan CSV where ``csv_with_db``)."""
+def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: str) -> Path | None:
+    """Exactly the inputs a command needs: a CSV file, or --db (with a run plan CSV where ``csv_with_db``).
+
+    Returns the database to use, or None for the CSV file alone: a CSV file typed on the command line wins over a
+    database that only came from ``NIGHTCELL_DB`` (for orders and arrhenius, unless the CSV names runs).
+    """
     if db is None and csv_file is None:
         raise InputError(f"give a CSV file ({what}) or --db DATABASE")
+    if db is not None and csv_file is not None and db_from_environment():
+        if not csv_with_db or "run" not in _header(csv_file):
+            return None
     if db is not None and csv_file is not None and not csv_with_db:
         raise InputError("give a CSV file or --db, not both")
+    return db
+
+
+def _header(path: Path) -> list[str]:
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as fh:
+            return [h.strip() for h in next(csv.reader(fh), [])]
+    except (OSError, UnicodeDecodeError, csv.Error):
+        return []
 
 
 def _open(db: Path) -> Any:
@@ -155,24 +168,45 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None, *,
     click.echo(payload if as_json else text)
 
 
-def _only_device(store: Any, device: str | None) -> str:
-    devices = [d["device"] for d in store.devices()]
+def _only_device(store: Any, device: str | None) -> tuple[str, str]:
+    """The device (its id and its label, the id when it has none) that ``device`` names by id or label."""
+    from ..tasks.export import did_you_mean
+
+    known = {d["device"]: d["label"] or d["device"] for d in store.devices()}
     if device is not None:
-        if device not in devices:
-            raise InputError(f"no device {device!r} in {store.path} (devices: {', '.join(devices) or 'none'})")
-        return device
-    if len(devices) == 1:
-        return devices[0]
-    if not devices:
+        if device in known:
+            return device, known[device]
+        by_label = [d for d, label in known.items() if label == device]
+        if len(by_label) == 1:
+            return by_label[0], device
+        if by_label:
+            raise InputError(f"{len(by_label)} devices are labelled {device!r}: name one by its id "
+                             f"({', '.join(by_label)})")
+        raise InputError(f"no device {device!r} in {store.path}{did_you_mean(device, list(known.values()))} "
+                         f"Devices: {', '.join(_device_names(known)) or 'none'}")
+    if len(known) == 1:
+        return next(iter(known.items()))
+    if not known:
         raise InputError(f"{store.path} holds no devices yet: sync a board first")
-    raise InputError(f"{store.path} holds {len(devices)} devices: name one with --device "
-                     f"({', '.join(devices)})")
+    raise InputError(f"{store.path} holds {len(known)} devices: name one with --device "
+                     f"({', '.join(_device_names(known))})")
+
+
+def _device_names(known: dict[str, str]) -> list[str]:
+    return [label if label != device else device for device, label in known.items()]
+
+
+def _detail_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    return click.option("--detail", is_flag=True,
+                        help="Also print the fit criteria (AIC, AICc), the runs test of the residual signs, and "
+                             "the marks the run was read against.")(fn)
 
 
 @click.command("calibrate")
 @_csv_argument
 @_db_option
-@click.option("--device", default=None, help="With --db: the device whose standards to fit (default: the only one).")
+@click.option("--device", default=None,
+              help="With --db: the device (its label or id) whose standards to fit (default: the only one).")
 @_channel_option
 @click.option("--quadratic", is_flag=True, help="Fit a quadratic instead of a straight line.")
 @click.option("--through-origin", is_flag=True, help="Fit without an intercept.")
@@ -182,12 +216,13 @@ def _only_device(store: Any, device: str | None) -> str:
 @click.option("--blank-sd", type=float, default=None,
               help="SD of repeated blank absorbances; LOD/LOQ then use it as σ.")
 @click.option("--level", type=float, default=0.95, show_default=True, help="Confidence level of intervals.")
+@_detail_option
 @json_option
 @_out_option
 @friendly
 def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None, channel: int, quadratic: bool,
                       through_origin: bool, readings: tuple[float, ...], path_cm: float | None,
-                      blank_sd: float | None, level: float, as_json: bool, out: Path | None) -> None:
+                      blank_sd: float | None, level: float, detail: bool, as_json: bool, out: Path | None) -> None:
     """Fit a calibration curve to standards, from a CSV file or from a device's standards in the database.
 
     CSV columns: concentration,absorbance[,weight][,replicate]. With --db the standards are the device's standard
@@ -197,7 +232,7 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
 
     Example: nightcell calibrate --db class.db --device 5e1f000000000001
     """
-    _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
+    db = _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
     options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
                    blank_sd=blank_sd)
     saved = None
@@ -205,26 +240,24 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
         from ..tasks.analyse import calibrate_from_store
 
         with _open(db) as store:
-            device = _only_device(store, device)
+            device, label = _only_device(store, device)
             cal = calibrate_from_store(store, device, channel, **options)
-            saved = store.save_result("calibration", f"{device} standards", cal.inputs, cal.to_dict())
+            saved = store.save_result("calibration", f"{label} standards", cal.inputs, cal.to_dict())
     else:
         assert csv_file is not None
         cols = read_columns(csv_file, ["concentration", "absorbance"], ["weight"], min_rows=3)
         cal = _calibration.fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
                                            inputs={"file": csv_file.name}, **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
-    text = cal.report()
+    text = _layout.calibration_text(cal, detail=detail)
     if readings:
         pred = cal.predict(list(readings))
         data["prediction"] = pred.to_dict()
-        text += (f"\nunknown (mean of {pred.m} reading(s) = {pred.reading:.6g}): {pred.value:.6g} ± {pred.stderr:.3g}"
-                 f", {pred.level:.0%} interval {pred.ci_low:.6g} to {pred.ci_high:.6g}"
-                 + ("  (outside the standards' range)" if pred.extrapolated else ""))
+        text += "\n" + _layout.prediction_text(pred)
     if path_cm is not None:
         eps = cal.molar_absorptivity(path_cm)
         data["molar_absorptivity"] = eps.to_dict()
-        text += f"\nmolar absorptivity: {eps.value:.6g} ± {eps.stderr:.3g} {eps.unit}"
+        text += f"\nmolar absorptivity: {_n.measured(eps.value, eps.stderr, eps.unit)}"
     if saved is not None:
         data["result_id"] = saved
         text += f"\nsaved in {db} as result {saved}"
@@ -243,12 +276,6 @@ class LawChoice(click.Choice):
             click.echo(f"warning: {_laws.deprecation(value)}", err=True)
             value = _laws.OLD_NAMES[value]
         return super().convert(value, param, ctx)
-
-
-def _detail_option(fn: Callable[..., Any]) -> Callable[..., Any]:
-    return click.option("--detail", is_flag=True,
-                        help="Also print the fit criteria (AIC, AICc), the runs test of the residual signs, and "
-                             "the marks the run was read against.")(fn)
 
 
 def _run_layout(analysis: Any) -> dict[str, Any]:
@@ -292,7 +319,8 @@ def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, fl
 @click.command("rate")
 @_csv_argument
 @_db_option
-@click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
+@click.option("--run", "run_text", metavar="RUN",
+              help="With --db: the run (its number in `list runs`, or its label); default: the only run.")
 @_channel_option
 @click.option("--model", type=LawChoice(extra=("all", "initial_rate")), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
@@ -317,7 +345,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
 
     Example: nightcell rate --db class.db --run "dye fading"
     """
-    _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
+    db = _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
     if db is not None:
         from ..tasks.analyse import analyse_run
         from ..tasks.export import resolve_run
@@ -390,33 +418,74 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
     Example: nightcell orders initial_rates.csv --nonlinear
 
     Example: nightcell orders --db class.db runs_and_concentrations.csv
+
+    Without a CSV, --db takes the runs whose starting concentrations were recorded with `nightcell condition`.
     """
-    _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
-    assert csv_file is not None
-    inputs: dict[str, Any] = {"file": csv_file.name}
-    if db is not None:
-        cols = read_columns(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",))
-    else:
-        cols = read_columns(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
-    conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
-    if not conc:
-        raise InputError(f"{csv_file} has no concentration columns; add one column per reactant named conc_<name>")
+    db = _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
     with contextlib.ExitStack() as opened:
         store = None if db is None else opened.enter_context(_open(db))
+        if csv_file is None:
+            cols, source = _plan_from_conditions(store, "orders"), "recorded conditions"
+        elif store is not None:
+            cols, source = read_columns(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",)), csv_file.name
+        else:
+            cols = read_columns(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
+            source = csv_file.name
+        inputs: dict[str, Any] = {"file": source}
+        conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
+        if not conc:
+            raise InputError(f"{csv_file} has no concentration columns; add one column per reactant named "
+                             "conc_<name>")
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
             fits = [_initial_rate_of(store, run, channel, None) for run in runs]
             cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
             cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
-            inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
+            inputs = {"file": source, "runs": [r.key for r in runs], "channel": channel,
                       "rate_rule": "initial_rate, window chosen automatically, flagged readings left out"}
         result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
         data, text = result.to_dict(), result.report()
         if store is not None:
-            saved = store.save_result("orders", csv_file.stem, inputs, data)
+            saved = store.save_result("orders", Path(source).stem, inputs, data)
             data = dict(data, result_id=saved)
             text += f"\nsaved in {db} as result {saved}"
     _finish(data, text, as_json, out)
+
+
+def _plan_from_conditions(store: Any, kind: str) -> dict[str, np.ndarray]:
+    """The runs and their recorded conditions (``nightcell condition``), as the CSV plan would give them."""
+    from ..tasks.analyse import run_conditions
+
+    if not store.runs():
+        raise InputError(f"{store.path} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
+    conds = run_conditions(store)
+    if kind == "orders":
+        have = {k: c for k, c in conds.items() if any(q.startswith("conc_") for q in c)}
+        what, how = "starting concentration", "--conc REACTANT=MOLAR"
+        plan = "a CSV naming the runs (columns run,conc_<name>)"
+    else:
+        have = {k: c for k, c in conds.items() if "temperature_K" in c}
+        what, how = "temperature", "--temperature-c DEGREES"
+        plan = "a CSV naming the runs (column run, and temperature_K unless the runs have a probe)"
+    if not have:
+        raise InputError(f"no run in {store.path} has a recorded {what}: record each run's with `nightcell condition "
+                         f"--db {store.path} --run RUN {how}`, or give {plan}")
+    keys = sorted(have)
+    if len(keys) < 3:
+        raise InputError(f"only {len(keys)} run(s) in {store.path} have a recorded {what}; this needs at least 3: "
+                         f"record more with `nightcell condition --db {store.path} --run RUN {how}`")
+    cols: dict[str, np.ndarray] = {"run": np.array(keys, dtype=object)}
+    if kind == "orders":
+        names = sorted({q for c in have.values() for q in c if q.startswith("conc_")})
+        incomplete = [k for k in keys if not all(n in have[k] for n in names)]
+        if incomplete:
+            raise InputError(f"run {incomplete[0]} has no recorded {', '.join(n for n in names if n not in have[incomplete[0]])}: "
+                             f"record it with `nightcell condition`, or give {plan}")
+        for n in names:
+            cols["conc_" + n[len("conc_"):-len("_M")]] = np.array([have[k][n]["value"] for k in keys])
+    else:
+        cols["temperature_K"] = np.array([have[k]["temperature_K"]["value"] for k in keys])
+    return cols
 
 
 def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
@@ -451,16 +520,20 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
     Example: nightcell arrhenius rate_constants.csv --eyring --out activation.json
 
     Example: nightcell arrhenius --db class.db runs_and_temperatures.csv
+
+    Without a CSV, --db takes the runs whose temperatures were recorded with `nightcell condition`.
     """
-    _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
-    assert csv_file is not None
-    inputs: dict[str, Any] = {"file": csv_file.name}
-    if db is not None:
-        cols = read_columns(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
-    else:
-        cols = read_columns(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3)
+    db = _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     with contextlib.ExitStack() as opened:
         store = None if db is None else opened.enter_context(_open(db))
+        if csv_file is None:
+            cols, source = _plan_from_conditions(store, "arrhenius"), "recorded conditions"
+        elif store is not None:
+            cols = read_columns(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
+            source = csv_file.name
+        else:
+            cols, source = read_columns(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3), csv_file.name
+        inputs: dict[str, Any] = {"file": source}
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
             got = [_k_and_temperature(store, run, channel, model) for run in runs]
@@ -468,11 +541,11 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
                 missing = [r.key for r, g in zip(runs, got) if g[2] is None]
                 if missing:
                     raise InputError(f"run {missing[0]} has no solution temperature (no probe): add a "
-                                     f"temperature_K column to {csv_file}")
+                                     f"temperature_K column to {source}")
                 cols["temperature_K"] = np.array([g[2] for g in got])
             cols["k"] = np.array([g[0] for g in got])
             cols["k_se"] = np.array([g[1] for g in got])
-            inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel, "model": model,
+            inputs = {"file": source, "runs": [r.key for r in runs], "channel": channel, "model": model,
                       "temperature": "from the CSV" if "temperature_K" in cols and not all(g[2] for g in got)
                       else "CSV column, else the run's mean probe temperature"}
         fit = _study.arrhenius(cols["temperature_K"], cols["k"], cols.get("k_se"), inputs=inputs)
@@ -483,7 +556,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             data["eyring"] = ey.to_dict()
             text += "\n" + ey.report()
         if store is not None:
-            saved = store.save_result("arrhenius", csv_file.stem, inputs, data)
+            saved = store.save_result("arrhenius", Path(source).stem, inputs, data)
             data["result_id"] = saved
             text += f"\nsaved in {db} as result {saved}"
     _finish(data, text, as_json, out)

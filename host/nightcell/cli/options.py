@@ -13,7 +13,8 @@ import click
 
 from ..errors import NightcellError
 
-__all__ = ["EXIT_CODES", "friendly", "db_option", "port_option", "json_option", "emit"]
+__all__ = ["EXIT_CODES", "friendly", "db_option", "db_from_environment", "port_option", "json_option", "emit",
+           "source_db_option"]
 
 EXIT_CODES = {
     0: "success",
@@ -53,6 +54,25 @@ def db_option(fn: Callable[..., Any]) -> Callable[..., Any]:
     return click.option("--db", "db", type=click.Path(dir_okay=False, path_type=Path), default="nightcell.db",
                         show_default=True, envvar="NIGHTCELL_DB", show_envvar=True,
                         help="The SQLite database file.")(fn)
+
+
+def source_db_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """``--db`` for the commands that read either a CSV file or the database (calibrate, rate, orders, arrhenius).
+
+    The same option and the same ``NIGHTCELL_DB`` as every other command, without a default: giving it (or the
+    variable) is what switches the command to the database. A CSV file given on the command line still wins over the
+    variable (``db_from_environment`` tells the command which it was).
+    """
+    return click.option("--db", "db", type=click.Path(dir_okay=False, path_type=Path), default=None,
+                        envvar="NIGHTCELL_DB", show_envvar=True,
+                        help="The SQLite database file: analyse stored readings instead of a CSV file, and save "
+                             "the result there.")(fn)
+
+
+def db_from_environment() -> bool:
+    """True when the running command's ``--db`` came from ``NIGHTCELL_DB`` rather than the command line."""
+    ctx = click.get_current_context(silent=True)
+    return ctx is not None and ctx.get_parameter_source("db") == click.core.ParameterSource.ENVIRONMENT
 
 
 def port_option(fn: Callable[..., Any]) -> Callable[..., Any]:

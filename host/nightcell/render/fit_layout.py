@@ -175,3 +175,51 @@ def text(data: Mapping[str, Any], *, detail: bool = False) -> str:
                          f"dof {d['dof']}, RSS {_n.quantity(d['rss'], digits=3)}, runs-test p "
                          f"{'n/a' if p is None else _n.quantity(p, digits=2)}")
     return "\n".join(lines)
+
+
+_CAL_UNIT = "per unit of the standards' concentration"
+_CAL_PARAMS = {"intercept": ("intercept", "absorbance"), "slope": ("slope", f"absorbance {_CAL_UNIT}"),
+               "curvature": ("curvature", f"absorbance {_CAL_UNIT}²")}
+
+
+def calibration_text(cal: Any, *, unit: str = "", detail: bool = False) -> str:
+    """A calibration for the terminal: the curve, each coefficient rounded by its standard error with its unit, how
+    well it fits, the limits of detection and quantification; the test statistics behind ``--detail``. ``unit`` is
+    the standards' concentration unit where known."""
+    ex = cal.extra
+    per = f"per {unit}" if unit else _CAL_UNIT
+    kind = {"line": "straight line", "quadratic": "quadratic"}.get(cal.model, cal.model)
+    lines = [f"calibration: {kind}{' through the origin' if cal.through_origin else ''}, {cal.n} standards"]
+    for name in cal.names:
+        word, u = _CAL_PARAMS.get(name, (name, ""))
+        u = u.replace(_CAL_UNIT, per)
+        lines.append(f"  {word:<10} {_n.measured(cal.values[name], cal.stderr[name], u)}")
+    lines.append(f"  residual SD {_n.quantity(cal.residual_sd, 'absorbance', digits=2)}; "
+                 f"r = {ex['r']:.6f}")
+    it = ex.get("intercept_test")
+    if it:
+        lines.append("  the intercept " + ("differs" if it["differs_from_zero"] else "does not differ")
+                     + " from zero" + (f" (t = {it['t']:.2f}, p = {it['p_value']:.2g})" if detail else ""))
+    lin = ex.get("linearity") or {}
+    if lin:
+        lines.append(f"  straightness: {lin['verdict']}")
+    lod_unit = unit or "in the standards' unit"
+    lines.append(f"  limit of detection {_n.quantity(ex.get('lod'), digits=2)}, limit of quantification "
+                 f"{_n.quantity(ex.get('loq'), digits=2)} {lod_unit} (σ from {ex.get('sigma_source', 'the residuals')})")
+    if detail:
+        lines.append(f"  detail: n {cal.n}, dof {cal.dof}, RSS {_n.quantity(cal.rss, digits=3)}, AIC "
+                     f"{_n.quantity(cal.aic)}; straightness test: {lin.get('method', '')}")
+    if not cal.success:
+        lines.append(f"  NOT TRUSTED: {cal.message}")
+    elif cal.message:
+        lines.append(f"  note: {cal.message}")
+    return "\n".join(lines)
+
+
+def prediction_text(pred: Any, *, unit: str = "") -> str:
+    """An unknown's concentration, rounded by its standard error, with its interval and unit."""
+    return (f"unknown (mean of {pred.m} reading(s), absorbance {_n.quantity(pred.reading)}): "
+            f"{_n.measured(pred.value, pred.stderr, unit)}, {pred.level:.0%} interval "
+            f"{_n.interval(pred.ci_low, pred.ci_high, pred.stderr, unit)}"
+            + ("" if unit else " (in the standards' unit)")
+            + ("  (outside the standards' range)" if pred.extrapolated else ""))

@@ -22,7 +22,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-__all__ = ["activation_energy", "interval", "measured", "quantity", "superscript"]
+__all__ = ["activation_energy", "interval", "local_time", "measured", "quantity", "superscript"]
 
 _SUPER = str.maketrans("0123456789-+", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻⁺")
 _MISSING = "—"
@@ -119,3 +119,30 @@ def activation_energy(ea_j_per_mol: Any, se_j_per_mol: Any) -> str:
     """Ea the one way nightcell prints it: kJ mol⁻¹, rounded by its standard error (``Ea = 52.3 ± 1.2 kJ mol⁻¹``)."""
     v, e = _number(ea_j_per_mol), _number(se_j_per_mol)
     return "Ea = " + measured(None if v is None else v / 1000.0, None if e is None else e / 1000.0, "kJ mol⁻¹")
+
+
+def local_time(moment: Any, *, seconds: bool = True) -> str:
+    """A moment (unix seconds, or a ``YYYY-MM-DD HH:MM:SS`` string in UTC as the store's views give it) in the
+    computer's own time zone, with the zone named: ``2026-12-01 23:20:59 CET``. Times are stored in UTC; only what a
+    person reads is local. "" for a missing moment."""
+    import datetime as _dt
+
+    if moment is None or moment == "":
+        return ""
+    if isinstance(moment, str):
+        try:
+            when = _dt.datetime.strptime(moment, "%Y-%m-%d %H:%M:%S").replace(tzinfo=_dt.timezone.utc)
+        except ValueError:
+            return moment
+    else:
+        v = _number(moment)
+        if v is None:
+            return ""
+        when = _dt.datetime.fromtimestamp(v, _dt.timezone.utc)
+    here = when.astimezone()  # the local zone, as the operating system (or TZ) says
+    zone = here.tzname() or ""
+    if not zone or zone[0] in "+-":  # a zone without an abbreviation: name it by its offset from UTC
+        offset = here.utcoffset() or _dt.timedelta(0)
+        minutes = int(offset.total_seconds() // 60)
+        zone = f"UTC{'+' if minutes >= 0 else '-'}{abs(minutes) // 60:02d}:{abs(minutes) % 60:02d}"
+    return here.strftime("%Y-%m-%d %H:%M:%S" if seconds else "%Y-%m-%d %H:%M") + f" {zone}"

@@ -331,10 +331,26 @@ def figure_svg(fig: Any) -> bytes:
     return buf.getvalue()
 
 
+def _umask() -> int:
+    """The process's file-creation mask (read without changing it where the platform allows)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)  # elsewhere: read by setting it, and put it back at once
+    os.umask(mask)
+    return mask
+
+
 def write_atomic(path: Path, data: bytes) -> Path:
     """Write to a temporary file beside ``path`` and rename it into place: never half a file."""
     fd, tmp = tempfile.mkstemp(prefix="." + path.name + ".", suffix=".part", dir=str(path.parent))
     try:
+        # mkstemp makes the file private (0600); a report is for handing out: the user's normal permissions
+        os.chmod(tmp, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
         os.replace(tmp, path)

@@ -36,6 +36,7 @@ from ..science import calibration as _calibration
 from ..science import kinetics as _kinetics
 from ..science import optics as _optics
 from ..science import study as _study
+from ..render.numbers import local_time
 from ..errors import AnalysisError, InputError
 from ..science.fitting import FitResult, jsonable
 from ..store.database import Run, Store
@@ -127,9 +128,31 @@ def _mark_before(store: Store, device: str, kind: str, before: tuple[int, int] |
     return _with_counts(store, rows[0] if rows else None)
 
 
+def describe_mark(store: Store, device: str, key: tuple[int, int] | None) -> str:
+    """A mark as a person knows it: its kind, label and local time (``the run 'fading 1' started 2026-12-01 14:20
+    CET``); the mark key (boot:seq) only when it has neither label nor time."""
+    if key is None:
+        return "the end of the journal"
+    rows = store.query("SELECT mark, label, wall_clock_utc FROM mark_readings WHERE device = ? AND boot = ? "
+                       "AND seq = ? LIMIT 1", (device, int(key[0]), int(key[1])))
+    if not rows:
+        return f"record {key[0]}:{key[1]}"
+    r = rows[0]
+    kind = {"run_start": "the start of run", "run_stop": "the stop of run"}.get(r["mark"], f"the {r['mark']}")
+    when = local_time(r["wall_clock_utc"], seconds=False) if r["wall_clock_utc"] else ""
+    what = f"{kind} {r['label']!r}" if r["label"] else kind
+    return f"{what}{' of ' + when if when else ''}" if when or r["label"] else f"{kind} {key[0]}:{key[1]}"
+
+
+def _device_name(store: Store, device: str) -> str:
+    row = store.conn.execute("SELECT label FROM devices WHERE device = ?", (device,)).fetchone()
+    return repr(row[0]) if row is not None and row[0] else device
+
+
 def _mark_means(mark: dict[str, Any], channel: int) -> tuple[float, float]:
     if mark["reads"] <= 0 or channel >= len(mark["light"]):
-        raise AnalysisError(f"mark {mark['boot']}:{mark['seq']} has no counts for channel {channel}")
+        what = f"{mark['mark']} {mark['label']!r}" if mark.get("label") else f"mark {mark['boot']}:{mark['seq']}"
+        raise AnalysisError(f"the {what} has no counts for light channel {channel}: choose another --channel")
     return mark["light"][channel] / mark["reads"], mark["dark"][channel] / mark["reads"]
 
 
@@ -147,8 +170,9 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
     else:
         m = _mark_before(store, device, "blank", before)
         if m is None:
-            raise AnalysisError(f"device {device} has no blank before {before}: take a blank first "
-                                "(`nightcell blank`) or name one")
+            raise AnalysisError(f"device {_device_name(store, device)} has no blank before "
+                                f"{describe_mark(store, device, before)}: take a blank first (`nightcell blank`) "
+                                "or name one")
         rule = BLANK_RULE
     light, dark = _mark_means(m, channel)
     choice = BlankChoice(device, m["boot"], m["seq"], channel, light, dark, rule)
@@ -163,7 +187,8 @@ def standards_from_store(store: Store, device: str, channel: int = 0) -> dict[st
         try:
             c = float(m["value"])
         except ValueError as exc:
-            raise AnalysisError(f"standard {m['boot']}:{m['seq']} has value {m['value']!r}, not a number") from exc
+            raise AnalysisError(f"{describe_mark(store, device, (m['boot'], m['seq']))} has the value "
+                                f"{m['value']!r}, not a number") from exc
         b = choose_blank(store, device, (m["boot"], m["seq"]), channel)
         light, dark = _mark_means(m, channel)
         res = _absorbance([light], [dark], b)
@@ -294,7 +319,8 @@ def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] 
     else:
         keep = np.isin(boot_col, [bt for bt in boots if bt in clocks])
         if not keep.any():
-            raise AnalysisError(f"run {run.key} spans boots {boots} with no clock anchors: connect the board and "
+            raise AnalysisError(f"run {run.label or run.key!r} spans {len(boots)} boots (restarts) with no clock "
+                                "anchors: connect the board and "
                                 "sync so its time can be placed")
         warnings.append("samples from boots without a clock anchor were left out")
         boot_col, up = boot_col[keep], up[keep]
