@@ -286,10 +286,10 @@ def _run_layout(analysis: Any) -> dict[str, Any]:
                          "left_out_flagged": int(np.count_nonzero(analysis.flags)), "channel": analysis.channel},
             **_layout.layout(analysis.fits)}
     data["warnings"] = list(analysis.warnings)
-    data["detail"] = dict(data["detail"], blank=analysis.blank.to_dict(), time_basis=analysis.time_basis,
-                          boots=list(analysis.boots), end_rule=analysis.end_rule,
-                          resumed_at=[f"{b}:{q}" for b, q in analysis.resumed_at],
-                          calibration=analysis.calibration_id)
+    data["detail"] = dict(data["detail"], readings_from={
+        "blank": analysis.blank.to_dict(), "time_basis": analysis.time_basis, "boots": list(analysis.boots),
+        "end_rule": analysis.end_rule, "resumed_at": [f"{b}:{q}" for b, q in analysis.resumed_at],
+        "calibration": analysis.calibration_id})
     return data
 
 

@@ -40,6 +40,8 @@ def _delta(d: float) -> str:
     """ΔAICc in words' precision: differences of a few units matter, decimals beyond one do not."""
     if not math.isfinite(d):
         return "∞"
+    if d == 0:
+        return "0 (best)"
     return f"{d:.0f}" if d >= 10 else f"{d:.1f}"
 
 
@@ -169,6 +171,8 @@ def text(data: Mapping[str, Any], *, detail: bool = False) -> str:
     if detail:
         lines.append("detail (criteria, runs test of the residual signs)")
         for m, d in data["detail"].items():
+            if not isinstance(d, Mapping) or "aic" not in d:  # where the readings came from, printed by the caller
+                continue
             rt = d.get("runs_test") or {}
             p = rt.get("p_value")
             lines.append(f"  {m}: AIC {_n.quantity(d['aic'])}, AICc {_n.quantity(d['aicc'])}, n {d['n']}, "

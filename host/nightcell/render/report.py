@@ -663,6 +663,12 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             plt.close(fig)
         sections.append({"title": "Absorbance of every run", "figures": [png]})
     by_key = {it.run.key: it for it in study.runs}
+    all_runs = {it.run.key: it.run for it in study.runs}
+
+    def run_name(key: str) -> str:
+        """A run as the class knows it: its label and bench; the key (in the provenance) where it has none."""
+        run = all_runs.get(key)
+        return f"{run.label} ({bench(run.device)})" if run is not None and run.label else key
     for reactant, st in study.orders.items():
         f = st.per_reactant[reactant]
         keys = study.used.get(f"order {reactant}", [])
@@ -675,7 +681,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         finally:
             plt.close(fig)
         html_parts = fit_table(f)
-        text = (f"ln k against ln [{reactant}] over runs {', '.join(keys)}. "
+        text = (f"ln k against ln [{reactant}] over the runs {', '.join(run_name(k) for k in keys)}. "
                 f"Order {plus_minus(f.values['order'], f.stderr['order'])}; "
                 f"Birge ratio {f.extra.get('birge_ratio', float('nan')):.3g}.")
         ini = study.initial_orders.get(reactant)
@@ -698,8 +704,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         finally:
             plt.close(fig)
         ex = fa.extra
-        names = [by_key[k].run.label or k if k in by_key else k for k in keys]
-        text = (f"Runs {', '.join(names)}. "
+        text = (f"Runs {', '.join(run_name(k) for k in keys)}. "
                 f"{_n.activation_energy(fa.values['Ea_J_per_mol'], fa.stderr['Ea_J_per_mol'])}"
                 f"; A = {plus_minus(ex.get('A'), ex.get('A_se'), unit='s⁻¹')}; "
                 f"Birge ratio {ex.get('birge_ratio', float('nan')):.3g} (see Glossary).")
@@ -728,7 +733,8 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
                                  f"LOQ {cal.extra.get('loq', float('nan')):.3g} in the unit of the standards' values.",
                          "figures": [png]})
     sections.extend(extra_sections)
-    notes = [f"{k}: {v}" for k, v in study.rules.items()] + [f"left out — {k}: {v}" for k, v in study.skipped.items()]
+    notes = [f"{k}: {v}" for k, v in study.rules.items()] + [f"left out — {run_name(k)}: {v}"
+                                                             for k, v in study.skipped.items()]
     sections.append({"title": "How runs were chosen", "text": "\n\n".join(notes)})
     sections.append(GLOSSARY)
     page = html_report(title, sections, provenance)
