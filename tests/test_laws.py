@@ -140,3 +140,14 @@ def test_migration_renames_the_laws_of_stored_results(tmp_path):
     assert rate["label"] == "first_order_plateau run"  # a user's label is theirs: only law names are renamed
     assert json.loads(cal["result_json"]) == {"model": "line"}
     assert "plateau" not in rate["result_json"]
+
+
+def test_readme_lists_every_rate_law_with_its_title_and_unit():
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parent.parent / "README.md").read_text(encoding="utf-8")
+    table = re.search(r"<!-- laws -->\n(.*?)<!-- /laws -->", readme, re.S).group(1)
+    rows = re.findall(r"^\| `([a-z_]+)` \| ([^:|]+):", table, re.M)
+    assert [name for name, _ in rows] == list(kinetics.MODELS)
+    for name, title in rows:
+        assert title == laws.LAWS[name].title and laws.LAWS[name].rate_unit in table

@@ -53,6 +53,11 @@ def _utc(unix_s: float | None, seconds: bool = True) -> str:
     return local_time(unix_s, seconds=seconds)
 
 
+def _device_label(db: Path, device: str) -> str:
+    with _open_store(db) as store:
+        return _labels(store).get(device, device)
+
+
 def _labels(store: Any) -> dict[str, str]:
     """Device id → its label ("bench A"), or the id where it has none."""
     return {d["device"]: d["label"] or d["device"] for d in store.devices()}
@@ -219,7 +224,7 @@ def boards(as_json: bool) -> None:
 @json_option
 @friendly
 def hello(port: str, as_json: bool) -> None:
-    """Ask a board who it is and how full its journal is.
+    """Ask a board who it is and how full its storage is.
 
     Example: nightcell hello --port /dev/ttyACM0
     """
@@ -340,8 +345,8 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
             applied[key] = value
             if reply.get("after_reset"):
                 after_reset.append(key)
-    lines = [f"{info['device']}: " + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
-    lines.append(f"journaled on the board; its settings crc is now {reply.get('settings_crc')}")
+    lines = [f"{_who(info)}: " + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
+    lines.append("saved on the board (and recorded with its readings, so every run says how it was taken)")
     if after_reset:
         lines.append(f"{', '.join(after_reset)} take effect when the board restarts (unplug and plug it in)")
     _emit({"device": info["device"], "applied": applied, "after_reset": after_reset,
@@ -353,7 +358,7 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
 @json_option
 @friendly
 def clock(port: str, as_json: bool) -> None:
-    """Journal a clock anchor: the host's time now, so the board's readings can be placed in wall-clock time.
+    """Set the board's clock from this computer's time, so its readings can be placed in local time.
 
     `sync` takes one too; take one before a run that starts while the board is away from its host.
 
@@ -362,17 +367,23 @@ def clock(port: str, as_json: bool) -> None:
     with _connected(port) as (board, info):
         now_ms = int(round(time.time() * 1000))
         reply = board.anchor(now_ms)
-    text = (f"{info['device']}: clock anchor {reply['boot']}:{reply['seq']} — host time {_utc(now_ms / 1000)} at "
-            f"board uptime {reply['uptime_ms'] / 1000:.1f} s")
+    text = (f"{_who(info)}: clock set from this computer's time, {_utc(now_ms / 1000)} "
+            f"(the board had been on for {reply['uptime_ms'] / 1000:.1f} s)")
     _emit(dict(reply, device=info["device"], host_unix_ms=now_ms), as_json, text)
+
+
+def _who(info: dict[str, Any]) -> str:
+    """A board as its class knows it: its label ("bench 3"), or its id when it has none."""
+    return str(info.get("label") or info["device"])
 
 
 def _mark_text(device: str, kind: str, reply: dict[str, Any], label: str) -> str:
     reads = max(1, int(reply.get("reads") or 1))
-    counts = ", ".join(f"channel {c}: light {li / reads:.1f}, dark {d / reads:.1f}"
-                       for c, (li, d) in enumerate(zip(reply.get("light", []), reply.get("dark", []))))
+    pairs = list(zip(reply.get("light", []), reply.get("dark", [])))
+    counts = "; ".join((f"channel {c}: " if len(pairs) > 1 else "") + f"light {li / reads:.1f}, dark {d / reads:.1f}"
+                       for c, (li, d) in enumerate(pairs))
     shown = f" {label!r}" if label else ""
-    return f"{device}: {kind}{shown} journaled as {reply['boot']}:{reply['seq']} — {counts} (counts per read)"
+    return f"{device}: {kind}{shown} recorded on the board — {counts} counts per read"
 
 
 def _measure_command(kind: str, doc: str) -> click.Command:
@@ -385,21 +396,21 @@ def _measure_command(kind: str, doc: str) -> click.Command:
         with _connected(port) as (board, info):
             reply = board.mark(kind, label)
         _emit(dict(reply, device=info["device"], mark=kind, label=label), as_json,
-              _mark_text(info["device"], kind, reply, label))
+              _mark_text(_who(info), kind, reply, label))
 
     command.__doc__ = doc
     return cli.command(kind)(command)
 
 
-_measure_command("dark", """Measure with the LED off and journal a dark mark (cover the cell first).
+_measure_command("dark", """Measure with the LED off and record it on the board as the dark (cover the cell first).
 
     Example: nightcell dark --port /dev/ttyACM0 --label "lid on"
     """)
-_measure_command("blank", """Measure the blank (solvent only) and journal a blank mark; absorbance is read against it.
+_measure_command("blank", """Measure the blank (solvent only) and record it on the board; absorbance is read against it.
 
     Example: nightcell blank --port /dev/ttyACM0 --label "buffer pH 7"
     """)
-_measure_command("opaque", """Measure with the light path blocked and journal an opaque mark (gives the stray light).
+_measure_command("opaque", """Measure with the light path blocked and record it on the board (gives the stray light).
 
     Example: nightcell opaque --port /dev/ttyACM0 --label "black card"
     """)
@@ -412,7 +423,7 @@ _measure_command("opaque", """Measure with the light path blocked and journal an
 @json_option
 @friendly
 def standard(port: str, value: str, label: str, as_json: bool) -> None:
-    """Measure a standard of known concentration VALUE (as typed, any unit) and journal a standard mark.
+    """Measure a standard of known concentration VALUE (as typed, any unit) and record it on the board.
 
     Example: nightcell standard --port /dev/ttyACM0 2.0 --label "dye 2 µM"
     """
@@ -428,7 +439,7 @@ def standard(port: str, value: str, label: str, as_json: bool) -> None:
     with _connected(port) as (board, info):
         reply = board.mark("standard", label, value=value)
     _emit(dict(reply, device=info["device"], mark="standard", value=value, label=label), as_json,
-          _mark_text(info["device"], f"standard {value}", reply, label))
+          _mark_text(_who(info), f"standard {value}", reply, label))
 
 
 @cli.command()
@@ -448,8 +459,8 @@ def start(port: str, label: str, as_json: bool) -> None:
                              "or leave it running")
         reply = board.start(label)
     run_key = f"{info['device']}:{reply['boot']}:{reply['seq']}"
-    text = (f"{info['device']}: run {run_key} started{' ' + repr(label) if label else ''}, a sample every "
-            f"{int(info.get('interval_ms', 0)) / 1000:g} s; you may unplug the host now")
+    text = (f"{_who(info)}: run{' ' + repr(label) if label else ''} started, a sample every "
+            f"{int(info.get('interval_ms', 0)) / 1000:g} s; you may unplug the computer now")
     _emit(dict(reply, device=info["device"], run=run_key, label=label), as_json, text)
 
 
@@ -466,7 +477,7 @@ def stop(port: str, as_json: bool) -> None:
         if not info.get("running"):
             raise InputError(f"{info['device']} is not logging a run: nothing to stop")
         reply = board.stop()
-    text = f"{info['device']}: run stopped at {reply['boot']}:{reply['seq']}; sync it with `nightcell sync`"
+    text = f"{_who(info)}: run stopped; copy it to the database with `nightcell sync`"
     _emit(dict(reply, device=info["device"]), as_json, text)
 
 
@@ -476,7 +487,7 @@ def stop(port: str, as_json: bool) -> None:
 @json_option
 @friendly
 def note(port: str, text: str, as_json: bool) -> None:
-    """Journal a note at this moment (what the board's button does), e.g. when a reagent was added.
+    """Record a note on the board at this moment (what the board's button does), e.g. when a reagent was added.
 
     Example: nightcell note --port /dev/ttyACM0 "added 1 mL NaOH"
     """
@@ -486,7 +497,7 @@ def note(port: str, text: str, as_json: bool) -> None:
     with _connected(port) as (board, info):
         reply = board.note(text)
     _emit(dict(reply, device=info["device"], text=text), as_json,
-          f"{info['device']}: note journaled as {reply['boot']}:{reply['seq']}")
+          f"{_who(info)}: note recorded on the board, with the time it was taken")
 
 
 @cli.command()
@@ -498,7 +509,7 @@ def note(port: str, text: str, as_json: bool) -> None:
               help="Stop after this many polls (default: until Ctrl-C).")
 @friendly
 def watch(port: str, db: Path, every: float, polls: int | None) -> None:
-    """Live view: counts, absorbance against the latest blank, a trend, journal fill and time until full.
+    """Live view: counts, absorbance against the latest blank, a trend, storage used and time until full.
 
     Only asks the board for its status: Ctrl-C ends the view and the board goes on logging. The blank is the
     newest one on the board, else the newest in --db (if that file exists).
@@ -531,7 +542,7 @@ def watch(port: str, db: Path, every: float, polls: int | None) -> None:
 @json_option
 @friendly
 def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
-    """Pull a board's journal into the database (resumable; running it again adds nothing).
+    """Copy a board's readings into the database (resumable; running it again adds nothing).
 
     Example: nightcell sync --port /dev/ttyACM0 --db class.db
     """
@@ -544,8 +555,8 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
         summary = sync_board(board, store, acknowledge=not no_ack,
                              progress=lambda done, total, records: update(port, done, total, records))
     new = sum(summary.new_rows.values())
-    text = (f"{summary.device}: {summary.records} records, {summary.bytes} bytes, {new} new rows "
-            f"in {summary.seconds:.1f} s; journal stored to {summary.end}")
+    text = (f"{_device_label(db, summary.device)}: {new} new readings and marks stored in {db} "
+            f"({summary.records} records, {summary.bytes} bytes, {summary.seconds:.1f} s)")
     for w in summary.warnings:
         text += f"\nwarning: {w}"
     _emit(summary.to_dict(), as_json, text)

@@ -59,7 +59,7 @@ def sync_progress(enabled: bool = True) -> Iterator[Any]:
 @json_option
 @friendly
 def roll_call(timeout: float, as_json: bool) -> None:
-    """Ask every port with a board's USB id who is there (device id, label, journal size).
+    """Ask every port with a board's USB id who is there (label, device id, storage used).
 
     Example: nightcell roll-call
     """
@@ -156,7 +156,7 @@ def merge(other: Path, db: Path, strict: bool, as_json: bool) -> None:
 def deploy_cmd(port: str, no_compile: bool, wait: float, as_json: bool) -> None:
     """Copy this nightcell's firmware onto a board, restart it, and check it answers with the new version.
 
-    The journal and settings on the board are kept; a board that was logging is logging again afterwards.
+    The readings and settings on the board are kept; a board that was logging is logging again afterwards.
 
     Example: nightcell deploy --port /dev/ttyACM0
     """
