@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import click
@@ -96,8 +97,13 @@ def test_orders_and_arrhenius(group, tmp_path):
     data = json.loads(res.output)
     assert data["arrhenius"]["extra"]["Ea_kJ_per_mol"] == pytest.approx(102.9, abs=0.05)
     assert "eyring" in data
-    text = _invoke(group, "arrhenius", arr_csv)
-    assert "Ea_J_per_mol" in text.output
+    text = _invoke(group, "arrhenius", arr_csv, "--eyring")
+    # Ea the one way it is printed everywhere, rounded by its standard error, in kJ mol⁻¹ (render.numbers)
+    assert re.search(r"Ea = 102\.\d+ ± \d\.\d+ kJ mol⁻¹", text.output) and "ΔH‡ = " in text.output
+    assert "Ea_J_per_mol" not in text.output and "Ea_J_per_mol" in _invoke(group, "arrhenius", arr_csv,
+                                                                              "--detail").output
+    orders_text = _invoke(group, "orders", orders_csv).output
+    assert re.search(r"order in ketone: 1\.\d+ ± 0\.\d+", orders_text), orders_text
 
 
 @pytest.mark.parametrize(

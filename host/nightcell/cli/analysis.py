@@ -405,11 +405,12 @@ def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
 @_db_option
 @_channel_option
 @click.option("--nonlinear", is_flag=True, help="Refine the power law by nonlinear least squares on the rates.")
+@_detail_option
 @json_option
 @_out_option
 @friendly
-def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonlinear: bool, as_json: bool,
-                   out: Path | None) -> None:
+def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonlinear: bool, detail: bool,
+                   as_json: bool, out: Path | None) -> None:
     """Reaction orders from the initial rates of several runs.
 
     CSV: one row per run with initial_rate[,rate_se] and one conc_<name> column per reactant. With --db the CSV
@@ -444,7 +445,7 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
             inputs = {"file": source, "runs": [r.key for r in runs], "channel": channel,
                       "rate_rule": "initial_rate, window chosen automatically, flagged readings left out"}
         result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
-        data, text = result.to_dict(), result.report()
+        data, text = result.to_dict(), _layout.orders_text(result, detail=detail)
         if store is not None:
             saved = store.save_result("orders", Path(source).stem, inputs, data)
             data = dict(data, result_id=saved)
@@ -507,11 +508,12 @@ def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[
               default="first_order_to_final", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
+@_detail_option
 @json_option
 @_out_option
 @friendly
 def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, model: str, eyring: bool,
-                      as_json: bool, out: Path | None) -> None:
+                      detail: bool, as_json: bool, out: Path | None) -> None:
     """Activation energy from rate constants at several temperatures.
 
     CSV columns: temperature_K,k[,k_se]. With --db the CSV names the runs instead (run[,temperature_K]); k comes
@@ -550,11 +552,11 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
                       else "CSV column, else the run's mean probe temperature"}
         fit = _study.arrhenius(cols["temperature_K"], cols["k"], cols.get("k_se"), inputs=inputs)
         data: dict[str, Any] = {"arrhenius": fit.to_dict()}
-        text = fit.report()
+        ey = None
         if eyring:
             ey = _study.eyring(cols["temperature_K"], cols["k"], cols.get("k_se"), inputs=inputs)
             data["eyring"] = ey.to_dict()
-            text += "\n" + ey.report()
+        text = _layout.arrhenius_text(fit, ey, detail=detail)
         if store is not None:
             saved = store.save_result("arrhenius", Path(source).stem, inputs, data)
             data["result_id"] = saved

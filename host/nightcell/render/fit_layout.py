@@ -227,3 +227,39 @@ def prediction_text(pred: Any, *, unit: str = "") -> str:
             f"{_n.interval(pred.ci_low, pred.ci_high, pred.stderr, unit)}"
             + ("" if unit else " (in the standards' unit)")
             + ("  (outside the standards' range)" if pred.extrapolated else ""))
+
+
+def arrhenius_text(fit: Any, eyring: Any = None, *, detail: bool = False) -> str:
+    """Ea the one way (``numbers.activation_energy``), then A and the Eyring parameters, each rounded by its
+    standard error with its unit; the fit tables behind ``--detail``."""
+    ea, ea_se = fit.values["Ea_J_per_mol"], fit.stderr["Ea_J_per_mol"]
+    half = t_quantile(LEVEL, fit.dof) * ea_se / 1000.0
+    lines = [f"activation energy from {fit.n} rate constants (Arrhenius: ln k against 1/T)",
+             f"  {_n.activation_energy(ea, ea_se)}  (95 % interval "
+             f"{_n.interval(ea / 1000 - half, ea / 1000 + half, ea_se / 1000, 'kJ mol⁻¹')})",
+             f"  pre-exponential factor A = {_n.measured(fit.extra.get('A'), fit.extra.get('A_se'), 'in the unit of k')}",
+             f"  residual SD of ln k {_n.quantity(fit.residual_sd, digits=2)}"]
+    if eyring is not None:
+        lines.append("Eyring (ln(k/T) against 1/T, transmission coefficient 1)")
+        lines.append(f"  ΔH‡ = {_n.measured(eyring.values['dH_J_per_mol'] / 1000, eyring.stderr['dH_J_per_mol'] / 1000, 'kJ mol⁻¹')}")
+        lines.append(f"  ΔS‡ = {_n.measured(eyring.values['dS_J_per_mol_K'], eyring.stderr['dS_J_per_mol_K'], 'J mol⁻¹ K⁻¹')}")
+    if detail:
+        lines += ["detail", fit.report()] + ([eyring.report()] if eyring is not None else [])
+    return "\n".join(lines)
+
+
+def orders_text(result: Any, *, detail: bool = False) -> str:
+    """Each reactant's order rounded by its standard error (joint power law, then one reactant at a time)."""
+    joint = result.joint
+    lines = [f"reaction orders from the initial rates of {joint.n} runs (rate = k·Π[X]^order)"]
+    for name in joint.names:
+        if name.startswith("order_"):
+            lines.append(f"  order in {name[len('order_'):]}: {_n.measured(joint.values[name], joint.stderr[name])}")
+    for name, fit in result.per_reactant.items():
+        lines.append(f"  {name} alone (others held at one level, {fit.n} runs): order "
+                     f"{_n.measured(fit.values['order'], fit.stderr['order'])}")
+    for name, why in result.skipped.items():
+        lines.append(f"  {name}: no fit of its own ({why})")
+    if detail:
+        lines += ["detail", result.report()]
+    return "\n".join(lines)
