@@ -357,7 +357,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
             run = resolve_run(store, run_text)
             if model == "initial_rate":
                 fit = _initial_rate_of(store, run, channel, window)
-                data, text = fit.to_dict(), f"run {run.key} {run.label!r}\n" + fit.report()
+                data, text = fit.to_dict(), f"run {run.label or run.key!r}\n" + _layout.initial_rate_text(fit, detail=detail)
                 inputs = fit.inputs
             else:
                 if window is not None:
@@ -376,7 +376,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
     inputs = {"file": csv_file.name}
     if model == "initial_rate":
         result = _kinetics.initial_rate(cols["time_s"], cols["absorbance"], window, t_start=t_start, inputs=inputs)
-        _finish(result.to_dict(), result.report(), as_json, out)
+        _finish(result.to_dict(), _layout.initial_rate_text(result, detail=detail), as_json, out)
         return
     if model == "all":
         both = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end, inputs=inputs)

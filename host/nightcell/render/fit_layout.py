@@ -263,3 +263,19 @@ def orders_text(result: Any, *, detail: bool = False) -> str:
     if detail:
         lines += ["detail", result.report()]
     return "\n".join(lines)
+
+
+def initial_rate_text(fit: Any, *, detail: bool = False) -> str:
+    """The initial rate dA/dt with its unit and interval, and the window it came from."""
+    rate, se = fit.values["rate"], fit.stderr["rate"]
+    half = t_quantile(LEVEL, fit.dof) * se
+    lo, hi = fit.extra.get("window_s", [math.nan, math.nan])
+    lines = [f"initial rate dA/dt = {_n.measured(rate, se, 'absorbance s⁻¹')}  (95 % interval "
+             f"{_n.interval(rate - half, rate + half, se, 'absorbance s⁻¹')})",
+             f"  from {fit.extra.get('window_points', fit.n)} readings, {_n.quantity(lo, digits=3)} to "
+             f"{_n.quantity(hi, 's', digits=3)}; starting absorbance "
+             f"{_n.measured(fit.values['A0'], fit.stderr['A0'])}",
+             f"  window: {fit.message}"]
+    if detail:
+        lines += ["detail", fit.report()]
+    return "\n".join(lines)
