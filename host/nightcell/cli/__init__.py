@@ -221,17 +221,27 @@ def boards(as_json: bool) -> None:
 
 @cli.command()
 @port_option
+@click.option("--detail", is_flag=True, help="Also print everything the board answered, as it answered it.")
 @json_option
 @friendly
-def hello(port: str, as_json: bool) -> None:
+def hello(port: str, detail: bool, as_json: bool) -> None:
     """Ask a board who it is and how full its storage is.
 
     Example: nightcell hello --port /dev/ttyACM0
     """
     with _connected(port) as (_, info):
         pass
-    text = "\n".join(f"{k}: {v}" for k, v in sorted(info.items()))
-    _emit(info, as_json, text)
+    used = max(0, int(info.get("head", 0)) - int(info.get("tail", 0)))
+    free = int(info.get("free_bytes", 0))
+    who = f"{info['label']} (device {info['device']})" if info.get("label") else f"device {info['device']}"
+    lines = [f"{who}: board {info.get('board', '?')}, firmware {info.get('firmware', '?')}",
+             ("logging a run" if info.get("running") else "not logging a run")
+             + f"; a sample every {int(info.get('interval_ms', 0)) / 1000:g} s when it does",
+             f"storage: {used / 1024:.0f} KiB used, {free / 1024:.0f} KiB free",
+             f"switched on {int(info.get('uptime_ms', 0)) / 1000:.1f} s ago"]
+    if detail:
+        lines += ["detail:"] + [f"  {k}: {v}" for k, v in sorted(info.items())]
+    _emit(info, as_json, "\n".join(lines))
 
 
 # Host-side checks of the settings `setup` changes: the ranges of schema/settings.md (a test compares them).

@@ -83,7 +83,7 @@ def interval(low: Any, high: Any, se: Any, unit: str = "", *, digits: int = 4) -
         return _with_unit(f"{_sig(lo, digits)} to {_sig(hi, digits)}", unit)
     last = _last_place(e)
     big = max(abs(lo), abs(hi))
-    if big < 1e6 and min(abs(lo), abs(hi)) >= 1e-3 or big == 0:
+    if 1e-3 <= big < 1e6 or big == 0:
         return _with_unit(f"{_at(lo, last)} to {_at(hi, last)}", unit)
     power = math.floor(math.log10(big))
     d = max(0, power - last)

@@ -194,14 +194,11 @@ def render(statuses: Sequence[dict[str, Any]], blank: Blank | None, info: dict[s
     head = Table.grid(padding=(0, 2))
     head.add_column(style="bold")
     head.add_column()
-    who = Text(str(info.get("device", "board")))
-    if info.get("label"):
-        who.append("  ")
-        who.append(Text(str(info["label"])))
+    who = Text(str(info.get("label") or info.get("device", "board")))  # the id is in `hello --detail`
     head.add_row("board", who)
     state = "logging a run" if st.get("running") else "idle (not logging)"
     head.add_row("state", f"{state}; interval {int(st.get('interval_ms', info.get('interval_ms', 0))) / 1000:g} s; "
-                          f"{int(st.get('samples', 0))} samples this boot")
+                          f"{int(st.get('samples', 0))} samples since it was switched on")
     head.add_row("blank", Text(blank.describe() if blank else
                                "none yet: take one with `nightcell blank`; absorbance needs it"))
 
