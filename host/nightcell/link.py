@@ -319,7 +319,6 @@ class JournalPull:
         self.max_bytes = max_bytes
         self.timeout = board.timeout if timeout is None else timeout
         self.retries = board.retries if retries is None else retries
-        self.skipped_ranges: list[tuple[int, int]] = []
         self.requests = 0
         self.resends = 0
         self._inflight: list[tuple[int, int]] = []  # (tag, position) in the order sent
@@ -327,6 +326,7 @@ class JournalPull:
         self._parked: dict[int, bytes] = {}  # verified chunks that arrived before the one at the cursor
         self._finished = False
         self._refusals = 0
+        self._misplaced = 0  # replies in a row to a read at the cursor that started somewhere else
 
     def _send(self, position: int) -> None:
         tag = self.board._next_tag()
@@ -386,15 +386,23 @@ class JournalPull:
         if frame.kind != REPLY_DATA:
             raise ProtocolError(f"'read' expected a DATA reply, got kind {frame.kind}")
         pos, data = frame.data()
+        if pos != asked:
+            # Never taken as it came: a read whose position was damaged on the way is answered from wherever the
+            # damaged digits point (the board walks to the next record boundary), and a chunk past the cursor
+            # taken as a trim would let the host store, and acknowledge, across a stretch it never stored.
+            # Asked again; a board that keeps answering a read at the cursor from elsewhere is at fault.
+            if asked == self.cursor:
+                self._misplaced += 1
+                self.resends += 1
+                if self._misplaced >= self.retries:
+                    raise ProtocolError(_misplaced_message(self.board.transport.url, asked, pos))
+            return None
         if not data:
-            if asked <= self.cursor:
+            if asked == self.cursor:
                 self._finished = True  # nothing durable at or after the cursor
             return None
-        if asked == self.cursor and pos > self.cursor:
-            # The board no longer holds [cursor, pos): trimmed after another host acknowledged it.
-            self.skipped_ranges.append((self.cursor, pos))
-            self.cursor = pos
         if pos == self.cursor:
+            self._misplaced = 0
             return pos, data
         if pos > self.cursor and len(self._parked) < 8:
             self._parked[pos] = data
@@ -407,6 +415,7 @@ class JournalPull:
             if self.cursor in self._parked:
                 data = self._parked.pop(self.cursor)
                 self.cursor += len(data)
+                self._misplaced = 0
                 yield self.cursor - len(data), data
                 continue
             self._top_up()
@@ -443,6 +452,16 @@ class JournalPull:
             else:
                 self._top_up()
                 self.board.transport.receive()
+
+
+def _misplaced_message(url: str, asked: int, pos: int) -> str:
+    if pos > asked:
+        what = (f"records from {pos}, {pos - asked} bytes past it: a gap in its journal that this host cannot "
+                "account for")
+    else:
+        what = f"records from {pos}, before it"
+    return (f"the board on {url} was asked for its journal at {asked} and sent {what} — a board fault; nothing "
+            f"was acknowledged past {asked}; keep the database and report this")
 
 
 def progress_none(**_: Any) -> None:
