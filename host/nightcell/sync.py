@@ -102,17 +102,14 @@ def sync_board(
         host_ms = int(round((clock() + rtt / 2) * 1000))
         reply = board.anchor(host_ms)
         sent_anchor = (reply.get("boot"), reply.get("seq"), host_ms)
-    info = board.hello()
+    info = board.hello()  # its fields checked by Board.hello: a device id, whole-number positions
     device = str(info["device"])
     journal = int(info["journal"])
     head = int(info["head"])
     tail = int(info["tail"])
-    with store.write():
-        store.touch_device(device, board=info.get("board"), firmware=info.get("firmware"),
-                           label=info.get("label") or None)
-        state = store.journal_state(device, journal)
-        if state is None:
-            store.set_journal_state(device, journal, stored_to=tail, acked_to=0)
+    # Nothing is written before the first batch commits (the device row and the journal's first position go in
+    # with it): a sync that fails before then leaves the database exactly as it was.
+    state = store.journal_state(device, journal)
     stored_to = tail if state is None else state[0]
     acked_to = 0 if state is None else state[1]
     summary = SyncSummary(device, journal, stored_to, stored_to, head, port=board.transport.url,
@@ -132,15 +129,23 @@ def sync_board(
     pos = stored_to
     total = max(0, head - stored_to)
 
+    first_commit = True
+
     def commit(upto: int) -> None:
-        nonlocal pending, pending_bytes
+        nonlocal pending, pending_bytes, first_commit
         with store.write():
+            if first_commit:
+                store.touch_device(device, board=info.get("board"), firmware=info.get("firmware"),
+                                   label=info.get("label") or None)
+                if state is None:
+                    store.set_journal_state(device, journal, stored_to=summary.start, acked_to=0)
             counts = store.ingest(device, pending, journal=journal)
             store.set_journal_state(device, journal, stored_to=upto)
             if any(r.kind == KIND_ANCHOR for r in pending):
                 rebuild_clocks(store, device)
         for k, v in counts.items():
             summary.new_rows[k] = summary.new_rows.get(k, 0) + v
+        first_commit = False
         summary.records += len(pending)
         pending = []
         pending_bytes = 0
