@@ -61,13 +61,15 @@ def _diff(got: dict, want: dict) -> tuple[int, int]:
     return missing, extra
 
 
-def run(quick: bool = False, schedules: int | None = None, seed: int = 2024) -> list[dict]:
+def run(quick: bool = False, schedules: int | None = None, seed: int = 2024,
+        shard: tuple[int, int] = (0, 1)) -> list[dict]:
+    """The campaign; ``shard=(k, w)`` runs only schedules ``k, k + w, ...`` of the list (one of ``w`` processes)."""
     n = schedules or (40 if quick else 500)
     stats: Counter = Counter()
     kinds: Counter = Counter()
     failures: list[dict] = []
     t0 = time.monotonic()
-    schedules_run = campaign_schedules(n, seed)
+    schedules_run = campaign_schedules(n, seed)[shard[0]::shard[1]]
     with tempfile.TemporaryDirectory() as tmp:
         root = Path(tmp)
         sim = SimulatedBoard(root / "board", device="fa0170000000000a", speed=200.0, seed=3, settings=SETTINGS)
@@ -116,9 +118,36 @@ def run(quick: bool = False, schedules: int | None = None, seed: int = 2024) -> 
     ]
 
 
+def _merge(parts: list[list[dict]]) -> list[dict]:
+    """One table from the tables of several shards: counts added, the wall time the longest shard's."""
+    by_name = [{r["name"]: r["value"] for r in rows} for rows in parts]
+    total = lambda name: sum(p[name] for p in by_name)  # noqa: E731
+    n = total("fault_schedules")
+    kinds: Counter = Counter()
+    for p in by_name:
+        kinds.update(p["fault_kinds_injected"])
+    equal, corrupt, missing, unacked = (total(k) for k in ("schedules_equal_to_fault_free", "corrupt_rows",
+                                                           "missing_rows", "unacknowledged_trims"))
+    return [
+        {"name": "fault_schedules", "value": n, "goal": ">= 500", "ok": n >= 500},
+        {"name": "fault_kinds_injected", "value": dict(kinds), "goal": None, "ok": None},
+        {"name": "reference_rows", "value": [p["reference_rows"] for p in by_name], "goal": None, "ok": None},
+        {"name": "schedules_equal_to_fault_free", "value": equal, "goal": f"== {n}", "ok": equal == n},
+        {"name": "corrupt_rows", "value": corrupt, "goal": "== 0", "ok": corrupt == 0},
+        {"name": "missing_rows", "value": missing, "goal": "== 0", "ok": missing == 0},
+        {"name": "unacknowledged_trims", "value": unacked, "goal": "== 0", "ok": unacked == 0},
+        {"name": "first_sync_gave_up", "value": total("first_sync_gave_up"), "goal": None, "ok": None},
+        {"name": "campaign_seconds", "value": max(p["campaign_seconds"] for p in by_name), "goal": None,
+         "ok": None},
+    ]
+
+
 def _main(argv: list[str]) -> int:
-    """``--schedules N [--seed S]``: a campaign of any size, one line per figure; otherwise as run.py --only."""
+    """``--schedules N [--seed S] [--workers W]``: a campaign of any size, one line per figure (W processes share
+    the schedules, each with its own simulated board); otherwise as run.py --only."""
     import argparse
+    import json
+    import subprocess
 
     from run import line, script
 
@@ -127,8 +156,20 @@ def _main(argv: list[str]) -> int:
     parser = argparse.ArgumentParser(description="The link fault campaign at a chosen size.")
     parser.add_argument("--schedules", type=int, required=True)
     parser.add_argument("--seed", type=int, default=2024)
+    parser.add_argument("--workers", type=int, default=1)
+    parser.add_argument("--shard", default=None, help=argparse.SUPPRESS)  # k/w: one worker's share, JSON out
     args = parser.parse_args(argv)
-    rows = run(schedules=args.schedules, seed=args.seed)
+    if args.shard:
+        k, w = (int(x) for x in args.shard.split("/"))
+        json.dump(run(schedules=args.schedules, seed=args.seed, shard=(k, w)), sys.stdout)
+        return 0
+    if args.workers > 1:
+        procs = [subprocess.Popen([sys.executable, __file__, "--schedules", str(args.schedules), "--seed",
+                                   str(args.seed), "--shard", f"{k}/{args.workers}"], stdout=subprocess.PIPE,
+                                  text=True) for k in range(args.workers)]
+        rows = _merge([json.loads(p.communicate()[0]) for p in procs])
+    else:
+        rows = run(schedules=args.schedules, seed=args.seed)
     for r in rows:
         print(line(r), flush=True)
     return 0 if all(r["ok"] is not False for r in rows) else 1
