@@ -27,16 +27,16 @@ import csv
 import json
 import math
 from pathlib import Path
-from typing import Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import click
-import numpy as np
 
-from ..science import calibration as _calibration
-from ..science import kinetics as _kinetics
-from ..science import study as _study
-from .options import friendly, json_option
 from ..errors import InputError
+from ..science.laws import MODELS
+from .options import friendly, json_option
+
+if TYPE_CHECKING:
+    import numpy as np
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
 
@@ -50,6 +50,8 @@ def read_columns(
 
     Raises ``InputError`` naming the file, row and column, and what to do.
     """
+    import numpy as np
+
     try:
         with open(path, newline="", encoding="utf-8-sig") as fh:
             reader = csv.reader(fh)
@@ -208,8 +210,10 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
     else:
         assert csv_file is not None
         cols = read_columns(csv_file, ["concentration", "absorbance"], ["weight"], min_rows=3)
-        cal = _calibration.fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
-                                           inputs={"file": csv_file.name}, **options)
+        from ..science.calibration import fit_calibration
+
+        cal = fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
+                                inputs={"file": csv_file.name}, **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
     text = cal.report()
     if readings:
@@ -229,6 +233,8 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
 
 
 def _run_text(analysis: Any) -> str:
+    import numpy as np
+
     run = analysis.run
     lines = [f"run {run.key} {run.label!r}: {len(analysis.time_s)} readings, "
              f"{int(np.count_nonzero(analysis.flags))} flagged and left out",
@@ -241,22 +247,12 @@ def _run_text(analysis: Any) -> str:
     return "\n".join(lines)
 
 
-def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None) -> Any:
-    from ..tasks.analyse import run_series
-
-    s = run_series(store, run, channel)
-    inputs = {"run": run.key, "device": run.device, "channel": channel,
-              "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
-              "time_basis": s["time_basis"], "left_out": "flagged readings"}
-    return _kinetics.initial_rate(s["time_s"], s["absorbance"], window, mask=s["flags"] != 0, inputs=inputs)
-
-
 @click.command("rate")
 @_csv_argument
 @_db_option
 @click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
 @_channel_option
-@click.option("--model", type=click.Choice(("all", "initial_rate") + _kinetics.MODELS), default="all",
+@click.option("--model", type=click.Choice(("all", "initial_rate") + MODELS), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
 @click.option("--window", type=(float, float), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
@@ -280,7 +276,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
     """
     _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
     if db is not None:
-        from ..tasks.analyse import analyse_run
+        from ..tasks.analyse import analyse_run, initial_rate_of
         from ..tasks.export import resolve_run
 
         if t_start is not None or a_end != 0.0:
@@ -289,7 +285,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
         with _open(db) as store:
             run = resolve_run(store, run_text)
             if model == "initial_rate":
-                fit = _initial_rate_of(store, run, channel, window)
+                fit = initial_rate_of(store, run, channel, window)
                 data, text = fit.to_dict(), f"run {run.key} {run.label!r}\n" + fit.report()
                 inputs = fit.inputs
             else:
@@ -303,6 +299,8 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
         data = dict(data, result_id=saved)
         _finish(data, text + f"\nsaved in {db} as result {saved}", as_json, out)
         return
+    from ..science import kinetics as _kinetics
+
     assert csv_file is not None
     cols = read_columns(csv_file, ["time_s", "absorbance"], min_rows=4)
     inputs = {"file": csv_file.name}
@@ -347,6 +345,11 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
 
     Example: nightcell orders --db class.db runs_and_concentrations.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import initial_rate_of
+
     _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -361,7 +364,7 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            fits = [_initial_rate_of(store, run, channel, None) for run in runs]
+            fits = [initial_rate_of(store, run, channel, None) for run in runs]
             cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
             cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
             inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
@@ -375,22 +378,11 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
     _finish(data, text, as_json, out)
 
 
-def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
-    """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
-    from ..tasks.analyse import analyse_run
-
-    analysis = analyse_run(store, run, channel=channel, models=(model,))
-    fit = analysis.fits[model]
-    temps = [r["temp_centi"] for r in store.run_samples(run, channel) if r["temp_centi"] is not None]
-    t_k = float(np.mean(temps)) / 100.0 + 273.15 if temps else None
-    return float(fit.values["k"]), float(fit.stderr["k"]), t_k
-
-
 @click.command("arrhenius")
 @_csv_argument
 @_db_option
 @_channel_option
-@click.option("--model", type=click.Choice([m for m in _kinetics.MODELS if m != "zero_order"]),
+@click.option("--model", type=click.Choice([m for m in MODELS if m != "zero_order"]),
               default="first_order_plateau", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
@@ -408,6 +400,11 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
 
     Example: nightcell arrhenius --db class.db runs_and_temperatures.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import k_and_temperature
+
     _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -419,7 +416,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            got = [_k_and_temperature(store, run, channel, model) for run in runs]
+            got = [k_and_temperature(store, run, channel, model) for run in runs]
             if "temperature_K" not in cols:
                 missing = [r.key for r, g in zip(runs, got) if g[2] is None]
                 if missing:

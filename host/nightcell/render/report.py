@@ -1,6 +1,8 @@
 """Figures, self-contained HTML reports (one per run, one per study) and CSV exports from analysis results.
 
-Plot functions take ``ax=`` and return it; nothing calls ``plt.show()``. The HTML embeds its figures (PNG, base64)
+Plot functions take ``ax=`` and return it; nothing calls ``plt.show()``. Without ``ax=`` they draw on a new pyplot
+figure (so a notebook shows it with its own backend); the reports draw on ``matplotlib.figure.Figure`` objects made
+here, which need no pyplot and no backend switch (importing this module never changes the user's backend). The HTML embeds its figures (PNG, base64)
 so the one file can be mailed or opened anywhere and fetches nothing; each figure is also written beside it as PNG
 and SVG. Every label that came from a board or a user is escaped (HTML) or made literal (matplotlib's ``$…$``
 maths), so a label that is HTML or SQL stays inert text. Files are written to a temporary name and renamed: never
@@ -28,12 +30,10 @@ from pathlib import Path
 from typing import Any, Iterable, Sequence
 
 import matplotlib
+import numpy as np
+from matplotlib.figure import Figure
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from .. import __version__  # noqa: E402
+from .. import __version__
 
 __all__ = ["plot_calibration", "plot_run", "plot_orders", "plot_arrhenius", "figure_png", "figure_svg",
            "save_figure", "html_report", "fit_table", "write_csv", "safe_filename", "ReportFiles", "run_report",
@@ -48,7 +48,7 @@ def plain_text(label: Any) -> str:
 def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str = "") -> Any:
     """Standards, the fitted line and its 95 % prediction band for one new reading; residuals on ``resid_ax``."""
     if ax is None:
-        _, ax = plt.subplots()
+        ax = _new_axes()
     x = np.asarray(cal.x, dtype=float)
     y = np.asarray(cal.y, dtype=float)
     ax.plot(x, y, "o", color="#1f5f8b", label="standards")
@@ -89,7 +89,7 @@ def plot_run(time_s: Sequence[float], absorbance: Sequence[float], fit: Any = No
              resid_ax: Any = None, flags: Sequence[int] | None = None, title: str = "") -> Any:
     """Absorbance against time with the fitted curve; flagged points hollow; residuals on ``resid_ax``."""
     if ax is None:
-        _, ax = plt.subplots()
+        ax = _new_axes()
     t = np.asarray(time_s, dtype=float)
     a = np.asarray(absorbance, dtype=float)
     bad = np.zeros(len(t), bool) if flags is None else np.asarray(flags) != 0
@@ -239,7 +239,7 @@ def plot_orders(fit: Any, ax: Any = None, rate_se: Sequence[float] | None = None
     concentrations, ``y`` ln rate) or the ``OrderStudy`` itself. ``rate_se`` draws ±1 SE bars.
     """
     if ax is None:
-        _, ax = plt.subplots()
+        ax = _new_axes()
     f = _order_fit(fit)
     c = np.asarray(f.x, dtype=float)
     r = np.exp(np.asarray(f.y, dtype=float))
@@ -262,7 +262,7 @@ def plot_arrhenius(fit: Any, ax: Any = None, k_se: Sequence[float] | None = None
     from ..science.study import BOLTZMANN, GAS_CONSTANT, PLANCK
 
     if ax is None:
-        _, ax = plt.subplots()
+        ax = _new_axes()
     T = np.asarray(fit.x, dtype=float)
     y = np.asarray(fit.y, dtype=float)
     eyring = fit.model == "eyring"
@@ -365,8 +365,17 @@ def _figure_files(fig: Any, stem: Path, done: list[Path]) -> bytes:
     return png
 
 
-def _figure(**kw: Any) -> tuple[Any, Any]:
-    return plt.subplots(layout="constrained", **kw)
+def _new_axes() -> Any:
+    """Axes on a new pyplot figure, for a caller who gave no ``ax=`` (pyplot picks the caller's own backend)."""
+    import matplotlib.pyplot as plt
+
+    return plt.subplots()[1]
+
+
+def _figure(figsize: tuple[float, float] | None = None, **kw: Any) -> tuple[Any, Any]:
+    """A report figure: a bare ``Figure`` (no pyplot, no backend) laid out by constrained layout."""
+    fig = Figure(figsize=figsize, layout="constrained")
+    return fig, fig.subplots(**kw)
 
 
 def _two_panel() -> tuple[Any, Any, Any]:
@@ -455,7 +464,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
         _shade_restarts(analysis, (ax, rax))
         run_png = _figure_files(fig, out / f"{name}-absorbance", figs)
     finally:
-        plt.close(fig)
+        fig.clear()  # drop the figure's artists now: a report draws many
     flagged = int(np.count_nonzero(analysis.flags))
     sections: list[dict[str, Any]] = [{
         "title": f"Run {run.label or run.key}",
@@ -492,7 +501,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
                 stem = f"calibration-{safe_filename(run.device)}" if cache is not None else f"{name}-calibration"
                 cal_png = _figure_files(fig, out / stem, made)
             finally:
-                plt.close(fig)
+                fig.clear()  # drop the figure's artists now: a report draws many
             figs += made
             if cache is not None:
                 cache[key] = (cal_png, made)
@@ -549,7 +558,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
     if study.runs:
         fig, ax = _figure(figsize=(7.0, 4.4))
         try:
-            cmap = plt.get_cmap("viridis")
+            cmap = matplotlib.colormaps["viridis"]
             for i, it in enumerate(study.runs):
                 a = it.analysis
                 ok = a.flags == 0
@@ -566,7 +575,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             ax.legend(fontsize="x-small", loc="upper right")
             png = _figure_files(fig, out / f"{name}-runs", figs)
         finally:
-            plt.close(fig)
+            fig.clear()  # drop the figure's artists now: a report draws many
         sections.append({"title": "Absorbance of every run", "figures": [png]})
     by_key = {it.run.key: it for it in study.runs}
     for reactant, st in study.orders.items():
@@ -579,7 +588,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             ax.set_title(plain_text(f"Order in {reactant} from rate constants"))
             png = _figure_files(fig, out / f"{name}-order-{safe_filename(reactant)}", figs)
         finally:
-            plt.close(fig)
+            fig.clear()  # drop the figure's artists now: a report draws many
         html_parts = fit_table(f)
         text = (f"ln k against ln [{reactant}] over runs {', '.join(keys)}. "
                 f"Order {plus_minus(f.values['order'], f.stderr['order'])}; "
@@ -602,7 +611,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             ax.set_title("Arrhenius plot")
             png = _figure_files(fig, out / f"{name}-arrhenius", figs)
         finally:
-            plt.close(fig)
+            fig.clear()  # drop the figure's artists now: a report draws many
         ex = fa.extra
         text = (f"Runs {', '.join(keys)}. Ea = {plus_minus(ex.get('Ea_kJ_per_mol'), ex.get('Ea_se_kJ_per_mol'))} "
                 f"kJ/mol; A = {plus_minus(ex.get('A'), ex.get('A_se'))} s⁻¹; "
@@ -625,7 +634,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             ax.set_title(plain_text(f"Calibration of {device}"))
             png = _figure_files(fig, out / f"{name}-calibration-{safe_filename(device)}", figs)
         finally:
-            plt.close(fig)
+            fig.clear()  # drop the figure's artists now: a report draws many
         sections.append({"title": f"Calibration of {device}", "html": fit_table(cal),
                          "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; LOD "
                                  f"{cal.extra.get('lod', float('nan')):.3g}, "

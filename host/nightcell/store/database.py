@@ -23,7 +23,7 @@ from pathlib import Path
 from typing import Any, Iterable, Iterator
 
 import numpy as np
-import sqlite_utils
+from ._sqlite import sqlite_utils
 
 from .. import __version__
 from ..errors import InputError, SchemaTooNew, StoreError
