@@ -27,7 +27,8 @@ import click
 from . import __version__
 from .errors import DeviceError, InputError, NightcellError
 
-__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES"]
+__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES", "open_reading",
+           "open_writing"]
 
 EXIT_CODES = {
     0: "success",
@@ -47,14 +48,35 @@ class _Failure(click.ClickException):
 
 
 def friendly(fn: Callable[..., Any]) -> Callable[..., Any]:
-    """Turn nightcell's own errors into a message and its documented exit code (no traceback)."""
+    """Turn nightcell's own errors into a message and its documented exit code (no traceback).
+
+    Also: a database SQLite finds damaged is exit 4 with what can still be read; numbers that overflow are exit 5;
+    numpy's and scipy's warnings never reach the terminal (a result that needs one says so in its own words).
+    """
 
     @functools.wraps(fn)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
+        import sqlite3
+        import warnings
+
         try:
-            return fn(*args, **kwargs)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                warnings.simplefilter("ignore", UserWarning)
+                return fn(*args, **kwargs)
         except NightcellError as exc:
             raise _Failure(str(exc), exc.exit_code) from exc
+        except sqlite3.DatabaseError as exc:
+            from .store import damaged
+
+            db = kwargs.get("db")
+            if "malformed" in str(exc) and db is not None:
+                raise _Failure(str(damaged(db, exc)), 4) from exc
+            raise _Failure(f"database error on {db or 'the database'} ({exc}): nothing was written; check the file "
+                           "with `sqlite3 DB 'PRAGMA integrity_check'`", 4) from exc
+        except (FloatingPointError, OverflowError) as exc:
+            raise _Failure(f"the numbers are out of range for this analysis ({exc}): check the values given "
+                           "(absorbances are about 0 to 4, rate constants well below 1e100)", 5) from exc
         except KeyboardInterrupt:
             raise _Failure("interrupted", 130) from None
 
@@ -85,11 +107,19 @@ def _emit(data: Any, as_json: bool, text: str) -> None:
         click.echo(text)
 
 
-def _open_store(db: Path) -> Any:
-    """An existing database (never creates one for a command that only reads)."""
+def open_reading(db: Path) -> Any:
+    """The store for a command that only reads: opened read-only, never created, migrated or changed."""
     from .store import Store
 
-    return Store.open(db, create=False)
+    return Store.open_read(db)
+
+
+def open_writing(db: Path, *, create: bool = False) -> Any:
+    """The store for a command that writes (a result, a condition, a sync): created only where ``create``."""
+    from .store import Store
+
+    return Store.open_write(db, create=create)
+
 
 
 @contextlib.contextmanager
@@ -572,7 +602,7 @@ def watch(port: str, db: Path, every: float, polls: int | None) -> None:
     from .live import watch as live_watch
 
     with _connected(port) as (board, info):
-        store = _open_store(db) if db.exists() else None
+        store = open_reading(db) if db.exists() else None
         try:
             blank = latest_blank(board, info, store)
         finally:
@@ -601,7 +631,7 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
     from .store import Store
     from .sync import sync_board
 
-    with Board.open(port) as board, Store.open(db) as store, sync_progress(not as_json) as update:
+    with Board.open(port) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
         summary = sync_board(board, store, acknowledge=not no_ack,
                              progress=lambda done, total, records: update(port, done, total, records))
     new = sum(summary.new_rows.values())
@@ -643,7 +673,7 @@ def _list_command(name: str) -> Callable[[Callable[..., Any]], click.Command]:
         @friendly
         @functools.wraps(fn)
         def command(db: Path, as_json: bool) -> None:
-            with _open_store(db) as store:
+            with open_reading(db) as store:
                 title, columns, rows, data, empty = fn(store)
             if as_json:
                 _emit(data, True, "")
@@ -813,7 +843,7 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
         values.insert(0, ("temperature_K", temperature_k))
     if not values:
         raise InputError("nothing to record: give --temperature-c/--temperature-k and/or --conc REACTANT=MOLAR")
-    with _open_store(db) as store:
+    with open_writing(db) as store:
         run = resolve_run(store, run_text)
         for quantity, value in values:
             set_run_condition(store, run, quantity, value, source)
@@ -845,17 +875,18 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
     """
     from .errors import AnalysisError
     from .export import Written, resolve_run, run_report, study_report
+    from .report import all_or_nothing
 
     if sum([all_runs, bool(run_text), study]) > 1:
         raise InputError("give one of --run, --all or --study")
     done = Written()
     if study:
-        with _open_store(db) as store:
+        with open_reading(db) as store, all_or_nothing():
             done = study_report(store, out, channel)
         lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
         _emit(done.to_dict(), as_json, "\n".join(lines))
         return
-    with _open_store(db) as store:
+    with open_reading(db) as store, all_or_nothing():
         runs = store.runs() if all_runs else [resolve_run(store, run_text)]
         if not runs:
             raise InputError(f"{db} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
@@ -887,8 +918,9 @@ def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: boo
     Example: nightcell export --db class.db --out csv
     """
     from .export import export_csv, resolve_run
+    from .report import all_or_nothing
 
-    with _open_store(db) as store:
+    with open_reading(db) as store, all_or_nothing():
         runs = None if run_text is None else [resolve_run(store, run_text)]
         done = export_csv(store, out, runs, channel)
     lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
