@@ -17,11 +17,11 @@ from pathlib import Path
 import pytest
 
 from nightcell.errors import DeviceTimeout, NightcellError
-from nightcell.link import Board
-from nightcell.simulate import (Fault, SimulatedBoard, random_faults, raw_rows, reference_journal,
+from nightcell.wire.link import Board
+from nightcell.sim.board import (Fault, SimulatedBoard, random_faults, raw_rows, reference_journal,
                                 run_fault_schedule)
-from nightcell.store import Store
-from nightcell.sync import sync_board, sync_ports
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_board, sync_ports
 
 SETTINGS = {"interval_ms": 1000, "durability_ms": 2000, "segment_bytes": 4096,
             "channels": [{"name": "red", "led": 15, "adc": 26}, {"name": "green", "led": 14, "adc": 27}]}
@@ -179,7 +179,7 @@ def test_an_ack_is_never_sent_past_what_the_database_has_committed(store):
     """The check in the sync path itself (not an ``assert``, so ``python -O`` keeps it): acknowledging a position
     past the committed stored position, or while a write is still open, is refused before anything is sent."""
     from nightcell.errors import StoreError
-    from nightcell.sync import _check_committed
+    from nightcell.store.sync import _check_committed
 
     with store.write():
         store.touch_device("5e1f0000000000aa")
@@ -218,9 +218,9 @@ def test_fault_campaign_slice(journal, board_sim, tmp_path):
 
 _KILLED_SYNC = """
 import sys
-from nightcell.link import Board
-from nightcell.store import Store
-from nightcell.sync import sync_board
+from nightcell.wire.link import Board
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_board
 with Board.open(sys.argv[1]) as board, Store.open(sys.argv[2]) as store:
     print("ready", flush=True)
     sync_board(board, store, batch_bytes=2048)
