@@ -51,6 +51,7 @@ FIGURES: dict[str, str] = {
     "NIST digits": r"nist",
     "interval coverage": r"coverage",
     "demo time": r"demo.*(time|seconds)",
+    "CSV reader ratio": r"csv_reader_over_loadtxt",
 }
 
 

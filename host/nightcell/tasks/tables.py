@@ -235,11 +235,16 @@ def read_table(path: str | Path, required: Sequence[str], optional: Sequence[str
         content, encoding = _decode(p, raw)
         if encoding != "UTF-8":
             notes.append(f"read as {encoding} text")
-        lines = content.splitlines()
-        first = next((i for i, ln in enumerate(lines) if ln.strip()), None)
+        head = content[:65536].splitlines()
+        if len(content) > 65536:
+            head = head[:-1]  # the last line of the slice may be cut
+        first = next((i for i, ln in enumerate(head) if ln.strip()), None)
+        if first is None and len(content) > 65536:
+            head = content.splitlines()
+            first = next((i for i, ln in enumerate(head) if ln.strip()), None)
         if first is None:
             raise InputError(f"{p} is empty; it needs a header row ({','.join(required)}) and data rows")
-        sample = [ln for ln in lines[first:first + _SAMPLE_LINES] if ln.strip()]
+        sample = [ln for ln in head[first:first + _SAMPLE_LINES] if ln.strip()]
         detected = _detect_delimiter(sample)
         if delimiter is None:
             delimiter = detected or ","
@@ -250,10 +255,12 @@ def read_table(path: str | Path, required: Sequence[str], optional: Sequence[str
             decimal = "." if delimiter == "," else _detect_decimal(data_sample, delimiter)
         if decimal == ",":
             notes.append("decimal comma")
-        fast = _fast_path(p, content, lines, first, delimiter, decimal, required, optional, prefix, text, min_rows,
-                          notes)
+        fast = _fast_path(p, raw if encoding == "UTF-8" else content.encode("utf-8"), head[first], delimiter,
+                          decimal, required, optional, prefix, text, min_rows, notes)
         if fast is not None:
             return fast
+        lines = content.splitlines()
+        first = next(i for i, ln in enumerate(lines) if ln.strip())
         grid, row_numbers = _csv_rows(p, lines, first, delimiter)
         body = grid
     if not grid:
@@ -440,16 +447,15 @@ def _columns(p: Path, headers: list[_Header], data: list[list[Any]], numbers: li
     return Table(p, out, units, notes, numbers)
 
 
-def _fast_path(p: Path, content: str, lines: list[str], first: int, delimiter: str, decimal: str,
-               required: Sequence[str], optional: Sequence[str], prefix: str | None, text: Sequence[str],
-               min_rows: int, notes: list[str]) -> Table | None:
-    """A plain numeric file read by ``numpy.loadtxt`` in one go; None to take the careful path (which also gives
-    the precise message for anything wrong)."""
-    if text or '"' in content or ":" in content:
+def _fast_path(p: Path, data: bytes, header_line: str, delimiter: str, decimal: str, required: Sequence[str],
+               optional: Sequence[str], prefix: str | None, text: Sequence[str], min_rows: int,
+               notes: list[str]) -> Table | None:
+    """A plain numeric file (UTF-8 ``data``) read by ``numpy.loadtxt`` in one go; None to take the careful path
+    (which also gives the precise message for anything wrong)."""
+    if text:
         return None
-    header = lines[first].split(delimiter)
     try:
-        headers = _headers(p, header, prefix)
+        headers = _headers(p, header_line.split(delimiter), prefix)
     except InputError:
         return None
     if any(h.percent_t or h.offset for h in headers):
@@ -458,17 +464,25 @@ def _fast_path(p: Path, content: str, lines: list[str], first: int, delimiter: s
     if any(c not in names for c in required):
         return None
     wanted = _wanted(headers, required, optional, prefix)
-    body = "\n".join(lines[first + 1:])
+    head = header_line.encode("utf-8")
+    start = data.find(head)
+    if start < 0 or data[start + len(head):start + len(head) + 1] != b"\n":
+        return None
+    body = data[start + len(head) + 1:]
+    # quotes, CRs, clock times and blank lines: the careful path counts and reads them as a person would
+    # (loadtxt skips blank lines, which the row count below then catches)
+    if not body or any(mark in body for mark in (b'"', b"\r", b":")):
+        return None
     if decimal == ",":
-        body = body.replace(",", ".")
+        body = body.replace(b",", b".")
+    columns = [h.index for h in wanted]
     try:
-        values = np.loadtxt(io.StringIO(body), delimiter=delimiter, usecols=[h.index for h in wanted],
-                            ndmin=2, dtype=float, comments=None)
+        values = np.loadtxt(io.BytesIO(body), delimiter=delimiter, ndmin=2, dtype=float, comments=None,
+                            usecols=None if columns == list(range(len(headers))) else columns)
     except ValueError:
         return None
-    if values.shape[0] < min_rows or not np.all(np.isfinite(values)):
-        return None
-    if values.shape[0] != sum(1 for ln in lines[first + 1:] if ln.strip()):
+    rows = body.count(b"\n") + (0 if body.endswith(b"\n") else 1)
+    if values.shape[0] != rows or values.shape[0] < min_rows or not np.all(np.isfinite(values)):
         return None
     _describe(wanted, notes)
     out = {}
