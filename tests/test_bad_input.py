@@ -154,6 +154,12 @@ def _csv(text: str | bytes) -> Callable[[Path], Path]:
 GOOD_CAL = "concentration,absorbance\n0,0.01\n2,0.16\n4,0.31\n6,0.46\n8,0.61\n"
 
 
+def _fifo(d: Path) -> Path:
+    p = d / "pipe.csv"
+    os.mkfifo(p)
+    return p
+
+
 def _truncated(template: Path, d: Path) -> Path:
     p = d / "truncated.db"
     raw = template.read_bytes()
@@ -479,6 +485,34 @@ CASES = [
          csv=_csv("time_s,absorbance\n0,0.5\n4,0.4\n2,0.45\n6,0.35\n8,0.3\n10,0.27\n")),
     Case("CSV all concentrations equal", ["calibrate", "{csv}"], 5, "",
          csv=_csv("concentration,absorbance\n1,0.1\n1,0.11\n1,0.09\n1,0.1\n")),
+    Case("CSV is a FIFO", ["calibrate", "{csv}"], 2, "is not a regular file (a pipe or a device)", csv=_fifo),
+    Case("CSV is /dev/zero", ["rate", "/dev/zero"], 2, "/dev/zero is not a regular file"),
+    Case("CSV with a duplicated absorbance header", ["calibrate", "{csv}"], 2,
+         "has two columns that mean 'absorbance' ('absorbance' in column 2 and 'Absorbance (AU)' in column 3)",
+         csv=_csv("concentration,absorbance,Absorbance (AU)\n0,0.01,0.01\n2,0.16,0.2\n4,0.31,0.3\n")),
+    Case("orders CSV with an empty conc_ header", ["orders", "{csv}"], 2,
+         "column 3 is named 'conc_' with nothing after 'conc_'",
+         csv=_csv("initial_rate,conc_a,conc_\n1,1,1\n2,2,1\n3,3,2\n")),
+    Case("orders CSV with a duplicated conc_ header", ["orders", "{csv}"], 2,
+         "has two columns that mean 'conc_a' ('conc_a' in column 2 and 'conc_a ' in column 3)",
+         csv=_csv("initial_rate,conc_a,conc_a \n1,1,1\n2,2,1\n3,3,2\n")),
+    Case("CSV with a 30 kB field", ["calibrate", "{csv}"], 2, "line 3, column 2: a cell of 30000 characters",
+         csv=_csv("concentration,absorbance\n0,0.01\n2," + "1" * 30000 + "\n4,0.31\n6,0.46\n")),
+    Case("CSV with an unclosed quote", ["calibrate", "{csv}"], 2, "line 3, column 2: a cell of",
+         csv=_csv("concentration,absorbance\n0,0.01\n2,\"0.16\n" + "4,0.31\n" * 3000)),
+    Case("CSV semicolons with a delimiter override that does not fit", ["calibrate", "{csv}", "--delimiter", ","], 2,
+         "has no column 'concentration', 'absorbance' (found: concentration;absorbance)",
+         csv=_csv("concentration;absorbance\n0;0,01\n2;0,16\n4;0,31\n")),
+    Case("CSV time unit that is not a time", ["rate", "{csv}"], 2, "column 'time (kg)': 'kg' is not a unit of time",
+         csv=_csv("time (kg),absorbance\n0,0.65\n2,0.61\n4,0.58\n6,0.55\n8,0.52\n")),
+    Case("CSV clock time that is not one", ["rate", "{csv}"], 2, "'1:75' is not a number",
+         csv=_csv("time,absorbance\n0:00,0.65\n0:30,0.61\n1:00,0.58\n1:75,0.55\n2:00,0.52\n")),
+    Case("CSV percent transmittance of zero", ["rate", "{csv}"], 2, "is not a percent transmittance above 0",
+         csv=_csv("time_s,%T\n0,20\n2,25\n4,0\n6,35\n8,40\n")),
+    Case("--sheet given for a CSV", ["calibrate", "{csv}", "--sheet", "Sheet2"], 2, "--sheet applies to spreadsheets",
+         csv=_csv(GOOD_CAL)),
+    Case("spreadsheet that is not one", ["calibrate", "{dir}/book.xlsx"], 2, "as a spreadsheet",
+         setup=lambda db, d: (d / "book.xlsx").write_bytes(b"PK\x03\x04 not really a workbook" * 10)),
     Case("CSV file that does not exist", ["calibrate", "{dir}/nowhere.csv"], 2, "does not exist"),
     Case("CSV given as a folder", ["calibrate", "{dir}"], 2, "is a directory"),
     Case("CSV --out into a missing folder", ["calibrate", "{csv}", "--out", "{dir}/no/such/folder/fit.json"], 2,
