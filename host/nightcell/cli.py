@@ -897,7 +897,7 @@ def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: boo
 
 # -- rooms ----------------------------------------------------------------------------------------------------------
 
-_ROOMS = ("analysis_cli", "board_cli")
+_ROOMS = ("analysis_cli", "board_cli", "dashboard_cli")
 _registered: set[str] = set()
 
 

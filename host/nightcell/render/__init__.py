@@ -1,0 +1,1 @@
+"""Figures, pages and files: what a person reads."""

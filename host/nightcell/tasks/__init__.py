@@ -1,0 +1,1 @@
+"""The use cases: each command calls one function of a module here."""
