@@ -20,7 +20,7 @@ __all__ = ["register"]
 @click.option("--port", "ports", multiple=True,
               help="A board's port or pyserial URL, beside the boards found by USB id; repeat for several.")
 @db_option
-@click.option("--every", type=click.FloatRange(min=0.5, max=60.0), default=1.0, show_default=True, metavar="SECONDS",
+@click.option("--every", type=click.FloatRange(min=0.2, max=60.0), default=0.5, show_default=True, metavar="SECONDS",
               help="How often each board is asked for its status (one worker per board).")
 @click.option("--planned-end", metavar="HH:MM|DURATION",
               help="When the class's runs should end (e.g. 15:30 or 3h): a journal that fills before then is an alert.")

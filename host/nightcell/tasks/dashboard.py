@@ -61,7 +61,7 @@ class Limits:
     """The thresholds of the alert rules, in one place (each is a choice of ours, stated with its reason)."""
 
     silence_s: float = 3.0
-    """No answer for this long (wall seconds) and the tile says "not answering": three polls at the default rate,
+    """No answer for this long (wall seconds) and the tile says "not answering": six polls at the default rate,
     so one slow reply on a busy laptop does not raise it."""
     full_scale: float = 4095.0
     """The ADC's top count per read (12 bits), as ``optics.absorbance`` takes it."""
@@ -194,7 +194,7 @@ class BoardWorker:
     the worker's thread after every change of its state.
     """
 
-    def __init__(self, url: str, *, db: str | Path | None = None, every: float = 1.0, answer_timeout: float = 1.0,
+    def __init__(self, url: str, *, db: str | Path | None = None, every: float = 0.5, answer_timeout: float = 1.0,
                  limits: Limits | None = None, planned_end: float | None = None, keep: int = 120,
                  trend: int = 60, scan_chunks: int = 4, on_change: Callable[[], None] = lambda: None):
         self.url = url
@@ -529,7 +529,7 @@ def board_ports(extra: Sequence[str] = (), *, discover_boards: bool = True, time
 class ClassSet:
     """Every board's worker, and a sync of them all that never shares a port with a worker."""
 
-    def __init__(self, ports: Sequence[str], *, db: str | Path, every: float = 1.0, limits: Limits | None = None,
+    def __init__(self, ports: Sequence[str], *, db: str | Path, every: float = 0.5, limits: Limits | None = None,
                  planned_end: float | None = None, acknowledge: bool = True, sync_timeout: float = 5.0,
                  on_change: Callable[[], None] = lambda: None):
         self.db = Path(db)

@@ -149,13 +149,14 @@
     p.samples.textContent = t.samples_run === null || t.samples_run === undefined ? "—" : String(t.samples_run);
     const j = t.journal;
     if (j) {
-      const pct = Math.round(100 * j.fraction);
+      const pct = 100 * j.fraction;
+      const pctText = pct < 10 ? pct.toFixed(1) : Math.round(pct).toString();
       let left;
       if (j.full) left = "FULL: sync now";
       else if (j.wall_seconds_left !== null) left = "full in about " + duration(j.wall_seconds_left);
       else if (t.state === "logging") left = "full in: estimating";
       else left = "not filling";
-      p.journalText.textContent = pct + " % used · " + left;
+      p.journalText.textContent = pctText + " % used · " + left;
       p.fillBar.style.width = Math.min(100, Math.max(0, pct)) + "%";
       p.fill.className = "fill" + (pct >= 80 ? " high" : "");
     } else {
@@ -198,6 +199,7 @@
                 document.createTextNode(al.detail));
       return li;
     }));
+    if (!state.alerts.length) alertsBox.append(el("li", "none", "none: every board answers, with a blank, light and room"));
     const count = document.getElementById("alert-count");
     count.textContent = String(state.alerts.length);
     count.className = "count" + (state.alerts.length ? " some" : "");
