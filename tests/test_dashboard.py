@@ -180,3 +180,22 @@ def test_a_paused_worker_lets_go_of_its_port(sim_board):
         _wait(lambda: worker.snapshot()["state"] in ("idle", "logging"), 10.0)
     finally:
         worker.stop()
+
+
+def test_the_page_writes_text_only_and_loads_nothing_from_elsewhere():
+    """Labels reach the page only through textContent (the browser tests show two hostile ones inert); the page's own
+    files never build HTML from strings, evaluate text, or name another host (labs are often offline)."""
+    import re
+
+    from nightcell.render.dashboard.server import static_dir
+
+    folder = static_dir()
+    assert sorted(p.name for p in folder.iterdir()) == ["dashboard.css", "dashboard.js", "index.html"]
+    js = (folder / "dashboard.js").read_text(encoding="utf-8")
+    for sink in ("innerHTML", "outerHTML", "insertAdjacentHTML", "document.write", "eval(", "new Function",
+                 "setTimeout(\"", "setInterval(\""):
+        assert sink not in js, sink
+    for name in ("index.html", "dashboard.js", "dashboard.css"):
+        text = (folder / name).read_text(encoding="utf-8")
+        urls = re.findall(r"(?:https?:)?//[A-Za-z0-9.-]+\.[A-Za-z]{2,}[^\s\"')]*", text)
+        assert [u for u in urls if u != "http://www.w3.org/2000/svg"] == [], (name, urls)  # a name, not a load

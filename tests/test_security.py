@@ -28,7 +28,7 @@ from nightcell.store import Store
 from test_bad_input import make_db
 
 ROOT = Path(__file__).resolve().parent.parent
-SOURCES = sorted((ROOT / "host" / "nightcell").glob("*.py")) + sorted((ROOT / "firmware").rglob("*.py"))
+SOURCES = sorted((ROOT / "host" / "nightcell").rglob("*.py")) + sorted((ROOT / "firmware").rglob("*.py"))
 HOSTILE_LABELS = [
     "<script>alert(1)</script>",
     "'; DROP TABLE samples;--",
