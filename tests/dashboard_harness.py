@@ -24,8 +24,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterator, Sequence
 
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard
 
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync", "--no-first-run"]

@@ -10,9 +10,9 @@ import time
 
 import pytest
 
-from nightcell import optics
+from nightcell.science import optics
 from nightcell.errors import InputError
-from nightcell.live import Blank
+from nightcell.tasks.live import Blank
 from nightcell.tasks import dashboard as D
 
 NOW = 1_800_000_000.0
@@ -121,7 +121,7 @@ def test_planned_end_as_a_duration_or_a_time_of_day():
 
 
 def test_boards_are_those_discovery_finds_then_each_port_given_once(monkeypatch):
-    from nightcell import link
+    from nightcell.wire import link
 
     found = [{"port": "/dev/ttyACM0", "hello": {}}, {"port": "/dev/ttyACM1", "error": "not a board"}]
     monkeypatch.setattr(link, "discover", lambda timeout=1.0: found)
@@ -130,7 +130,7 @@ def test_boards_are_those_discovery_finds_then_each_port_given_once(monkeypatch)
 
 def test_a_board_restarted_mid_run_is_seen_by_its_worker(sim_board):
     """A power cut in the middle of a run: the board comes back, resumes the run by itself, and the tile says so."""
-    from nightcell.link import Board
+    from nightcell.wire.link import Board
 
     with Board.open(sim_board.url) as board:
         board.hello(timeout=20.0)
@@ -167,7 +167,7 @@ def _wait(predicate, seconds: float) -> None:
 
 def test_a_paused_worker_lets_go_of_its_port(sim_board):
     """While paused (a sync of its board) the worker holds no port: the port can be opened exclusively."""
-    from nightcell.link import Board
+    from nightcell.wire.link import Board
 
     worker = D.BoardWorker(sim_board.url, every=0.3).start()
     try:

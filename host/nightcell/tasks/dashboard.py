@@ -7,7 +7,8 @@ Must never: hold a board's port while a sync of that board runs (the worker clos
 anything but ``hello``/``status``/``read`` unless a caller asks for one of the controls (``CONTROLS``) — the web room
 checks the control token before it does — or know anything about HTTP: ``render/dashboard`` serves this state.
 
-The absorbance, journal-fill and trend logic is the live view's (``live``); sync is ``sync.sync_ports``.
+The absorbance, journal-fill and trend logic is the live view's (``tasks.live``); sync is ``store.sync.sync_ports``;
+the page is ``render.dashboard`` (``serve_page`` puts the two together for the command).
 
 Example::
 
@@ -27,14 +28,14 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
-from .. import optics as _optics
 from ..errors import DeviceNotFound, InputError, NightcellError
-from ..frames import KIND_BOOT, KIND_EVENT, KIND_MARK, KIND_SAMPLES, MARK_NAMES, iter_records
-from ..link import READ_CHUNK, Board
-from ..live import Blank, blank_from_mark, journal_fill, reading_absorbance
+from ..science import optics as _optics
+from ..wire.frames import KIND_BOOT, KIND_EVENT, KIND_MARK, KIND_SAMPLES, MARK_NAMES, iter_records
+from ..wire.link import READ_CHUNK, Board
+from .live import Blank, blank_from_mark, journal_fill, reading_absorbance
 
-__all__ = ["Limits", "BoardWorker", "ClassSet", "alerts_for", "board_ports", "parse_planned_end", "CONTROLS",
-           "ALERT_CODES"]
+__all__ = ["Limits", "BoardWorker", "ClassSet", "alerts_for", "board_ports", "parse_planned_end", "serve_page",
+           "CONTROLS", "ALERT_CODES"]
 
 EVENT_FLASH_FULL = 4  # schema/records.md, EVENT codes
 MARK_SOURCE_BOARD = 2  # schema/records.md: a MARK the board journaled by itself (a run it resumed)
@@ -333,7 +334,7 @@ class BoardWorker:
         (the live view's rule: the board's own unsynced journal wins, the database fills in)."""
         if self.db is None or not self.db.exists():
             return
-        from ..store import Store
+        from ..store.database import Store
 
         try:
             with Store.open(self.db, create=False, readonly=True) as store:
@@ -516,7 +517,7 @@ class BoardWorker:
 
 def board_ports(extra: Sequence[str] = (), *, discover_boards: bool = True, timeout: float = 1.0) -> list[str]:
     """The ports of every board that answers ``roll-call``'s discovery, then ``extra`` URLs, each once."""
-    from ..link import discover
+    from ..wire.link import discover
 
     found = [e["port"] for e in discover(timeout=timeout) if "hello" in e] if discover_boards else []
     out: list[str] = []
@@ -574,7 +575,7 @@ class ClassSet:
     def sync_all(self) -> list[dict[str, Any]]:
         """Sync every board into the database, one after another; each board's worker closes its port first and
         goes on when its sync is done. Per-board progress is in ``sync_state``. A sync already running: refused."""
-        from ..sync import sync_ports
+        from ..store.sync import sync_ports
 
         if not self._sync_lock.acquire(blocking=False):
             raise InputError("a sync of every board is already running: wait for it to finish")
@@ -617,3 +618,18 @@ class ClassSet:
             self.sync_running = False
             self._sync_lock.release()
             self._changed()
+
+
+def serve_page(ports: Sequence[str], db: str | Path, *, every: float = 0.5, planned_end: float | None = None,
+               acknowledge: bool = True, host: str = "127.0.0.1", http_port: int = 0,
+               control_token: str | None = None, any_host: bool = False,
+               ready: Callable[[str], None] = lambda url: None) -> None:
+    """Watch every board in ``ports`` and serve the class page until Ctrl-C; the workers stop with it."""
+    from ..render.dashboard.server import serve
+
+    classset = ClassSet(ports, db=db, every=every, planned_end=planned_end, acknowledge=acknowledge).start()
+    try:
+        serve(classset, host=host, port=http_port, control_token=control_token, controls=CONTROLS, ready=ready,
+              any_host=any_host)
+    finally:
+        classset.stop()

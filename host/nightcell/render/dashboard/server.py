@@ -4,7 +4,8 @@ server-sent events, "sync all", and â€” only when started with a control token â
 Owns: the HTTP side (aiohttp): routes, the checks every request passes (Host header, Origin, the page key, the control
 token), the event stream. Must never: load anything from the network (every asset is a file beside this module),
 put text from a board into HTML (the page's script writes labels with ``textContent``; the page's
-Content-Security-Policy allows no inline script), or talk to a board itself (``tasks.dashboard`` does).
+Content-Security-Policy allows no inline script), talk to a board itself, or import a task: what it serves is the
+object it is given (``tasks.dashboard.ClassSet``: ``snapshot()``, ``version``, ``sync_all()``, ``worker(port)``).
 
 Why aiohttp: one well-kept asyncio package gives the server, streaming responses for server-sent events and static
 files, with no separate server program (an ASGI framework would need one) and no template engine (the page is
@@ -12,8 +13,7 @@ static; its data arrives as JSON).
 
 Example::
 
-    classset = ClassSet(ports, db="class.db").start()
-    serve(classset, host="127.0.0.1", port=0, ready=lambda url: print(url))
+    serve(classset, host="127.0.0.1", port=0, ready=lambda url: print(url))  # classset: tasks.dashboard.ClassSet
 """
 
 from __future__ import annotations
@@ -29,7 +29,6 @@ from typing import Any, Callable
 from aiohttp import web
 
 from ...errors import InputError, NightcellError
-from ...tasks.dashboard import CONTROLS, ClassSet
 
 __all__ = ["make_app", "serve", "static_dir", "PUSH_MIN_S", "HEARTBEAT_S"]
 
@@ -51,10 +50,12 @@ def _json(data: Any, status: int = 200) -> web.Response:
     return web.json_response(data, status=status, dumps=lambda d: json.dumps(d, allow_nan=False, default=str))
 
 
-def make_app(classset: ClassSet, *, control_token: str | None = None, any_host: bool = False) -> web.Application:
+def make_app(classset: Any, *, control_token: str | None = None, controls: tuple[str, ...] = (),
+             any_host: bool = False) -> web.Application:
     """The aiohttp application over ``classset``.
 
-    ``control_token``: when given, the board controls are on, and each control request must carry it. ``any_host``:
+    ``control_token``: when given, the board controls (``controls``, the worker's verbs) are on, and each control
+    request must carry it. ``any_host``:
     accept any Host header (the server was bound to another address with ``--host``); otherwise only the loopback
     names, so a web page elsewhere cannot reach this server by rebinding its own name to 127.0.0.1.
     """
@@ -142,8 +143,8 @@ def make_app(classset: ClassSet, *, control_token: str | None = None, any_host: 
             body = await request.json()
         except ValueError:
             return _json({"error": "the request is not JSON"}, 400)
-        if not isinstance(body, dict) or body.get("action") not in CONTROLS or not isinstance(body.get("port"), str):
-            return _json({"error": f"give port and action ({', '.join(CONTROLS)})"}, 400)
+        if not isinstance(body, dict) or body.get("action") not in controls or not isinstance(body.get("port"), str):
+            return _json({"error": f"give port and action ({', '.join(controls)})"}, 400)
         label = body.get("label", "")
         if not isinstance(label, str) or len(label.encode("utf-8")) > 32:
             return _json({"error": "a label is text of at most 32 bytes"}, 400)
@@ -165,11 +166,12 @@ def make_app(classset: ClassSet, *, control_token: str | None = None, any_host: 
     return app
 
 
-def serve(classset: ClassSet, *, host: str = "127.0.0.1", port: int = 0, control_token: str | None = None,
-          ready: Callable[[str], None] = lambda url: None, any_host: bool = False) -> None:
+def serve(classset: Any, *, host: str = "127.0.0.1", port: int = 0, control_token: str | None = None,
+          controls: tuple[str, ...] = (), ready: Callable[[str], None] = lambda url: None,
+          any_host: bool = False) -> None:
     """Serve until Ctrl-C (or the process is ended); ``ready(url)`` once the socket is listening."""
     async def main() -> None:
-        app = make_app(classset, control_token=control_token, any_host=any_host)
+        app = make_app(classset, control_token=control_token, controls=controls, any_host=any_host)
         runner = web.AppRunner(app, handle_signals=False, access_log=None, shutdown_timeout=1.0)
         await runner.setup()
         site = web.TCPSite(runner, host, port)
