@@ -199,3 +199,29 @@ def test_the_page_writes_text_only_and_loads_nothing_from_elsewhere():
         text = (folder / name).read_text(encoding="utf-8")
         urls = re.findall(r"(?:https?:)?//[A-Za-z0-9.-]+\.[A-Za-z]{2,}[^\s\"')]*", text)
         assert [u for u in urls if u != "http://www.w3.org/2000/svg"] == [], (name, urls)  # a name, not a load
+
+
+def test_another_address_is_warned_about_and_controls_are_off_without_the_flag(tmp_path):
+    """`--host` prints a warning; a board absent at the start is a tile that is not answering, not a crash; without
+    `--control` the page's controls are refused whatever it sends."""
+    import json
+    import urllib.error
+    import urllib.request
+
+    from dashboard_harness import page_server
+
+    with page_server(["/dev/nightcell-no-such-board"], tmp_path / "class.db", "--host", "127.0.0.1") as server:
+        assert server.token is None
+        with page_server(["/dev/nightcell-no-such-board"], tmp_path / "class.db", "--host", "127.0.0.2") as wide:
+            assert any(line.startswith("warning: listening on 127.0.0.2") for line in wide.lines), wide.lines
+        state = json.loads(urllib.request.urlopen(server.url + "api/state", timeout=10).read())
+        assert [t["state"] for t in state["tiles"]] == ["not answering"]
+        page = urllib.request.urlopen(server.url, timeout=10).read().decode()
+        key = page.split('name="nightcell-page-key" content="')[1].split('"')[0]
+        assert 'name="nightcell-control" content="off"' in page
+        req = urllib.request.Request(server.url + "api/control", method="POST",
+                                     data=json.dumps({"port": "/dev/nightcell-no-such-board", "action": "stop"}).encode(),
+                                     headers={"X-Page-Key": key, "X-Control-Token": "anything"})
+        with pytest.raises(urllib.error.HTTPError) as err:
+            urllib.request.urlopen(req, timeout=10)
+        assert err.value.code == 403 and "controls are off" in err.value.read().decode()

@@ -190,3 +190,4 @@ def test_a_board_that_stops_answering_is_shown_and_alerted_within_five_seconds(r
     assert page.text_content(f"{_tile(device)} .state") == "not answering"
     assert page.text_content('#alerts li[data-code="not_answering"] .who') == HOSTILE_IMG
     assert page.eval_on_selector_all(f"{_tile(device)} .tile-alerts li", "els => els.length") >= 1
+    page.screenshot(path=str(room["work"] / "benches-silent-board.png"), full_page=True)  # for a person to look at

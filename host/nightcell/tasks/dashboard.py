@@ -359,6 +359,8 @@ class BoardWorker:
         now = time.time()
         self.last_answer = now
         st = dict(st, boot=self.info.get("boot"))
+        if self.statuses and int(st.get("free_bytes", 0)) > int(self.statuses[-1].get("free_bytes", 0)):
+            self._full_event = False  # a sync's acknowledgement made room: no longer full
         with self._lock:
             self.statuses.append(st)
             self.wall.append(now)
@@ -397,6 +399,7 @@ class BoardWorker:
             if rec.boot == current:
                 self._run_start = None
                 self._run_stopped = None
+                self._full_event = False
                 if self.restart is not None and self.restart.get("to_boot") == rec.boot:
                     self.restart["reset_cause"] = rec.fields.get("reset_cause")
         elif rec.kind == KIND_SAMPLES:
