@@ -51,6 +51,7 @@ FIGURES: dict[str, str] = {
     "NIST digits": r"nist",
     "interval coverage": r"coverage",
     "demo time": r"demo.*(time|seconds)",
+    "start-up": r"start-?up: nightcell --help",
     "page update latency": r"update latency (median|worst)",
 }
 

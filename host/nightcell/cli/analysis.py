@@ -27,16 +27,16 @@ import csv
 import json
 import math
 from pathlib import Path
-from typing import Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import click
-import numpy as np
 
-from ..science import calibration as _calibration
-from ..science import kinetics as _kinetics
-from ..science import study as _study
-from .options import friendly, json_option
 from ..errors import InputError
+from ..science.laws import MODELS
+from .options import friendly, json_option, open_writing
+
+if TYPE_CHECKING:
+    import numpy as np
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
 
@@ -50,6 +50,8 @@ def read_columns(
 
     Raises ``InputError`` naming the file, row and column, and what to do.
     """
+    import numpy as np
+
     try:
         with open(path, newline="", encoding="utf-8-sig") as fh:
             reader = csv.reader(fh)
@@ -135,9 +137,8 @@ def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: st
 
 
 def _open(db: Path) -> Any:
-    from ..store.database import Store
-
-    return Store.open(db, create=False)
+    # every analysis with --db saves its result: a writing command
+    return open_writing(db)
 
 
 def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) -> None:
@@ -147,6 +148,25 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) ->
     if out is not None:
         try:
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
+        except OSError as exc:
+            raise InputError(f"cannot write {out}: {exc}") from None
+    click.echo(payload if as_json else text)
+
+
+def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str, Any], data: dict[str, Any],
+                  text: str, as_json: bool, out: Path | None) -> None:
+    """Save a result and write ``--out`` as one step: the file is written inside the transaction that saves the
+    result, so a file that cannot be written leaves the database as it was (and a refused commit, no file)."""
+    from ..render.report import write_atomic
+
+    with store.write():
+        saved = store.save_result(kind, label, inputs, data)
+        data = dict(data, result_id=saved)
+        text += f"\nsaved in {db} as result {saved}"
+        payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
+        try:
+            if out is not None:
+                write_atomic(out, (payload + "\n").encode("utf-8"))
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
     click.echo(payload if as_json else text)
@@ -197,19 +217,27 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
     _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
     options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
                    blank_sd=blank_sd)
-    saved = None
+    with contextlib.ExitStack() as opened:
+        _calibrate(csv_file, db, device, channel, options, readings, path_cm, as_json, out, opened)
+
+
+def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, channel: int, options: dict[str, Any],
+               readings: tuple[float, ...], path_cm: float | None, as_json: bool, out: Path | None,
+               opened: contextlib.ExitStack) -> None:
+    store = None
     if db is not None:
         from ..tasks.analyse import calibrate_from_store
 
-        with _open(db) as store:
-            device = _only_device(store, device)
-            cal = calibrate_from_store(store, device, channel, **options)
-            saved = store.save_result("calibration", f"{device} standards", cal.inputs, cal.to_dict())
+        store = opened.enter_context(_open(db))
+        device = _only_device(store, device)
+        cal = calibrate_from_store(store, device, channel, **options)
     else:
         assert csv_file is not None
         cols = read_columns(csv_file, ["concentration", "absorbance"], ["weight"], min_rows=3)
-        cal = _calibration.fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
-                                           inputs={"file": csv_file.name}, **options)
+        from ..science.calibration import fit_calibration
+
+        cal = fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
+                                inputs={"file": csv_file.name}, **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
     text = cal.report()
     if readings:
@@ -222,13 +250,16 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
         eps = cal.molar_absorptivity(path_cm)
         data["molar_absorptivity"] = eps.to_dict()
         text += f"\nmolar absorptivity: {eps.value:.6g} ± {eps.stderr:.3g} {eps.unit}"
-    if saved is not None:
-        data["result_id"] = saved
-        text += f"\nsaved in {db} as result {saved}"
+    if store is not None:
+        assert db is not None and device is not None
+        _finish_saved(store, db, "calibration", f"{device} standards", cal.inputs, data, text, as_json, out)
+        return
     _finish(data, text, as_json, out)
 
 
 def _run_text(analysis: Any) -> str:
+    import numpy as np
+
     run = analysis.run
     lines = [f"run {run.key} {run.label!r}: {len(analysis.time_s)} readings, "
              f"{int(np.count_nonzero(analysis.flags))} flagged and left out",
@@ -241,22 +272,12 @@ def _run_text(analysis: Any) -> str:
     return "\n".join(lines)
 
 
-def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None) -> Any:
-    from ..tasks.analyse import run_series
-
-    s = run_series(store, run, channel)
-    inputs = {"run": run.key, "device": run.device, "channel": channel,
-              "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
-              "time_basis": s["time_basis"], "left_out": "flagged readings"}
-    return _kinetics.initial_rate(s["time_s"], s["absorbance"], window, mask=s["flags"] != 0, inputs=inputs)
-
-
 @click.command("rate")
 @_csv_argument
 @_db_option
 @click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
 @_channel_option
-@click.option("--model", type=click.Choice(("all", "initial_rate") + _kinetics.MODELS), default="all",
+@click.option("--model", type=click.Choice(("all", "initial_rate") + MODELS), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
 @click.option("--window", type=(float, float), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
@@ -280,7 +301,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
     """
     _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
     if db is not None:
-        from ..tasks.analyse import analyse_run
+        from ..tasks.analyse import analyse_run, initial_rate_of
         from ..tasks.export import resolve_run
 
         if t_start is not None or a_end != 0.0:
@@ -289,7 +310,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
         with _open(db) as store:
             run = resolve_run(store, run_text)
             if model == "initial_rate":
-                fit = _initial_rate_of(store, run, channel, window)
+                fit = initial_rate_of(store, run, channel, window)
                 data, text = fit.to_dict(), f"run {run.key} {run.label!r}\n" + fit.report()
                 inputs = fit.inputs
             else:
@@ -299,10 +320,10 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                                        models=None if model == "all" else (model,))
                 data, text = analysis.to_dict(), _run_text(analysis)
                 inputs = analysis.fits[analysis.best].inputs
-            saved = store.save_result("rate", run.label or run.key, inputs, data)
-        data = dict(data, result_id=saved)
-        _finish(data, text + f"\nsaved in {db} as result {saved}", as_json, out)
+            _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out)
         return
+    from ..science import kinetics as _kinetics
+
     assert csv_file is not None
     cols = read_columns(csv_file, ["time_s", "absorbance"], min_rows=4)
     inputs = {"file": csv_file.name}
@@ -347,6 +368,11 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
 
     Example: nightcell orders --db class.db runs_and_concentrations.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import initial_rate_of
+
     _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -361,7 +387,7 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            fits = [_initial_rate_of(store, run, channel, None) for run in runs]
+            fits = [initial_rate_of(store, run, channel, None) for run in runs]
             cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
             cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
             inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
@@ -369,28 +395,17 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
         data, text = result.to_dict(), result.report()
         if store is not None:
-            saved = store.save_result("orders", csv_file.stem, inputs, data)
-            data = dict(data, result_id=saved)
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "orders", csv_file.stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
-
-
-def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
-    """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
-    from ..tasks.analyse import analyse_run
-
-    analysis = analyse_run(store, run, channel=channel, models=(model,))
-    fit = analysis.fits[model]
-    temps = [r["temp_centi"] for r in store.run_samples(run, channel) if r["temp_centi"] is not None]
-    t_k = float(np.mean(temps)) / 100.0 + 273.15 if temps else None
-    return float(fit.values["k"]), float(fit.stderr["k"]), t_k
 
 
 @click.command("arrhenius")
 @_csv_argument
 @_db_option
 @_channel_option
-@click.option("--model", type=click.Choice([m for m in _kinetics.MODELS if m != "zero_order"]),
+@click.option("--model", type=click.Choice([m for m in MODELS if m != "zero_order"]),
               default="first_order_plateau", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
@@ -408,6 +423,11 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
 
     Example: nightcell arrhenius --db class.db runs_and_temperatures.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import k_and_temperature
+
     _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -419,7 +439,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            got = [_k_and_temperature(store, run, channel, model) for run in runs]
+            got = [k_and_temperature(store, run, channel, model) for run in runs]
             if "temperature_K" not in cols:
                 missing = [r.key for r, g in zip(runs, got) if g[2] is None]
                 if missing:
@@ -439,9 +459,9 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             data["eyring"] = ey.to_dict()
             text += "\n" + ey.report()
         if store is not None:
-            saved = store.save_result("arrhenius", csv_file.stem, inputs, data)
-            data["result_id"] = saved
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "arrhenius", csv_file.stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
 
 

@@ -46,6 +46,7 @@ import numpy as np
 from scipy import stats as _stats
 
 from ..errors import AnalysisError, FitFailed, InputError, NonFiniteInput, TimeOrderError, TooFewPoints
+from .laws import MODELS
 from .fitting import FitResult, _package, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq, runs_test
 
 __all__ = [
@@ -57,7 +58,6 @@ __all__ = [
     "initial_rate",
 ]
 
-MODELS: tuple[str, ...] = ("zero_order", "first_order", "second_order", "first_order_plateau")
 _LN2 = math.log(2.0)
 _TOL = 1.49012e-08  # curve_fit's default: parameters settle far below any standard error
 _MIN_WINDOW = 6

@@ -337,7 +337,7 @@ class BoardWorker:
         from ..store.database import Store
 
         try:
-            with Store.open(self.db, create=False, readonly=True) as store:
+            with Store.open_read(self.db) as store:
                 device = str(info["device"])
                 state = store.journal_state(device, int(info["journal"]))
                 if state is not None:
