@@ -225,3 +225,24 @@ def test_another_address_is_warned_about_and_controls_are_off_without_the_flag(t
         with pytest.raises(urllib.error.HTTPError) as err:
             urllib.request.urlopen(req, timeout=10)
         assert err.value.code == 403 and "controls are off" in err.value.read().decode()
+
+
+def test_a_blank_already_synced_comes_from_the_database(sim_board, tmp_path):
+    """After a sync the board may trim its blank away; the tile reads against the database's newest blank then
+    (the live view's rule: the board's unsynced journal first, the database after)."""
+    from nightcell.store.database import Store
+    from nightcell.store.sync import sync_board
+    from nightcell.wire.link import Board
+
+    db = tmp_path / "class.db"
+    with Board.open(sim_board.url) as board, Store.open(db) as store:
+        board.hello(timeout=20.0)
+        board.mark("blank", "water")
+        sync_board(board, store)
+    worker = D.BoardWorker(sim_board.url, db=db, every=0.3).start()
+    try:
+        _wait(lambda: worker.snapshot()["device"] is not None, 20.0)
+        blank = worker.snapshot()["blank"]
+        assert blank is not None and blank["source"] == "database" and blank["label"] == "water"
+    finally:
+        worker.stop()
