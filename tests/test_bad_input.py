@@ -465,6 +465,12 @@ CASES = [
     Case("setup channel not NAME:LED:ADC", ["setup", "--channel", "red"], 2, "must be NAME:LED:ADC", port="missing"),
     Case("empty note", ["note", "   "], 2, "the note is empty", port="missing"),
     Case("sync with no port given", ["sync", "--db", "{db}"], 2, "Missing option '--port'", env={"NIGHTCELL_PORT": ""}),
+    Case("benches with a planned end that is no time", ["benches", "--db", "{db}", "--no-browser", "--planned-end",
+                                                          "tea time"], 2, "give a time today as HH:MM"),
+    Case("benches asking boards faster than 0.2 s", ["benches", "--db", "{db}", "--every", "0.05"], 2,
+         "Invalid value for '--every'"),
+    Case("benches on a TCP port beyond 65535", ["benches", "--db", "{db}", "--http-port", "70000"], 2,
+         "Invalid value for '--http-port'"),
     # -- CSV import ------------------------------------------------------------------------------------------------
     Case("CSV empty file", ["calibrate", "{csv}"], 2, "is empty; it needs a header row", csv=_csv("")),
     Case("CSV header only", ["calibrate", "{csv}"], 2, "has 0 data rows", csv=_csv("concentration,absorbance\n")),
@@ -555,6 +561,8 @@ CASES = [
     Case("another device on the port", ["stop"], 3, "no board answered", port=echo_other_device),
     Case("garbage from the port", ["sync", "--db", "{db}"], 3, "", port=garbage),
     Case("frames with a bad CRC", ["hello"], 3, "no board answered", port=frame_with_bad_crc),
+    Case("benches with no board anywhere", ["benches", "--db", "{db}", "--no-browser"], 3,
+         "no board answered on any port with a board's USB id"),
     Case("chatter with no frame in it", ["hello"], 3, "no board answered", port="silent",
          chatter=b"\x1b[2J MicroPython v1.99 REPL >>> " * 4),
     Case("a board of another protocol", ["hello"], 3, "speaks an unknown protocol",
@@ -606,6 +614,7 @@ def _fill(arg: Any, subs: dict[str, str]) -> str:
 
 def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPatch) -> tuple[Any, Path, dict, dict]:
     monkeypatch.setattr(link_module, "Deadline", _QuickDeadline)
+    monkeypatch.setattr(link_module, "candidate_ports", lambda: [])  # no row probes this machine's own serial ports
     monkeypatch.setattr(store_module, "BUSY_TIMEOUT_S", 0.2)
     db = case.db(template, work)
     subs = {"db": str(db), "dir": str(work)}
