@@ -187,6 +187,35 @@ def _text_file(template: Path, d: Path) -> Path:
     return p
 
 
+def _damaged(template: Path, d: Path) -> Path:
+    """The template with the root page of its samples table overwritten: every other table still reads."""
+    p = d / "damaged.db"
+    shutil.copy(template, p)
+    con = sqlite3.connect(f"file:{template}?mode=ro", uri=True)
+    root, size = con.execute("SELECT rootpage FROM sqlite_master WHERE name = 'samples'").fetchone()[0], \
+        con.execute("PRAGMA page_size").fetchone()[0]
+    con.close()
+    raw = bytearray(p.read_bytes())
+    raw[(root - 1) * size: root * size] = b"\x5a" * size
+    p.write_bytes(bytes(raw))
+    return p
+
+
+def _empty_file(template: Path, d: Path) -> Path:
+    p = d / "empty.db"
+    p.write_bytes(b"")
+    return p
+
+
+def _user_version_99(template: Path, d: Path) -> Path:
+    p = d / "marked.db"
+    shutil.copy(template, p)
+    con = sqlite3.connect(p)
+    con.execute("PRAGMA user_version = 99")
+    con.close()
+    return p
+
+
 def _copy(template: Path, d: Path) -> Path:
     p = d / "class.db"
     shutil.copy(template, p)
@@ -315,6 +344,7 @@ class Case:
     chatter: bytes = b""
     setup: Callable[[Path, Path], Any] | None = None   # (db, dir) -> something to undo (a lock)
     env: dict[str, str] = field(default_factory=dict)
+    absent: tuple[str, ...] = ("{dir}/r", "{dir}/x", "{dir}/target.db")  # outputs a refusal must not create
 
 
 CASES = [
@@ -384,6 +414,21 @@ CASES = [
     Case("merge a database into itself", ["merge", "{db}", "--db", "{db}"], 2, "is the database being merged into"),
     Case("merge a text file", ["merge", "{dir}/notes.txt", "--db", "{db}"], 4, "",
          setup=lambda db, d: (d / "notes.txt").write_text("not sqlite\n" * 100)),
+    Case("DB with a damaged page, rate", ["rate", "--db", "{db}"], 4, "is a damaged database", db=_damaged),
+    Case("DB with a damaged page, report", ["report", "--db", "{db}", "--all", "--out", "{dir}/r"], 4,
+         "sqlite3 {db} .recover | sqlite3 recovered.db", db=_damaged),
+    Case("DB with a damaged page, list runs", ["list", "runs", "--db", "{db}"], 4, "Still readable: ", db=_damaged),
+    Case("DB with a damaged page, export", ["export", "--db", "{db}", "--out", "{dir}/x"], 4, "damaged: samples",
+         db=_damaged),
+    Case("DB with a damaged page, merge from it", ["merge", "{db}", "--db", "{dir}/target.db"], 4,
+         "is a damaged database", db=_damaged),
+    Case("DB of zero bytes for a reading command", ["list", "runs", "--db", "{db}"], 4,
+         "is empty, not a nightcell database", db=_empty_file),
+    Case("DB of zero bytes to merge from", ["merge", "{db}", "--db", "{dir}/target.db"], 4,
+         "is empty, not a nightcell database", db=_empty_file),
+    Case("DB with user_version 99", ["list", "runs", "--db", "{db}"], 4, "(schema version 99;", db=_user_version_99),
+    Case("DB with user_version 99, calibrate saves", ["calibrate", "--db", "{db}"], 4, "written by a newer nightcell",
+         db=_user_version_99),
     # -- the serial side -------------------------------------------------------------------------------------------
     Case("port that does not exist", ["hello", "--port", "/dev/nightcell-no-such-port"], 3, "no board at", port=None),
     Case("port URL of an unknown kind", ["hello", "--port", "bogus://x"], 3, "no board at", port=None),
@@ -458,13 +503,17 @@ def test_bad_input(case: Case, template: Path, tmp_path: Path, monkeypatch: pyte
     result, db, before, after = _invoke(case, template, tmp_path, monkeypatch)
     output = result.output
     assert result.exit_code == case.code, f"exit {result.exit_code}, expected {case.code}:\n{output}\n{result.exception!r}"
-    assert case.message in output, output
-    assert "Traceback" not in output
+    assert _fill(case.message, {"db": str(db), "dir": str(tmp_path)}) in output, output
+    assert "Traceback" not in output and "Warning" not in output
     # one clear message, not a dump: an error line that says something
     assert output.strip(), "no message at all"
     assert len(output.strip().splitlines()) <= 8, output
     assert not isinstance(result.exception, (AssertionError, TypeError, AttributeError, KeyError, IndexError)), output
     assert after == before, f"the database changed: {before} -> {after}"
+    # a refusal writes nothing: no output it was asked for, and no temporary file anywhere
+    made = [a for a in (_fill(a, {"dir": str(tmp_path)}) for a in case.absent) if Path(a).exists()]
+    assert not made, f"a refused command left {made}"
+    assert not list(tmp_path.rglob("*.part")), list(tmp_path.rglob("*.part"))
 
 
 def test_the_table_has_at_least_forty_rows_across_every_kind():

@@ -33,7 +33,7 @@ import click
 
 from ..errors import InputError
 from ..science.laws import MODELS
-from .options import friendly, json_option
+from .options import friendly, json_option, open_writing
 
 if TYPE_CHECKING:
     import numpy as np
@@ -137,9 +137,8 @@ def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: st
 
 
 def _open(db: Path) -> Any:
-    from ..store.database import Store
-
-    return Store.open(db, create=False)
+    # every analysis with --db saves its result: a writing command
+    return open_writing(db)
 
 
 def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) -> None:
@@ -149,6 +148,25 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) ->
     if out is not None:
         try:
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
+        except OSError as exc:
+            raise InputError(f"cannot write {out}: {exc}") from None
+    click.echo(payload if as_json else text)
+
+
+def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str, Any], data: dict[str, Any],
+                  text: str, as_json: bool, out: Path | None) -> None:
+    """Save a result and write ``--out`` as one step: the file is written inside the transaction that saves the
+    result, so a file that cannot be written leaves the database as it was (and a refused commit, no file)."""
+    from ..render.report import write_atomic
+
+    with store.write():
+        saved = store.save_result(kind, label, inputs, data)
+        data = dict(data, result_id=saved)
+        text += f"\nsaved in {db} as result {saved}"
+        payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
+        try:
+            if out is not None:
+                write_atomic(out, (payload + "\n").encode("utf-8"))
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
     click.echo(payload if as_json else text)
@@ -199,14 +217,20 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
     _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
     options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
                    blank_sd=blank_sd)
-    saved = None
+    with contextlib.ExitStack() as opened:
+        _calibrate(csv_file, db, device, channel, options, readings, path_cm, as_json, out, opened)
+
+
+def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, channel: int, options: dict[str, Any],
+               readings: tuple[float, ...], path_cm: float | None, as_json: bool, out: Path | None,
+               opened: contextlib.ExitStack) -> None:
+    store = None
     if db is not None:
         from ..tasks.analyse import calibrate_from_store
 
-        with _open(db) as store:
-            device = _only_device(store, device)
-            cal = calibrate_from_store(store, device, channel, **options)
-            saved = store.save_result("calibration", f"{device} standards", cal.inputs, cal.to_dict())
+        store = opened.enter_context(_open(db))
+        device = _only_device(store, device)
+        cal = calibrate_from_store(store, device, channel, **options)
     else:
         assert csv_file is not None
         cols = read_columns(csv_file, ["concentration", "absorbance"], ["weight"], min_rows=3)
@@ -226,9 +250,10 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
         eps = cal.molar_absorptivity(path_cm)
         data["molar_absorptivity"] = eps.to_dict()
         text += f"\nmolar absorptivity: {eps.value:.6g} ± {eps.stderr:.3g} {eps.unit}"
-    if saved is not None:
-        data["result_id"] = saved
-        text += f"\nsaved in {db} as result {saved}"
+    if store is not None:
+        assert db is not None and device is not None
+        _finish_saved(store, db, "calibration", f"{device} standards", cal.inputs, data, text, as_json, out)
+        return
     _finish(data, text, as_json, out)
 
 
@@ -295,9 +320,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                                        models=None if model == "all" else (model,))
                 data, text = analysis.to_dict(), _run_text(analysis)
                 inputs = analysis.fits[analysis.best].inputs
-            saved = store.save_result("rate", run.label or run.key, inputs, data)
-        data = dict(data, result_id=saved)
-        _finish(data, text + f"\nsaved in {db} as result {saved}", as_json, out)
+            _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out)
         return
     from ..science import kinetics as _kinetics
 
@@ -372,9 +395,9 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
         data, text = result.to_dict(), result.report()
         if store is not None:
-            saved = store.save_result("orders", csv_file.stem, inputs, data)
-            data = dict(data, result_id=saved)
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "orders", csv_file.stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
 
 
@@ -436,9 +459,9 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             data["eyring"] = ey.to_dict()
             text += "\n" + ey.report()
         if store is not None:
-            saved = store.save_result("arrhenius", csv_file.stem, inputs, data)
-            data["result_id"] = saved
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "arrhenius", csv_file.stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
 
 

@@ -17,6 +17,8 @@ Example::
 from __future__ import annotations
 
 import base64
+import contextlib
+import contextvars
 import csv
 import datetime
 import html
@@ -27,17 +29,40 @@ import re
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any, Iterable, Iterator, Sequence
 
-import matplotlib
-import numpy as np
-from matplotlib.figure import Figure
 
-from .. import __version__
+def _matplotlib_config_folder() -> None:
+    """Give matplotlib a temporary config folder where the home folder cannot hold one (a read-only home, a locked
+    school account), instead of letting it print a warning on every command."""
+    if os.environ.get("MPLCONFIGDIR"):
+        return
+    home = Path(os.environ.get("XDG_CONFIG_HOME") or Path.home() / ".config") / "matplotlib"
+    cache = Path(os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "matplotlib"
+    try:
+        for folder in (home, cache):
+            folder.mkdir(parents=True, exist_ok=True)
+            with tempfile.TemporaryFile(dir=folder):
+                pass
+    except OSError:
+        import atexit
+        import shutil
+
+        os.environ["MPLCONFIGDIR"] = folder = tempfile.mkdtemp(prefix="nightcell-matplotlib-")
+        atexit.register(shutil.rmtree, folder, ignore_errors=True)
+
+
+_matplotlib_config_folder()
+
+import matplotlib  # noqa: E402
+import numpy as np  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+
+from .. import __version__  # noqa: E402
 
 __all__ = ["plot_calibration", "plot_run", "plot_orders", "plot_arrhenius", "figure_png", "figure_svg",
            "save_figure", "html_report", "fit_table", "write_csv", "safe_filename", "ReportFiles", "run_report",
-           "study_report", "plain_text", "plus_minus", "html_table", "write_atomic", "out_folder"]
+           "study_report", "plain_text", "plus_minus", "html_table", "write_atomic", "out_folder", "all_or_nothing"]
 
 
 def plain_text(label: Any) -> str:
@@ -110,10 +135,18 @@ def save_figure(fig: Any, path: str | Path) -> Path:
     return p
 
 
-def safe_filename(label: str, default: str = "run") -> str:
-    """A file name from a label: letters, digits, dot, dash and underscore only, never a path."""
+_WINDOWS_RESERVED = {"CON", "PRN", "AUX", "NUL", *(f"COM{i}" for i in range(10)), *(f"LPT{i}" for i in range(10))}
+
+
+def safe_filename(label: str, default: str = "run", limit: int | None = 80) -> str:
+    """A file name from a label: letters, digits, dot, dash and underscore only, never a path, and valid on
+    Windows too (no trailing dot, no reserved device name such as ``CON`` or ``lpt1.txt``); at most ``limit``
+    characters."""
     name = re.sub(r"[^A-Za-z0-9._-]+", "_", label).strip("._")
-    return (name or default)[:80]
+    name = (name or default)[:limit].rstrip(".")
+    if name.split(".")[0].upper() in _WINDOWS_RESERVED:
+        name = "_" + name
+    return name
 
 
 def _table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
@@ -183,16 +216,13 @@ def html_report(title: str, sections: Sequence[dict[str, Any]], provenance: dict
 
 
 def write_csv(path: str | Path, headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> Path:
-    """Write rows to CSV (written to a temporary name, then renamed: never half a file)."""
-    p = Path(path)
-    tmp = p.with_name(p.name + ".part")
-    with open(tmp, "w", newline="", encoding="utf-8") as fh:
-        w = csv.writer(fh)
-        w.writerow(headers)
-        for row in rows:
-            w.writerow(["" if (isinstance(v, float) and not np.isfinite(v)) else _inert_cell(v) for v in row])
-    tmp.replace(p)
-    return p
+    """Write rows to CSV (through ``write_atomic``: a new temporary file, then renamed; never half a file)."""
+    buf = io.StringIO(newline="")
+    w = csv.writer(buf)
+    w.writerow(headers)
+    for row in rows:
+        w.writerow(["" if (isinstance(v, float) and not np.isfinite(v)) else _inert_cell(v) for v in row])
+    return write_atomic(Path(path), buf.getvalue().encode("utf-8"))
 
 
 def _inert_cell(v: Any) -> Any:
@@ -302,20 +332,68 @@ def figure_svg(fig: Any) -> bytes:
     return buf.getvalue()
 
 
+_BATCH: contextvars.ContextVar[tuple[list[tuple[str, Path]], list[Path]] | None] = contextvars.ContextVar(
+    "nightcell_output_batch", default=None)
+
+
+@contextlib.contextmanager
+def all_or_nothing() -> Iterator[None]:
+    """Files written inside (``write_atomic``, ``out_folder``) appear together when the block succeeds; when it
+    fails, none does: their temporary files are removed, and the folders it made are removed again if empty."""
+    staged: list[tuple[str, Path]] = []
+    made: list[Path] = []
+    token = _BATCH.set((staged, made))
+    done = False
+    try:
+        yield
+        for tmp, final in staged:
+            os.replace(tmp, final)
+        done = True
+    finally:
+        _BATCH.reset(token)
+        if not done:
+            for tmp, _ in staged:
+                with contextlib.suppress(OSError):
+                    os.unlink(tmp)
+            for folder in reversed(made):
+                with contextlib.suppress(OSError):
+                    folder.rmdir()
+
+
 def write_atomic(path: Path, data: bytes) -> Path:
-    """Write to a temporary file beside ``path`` and rename it into place: never half a file."""
-    fd, tmp = tempfile.mkstemp(prefix="." + path.name + ".", suffix=".part", dir=str(path.parent))
+    """Write to a new temporary file beside ``path`` (created exclusively, under a random name, so nothing planted
+    there is followed) and rename it into place: never half a file. Inside ``all_or_nothing`` the rename waits
+    for the block to succeed. ``InputError`` (exit 2) with the path and the reason when it cannot be written."""
+    from ..errors import InputError
+
+    path = Path(path)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix="." + path.name[:60] + ".", suffix=".part", dir=str(path.parent))
+    except OSError as exc:
+        raise InputError(f"cannot write {path}: {exc.strerror or exc}; choose a folder you can write to") from None
+    batch = _BATCH.get()
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
+        os.chmod(tmp, 0o666 & ~_umask())
+        if batch is None:
+            os.replace(tmp, path)
+        else:
+            batch[0].append((tmp, path))
+    except BaseException as exc:
+        with contextlib.suppress(OSError):
             os.unlink(tmp)
-        except OSError:
-            pass
+        if isinstance(exc, OSError):
+            raise InputError(f"cannot write {path}: {exc.strerror or exc}; free some space or choose another "
+                             "folder (nothing was left behind)") from None
         raise
     return path
+
+
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
 
 
 def out_folder(out: str | Path) -> Path:
@@ -324,10 +402,14 @@ def out_folder(out: str | Path) -> Path:
     p = Path(out)
     if p.exists() and not p.is_dir():
         raise InputError(f"{p} is a file: give a folder for the report")
+    missing = [q for q in [p, *p.parents] if not q.exists()]
     try:
         p.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise InputError(f"cannot make the report folder {p} ({exc}): choose a folder you can write to") from exc
+    batch = _BATCH.get()
+    if batch is not None:
+        batch[1].extend(reversed(missing))
     return p
 
 
@@ -342,8 +424,9 @@ def _figure_files(fig: Any, stem: Path, done: list[Path]) -> bytes:
     png = buf.getvalue()
     buf = io.BytesIO()
     fig.savefig(buf, format="svg", metadata={"Date": None, "Creator": None})
-    done.append(write_atomic(stem.with_suffix(".png"), png))
-    done.append(write_atomic(stem.with_suffix(".svg"), buf.getvalue()))
+    # the stem may hold dots (a label "NaOH 0.02 M"): the suffix is added, never swapped in
+    done.append(write_atomic(stem.with_name(stem.name + ".png"), png))
+    done.append(write_atomic(stem.with_name(stem.name + ".svg"), buf.getvalue()))
     return png
 
 
@@ -436,7 +519,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
     """
     out = out_folder(out)
     run = analysis.run
-    name = safe_filename(name or f"run-{run.key.replace(':', '-')}")
+    name = safe_filename(name or f"run-{run.key.replace(':', '-')}", limit=None)
     figs: list[Path] = []
     best = analysis.fits[analysis.best]
     fig, ax, rax = _two_panel()

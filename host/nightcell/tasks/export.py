@@ -56,9 +56,10 @@ def resolve_run(store: Store, text: str | None) -> Run:
 
 
 def run_name(run: Run) -> str:
-    """A file name stem for a run: its label and key, sanitised (never a path, never markup)."""
-    label = _report.safe_filename(run.label, default="run").strip("-_") or "run"
-    return f"{label}-{_report.safe_filename(run.key.replace(':', '-'))}"
+    """A file name stem for a run: a safe stem of its label, then its key (never cut off, so two runs never share
+    a name), sanitised (never a path, never markup, valid on Windows)."""
+    label = _report.safe_filename(run.label, default="run", limit=48).strip("-_.") or "run"
+    return f"{label}-{_report.safe_filename(run.key.replace(':', '-'), limit=None)}"
 
 
 @dataclass
@@ -73,12 +74,8 @@ class Written:
 
 
 def _csv(path: Path, headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> Path:
-    # report.write_csv writes beside the target and renames; on an error its part file is removed here
-    try:
-        return _report.write_csv(path, headers, rows)
-    except BaseException:
-        path.with_name(path.name + ".part").unlink(missing_ok=True)
-        raise
+    # report.write_csv writes a new temporary file beside the target and renames it; nothing is left on an error
+    return _report.write_csv(path, headers, rows)
 
 
 SAMPLE_COLUMNS = ("device", "boot", "seq", "channel", "uptime_ms", "wall_clock_unix_s", "late_ms", "flags", "reads",
