@@ -80,7 +80,6 @@ REVIEWED_DYNAMIC_SQL = {
     ("store/merge.py", "_merge_sync_sessions"): "columns from PRAGMA of main",
     ("store/merge.py", "_conflicts"): "table and key names from RAW_IDENTITY, columns from PRAGMA of main",
     ("store/merge.py", "_columns"): "table names from RAW_IDENTITY",
-    ("sim/board.py", "raw_rows"): "table names from RAW_TABLES (test support)",
     ("store/database.py", "query"): "the caller's SQL text; callers pass data as params",
     ("store/database.py", "marks"): "fixed WHERE clauses with ? placeholders",
     ("store/database.py", "run_samples"): "fixed clauses with ? placeholders",
@@ -210,7 +209,7 @@ def _protocol_verbs() -> set[str]:
 
 
 def test_the_board_knows_exactly_the_documented_verbs():
-    from fwharness import results, run_mp
+    from support.fwharness import results, run_mp
 
     out = results(run_mp("from nightcell_fw.commands import VERBS\nprint('verbs=' + ' '.join(sorted(VERBS)))"))
     assert set(out["verbs"].split()) == _protocol_verbs() and len(_protocol_verbs()) == 16
@@ -262,7 +261,7 @@ print("errors=%d" % lg.errors)
 
 
 def test_the_board_refuses_undocumented_commands_and_trims_only_what_was_acknowledged():
-    from fwharness import results, run_mp
+    from support.fwharness import results, run_mp
 
     res = results(run_mp(BOARD))
     refusals = [res[f"refused{i}"] for i in range(12)]
