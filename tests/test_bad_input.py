@@ -585,6 +585,9 @@ CASES = [
     Case("hello whose interval is text, before start", ["start", "--label", "x"], 3,
          "'interval_ms' must be a whole number", port=lambda: ScriptedBoard(hello={"interval_ms": "2 s"}),
          never_sent=("start",)),
+    Case("board replaying another journal's keys with other content", ["sync", "--db", "{db}"], 3,
+         "would change rows already stored here",
+         port=lambda: ScriptedBoard(journal_records(run_label="forged run"), device=DEVICE), never_sent=("ack",)),
     Case("disk full in the middle of a sync", ["sync", "--db", "{db}"], 4, "database or disk is full",
          port=lambda: ScriptedBoard(journal_records(device="5eba0000000000ab", n_samples=250)), never_sent=("ack",),
          disk_pages=0),
@@ -885,3 +888,19 @@ def test_a_gap_after_some_progress_stops_the_sync_and_nothing_past_it_is_acknowl
     with Store.open(db) as store:
         stored_to, acked_to = store.journal_state(device, 0x5C0FF1ED)
     assert board.acks and max(board.acks) <= board.gap_from and stored_to <= board.gap_from
+
+
+def test_a_forged_board_with_the_stored_journal_id_and_other_content_is_refused_with_nothing_changed(tmp_path, template):
+    """A board that gives the very journal id and keys of stored rows but other content (another run label, other
+    counts): refused, exit 3, no ack, the database exactly as it was."""
+    from nightcell.errors import RecordConflict
+
+    db = tmp_path / "class.db"
+    shutil.copy(template, db)
+    before = snapshot(db)
+    forged = journal_records(run_label="forged run", blank_label="not water")
+    board = ScriptedBoard(forged, device=DEVICE, hello={"journal": 1})
+    with pytest.raises(RecordConflict, match="its marks row of boot 1, seq 3 differs") as err:
+        _sync_scripted(board, db)
+    assert err.value.exit_code == 3 and board.acks == []
+    assert snapshot(db) == before

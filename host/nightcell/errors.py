@@ -13,6 +13,7 @@ __all__ = [
     "DeviceTimeout",
     "DeviceError",
     "ProtocolError",
+    "RecordConflict",
     "StoreError",
     "SchemaTooNew",
     "AnalysisError",
@@ -60,6 +61,10 @@ class ProtocolError(NightcellError):
     """Bytes from the board could not be understood even after retries."""
 
     exit_code = 3
+
+
+class RecordConflict(ProtocolError):
+    """A board's records carry the keys of rows already stored, with other content (another journal's keys)."""
 
 
 class StoreError(NightcellError):

@@ -95,9 +95,6 @@ def demo(out: Path, force: bool, interpreter: str, as_json: bool) -> None:
 
 # -- a simulated board to try every command on -----------------------------------------------------------------------
 
-SIM_DEVICE = "5e1fc0ffee000001"
-
-
 def _sim_folder(path: Path) -> Path:
     if path.exists() and not path.is_dir():
         raise InputError(f"{path} is a file: give --dir a folder for the simulated board's flash and cuvette")
@@ -124,13 +121,14 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
     """
     import time
 
-    from ..sim.board import SimulatedBoard
+    from ..sim.board import SimulatedBoard, folder_device_id
 
-    sim = SimulatedBoard(_sim_folder(folder), device=SIM_DEVICE, speed=speed, interpreter=interpreter)
+    device = folder_device_id(_sim_folder(folder), create=True)  # its own id, kept in the folder
+    sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter)
     sim.start()
     try:
         click.echo(f"port: {sim.url}")
-        click.echo(f"simulated board {SIM_DEVICE} running the firmware in {sim.interpreter}, clock x{speed:g}; "
+        click.echo(f"simulated board {device} running the firmware in {sim.interpreter}, clock x{speed:g}; "
                    f"its cuvette holds {sim.cell_path.name} in {sim.workdir}")
         click.echo(f"try: NIGHTCELL_PORT={sim.url} nightcell hello   — Ctrl-C switches the board off")
         sys.stdout.flush()
@@ -162,11 +160,12 @@ def sim_cuvette(folder: Path, absorbance: float | None, fading: str | None, bloc
     """
     import math
 
-    from ..sim.board import SimulatedBoard
+    from ..sim.board import SimulatedBoard, folder_device_id
 
     if sum([absorbance is not None, fading is not None, blocked]) != 1:
         raise InputError("give exactly one of --absorbance, --fading A0:A_END:K or --blocked")
-    if not (_sim_folder(folder) / f"{SIM_DEVICE}.cell.json").exists():
+    device = folder_device_id(_sim_folder(folder), create=False)
+    if device is None or not (folder / f"{device}.cell.json").exists():
         raise InputError(f"no simulated board in {folder}: start one with `nightcell sim-board --dir {folder}`")
     if absorbance is not None:
         if not math.isfinite(absorbance) or not -0.1 <= absorbance <= 5.0:
@@ -182,7 +181,7 @@ def sim_cuvette(folder: Path, absorbance: float | None, fading: str | None, bloc
         content = {"reaction": {"a0": a0, "a_inf": a_end, "k_per_s": k}}
     else:
         content = {"opaque": True}
-    SimulatedBoard(folder, device=SIM_DEVICE).set_cell(content)
+    SimulatedBoard(folder, device=device).set_cell(content)
     _emit(content, as_json, f"the simulated cuvette now holds {json.dumps(content)}")
 
 
