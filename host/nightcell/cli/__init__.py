@@ -761,9 +761,11 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the HTML pages and figures.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
+@click.option("--level", type=float, default=0.95, show_default=True,
+              help="Confidence level of the calibration's intervals and prediction band.")
 @json_option
 @friendly
-def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int,
+def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int, level: float,
            as_json: bool) -> None:
     """Write self-contained HTML reports (figures embedded; each figure also as PNG and SVG): one per run, or a
     study over several runs with their recorded conditions (see `nightcell condition`).
@@ -781,7 +783,7 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
     done = Written()
     if study:
         with open_reading(db) as store, all_or_nothing():
-            done = study_report(store, out, channel)
+            done = study_report(store, out, channel, level=level)
         lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
         _emit(done.to_dict(), as_json, "\n".join(lines))
         return
@@ -791,7 +793,7 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
             raise InputError(f"{db} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
         for run in runs:
             try:
-                one = run_report(store, run, out, channel)
+                one = run_report(store, run, out, channel, level=level)
             except AnalysisError as exc:
                 if not all_runs:
                     raise

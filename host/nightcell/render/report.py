@@ -71,19 +71,18 @@ def plain_text(label: Any) -> str:
 
 
 def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str = "") -> Any:
-    """Standards, the fitted line and its 95 % prediction band for one new reading; residuals on ``resid_ax``."""
+    """Standards, the fitted curve and its prediction band for one new reading at the calibration's own level
+    (``cal.level``, 95 % unless fitted otherwise); residuals on ``resid_ax``."""
     if ax is None:
         ax = _new_axes()
     x = np.asarray(cal.x, dtype=float)
     y = np.asarray(cal.y, dtype=float)
     ax.plot(x, y, "o", color="#1f5f8b", label="standards")
     grid = np.linspace(min(0.0, x.min()), x.max() * 1.05, 200)
-    fitted = cal.values.get("intercept", 0.0) + cal.values["slope"] * grid + cal.values.get("curvature", 0.0) * grid**2
+    fitted = cal.curve(grid)
     ax.plot(grid, fitted, "-", color="#333333", label="fit")
-    band = _prediction_band(cal, grid)
-    if band is not None:
-        ax.fill_between(grid, fitted - band, fitted + band, color="#1f5f8b", alpha=0.15,
-                        label="95 % prediction band")
+    low, high = cal.band(grid, cal.level, kind="prediction")
+    ax.fill_between(grid, low, high, color="#1f5f8b", alpha=0.15, label=f"{100 * cal.level:g} % prediction band")
     ax.set_xlabel(f"concentration {unit}".strip())
     ax.set_ylabel("absorbance")
     ax.legend(loc="upper left", fontsize="small")
@@ -93,21 +92,6 @@ def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str =
         resid_ax.set_xlabel(f"concentration {unit}".strip())
         resid_ax.set_ylabel("residual (A)")
     return ax
-
-
-def _prediction_band(cal: Any, grid: np.ndarray) -> np.ndarray | None:
-    """Half-width of the 95 % band for one new reading at each concentration (line or quadratic)."""
-    from scipy import stats
-
-    names = list(cal.names)
-    cov = np.asarray(cal.cov, dtype=float)
-    cols = {"intercept": np.ones_like(grid), "slope": grid, "curvature": grid**2}
-    try:
-        design = np.column_stack([cols[n] for n in names])
-    except KeyError:
-        return None
-    var = np.einsum("ij,jk,ik->i", design, cov, design) + cal.residual_sd**2
-    return stats.t.ppf(0.975, max(cal.dof, 1)) * np.sqrt(var)
 
 
 def plot_run(time_s: Sequence[float], absorbance: Sequence[float], fit: Any = None, ax: Any = None,
@@ -276,9 +260,8 @@ def plot_orders(fit: Any, ax: Any = None, rate_se: Sequence[float] | None = None
     yerr = None if rate_se is None else np.abs(np.asarray(rate_se, dtype=float))
     ax.errorbar(c, r, yerr=yerr, fmt="s", color="#2d6a4f", ms=5, capsize=3, label="runs (±1 SE)")
     grid = np.geomspace(c.min() / 1.15, c.max() * 1.15, 50)
-    n, ln1 = f.values["order"], f.values["ln_rate_at_1"]
-    ax.plot(grid, np.exp(ln1) * grid**n, "-", color="#333333",
-            label=f"order {n:.3f} ± {f.stderr['order']:.2g}")
+    n = f.values["order"]
+    ax.plot(grid, np.exp(f.curve(grid)), "-", color="#333333", label=f"order {n:.3f} ± {f.stderr['order']:.2g}")
     ax.set_xscale("log")
     ax.set_yscale("log")
     ax.set_xlabel(plain_text(f"[{reactant}] (mol/L)" if reactant else "concentration (mol/L)"))
@@ -289,7 +272,7 @@ def plot_orders(fit: Any, ax: Any = None, rate_se: Sequence[float] | None = None
 
 def plot_arrhenius(fit: Any, ax: Any = None, k_se: Sequence[float] | None = None, resid_ax: Any = None) -> Any:
     """ln k (Arrhenius) or ln(k/T) (Eyring) against 1000/T with the fitted line; residuals on ``resid_ax``."""
-    from ..science.study import BOLTZMANN, GAS_CONSTANT, PLANCK
+    from ..science.study import BOLTZMANN, PLANCK
 
     if ax is None:
         ax = _new_axes()
@@ -309,13 +292,12 @@ def plot_arrhenius(fit: Any, ax: Any = None, k_se: Sequence[float] | None = None
         yerr = np.abs(np.asarray(k_se, dtype=float)) / k
     ax.errorbar(x, y, yerr=yerr, fmt="o", color="#9c2f2f", ms=5, capsize=3, label="runs (±1 SE)")
     grid = np.linspace(T.min() - 3.0, T.max() + 3.0, 50)
+    line = fit.curve(grid) + (math.log(BOLTZMANN / PLANCK) if eyring else 0.0)
     if eyring:
-        dh, ds = fit.values["dH_J_per_mol"], fit.values["dS_J_per_mol_K"]
-        line = math.log(BOLTZMANN / PLANCK) + ds / GAS_CONSTANT - dh / (GAS_CONSTANT * grid)
+        dh = fit.values["dH_J_per_mol"]
         lab = f"ΔH‡ {dh / 1000:.1f} ± {fit.stderr['dH_J_per_mol'] / 1000:.1f} kJ/mol"
     else:
-        ea, lna = fit.values["Ea_J_per_mol"], fit.values["ln_A"]
-        line = lna - ea / (GAS_CONSTANT * grid)
+        ea = fit.values["Ea_J_per_mol"]
         lab = f"Ea {ea / 1000:.1f} ± {fit.stderr['Ea_J_per_mol'] / 1000:.1f} kJ/mol"
     ax.plot(1000.0 / grid, line, "-", color="#333333", label=lab)
     ax.set_xlabel("1000 / T (K⁻¹)")

@@ -588,7 +588,7 @@ def _pick_group(items: list[RunSummary], key: Any, level: Any) -> list[RunSummar
 
 
 def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str = "first_order_plateau",
-                  channel: int = 0) -> StudyAnalysis:
+                  channel: int = 0, level: float = 0.95) -> StudyAnalysis:
     """Every run with its recorded conditions → per-run k (``model``) → orders and Arrhenius/Eyring (study.py).
 
     Orders: for each reactant, the largest set of runs at one temperature and one level of every other reactant
@@ -609,7 +609,7 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
             continue
         if run.device not in cals:
             try:
-                cals[run.device] = calibrate_from_store(store, run.device, channel)
+                cals[run.device] = calibrate_from_store(store, run.device, channel, level=level)
             except AnalysisError:
                 cals[run.device] = None
         try:
