@@ -39,7 +39,7 @@ from nightcell.store import database as store_module
 from nightcell.cli import cli
 from nightcell.errors import StoreError
 from nightcell.store.database import Store
-from nightcell.science.timeline import rebuild_clocks
+from nightcell.store.clocks import rebuild_clocks
 
 ROOT = Path(__file__).resolve().parent.parent
 DEVICE = "5eba000000000007"

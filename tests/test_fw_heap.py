@@ -16,7 +16,7 @@ flushes, host reads and acknowledgements every 1000 samples. The firmware is loa
 
 import subprocess
 
-from fwharness import FIRMWARE, results, run_mp
+from support.fwharness import FIRMWARE, results, run_mp
 from test_fw_compile import SOURCES, _mpy_cross
 
 HEAP = r"""

@@ -2,7 +2,7 @@
 odd positions, and the durability window (how often the open block is saved). Expected behaviour is the firmware
 issue's and schema/protocol.md's; decoding on the CPython side uses the host's reference codec."""
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 
 COMMON = r"""
 import struct, os

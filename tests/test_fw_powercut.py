@@ -13,7 +13,7 @@ The benchmark tests/bench/bench_fw_powercut.py runs the same campaign with ≥ 2
 
 from __future__ import annotations
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 from nightcell.wire import frames as F
 
 CAMPAIGN = r"""

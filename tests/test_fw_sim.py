@@ -20,7 +20,7 @@ from pathlib import Path
 
 import pytest
 
-from fwharness import FIRMWARE, micropython
+from support.fwharness import FIRMWARE, micropython
 from nightcell.wire import frames as F
 
 

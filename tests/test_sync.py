@@ -18,10 +18,10 @@ import pytest
 
 from nightcell.errors import DeviceTimeout, NightcellError
 from nightcell.wire.link import Board
-from nightcell.sim.board import (Fault, SimulatedBoard, random_faults, raw_rows, reference_journal,
-                                run_fault_schedule)
+from nightcell.sim.board import Fault, SimulatedBoard
 from nightcell.store.database import Store
 from nightcell.store.sync import sync_board, sync_ports
+from support.campaigns import random_faults, raw_rows, reference_journal, run_fault_schedule
 
 SETTINGS = {"interval_ms": 1000, "durability_ms": 2000, "segment_bytes": 4096,
             "channels": [{"name": "red", "led": 15, "adc": 26}, {"name": "green", "led": 14, "adc": 27}]}

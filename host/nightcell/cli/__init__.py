@@ -595,18 +595,12 @@ def list_devices(store: Any) -> tuple:
     data = []
     for d in store.devices():
         n_runs = len(store.runs(d["device"]))
-        n_samples = store.query("SELECT count(*) AS n FROM samples WHERE device = ? AND channel = 0",
-                                (d["device"],))[0]["n"]
+        n_samples = store.sample_count(d["device"], channel=0)
         data.append(dict(d, runs=n_runs, samples=n_samples))
     rows = [(d["device"], d["label"] or "", d["board"], d["firmware"], d["runs"], d["samples"],
              _utc(d["last_seen_unix"])) for d in data]
     return ("devices", ("device", "label", "board", "firmware", "runs", "samples", "last synced"), rows, data,
             "no devices yet: sync a board with `nightcell sync --port PORT --db DB`")
-
-
-def _mark_times(store: Any, mark: str) -> dict[tuple[str, int, int], str]:
-    rows = store.query("SELECT DISTINCT device, boot, seq, wall_clock_utc FROM mark_readings WHERE mark = ?", (mark,))
-    return {(r["device"], r["boot"], r["seq"]): r["wall_clock_utc"] or "" for r in rows}
 
 
 @_list_command("runs")
@@ -615,7 +609,7 @@ def list_runs(store: Any) -> tuple:
 
     Example: nightcell list runs --db class.db
     """
-    starts = _mark_times(store, "run_start")
+    starts = store.mark_times("run_start")
     data = []
     for run in store.runs():
         d = run.to_dict()
@@ -635,7 +629,7 @@ def list_blanks(store: Any) -> tuple:
 
     Example: nightcell list blanks --db class.db
     """
-    times = _mark_times(store, "blank")
+    times = store.mark_times("blank")
     data = []
     for m in store.marks(mark="blank"):
         reads = max(1, m["reads"])
@@ -650,21 +644,13 @@ def list_blanks(store: Any) -> tuple:
             "no blanks yet: take one with `nightcell blank`, then `nightcell sync`")
 
 
-def _results(store: Any, kind: str | None) -> list[dict[str, Any]]:
-    sql = "SELECT * FROM results" + (" WHERE kind = ?" if kind else "") + " ORDER BY id"
-    out = []
-    for r in store.query(sql, (kind,) if kind else ()):
-        out.append(dict(r, inputs=json.loads(r.pop("inputs_json")), result=json.loads(r.pop("result_json"))))
-    return out
-
-
 @_list_command("calibrations")
 def list_calibrations(store: Any) -> tuple:
     """Calibrations saved in the database (by `nightcell calibrate --db`), with slope and its standard error.
 
     Example: nightcell list calibrations --db class.db
     """
-    data = _results(store, "calibration")
+    data = store.results("calibration")
     rows = []
     for r in data:
         res = r["result"]
@@ -682,7 +668,7 @@ def list_results(store: Any) -> tuple:
 
     Example: nightcell list results --db class.db
     """
-    data = _results(store, None)
+    data = store.results()
     rows = [(r["id"], r["kind"], r["label"], r["inputs"].get("run") or r["inputs"].get("device") or "",
              r["nightcell_version"], _utc(r["created_unix"])) for r in data]
     return ("results", ("id", "kind", "label", "input", "version", "saved"), rows, data,

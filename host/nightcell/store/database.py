@@ -41,6 +41,8 @@ from ..wire.frames import (
     sample_columns,
 )
 from ..science.timeline import unwrap_uptimes
+from .queries import StoreQueries
+from .tables import TIMED_RAW_TABLES
 
 __all__ = ["Store", "migration_files", "Run", "damage_report", "damaged"]
 
@@ -175,7 +177,7 @@ def _int_columns(names: tuple[str, ...], texts: tuple, n: int, run: Run) -> dict
     return dict(zip(names, values.reshape(len(names), n)))
 
 
-class Store:
+class Store(StoreQueries):
     """One nightcell database file."""
 
     def __init__(self, conn: sqlite3.Connection, path: str):
@@ -465,7 +467,7 @@ class Store:
                                cols.dark[:, c].tolist(), cols.light[:, c].tolist(), temp))
         return out
 
-    _RAW_TABLES = ("boots", "samples", "marks", "anchors", "events", "settings_records", "health")
+    _RAW_TABLES = TIMED_RAW_TABLES
 
     def _unwrapped_uptimes(self, device: str, records: list[Record]) -> list[int]:
         """Each record's uptime with the u32 wrap undone, continuing from the last stored row of its boot."""

@@ -25,7 +25,7 @@ from ..errors import DeviceError, NightcellError, ProtocolError, StoreError
 from ..wire.frames import KIND_ANCHOR, iter_records
 from ..wire.link import READ_CHUNK, Board, JournalPull
 from .database import Store
-from ..science.timeline import rebuild_clocks
+from .clocks import rebuild_clocks
 
 __all__ = ["SyncSummary", "sync_board", "sync_ports", "BATCH_BYTES", "ProgressCallback"]
 

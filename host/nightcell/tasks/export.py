@@ -17,7 +17,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any, Callable, Iterable, Sequence
 
 from ..render import report as _report
 from .analyse import analyse_run, calibrate_from_store, run_conditions, run_provenance, run_series
@@ -68,6 +68,9 @@ class Written:
 
     files: list[Path] = field(default_factory=list)
     skipped: list[str] = field(default_factory=list)
+    page: Path | None = None  # a study's own page
+    run_pages: list[Path] = field(default_factory=list)  # a study's page per run, in its order
+    figures: list[Path] = field(default_factory=list)  # the PNG and SVG files among ``files``
 
     def to_dict(self) -> dict[str, Any]:
         return {"files": [str(f) for f in self.files], "skipped": list(self.skipped)}
@@ -147,17 +150,24 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
     return done
 
 
-def study_report(store: Store, out: str | Path, channel: int = 0, *, level: float = 0.95) -> Written:
-    """A study page (``study.html``) over every run with recorded conditions, linking one page per run (``runs/``).
+def study_report(store: Store, out: str | Path, channel: int = 0, *, level: float = 0.95, study: Any = None,
+                 name: str = "study", title: str = "nightcell study report", intro: str = "",
+                 provenance: dict[str, Any] | None = None, extra_sections: Sequence[dict[str, Any]] = (),
+                 unit: str = "", page_name: Callable[[Run], str] | None = None) -> Written:
+    """A study page (``<name>.html``) over every run with recorded conditions, linking one page per run (``runs/``).
 
-    Orders and Arrhenius/Eyring come from ``analyse.analyse_study``; runs without a recorded temperature and starting
-    concentration are listed as skipped with what to record (``nightcell condition``).
+    Orders and Arrhenius/Eyring come from ``analyse.analyse_study`` (or ``study``, one already made); runs without a
+    recorded temperature and starting concentration are listed as skipped with what to record (``nightcell
+    condition``). ``title``, ``intro``, ``provenance`` (instead of the database, run count and channel),
+    ``extra_sections``, ``unit`` (of concentrations) and ``page_name`` (a run's page name; default ``run_name``)
+    shape the pages.
     """
     from .analyse import analyse_study
 
     out = out_folder(out)
     done = Written()
-    study = analyse_study(store, channel=channel, level=level)
+    if study is None:
+        study = analyse_study(store, channel=channel, level=level)
     if not study.runs:
         raise AnalysisError("no run has both a temperature_K and a conc_<reactant>_M recorded: record them with "
                             "`nightcell condition` first")
@@ -167,11 +177,18 @@ def study_report(store: Store, out: str | Path, channel: int = 0, *, level: floa
     for it in study.runs:
         prov = run_provenance(store, it.analysis, it.calibration)
         files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
-                                   conditions=conds.get(it.run.key), name=run_name(it.run), cache=cache)
+                                   conditions=conds.get(it.run.key), name=(page_name or run_name)(it.run),
+                                   cache=cache, unit=unit)
         pages[it.run.key] = f"runs/{files.html.name}"
         done.files += files.files
-    prov = {"database": store.path, "runs": len(study.runs), "channel": channel}
-    files = _report.study_report(study, out, name="study", provenance=prov, run_pages=pages)
+        done.run_pages.append(files.html)
+        done.figures += [f for f in files.figures if f not in done.figures]
+    if provenance is None:
+        provenance = {"database": store.path, "runs": len(study.runs), "channel": channel}
+    files = _report.study_report(study, out, name=name, title=title, intro=intro, provenance=provenance,
+                                 run_pages=pages, extra_sections=extra_sections, unit=unit)
     done.files = files.files + done.files
+    done.page = files.html
+    done.figures = files.figures + done.figures
     done.skipped += [f"run {key}: {why}" for key, why in study.skipped.items()]
     return done
