@@ -208,7 +208,7 @@ def test_another_address_is_warned_about_and_controls_are_off_without_the_flag(t
     import urllib.error
     import urllib.request
 
-    from dashboard_harness import page_server
+    from support.dashboard import page_server
 
     # 127.0.0.2 is a loopback address on Linux that the command does not know as one: it warns, nothing is exposed
     with page_server(["/dev/nightcell-no-such-board"], tmp_path / "class.db", "--host", "127.0.0.2") as server:

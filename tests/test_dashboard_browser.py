@@ -20,7 +20,7 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from dashboard_harness import boards, browser, browser_missing, page_server, tile_absorbance_js
+from support.dashboard import boards, browser, browser_missing, page_server, tile_absorbance_js
 from nightcell.cli import SIM_DEVICE, cli
 
 pytestmark = pytest.mark.skipif(browser_missing() is not None, reason=browser_missing() or "")
