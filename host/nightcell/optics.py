@@ -36,6 +36,7 @@ __all__ = [
     "correct_stray",
     "flag_names",
     "stray_ceiling",
+    "blank_problems",
     "stray_fraction_from_opaque",
 ]
 
@@ -322,3 +323,28 @@ def absorbance_noise(
         sd_reading = np.where(signal > 0, np.sqrt(rel_reading) / _LN10, np.nan)
         sd = np.where(signal > 0, np.sqrt(rel_reading + var_reference / reference**2) / _LN10, np.nan)
     return NoiseEstimate(absorbance=a, sd=sd, sd_reading=sd_reading)
+
+
+BLANK_NOISE_SDS = 5.0
+"""A blank whose light − dark is within this many SDs of the dark noise (of a difference: √2·noise) is blocked."""
+BLANK_FAR_BELOW = 0.1
+"""A blank whose signal is below this fraction of the median of the board's earlier blanks (A > 1 against them)."""
+
+
+def blank_problems(light: float, dark: float, earlier_signals: Any = (), *,
+                   noise_counts: float = NOISE_COUNTS) -> list[str]:
+    """Why a blank (mean counts per read) looks wrong, or ``[]``: light within ``BLANK_NOISE_SDS`` dark-noise SDs
+    of its dark (the light path blocked), or a signal far below the board's earlier blanks (``earlier_signals``:
+    their light − dark). Common practice: a blank is the brightest reading of a session."""
+    problems = []
+    sd = math.sqrt(2.0) * noise_counts
+    signal = float(light) - float(dark)
+    if signal <= BLANK_NOISE_SDS * sd:
+        problems.append(f"light {light:.1f} vs dark {dark:.1f} counts per read: within {BLANK_NOISE_SDS:g} "
+                        f"dark-noise SDs ({sd:.2g} counts) of its dark, as if the light path were blocked")
+    earlier = np.asarray(list(earlier_signals), dtype=float)
+    earlier = earlier[np.isfinite(earlier) & (earlier > 0)]
+    if earlier.size and signal < BLANK_FAR_BELOW * float(np.median(earlier)):
+        problems.append(f"signal {signal:.1f} counts per read, far below the {float(np.median(earlier)):.1f} of this "
+                        f"board's {earlier.size} earlier blank(s) (less than {BLANK_FAR_BELOW:g} of them)")
+    return problems
