@@ -277,8 +277,8 @@ class CalibrationResult(FitResult):
         u = f" {self.unit}" if self.unit else ""
         sigma = {"residual": "the residual SD s_y/x", "intercept": "the intercept's SE",
                  "blank": "the SD of repeated blank readings"}[ex["sigma_source"]]
-        lines.append(f"  LOD = {ex['lod']:.4g}{u}, LOQ = {ex['loq']:.4g}{u} ({LOD_RULE}, σ = {sigma} = "
-                     f"{ex['lod_sigma']:.3g} A)")
+        lines.append(f"  LOD = {ex['lod']:.4g}{u}, LOQ = {ex['loq']:.4g}{u} — convention: {LOD_RULE}, σ = {sigma} = "
+                     f"{ex['lod_sigma']:.3g} A")
         if self.unit:
             lines.append(f"  concentrations in {self.unit}; slope in A per {self.unit}")
         return "\n".join(lines)
