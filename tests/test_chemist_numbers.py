@@ -254,3 +254,15 @@ def test_unit_and_set_travel_in_the_standard_label():
     # schema/records.md: a standard's label may carry unit=… and set=… tokens
     assert label_tokens("dye 2 unit=µM set=week2") == ("dye 2", {"unit": "µM", "set": "week2"})
     assert label_tokens("plain") == ("plain", {})
+
+
+def test_rise_law_on_a_stored_run(tmp_path):
+    # invented product-formation run (A rises to a final value); fitted with A0 free from the grid start
+    db = make_db(tmp_path / "rise.db", curve=lambda i: 0.05 + 0.5 * -math.expm1(-0.05 * i))
+    code, out = _run("rate", "--db", db, "--model", "first_order_rise", "--json")
+    assert code == 0, out
+    fit = json.loads(out)["fits"]["first_order_rise"]
+    assert fit["values"]["k"] == pytest.approx(0.025, rel=0.02)  # 0.05 per sample, a sample every 2 s
+    assert fit["extra"]["A_final"] == pytest.approx(0.55, abs=0.01)
+    code, out = _run("rate", "--db", db, "--model", "first_order_rise", "--a0", "0")
+    assert code == 2 and "export the run" in out

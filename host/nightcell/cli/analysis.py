@@ -436,9 +436,10 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
             else:
                 if window is not None:
                     raise InputError("--window applies to --model initial_rate")
-                if rise:
-                    raise InputError("first_order_rise with --db: export the run (`nightcell export`) and fit its "
-                                     "absorbance CSV, where --a0 and --start apply")
+                if a0 is not None or start:
+                    raise InputError("--a0 and --start with --db: export the run (`nightcell export`) and fit its "
+                                     "absorbance CSV, where they apply (with --db first_order_rise fits A0 and "
+                                     "starts from its grid)")
                 analysis = analyse_run(store, run, channel=channel, models=None if model == "all" else (model,),
                                        blank=blank, t_start=t_start, t_end=t_end, accept_suspect=accept_suspect)
                 data, text = analysis.to_dict(), _run_text(analysis)

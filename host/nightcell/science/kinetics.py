@@ -608,12 +608,15 @@ def _fit_rise(t: np.ndarray, a: np.ndarray, w: np.ndarray | None, a0: float | No
     starts.append(("grid", grid if a0 is None else grid[1:]))
     best: FitResult | None = None
     failures = []
+    given_rss = None
     for origin, p0 in starts:
         try:
             fit = nonlinear_lstsq(f, t, a, p0, names, model=model, jac=jac, weights=w, inputs=inputs)
         except FitFailed as exc:
             failures.append(f"from the {origin} start: {exc}")
             continue
+        if origin == "given":
+            given_rss = fit.rss
         fit.extra["start"] = dict(zip(names, p0))
         fit.extra["start_used"] = origin
         if best is None or fit.rss < best.rss * (1.0 - 1e-9):
@@ -633,8 +636,9 @@ def _fit_rise(t: np.ndarray, a: np.ndarray, w: np.ndarray | None, a0: float | No
                "the curve has finished rising before most points — use shorter intervals or fit zero_order")
         )
     if len(starts) > 1 and best.extra["start_used"] == "grid":
-        best.message = ("the given start led to a higher sum of squares (or failed); the grid start's minimum is "
-                        "reported")
+        best.message = ((f"from the given start the fit stopped at a higher sum of squares ({given_rss:.6g} against "
+                         f"{best.rss:.6g})" if given_rss is not None else "the fit from the given start did not "
+                         "converge") + "; the minimum from the grid start is reported")
     best.extra["A_final"] = best.values["A_rise"] + (best.values["A0"] if a0 is None else fixed)
     if a0 is not None:
         best.inputs["a0_fixed"] = fixed

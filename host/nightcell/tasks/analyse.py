@@ -664,7 +664,9 @@ def run_provenance(store: Store, analysis: RunAnalysis, calibration: Any = None)
     prov["first reading"] = "%d:%d" % analysis.seqs[0]
     prov["last reading"] = "%d:%d" % analysis.seqs[-1]
     if calibration is not None:
-        prov["calibration"] = (f"slope {calibration.slope:.6g} ± {calibration.slope_se:.2g} A per unit from standards "
+        set_text = f"set {calibration.inputs['set']!r}, " if calibration.inputs.get("set") else ""
+        prov["calibration"] = (f"slope {calibration.slope:.6g} ± {calibration.slope_se:.2g} A per "
+                               f"{getattr(calibration, 'unit', '') or 'unit'} from {set_text}standards "
                                f"{', '.join(calibration.inputs.get('standards', []))} "
                                f"(blanks {', '.join(calibration.inputs.get('blanks', []))})")
     settings = store.conn.execute(

@@ -133,7 +133,7 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
                blank: str | None = None, accept_suspect: bool = False) -> Written:
     """One self-contained HTML page for a run (figures embedded), and its figures as PNG and SVG beside it.
 
-    The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AIC). When its
+    The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AICc). When its
     device recorded standards the calibration is fitted, shown, and used to give concentrations. The page itself is
     drawn by ``report.run_report``; this function gathers what it shows from the store.
     """
