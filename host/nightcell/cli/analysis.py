@@ -12,10 +12,13 @@ port, or leave a half-written file.
 CSV layouts (header row required, comma-separated, extra columns ignored):
 
 - calibrate: ``concentration,absorbance`` [``weight``] [``replicate`` — a label; replicates are recognised by
-  equal concentration]; ``percent_T`` (0–100) may stand in for ``absorbance`` (A = 2 − log10 %T).
+  equal concentration]; a percent-transmittance column (``%T``) may stand in for ``absorbance`` (read_table
+  converts it).
 - rate: ``time_s,absorbance`` (times strictly increasing) [``weight`` — relative weights, as the run export
-  writes them (T², what ``rate --db`` uses); without it the fit is unweighted] [``flags`` — rows with flags other
-  than 0 are left out, as ``rate --db`` leaves them out]; ``percent_T`` may stand in for ``absorbance``.
+  writes them (T², what ``rate --db`` uses; 0 for flagged readings); without it the fit is unweighted] [``flags``
+  — rows with flags other than 0 are left out, as ``rate --db`` leaves them out].
+- An ``absorbance`` column whose values all lie within 0–100 with some above 4 looks like %T: refused (exit 2)
+  unless ``--accept-suspect``.
 - orders: one row per run: ``initial_rate`` [``rate_se``] and one ``conc_<name>`` column per reactant; with ``--db``,
   ``run`` (key or label) instead of ``initial_rate``: each run's initial rate comes from its readings.
 - arrhenius: ``temperature_K,k`` [``k_se``]; with ``--db``, ``run`` [``temperature_K``] instead: k comes from the
@@ -25,111 +28,77 @@ CSV layouts (header row required, comma-separated, extra columns ignored):
 from __future__ import annotations
 
 import contextlib
-import csv
 import json
-import math
 from pathlib import Path
-from typing import Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import click
-import numpy as np
 
-from ..science import calibration as _calibration
-from ..science import kinetics as _kinetics
-from ..science import study as _study
-from .options import accept_suspect_option, friendly, json_option
 from ..errors import InputError
+from ..science.laws import ALL_MODELS, MODELS
+from .options import accept_suspect_option, friendly, json_option, open_writing
+
+if TYPE_CHECKING:
+    import numpy as np
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
 
 
 def read_columns(
     path: Path, required: Sequence[str], optional: Sequence[str] = (), *, prefix: str | None = None, min_rows: int = 1,
-    text: Sequence[str] = (), blank_ok: Sequence[str] = (),
+    text: Sequence[str] = (), say: Callable[[str], None] | None = None,
 ) -> dict[str, np.ndarray]:
-    """Numeric columns of a CSV by header name; ``prefix`` also collects every column starting with it; ``text``
-    columns are kept as strings; ``blank_ok`` columns give NaN for an empty cell (a flagged reading's weight).
+    """Numeric columns of a CSV or spreadsheet by header name (``tasks.tables.read_table`` with the dialect options
+    of the command being run); what was detected or converted is said through ``say`` (to stderr by default)."""
+    from ..tasks.tables import read_table
 
-    Raises ``InputError`` naming the file, row and column, and what to do.
-    """
-    try:
-        with open(path, newline="", encoding="utf-8-sig") as fh:
-            reader = csv.reader(fh)
-            try:
-                header = [h.strip() for h in next(reader)]
-            except StopIteration:
-                raise InputError(f"{path} is empty; it needs a header row ({','.join(required)}) and data rows")
-            rows = [row for row in reader if any(cell.strip() for cell in row)]
-    except (OSError, UnicodeDecodeError, csv.Error) as exc:
-        raise InputError(f"cannot read {path}: {exc}") from None
-    wanted = list(required) + [c for c in optional if c in header]
-    if prefix:
-        wanted += [h for h in header if h.startswith(prefix) and h not in wanted]
-    missing = [c for c in required if c not in header]
-    if missing:
-        raise InputError(
-            f"{path} has no column {', '.join(repr(m) for m in missing)} (found: {', '.join(header) or 'none'}); "
-            f"the header row must name {','.join(required)}"
-        )
-    if len(rows) < min_rows:
-        raise InputError(f"{path} has {len(rows)} data rows; this analysis needs at least {min_rows}")
-    out: dict[str, np.ndarray] = {}
-    for col in wanted:
-        j = header.index(col)
-        values: list[Any] = []
-        for i, row in enumerate(rows, start=2):
-            cell = row[j].strip() if j < len(row) else ""
-            if col in blank_ok and not cell:
-                values.append(math.nan)
-                continue
-            if col in text:
-                if not cell:
-                    raise InputError(f"{path} line {i}, column {col} is empty; fill it in or delete that row")
-                values.append(cell)
-                continue
-            try:
-                v = float(cell)
-            except ValueError:
-                raise InputError(
-                    f"{path} line {i}, column {col}: {cell!r} is not a number; fix or delete that row"
-                ) from None
-            if not math.isfinite(v):
-                raise InputError(f"{path} line {i}, column {col}: {cell!r} is not a finite number; fix or delete that "
-                                 "row")
-            values.append(v)
-        out[col] = np.array(values, dtype=object if col in text else float)
-    return out
+    ctx = click.get_current_context(silent=True)
+    params = ctx.meta.get("nightcell.table", {}) if ctx is not None else {}
+    table = read_table(path, required, optional, prefix=prefix, min_rows=min_rows, text=text,
+                       delimiter=params.get("delimiter"), decimal=params.get("decimal"), sheet=params.get("sheet"))
+    if table.notes:
+        (say or (lambda line: click.echo(line, err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+    return table.columns
 
 
-PERCENT_T_COLUMN = "percent_T"
+def _table_options(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """--delimiter, --decimal and --sheet: what a file's dialect is when detection is not wanted (read through the
+    click context by ``read_columns``, so the commands' signatures stay as they are)."""
+    fn = click.option("--sheet", default=None, expose_value=False, is_eager=False, callback=_keep,
+                      help="The sheet of an .xlsx/.xls/.ods workbook to read (default: the first).")(fn)
+    fn = click.option("--decimal", type=click.Choice([".", ","]), default=None, expose_value=False, callback=_keep,
+                      help="Decimal mark of the CSV file (default: detected).")(fn)
+    fn = click.option("--delimiter", type=click.Choice([",", ";", "tab", "|"]), default=None, expose_value=False,
+                      callback=_keep, help="Column delimiter of the CSV file (default: detected).")(fn)
+    return fn
+
+
+def _keep(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
+    if value == "tab":
+        value = "\t"
+    ctx.meta.setdefault("nightcell.table", {})[param.name] = value
+    return value
 
 
 def _absorbance_columns(path: Path, first: str, optional: Sequence[str], *, min_rows: int,
-                        accept_suspect: bool, blank_ok: Sequence[str] = ()) -> tuple[dict[str, np.ndarray], str]:
-    """``first`` and ``absorbance`` (or ``percent_T`` turned into absorbance) of a CSV, and how A was obtained.
+                        accept_suspect: bool) -> tuple[dict[str, np.ndarray], str]:
+    """``first`` and ``absorbance`` of a CSV (a %T column converted by read_table), and how A was obtained.
 
-    Values in an absorbance column that look like percent transmittance (all within 0–100, some above 4) are
+    Values in an ``absorbance`` column that look like percent transmittance (all within 0–100, some above 4) are
     refused unless ``accept_suspect``: an LED photometer rarely reads A above 3 (common practice)."""
-    try:
-        cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, blank_ok=blank_ok)
-    except InputError as no_absorbance:
-        try:
-            cols = read_columns(path, [first, PERCENT_T_COLUMN], optional, min_rows=min_rows, blank_ok=blank_ok)
-        except InputError:
-            raise no_absorbance from None
-        pt = cols.pop(PERCENT_T_COLUMN)
-        if np.any(pt <= 0) or np.any(pt > 110):
-            i = int(np.flatnonzero((pt <= 0) | (pt > 110))[0])
-            raise InputError(f"{path} line {i + 2}, column {PERCENT_T_COLUMN}: {pt[i]:g} is not a transmittance in "
-                             "percent (above 0, at most 100)") from None
-        cols["absorbance"] = 2.0 - np.log10(pt)
-        return cols, f"A = 2 − log10(%T) from column {PERCENT_T_COLUMN}"
+    import numpy as np
+
+    notes: list[str] = []
+    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append)
+    for line in notes:
+        click.echo(line, err=True)
+    if any("percent transmittance" in line for line in notes):
+        return cols, "converted from percent transmittance: A = 2 − log10(%T)"
     a = cols["absorbance"]
     if a.size and np.all((a >= 0) & (a <= 100)) and a.max() > 4 and not accept_suspect:
         raise InputError(f"{path}: column absorbance holds values up to {a.max():g}, which look like percent "
-                         f"transmittance (0–100), not absorbance (rarely above 3): if they are %T, name the column "
-                         f"{PERCENT_T_COLUMN} and nightcell converts them (A = 2 − log10 %T); if they are right, "
-                         "pass --accept-suspect")
+                         "transmittance (0–100), not absorbance (rarely above 3): if they are %T, name the column "
+                         "%T and nightcell converts them (A = 2 − log10 %T); if they are right, pass --accept-suspect")
     return cols, "column absorbance"
 
 
@@ -159,8 +128,7 @@ def _channel_option(fn: Callable[..., Any]) -> Callable[..., Any]:
                         help="Light channel (with --db).")(fn)
 
 
-_csv_argument = click.argument("csv_file", required=False,
-                               type=click.Path(exists=True, dir_okay=False, path_type=Path))
+_csv_argument = click.argument("csv_file", required=False, type=click.Path(path_type=Path))
 
 
 def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: str) -> None:
@@ -172,9 +140,8 @@ def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: st
 
 
 def _open(db: Path) -> Any:
-    from ..store.database import Store
-
-    return Store.open(db, create=False)
+    # every analysis with --db saves its result: a writing command
+    return open_writing(db)
 
 
 def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) -> None:
@@ -184,6 +151,25 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) ->
     if out is not None:
         try:
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
+        except OSError as exc:
+            raise InputError(f"cannot write {out}: {exc}") from None
+    click.echo(payload if as_json else text)
+
+
+def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str, Any], data: dict[str, Any],
+                  text: str, as_json: bool, out: Path | None) -> None:
+    """Save a result and write ``--out`` as one step: the file is written inside the transaction that saves the
+    result, so a file that cannot be written leaves the database as it was (and a refused commit, no file)."""
+    from ..render.report import write_atomic
+
+    with store.write():
+        saved = store.save_result(kind, label, inputs, data)
+        data = dict(data, result_id=saved)
+        text += f"\nsaved in {db} as result {saved}"
+        payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
+        try:
+            if out is not None:
+                write_atomic(out, (payload + "\n").encode("utf-8"))
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
     click.echo(payload if as_json else text)
@@ -205,6 +191,7 @@ def _only_device(store: Any, device: str | None) -> str:
 
 @click.command("calibrate")
 @_csv_argument
+@_table_options
 @_db_option
 @click.option("--device", default=None, help="With --db: the device whose standards to fit (default: the only one).")
 @_channel_option
@@ -233,7 +220,7 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
                       out: Path | None) -> None:
     """Fit a calibration curve to standards, from a CSV file or from a device's standards in the database.
 
-    CSV columns: concentration,absorbance[,weight][,replicate] (percent_T instead of absorbance is converted).
+    CSV columns: concentration,absorbance[,weight][,replicate] (a %T column instead of absorbance is converted).
     With --db the standards are one calibration set of the device's standard marks (the standards after one
     blank with no run between, or those labelled set=NAME; the latest unless --set names one), each against its
     nearest preceding blank, and the calibration is saved in the database.
@@ -247,24 +234,34 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
         raise InputError("--set chooses among a device's standards in the database: use it with --db")
     options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
                    blank_sd=blank_sd, accept_suspect=accept_suspect)
-    saved = None
+    with contextlib.ExitStack() as opened:
+        _calibrate(csv_file, db, device, channel, options, readings, path_cm, as_json, out, opened,
+                   set_name=set_name, unit=unit)
+
+
+def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, channel: int, options: dict[str, Any],
+               readings: tuple[float, ...], path_cm: float | None, as_json: bool, out: Path | None,
+               opened: contextlib.ExitStack, *, set_name: str | None = None, unit: str | None = None) -> None:
+    from ..science.calibration import molar_factor
+
+    store = None
     path_note = "given with --path-cm"
     if db is not None:
         from ..tasks.analyse import calibrate_from_store
 
-        with _open(db) as store:
-            device = _only_device(store, device)
-            cal = calibrate_from_store(store, device, channel, set_name=set_name, unit=unit, **options)
-            if path_cm is None:
-                path_cm, path_note = _stored_path_cm(store, device)
-            saved = store.save_result("calibration", f"{device} {cal.inputs['set']}", cal.inputs, cal.to_dict())
+        store = opened.enter_context(_open(db))
+        device = _only_device(store, device)
+        cal = calibrate_from_store(store, device, channel, set_name=set_name, unit=unit, **options)
+        if path_cm is None:
+            path_cm, path_note = _stored_path_cm(store, device)
     else:
         assert csv_file is not None
         cols, how = _absorbance_columns(csv_file, "concentration", ["weight"], min_rows=3,
-                                        accept_suspect=accept_suspect)
-        cal = _calibration.fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
-                                           inputs={"file": csv_file.name, "absorbance": how}, unit=unit or "",
-                                           **options)
+                                        accept_suspect=options["accept_suspect"])
+        from ..science.calibration import fit_calibration
+
+        cal = fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
+                              inputs={"file": csv_file.name, "absorbance": how}, unit=unit or "", **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
     text = cal.report()
     u = f" {cal.unit}" if cal.unit else ""
@@ -288,7 +285,7 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
                  f"(t = {_t(pred.level, pred.dof):.3g}, {pred.dof} dof)"
                  + ("  (outside the standards' range)" if pred.extrapolated else ""))
     if path_cm is not None:
-        factor = _calibration.molar_factor(cal.unit) if cal.unit else 1.0
+        factor = molar_factor(cal.unit) if cal.unit else 1.0
         if factor is None:
             text += (f"\nmolar absorptivity not given: the unit {cal.unit} does not convert to mol/L (give the "
                      "standards in M, mM, µM or nM)")
@@ -300,9 +297,11 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
             data["molar_absorptivity"] = dict(eps.to_dict(), path_cm=path_cm, path_source=path_note)
             text += f"\nmolar absorptivity: {eps.value:.6g} ± {eps.stderr:.3g} {eps.unit}, path {path_cm:g} cm " \
                     f"({path_note})"
-    if saved is not None:
-        data["result_id"] = saved
-        text += f"\nsaved in {db} as result {saved}"
+    if store is not None:
+        assert db is not None and device is not None
+        _finish_saved(store, db, "calibration", f"{device} {cal.inputs['set']}", cal.inputs, data, text, as_json,
+                      out)
+        return
     _finish(data, text, as_json, out)
 
 
@@ -328,6 +327,10 @@ def _stored_path_cm(store: Any, device: str) -> tuple[float | None, str]:
 
 
 def _run_text(analysis: Any) -> str:
+    import numpy as np
+
+    from ..science.kinetics import rank_by_aicc
+
     run = analysis.run
     counts = analysis.flag_counts()
     lines = [f"run {run.key} {run.label!r}: {len(analysis.time_s)} readings, "
@@ -335,24 +338,13 @@ def _run_text(analysis: Any) -> str:
              + (f" ({', '.join(f'{n}: {c}' for n, c in counts.items())})" if counts else ""),
              f"blank {analysis.blank.boot}:{analysis.blank.seq} ({analysis.blank.rule}); time: {analysis.time_basis}",
              f"best rate law by AICc: {analysis.best}"]
-    ranking, delta, _ = _kinetics.rank_by_aicc(analysis.fits)
+    ranking, delta, _ = rank_by_aicc(analysis.fits)
     for name in ranking:
         fit = analysis.fits[name]
         lines.append(f"  {name:<20} AICc = {fit.aicc:10.2f}  ΔAICc = {delta[name]:8.2f}")
     lines += analysis.warnings
     lines.append(analysis.fits[analysis.best].report())
     return "\n".join(lines)
-
-
-def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None,
-                     blank: str | None = None, accept_suspect: bool = False) -> Any:
-    from ..tasks.analyse import run_series
-
-    s = run_series(store, run, channel, blank, accept_suspect=accept_suspect)
-    inputs = {"run": run.key, "device": run.device, "channel": channel,
-              "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
-              "time_basis": s["time_basis"], "left_out": "flagged readings"}
-    return _kinetics.initial_rate(s["time_s"], s["absorbance"], window, mask=s["flags"] != 0, inputs=inputs)
 
 
 def _starts(texts: Sequence[str]) -> dict[str, float]:
@@ -370,10 +362,11 @@ def _starts(texts: Sequence[str]) -> dict[str, float]:
 
 @click.command("rate")
 @_csv_argument
+@_table_options
 @_db_option
 @click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
 @_channel_option
-@click.option("--model", type=click.Choice(("all", "initial_rate") + _kinetics.ALL_MODELS), default="all",
+@click.option("--model", type=click.Choice(("all", "initial_rate") + ALL_MODELS), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate by AICc "
                                       "(first_order_rise only when named).")
 @click.option("--window", type=(float, float), default=None, metavar="START END",
@@ -399,8 +392,8 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                  as_json: bool, out: Path | None) -> None:
     """Fit rate laws to one run, from a CSV file or from a run in the database.
 
-    CSV columns: time_s,absorbance[,weight][,flags] (times strictly increasing; percent_T instead of absorbance is
-    converted; a weight column — as `nightcell export` writes it — weights the fit as --db does, else it is
+    CSV columns: time_s,absorbance[,weight][,flags] (times strictly increasing; a %T column instead of absorbance
+    is converted; a weight column — as `nightcell export` writes it — weights the fit as --db does, else it is
     unweighted). With --db the run's absorbance is read against its blank (the nearest before it, else the
     first after it with a warning, or --blank), flagged readings are left out, readings are weighted by T², and
     the result is saved in the database.
@@ -417,9 +410,8 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
         raise InputError("--a0 and --start apply to --model first_order_rise")
     if t_start is not None and t_end is not None and not t_end > t_start:
         raise InputError(f"--t-end {t_end:g} must be after --t-start {t_start:g}")
-    rise = {"a0": a0, "start": start} if model == "first_order_rise" else {}
     if db is not None:
-        from ..tasks.analyse import analyse_run
+        from ..tasks.analyse import analyse_run, initial_rate_of
         from ..tasks.export import resolve_run
 
         if a_end != 0.0:
@@ -430,7 +422,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                 if t_start is not None or t_end is not None:
                     raise InputError("--t-start/--t-end choose the readings of a fit; for initial_rate give "
                                      "--window START END")
-                fit = _initial_rate_of(store, run, channel, window, blank, accept_suspect)
+                fit = initial_rate_of(store, run, channel, window, blank=blank, accept_suspect=accept_suspect)
                 data, text = fit.to_dict(), f"run {run.key} {run.label!r}\n" + fit.report()
                 inputs = fit.inputs
             else:
@@ -444,34 +436,30 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                                        blank=blank, t_start=t_start, t_end=t_end, accept_suspect=accept_suspect)
                 data, text = analysis.to_dict(), _run_text(analysis)
                 inputs = analysis.fits[analysis.best].inputs
-            saved = store.save_result("rate", run.label or run.key, inputs, data)
-        data = dict(data, result_id=saved)
-        _finish(data, text + f"\nsaved in {db} as result {saved}", as_json, out)
+            _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out)
         return
+    import numpy as np
+
+    from ..science import kinetics as _kinetics
+
     assert csv_file is not None
     if blank is not None:
         raise InputError("--blank names a stored blank: use it with --db")
     cols, how = _absorbance_columns(csv_file, "time_s", ["weight", "flags"], min_rows=4,
-                                    accept_suspect=accept_suspect, blank_ok=("weight", "absorbance"))
-    flagged = (cols["flags"] != 0) if "flags" in cols else np.zeros(cols["time_s"].size, dtype=bool)
-    missing = ~np.isfinite(cols["absorbance"]) & ~flagged
-    if missing.any():
-        i = int(np.flatnonzero(missing)[0])
-        raise InputError(f"{csv_file} line {i + 2}, column absorbance is empty; fill it in, or flag or delete that row")
+                                    accept_suspect=accept_suspect)
+    mask = (cols["flags"] != 0) if "flags" in cols else np.zeros(cols["time_s"].size, dtype=bool)
     weights = cols.get("weight")
-    mask = flagged.copy()
+    if weights is not None:
+        mask |= weights == 0  # the export's weight for a flagged reading
     if t_end is not None:
         mask |= cols["time_s"] > t_end
     if weights is not None:
-        bad = ~np.isfinite(weights) & ~mask
-        if bad.any():
-            i = int(np.flatnonzero(bad)[0])
-            raise InputError(f"{csv_file} line {i + 2}, column weight is empty for an unflagged reading; fill it in")
         weights = np.where(mask, 1.0, weights)
     inputs = {"file": csv_file.name, "absorbance": how,
               "weights": "the CSV's weight column" if weights is not None else "none (unweighted: no weight column)",
-              "left_out": "rows with flags other than 0" if "flags" in cols else "none",
-              "window_s": [t_start, t_end]}
+              "left_out": "rows with flags other than 0 (or weight 0)" if "flags" in cols or weights is not None
+              else "none", "window_s": [t_start, t_end]}
+    rise = {"a0": a0, "start": start} if model == "first_order_rise" else {}
     if model == "all":
         result: Any = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end,
                                         inputs=inputs, mask=mask, weights=weights)
@@ -498,6 +486,7 @@ def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
 
 @click.command("orders")
 @_csv_argument
+@_table_options
 @_db_option
 @_channel_option
 @click.option("--nonlinear", is_flag=True, help="Refine the power law by nonlinear least squares on the rates.")
@@ -515,6 +504,11 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
 
     Example: nightcell orders --db class.db runs_and_concentrations.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import initial_rate_of
+
     _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -529,7 +523,7 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            fits = [_initial_rate_of(store, run, channel, None) for run in runs]
+            fits = [initial_rate_of(store, run, channel, None) for run in runs]
             cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
             cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
             inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
@@ -537,28 +531,18 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
         data, text = result.to_dict(), result.report()
         if store is not None:
-            saved = store.save_result("orders", csv_file.stem, inputs, data)
-            data = dict(data, result_id=saved)
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "orders", csv_file.stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
-
-
-def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
-    """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
-    from ..tasks.analyse import analyse_run
-
-    analysis = analyse_run(store, run, channel=channel, models=(model,))
-    fit = analysis.fits[model]
-    temps = [r["temp_centi"] for r in store.run_samples(run, channel) if r["temp_centi"] is not None]
-    t_k = float(np.mean(temps)) / 100.0 + 273.15 if temps else None
-    return float(fit.values["k"]), float(fit.stderr["k"]), t_k
 
 
 @click.command("arrhenius")
 @_csv_argument
+@_table_options
 @_db_option
 @_channel_option
-@click.option("--model", type=click.Choice([m for m in _kinetics.MODELS if m != "zero_order"]),
+@click.option("--model", type=click.Choice([m for m in MODELS if m != "zero_order"]),
               default="first_order_plateau", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
@@ -576,6 +560,11 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
 
     Example: nightcell arrhenius --db class.db runs_and_temperatures.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import k_and_temperature
+
     _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -587,7 +576,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            got = [_k_and_temperature(store, run, channel, model) for run in runs]
+            got = [k_and_temperature(store, run, channel, model) for run in runs]
             if "temperature_K" not in cols:
                 missing = [r.key for r, g in zip(runs, got) if g[2] is None]
                 if missing:
@@ -607,9 +596,9 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             data["eyring"] = ey.to_dict()
             text += "\n" + ey.report()
         if store is not None:
-            saved = store.save_result("arrhenius", csv_file.stem, inputs, data)
-            data["result_id"] = saved
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "arrhenius", csv_file.stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
 
 

@@ -437,7 +437,8 @@ def fit_calibration(
         raise SuspectData(suspect + " — check the standards' values, their order and the blank, or pass "
                           "--accept-suspect to keep this calibration anyway")
     X, names = _design(x, degree, through_origin)
-    base = linear_lstsq(X, y, names, model=model, weights=w, x=x, inputs=inputs)
+    base = linear_lstsq(X, y, names, model=model, weights=w, x=x, inputs=inputs,
+                        curve=lambda c, beta: _design(c, degree, through_origin)[0] @ beta)
     extra: dict[str, Any] = dict(base.extra)
     extra["r"] = float(np.corrcoef(x, y)[0, 1]) if np.ptp(y) > 0 else 0.0
     extra["level"] = level
