@@ -266,3 +266,37 @@ def test_rise_law_on_a_stored_run(tmp_path):
     assert fit["extra"]["A_final"] == pytest.approx(0.55, abs=0.01)
     code, out = _run("rate", "--db", db, "--model", "first_order_rise", "--a0", "0")
     assert code == 2 and "export the run" in out
+
+
+def test_standard_journals_its_unit_and_set_in_the_label():
+    # the board is a fake on a pty that answers hello and the mark; the request line is what the board would get
+    from test_bad_input import HELLO, FakePort
+    from nightcell.wire import frames as F
+
+    def board(line: bytes) -> bytes:
+        tag, verb = line.decode("ascii").split(" ")[:2]
+        if verb == "hello":
+            return F.encode_reply(F.REPLY_OK, int(tag), json.dumps(dict(HELLO, running=False)).encode())
+        reply = {"boot": 1, "seq": 9, "reads": 16, "dark": [1600], "light": [40000]}
+        return F.encode_reply(F.REPLY_OK, int(tag), json.dumps(reply).encode())
+
+    port = FakePort(board)
+    try:
+        code, out = _run("standard", "--port", port.path, "2.0", "--label", "dye", "--unit", "µM", "--set", "week2")
+    finally:
+        port.close()
+    assert code == 0, out
+    sent = [ln for ln in port.lines if b" standard " in ln]
+    assert sent and sent[0].endswith(b" standard 2.0 dye%20unit=%C2%B5M%20set=week2"), port.lines
+    assert label_tokens("dye unit=µM set=week2") == ("dye", {"unit": "µM", "set": "week2"})
+
+
+def test_a_blocked_blank_at_capture_can_be_confirmed():
+    from test_bad_input import FakePort, blocked_blank_board
+
+    port = FakePort(blocked_blank_board)
+    try:
+        code, out = _run("blank", "--port", port.path, "--accept-suspect")
+    finally:
+        port.close()
+    assert code == 0 and "suspect blank kept as confirmed (--accept-suspect): channel 0: light 105.9" in out, out
