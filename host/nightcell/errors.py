@@ -24,6 +24,7 @@ __all__ = [
     "TooFewPoints",
     "DegenerateData",
     "OutsideCalibration",
+    "SuspectData",
 ]
 
 
@@ -109,3 +110,7 @@ class DegenerateData(AnalysisError):
 
 class OutsideCalibration(AnalysisError):
     """A reading has no concentration on the calibration curve (beyond a quadratic's turning point)."""
+
+
+class SuspectData(AnalysisError):
+    """The data look wrong (a blocked blank, standards that do not rise): refused unless the user confirms."""

@@ -25,10 +25,10 @@ import click
 
 from .. import __version__
 from ..errors import DeviceError, InputError
-from .options import EXIT_CODES, db_option, friendly, json_option, open_reading, open_writing, port_option
+from .options import EXIT_CODES, accept_suspect_option, db_option, friendly, json_option, open_reading, open_writing, port_option
 from .options import emit as _emit
 
-__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES", "open_reading",
+__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "accept_suspect_option", "EXIT_CODES", "open_reading",
            "open_writing"]
 
 
@@ -364,17 +364,40 @@ def _mark_text(device: str, kind: str, reply: dict[str, Any], label: str) -> str
     return f"{device}: {kind}{shown} journaled as {reply['boot']}:{reply['seq']} — {counts} (counts per read)"
 
 
+def _blank_check(device: str, reply: dict[str, Any], accept_suspect: bool) -> list[str]:
+    """Problems of a blank just journaled (``optics.blank_problems``), as text; raises ``SuspectData`` unless
+    ``accept_suspect``. The mark stays on the board as taken: raw data is kept, and analyses flag or refuse it."""
+    from ..errors import SuspectData
+    from ..science.optics import blank_problems
+
+    reads = max(1, int(reply.get("reads") or 1))
+    problems = []
+    for c, (li, d) in enumerate(zip(reply.get("light", []), reply.get("dark", []))):
+        problems += [f"channel {c}: {p}" for p in blank_problems(li / reads, d / reads)]
+    if problems and not accept_suspect:
+        raise SuspectData(f"{device}: blank {reply['boot']}:{reply['seq']} looks wrong — {problems[0]}. It is "
+                          "journaled as taken (raw data is kept) but analyses will refuse it: clear the light path "
+                          "and take the blank again, or pass --accept-suspect to use it anyway")
+    return problems
+
+
 def _measure_command(kind: str, doc: str) -> click.Command:
     @port_option
     @click.option("--label", default="", help="A note kept with this mark, e.g. the cuvette's content.")
     @json_option
     @friendly
-    def command(port: str, label: str, as_json: bool) -> None:
+    def command(port: str, label: str, as_json: bool, accept_suspect: bool = False) -> None:
         _check_text("label", label, kind)
         with _connected(port) as (board, info):
             reply = board.mark(kind, label)
-        _emit(dict(reply, device=info["device"], mark=kind, label=label), as_json,
-              _mark_text(info["device"], kind, reply, label))
+        problems = _blank_check(info["device"], reply, accept_suspect) if kind == "blank" else []
+        text = _mark_text(info["device"], kind, reply, label)
+        if problems:
+            text += "\nsuspect blank kept as confirmed (--accept-suspect): " + "; ".join(problems)
+        _emit(dict(reply, device=info["device"], mark=kind, label=label, suspect=problems), as_json, text)
+
+    if kind == "blank":
+        command = accept_suspect_option(command)
 
     command.__doc__ = doc
     return cli.command(kind)(command)
@@ -397,22 +420,35 @@ _measure_command("opaque", """Measure with the light path blocked and journal an
 @cli.command()
 @port_option
 @click.argument("value")
-@click.option("--label", default="", help="A note kept with this standard, e.g. its name and unit.")
+@click.option("--label", default="", help="A note kept with this standard, e.g. its name.")
+@click.option("--unit", default="", help="The concentration unit, e.g. µM or mg/L (kept in the mark's label as "
+              "unit=…, printed with every result).")
+@click.option("--set", "set_name", default="", metavar="NAME",
+              help="Put this standard in the calibration set NAME (kept in the label as set=…); default: the "
+                   "standards after the latest blank form a set.")
 @json_option
 @friendly
-def standard(port: str, value: str, label: str, as_json: bool) -> None:
-    """Measure a standard of known concentration VALUE (as typed, any unit) and journal a standard mark.
+def standard(port: str, value: str, label: str, unit: str, set_name: str, as_json: bool) -> None:
+    """Measure a standard of known concentration VALUE (as typed) and journal a standard mark.
 
-    Example: nightcell standard --port /dev/ttyACM0 2.0 --label "dye 2 µM"
+    Example: nightcell standard --port /dev/ttyACM0 2.0 --unit µM --label "dye"
     """
     try:
-        float(value)
+        number = float(value)
         ok = len(value) <= 32 and all(c in "0123456789.+-eE" for c in value)
     except ValueError:
         ok = False
     if not ok:
         raise InputError(f"the standard's VALUE must be a decimal number as typed, e.g. 0.250, not {value!r} "
-                         "(put the unit in --label)")
+                         "(give the unit with --unit)")
+    if number < 0:
+        raise InputError(f"the standard's VALUE {value} is a negative concentration: a standard holds zero or more "
+                         "of the analyte — type its concentration (nothing was measured or journaled)")
+    for what, text in (("--unit", unit), ("--set", set_name)):
+        if any(ch.isspace() for ch in text):
+            raise InputError(f"{what} {text!r} must be one word without spaces, e.g. µM")
+    label = " ".join(p for p in (label.strip(), f"unit={unit}" if unit else "", f"set={set_name}" if set_name
+                                 else "") if p)
     _check_text("label", label, "standard")
     with _connected(port) as (board, info):
         reply = board.mark("standard", label, value=value)
@@ -707,10 +743,11 @@ def _concentration(text: str) -> tuple[str, float]:
               help="A starting concentration in mol/L, e.g. hydroxide=0.02 (repeat for each reactant).")
 @click.option("--source", default="typed in by the user", show_default=True,
               help="Where the values come from, e.g. 'bench sheet' (kept beside each value).")
+@accept_suspect_option
 @json_option
 @friendly
 def condition(db: Path, run_text: str | None, temperature_c: float | None, temperature_k: float | None,
-              concentrations: tuple[str, ...], source: str, as_json: bool) -> None:
+              concentrations: tuple[str, ...], source: str, accept_suspect: bool, as_json: bool) -> None:
     """Record a run's conditions (temperature, starting concentrations) for studies of order and activation energy.
 
     Example: nightcell condition --db class.db --run "fading 1" --temperature-c 25 --conc hydroxide=0.02
@@ -729,8 +766,10 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
         raise InputError("nothing to record: give --temperature-c/--temperature-k and/or --conc REACTANT=MOLAR")
     with open_writing(db) as store:
         run = resolve_run(store, run_text)
+        for quantity, value in values:  # every value checked before any is written
+            set_run_condition(store, run, quantity, value, source, accept_suspect=accept_suspect, check_only=True)
         for quantity, value in values:
-            set_run_condition(store, run, quantity, value, source)
+            set_run_condition(store, run, quantity, value, source, accept_suspect=accept_suspect)
         recorded = run_conditions(store, run).get(run.key, {})
     text = "\n".join(f"{run.key} {q} = {v['value']:g} ({v['source']})" for q, v in sorted(recorded.items()))
     _emit({"run": run.key, "conditions": recorded}, as_json, text)
@@ -748,10 +787,14 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
 @click.option("--level", type=float, default=0.95, show_default=True,
               help="Confidence level of the calibration's intervals and prediction band.")
+@click.option("--blank", "blank", metavar="KEY|LABEL", default=None,
+              help="With --run: read the run against this blank (its key boot:seq or its label) instead of the "
+                   "nearest one before it.")
+@accept_suspect_option
 @json_option
 @friendly
 def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int, level: float,
-           as_json: bool) -> None:
+           blank: str | None, accept_suspect: bool, as_json: bool) -> None:
     """Write self-contained HTML reports (figures embedded; each figure also as PNG and SVG): one per run, or a
     study over several runs with their recorded conditions (see `nightcell condition`).
 
@@ -765,6 +808,8 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
 
     if sum([all_runs, bool(run_text), study]) > 1:
         raise InputError("give one of --run, --all or --study")
+    if blank is not None and (all_runs or study):
+        raise InputError("--blank names the blank of one run: give it with --run")
     done = Written()
     if study:
         with open_reading(db) as store, all_or_nothing():
@@ -778,7 +823,7 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
             raise InputError(f"{db} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
         for run in runs:
             try:
-                one = run_report(store, run, out, channel, level=level)
+                one = run_report(store, run, out, channel, level=level, blank=blank, accept_suspect=accept_suspect)
             except AnalysisError as exc:
                 if not all_runs:
                     raise
