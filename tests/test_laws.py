@@ -74,7 +74,7 @@ def test_command_line_takes_old_names_hidden_with_a_deprecation_message(group, r
 def test_fit_result_is_laid_out_answer_first_in_text_and_json(group, run_csv):
     res = CliRunner().invoke(group, ["rate", str(run_csv), "--json"])
     data = json.loads(res.output)
-    assert list(data) == ["answer", "how_well_it_fits", "parameters", "laws_ranked", "detail"]
+    assert list(data) == ["answer", "how_well_it_fits", "parameters", "intervals", "laws_ranked", "detail"]
     k = data["answer"]["rate_constant"]
     assert k["interval_95"][0] < k["value"] < k["interval_95"][1] and k["unit"] == "s⁻¹"
     assert data["answer"]["half_life"]["value"] == pytest.approx(np.log(2) / k["value"])

@@ -25,16 +25,12 @@ import click
 
 from .. import __version__
 from ..errors import DeviceError, InputError
-from .options import EXIT_CODES, db_option, friendly, json_option, port_option
+from .options import EXIT_CODES, accept_suspect_option, db_option, friendly, json_option, open_reading, open_writing, port_option
 from .options import emit as _emit
 
-__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES"]
+__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "accept_suspect_option", "EXIT_CODES", "open_reading",
+           "open_writing"]
 
-def _open_store(db: Path) -> Any:
-    """An existing database (never creates one for a command that only reads)."""
-    from ..store.database import Store
-
-    return Store.open(db, create=False)
 
 
 @contextlib.contextmanager
@@ -54,7 +50,7 @@ def _utc(unix_s: float | None, seconds: bool = True) -> str:
 
 
 def _device_label(db: Path, device: str) -> str:
-    with _open_store(db) as store:
+    with open_reading(db) as store:
         return _labels(store).get(device, device)
 
 
@@ -110,9 +106,6 @@ def demo(out: Path, force: bool, interpreter: str, as_json: bool) -> None:
 
 # -- a simulated board to try every command on -----------------------------------------------------------------------
 
-SIM_DEVICE = "5e1fc0ffee000001"
-
-
 def _sim_folder(path: Path) -> Path:
     if path.exists() and not path.is_dir():
         raise InputError(f"{path} is a file: give --dir a folder for the simulated board's flash and cuvette")
@@ -139,13 +132,14 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
     """
     import time
 
-    from ..sim.board import SimulatedBoard
+    from ..sim.board import SimulatedBoard, folder_device_id
 
-    sim = SimulatedBoard(_sim_folder(folder), device=SIM_DEVICE, speed=speed, interpreter=interpreter)
+    device = folder_device_id(_sim_folder(folder), create=True)  # its own id, kept in the folder
+    sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter)
     sim.start()
     try:
         click.echo(f"port: {sim.url}")
-        click.echo(f"simulated board {SIM_DEVICE} running the firmware in {sim.interpreter}, clock x{speed:g}; "
+        click.echo(f"simulated board {device} running the firmware in {sim.interpreter}, clock x{speed:g}; "
                    f"its cuvette holds {sim.cell_path.name} in {sim.workdir}")
         click.echo(f"try: NIGHTCELL_PORT={sim.url} nightcell hello   — Ctrl-C switches the board off")
         sys.stdout.flush()
@@ -177,11 +171,12 @@ def sim_cuvette(folder: Path, absorbance: float | None, fading: str | None, bloc
     """
     import math
 
-    from ..sim.board import SimulatedBoard
+    from ..sim.board import SimulatedBoard, folder_device_id
 
     if sum([absorbance is not None, fading is not None, blocked]) != 1:
         raise InputError("give exactly one of --absorbance, --fading A0:A_END:K or --blocked")
-    if not (_sim_folder(folder) / f"{SIM_DEVICE}.cell.json").exists():
+    device = folder_device_id(_sim_folder(folder), create=False)
+    if device is None or not (folder / f"{device}.cell.json").exists():
         raise InputError(f"no simulated board in {folder}: start one with `nightcell sim-board --dir {folder}`")
     if absorbance is not None:
         if not math.isfinite(absorbance) or not -0.1 <= absorbance <= 5.0:
@@ -197,7 +192,7 @@ def sim_cuvette(folder: Path, absorbance: float | None, fading: str | None, bloc
         content = {"reaction": {"a0": a0, "a_inf": a_end, "k_per_s": k}}
     else:
         content = {"opaque": True}
-    SimulatedBoard(folder, device=SIM_DEVICE).set_cell(content)
+    SimulatedBoard(folder, device=device).set_cell(content)
     _emit(content, as_json, f"the simulated cuvette now holds {json.dumps(content)}")
 
 
@@ -396,17 +391,40 @@ def _mark_text(device: str, kind: str, reply: dict[str, Any], label: str) -> str
     return f"{device}: {kind}{shown} recorded on the board — {counts} counts per read"
 
 
+def _blank_check(device: str, reply: dict[str, Any], accept_suspect: bool) -> list[str]:
+    """Problems of a blank just journaled (``optics.blank_problems``), as text; raises ``SuspectData`` unless
+    ``accept_suspect``. The mark stays on the board as taken: raw data is kept, and analyses flag or refuse it."""
+    from ..errors import SuspectData
+    from ..science.optics import blank_problems
+
+    reads = max(1, int(reply.get("reads") or 1))
+    problems = []
+    for c, (li, d) in enumerate(zip(reply.get("light", []), reply.get("dark", []))):
+        problems += [f"channel {c}: {p}" for p in blank_problems(li / reads, d / reads)]
+    if problems and not accept_suspect:
+        raise SuspectData(f"{device}: blank {reply['boot']}:{reply['seq']} looks wrong — {problems[0]}. It is "
+                          "journaled as taken (raw data is kept) but analyses will refuse it: clear the light path "
+                          "and take the blank again, or pass --accept-suspect to use it anyway")
+    return problems
+
+
 def _measure_command(kind: str, doc: str) -> click.Command:
     @port_option
     @click.option("--label", default="", help="A note kept with this mark, e.g. the cuvette's content.")
     @json_option
     @friendly
-    def command(port: str, label: str, as_json: bool) -> None:
+    def command(port: str, label: str, as_json: bool, accept_suspect: bool = False) -> None:
         _check_text("label", label, kind)
         with _connected(port) as (board, info):
             reply = board.mark(kind, label)
-        _emit(dict(reply, device=info["device"], mark=kind, label=label), as_json,
-              _mark_text(_who(info), kind, reply, label))
+        problems = _blank_check(info["device"], reply, accept_suspect) if kind == "blank" else []
+        text = _mark_text(_who(info), kind, reply, label)
+        if problems:
+            text += "\nsuspect blank kept as confirmed (--accept-suspect): " + "; ".join(problems)
+        _emit(dict(reply, device=info["device"], mark=kind, label=label, suspect=problems), as_json, text)
+
+    if kind == "blank":
+        command = accept_suspect_option(command)
 
     command.__doc__ = doc
     return cli.command(kind)(command)
@@ -429,22 +447,35 @@ _measure_command("opaque", """Measure with the light path blocked and record it 
 @cli.command()
 @port_option
 @click.argument("value")
-@click.option("--label", default="", help="A note kept with this standard, e.g. its name and unit.")
+@click.option("--label", default="", help="A note kept with this standard, e.g. its name.")
+@click.option("--unit", default="", help="The concentration unit, e.g. µM or mg/L (kept in the mark's label as "
+              "unit=…, printed with every result).")
+@click.option("--set", "set_name", default="", metavar="NAME",
+              help="Put this standard in the calibration set NAME (kept in the label as set=…); default: the "
+                   "standards after the latest blank form a set.")
 @json_option
 @friendly
-def standard(port: str, value: str, label: str, as_json: bool) -> None:
-    """Measure a standard of known concentration VALUE (as typed, any unit) and record it on the board.
+def standard(port: str, value: str, label: str, unit: str, set_name: str, as_json: bool) -> None:
+    """Measure a standard of known concentration VALUE (as typed) and record it on the board.
 
-    Example: nightcell standard --port /dev/ttyACM0 2.0 --label "dye 2 µM"
+    Example: nightcell standard --port /dev/ttyACM0 2.0 --unit µM --label "dye"
     """
     try:
-        float(value)
+        number = float(value)
         ok = len(value) <= 32 and all(c in "0123456789.+-eE" for c in value)
     except ValueError:
         ok = False
     if not ok:
         raise InputError(f"the standard's VALUE must be a decimal number as typed, e.g. 0.250, not {value!r} "
-                         "(put the unit in --label)")
+                         "(give the unit with --unit)")
+    if number < 0:
+        raise InputError(f"the standard's VALUE {value} is a negative concentration: a standard holds zero or more "
+                         "of the analyte — type its concentration (nothing was measured or journaled)")
+    for what, text in (("--unit", unit), ("--set", set_name)):
+        if any(ch.isspace() for ch in text):
+            raise InputError(f"{what} {text!r} must be one word without spaces, e.g. µM")
+    label = " ".join(p for p in (label.strip(), f"unit={unit}" if unit else "", f"set={set_name}" if set_name
+                                 else "") if p)
     _check_text("label", label, "standard")
     with _connected(port) as (board, info):
         reply = board.mark("standard", label, value=value)
@@ -532,7 +563,7 @@ def watch(port: str, db: Path, every: float, polls: int | None) -> None:
     from ..tasks.live import watch as live_watch
 
     with _connected(port) as (board, info):
-        store = _open_store(db) if db.exists() else None
+        store = open_reading(db) if db.exists() else None
         try:
             blank = latest_blank(board, info, store)
         finally:
@@ -561,7 +592,7 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
     from ..store.database import Store
     from ..store.sync import sync_board
 
-    with Board.open(port) as board, Store.open(db) as store, sync_progress(not as_json) as update:
+    with Board.open(port) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
         summary = sync_board(board, store, acknowledge=not no_ack,
                              progress=lambda done, total, records: update(port, done, total, records))
     new = sum(summary.new_rows.values())
@@ -604,7 +635,7 @@ def _list_command(name: str) -> Callable[[Callable[..., Any]], click.Command]:
         @friendly
         @functools.wraps(fn)
         def command(db: Path, as_json: bool) -> None:
-            with _open_store(db) as store:
+            with open_reading(db) as store:
                 title, columns, rows, data, empty = fn(store)
             if as_json:
                 _emit(data, True, "")
@@ -627,18 +658,12 @@ def list_devices(store: Any) -> tuple:
     data = []
     for d in store.devices():
         n_runs = len(store.runs(d["device"]))
-        n_samples = store.query("SELECT count(*) AS n FROM samples WHERE device = ? AND channel = 0",
-                                (d["device"],))[0]["n"]
+        n_samples = store.sample_count(d["device"], channel=0)
         data.append(dict(d, runs=n_runs, samples=n_samples))
     rows = [(d["label"] or "", d["device"], d["runs"], d["samples"], _utc(d["last_seen_unix"], seconds=False))
             for d in data]
     return ("devices", ("label", "device id", "runs", "readings", "last synced"), rows, data,
             "no devices yet: sync a board with `nightcell sync --port PORT --db DB`")
-
-
-def _mark_times(store: Any, mark: str) -> dict[tuple[str, int, int], str]:
-    rows = store.query("SELECT DISTINCT device, boot, seq, wall_clock_utc FROM mark_readings WHERE mark = ?", (mark,))
-    return {(r["device"], r["boot"], r["seq"]): r["wall_clock_utc"] or "" for r in rows}
 
 
 @_list_command("runs")
@@ -648,7 +673,7 @@ def list_runs(store: Any) -> tuple:
 
     Example: nightcell list runs --db class.db
     """
-    starts = _mark_times(store, "run_start")
+    starts = store.mark_times("run_start")
     labels = _labels(store)
     data = []
     for number, run in enumerate(store.runs(), start=1):
@@ -672,7 +697,7 @@ def list_blanks(store: Any) -> tuple:
 
     Example: nightcell list blanks --db class.db
     """
-    times = _mark_times(store, "blank")
+    times = store.mark_times("blank")
     labels = _labels(store)
     data = []
     for m in store.marks(mark="blank"):
@@ -689,14 +714,6 @@ def list_blanks(store: Any) -> tuple:
             "no blanks yet: take one with `nightcell blank`, then `nightcell sync`")
 
 
-def _results(store: Any, kind: str | None) -> list[dict[str, Any]]:
-    sql = "SELECT * FROM results" + (" WHERE kind = ?" if kind else "") + " ORDER BY id"
-    out = []
-    for r in store.query(sql, (kind,) if kind else ()):
-        out.append(dict(r, inputs=json.loads(r.pop("inputs_json")), result=json.loads(r.pop("result_json"))))
-    return out
-
-
 @_list_command("calibrations")
 def list_calibrations(store: Any) -> tuple:
     """Calibrations saved in the database (by `nightcell calibrate --db`), with slope and its standard error.
@@ -705,7 +722,7 @@ def list_calibrations(store: Any) -> tuple:
     """
     from ..render.numbers import measured
 
-    data = _results(store, "calibration")
+    data = store.results("calibration")
     labels = _labels(store)
     rows = []
     for r in data:
@@ -724,7 +741,7 @@ def list_results(store: Any) -> tuple:
 
     Example: nightcell list results --db class.db
     """
-    data = _results(store, None)
+    data = store.results()
     labels = _labels(store)
     runs = {run.key: run.label or run.key for run in store.runs()}
     rows = []
@@ -774,10 +791,11 @@ def _concentration(text: str) -> tuple[str, float]:
               help="A starting concentration in mol/L, e.g. hydroxide=0.02 (repeat for each reactant).")
 @click.option("--source", default="typed in by the user", show_default=True,
               help="Where the values come from, e.g. 'bench sheet' (kept beside each value).")
+@accept_suspect_option
 @json_option
 @friendly
 def condition(db: Path, run_text: str | None, temperature_c: float | None, temperature_k: float | None,
-              concentrations: tuple[str, ...], source: str, as_json: bool) -> None:
+              concentrations: tuple[str, ...], source: str, accept_suspect: bool, as_json: bool) -> None:
     """Record a run's conditions (temperature, starting concentrations) for studies of order and activation energy.
 
     Example: nightcell condition --db class.db --run "fading 1" --temperature-c 25 --conc hydroxide=0.02
@@ -794,10 +812,12 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
         values.insert(0, ("temperature_K", temperature_k))
     if not values:
         raise InputError("nothing to record: give --temperature-c/--temperature-k and/or --conc REACTANT=MOLAR")
-    with _open_store(db) as store:
+    with open_writing(db) as store:
         run = resolve_run(store, run_text)
+        for quantity, value in values:  # every value checked before any is written
+            set_run_condition(store, run, quantity, value, source, accept_suspect=accept_suspect, check_only=True)
         for quantity, value in values:
-            set_run_condition(store, run, quantity, value, source)
+            set_run_condition(store, run, quantity, value, source, accept_suspect=accept_suspect)
         recorded = run_conditions(store, run).get(run.key, {})
     text = "\n".join(f"{run.key} {q} = {v['value']:g} ({v['source']})" for q, v in sorted(recorded.items()))
     _emit({"run": run.key, "conditions": recorded}, as_json, text)
@@ -814,10 +834,16 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the HTML pages and figures.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
+@click.option("--level", type=float, default=0.95, show_default=True,
+              help="Confidence level of the calibration's intervals and prediction band.")
+@click.option("--blank", "blank", metavar="KEY|LABEL", default=None,
+              help="With --run: read the run against this blank (its key boot:seq or its label) instead of the "
+                   "nearest one before it.")
+@accept_suspect_option
 @json_option
 @friendly
-def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int,
-           as_json: bool) -> None:
+def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int, level: float,
+           blank: str | None, accept_suspect: bool, as_json: bool) -> None:
     """Write self-contained HTML reports (figures embedded; each figure also as PNG and SVG): one per run, or a
     study over several runs with their recorded conditions (see `nightcell condition`).
 
@@ -827,23 +853,26 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
     """
     from ..errors import AnalysisError
     from ..tasks.export import Written, resolve_run, run_report, study_report
+    from ..render.report import all_or_nothing
 
     if sum([all_runs, bool(run_text), study]) > 1:
         raise InputError("give one of --run, --all or --study")
+    if blank is not None and (all_runs or study):
+        raise InputError("--blank names the blank of one run: give it with --run")
     done = Written()
     if study:
-        with _open_store(db) as store:
-            done = study_report(store, out, channel)
+        with open_reading(db) as store, all_or_nothing():
+            done = study_report(store, out, channel, level=level)
         lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
         _emit(done.to_dict(), as_json, "\n".join(lines))
         return
-    with _open_store(db) as store:
+    with open_reading(db) as store, all_or_nothing():
         runs = store.runs() if all_runs else [resolve_run(store, run_text)]
         if not runs:
             raise InputError(f"{db} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
         for run in runs:
             try:
-                one = run_report(store, run, out, channel)
+                one = run_report(store, run, out, channel, level=level, blank=blank, accept_suspect=accept_suspect)
             except AnalysisError as exc:
                 if not all_runs:
                     raise
@@ -870,8 +899,9 @@ def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: boo
     Example: nightcell export --db class.db --out csv
     """
     from ..tasks.export import export_csv, resolve_run
+    from ..render.report import all_or_nothing
 
-    with _open_store(db) as store:
+    with open_reading(db) as store, all_or_nothing():
         runs = None if run_text is None else [resolve_run(store, run_text)]
         done = export_csv(store, out, runs, channel)
     lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
@@ -882,9 +912,11 @@ def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: boo
 
 from . import analysis as _analysis  # noqa: E402  (the group above must exist before they register)
 from . import board as _board  # noqa: E402
+from . import dashboard as _dashboard  # noqa: E402
 
 _analysis.register(cli)
 _board.register(cli)
+_dashboard.register(cli)
 
 
 def main(argv: list[str] | None = None) -> None:

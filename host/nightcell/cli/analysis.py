@@ -12,8 +12,13 @@ port, or leave a half-written file.
 CSV layouts (header row required, comma-separated, extra columns ignored):
 
 - calibrate: ``concentration,absorbance`` [``weight``] [``replicate`` — a label; replicates are recognised by
-  equal concentration].
-- rate: ``time_s,absorbance`` (times strictly increasing).
+  equal concentration]; a percent-transmittance column (``%T``) may stand in for ``absorbance`` (read_table
+  converts it).
+- rate: ``time_s,absorbance`` (times strictly increasing) [``weight`` — relative weights, as the run export
+  writes them (T², what ``rate --db`` uses; 0 for flagged readings); without it the fit is unweighted] [``flags``
+  — rows with flags other than 0 are left out, as ``rate --db`` leaves them out].
+- An ``absorbance`` column whose values all lie within 0–100 with some above 4 looks like %T: refused (exit 2)
+  unless ``--accept-suspect``.
 - orders: one row per run: ``initial_rate`` [``rate_se``] and one ``conc_<name>`` column per reactant; with ``--db``,
   ``run`` (key or label) instead of ``initial_rate``: each run's initial rate comes from its readings.
 - arrhenius: ``temperature_K,k`` [``k_se``]; with ``--db``, ``run`` [``temperature_K``] instead: k comes from the
@@ -23,80 +28,79 @@ CSV layouts (header row required, comma-separated, extra columns ignored):
 from __future__ import annotations
 
 import contextlib
-import csv
 import json
-import math
 from pathlib import Path
-from typing import Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import click
-import numpy as np
 
-from ..science import calibration as _calibration
-from ..science import kinetics as _kinetics
-from ..science import study as _study
-from .options import db_from_environment, friendly, json_option, source_db_option
 from ..errors import InputError
-from ..render import fit_layout as _layout
-from ..render import numbers as _n
 from ..science import laws as _laws
+from ..science.laws import ALL_MODELS, MODELS
+from .options import accept_suspect_option, db_from_environment, friendly, json_option, open_writing, source_db_option
+
+if TYPE_CHECKING:
+    import numpy as np
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
 
 
 def read_columns(
     path: Path, required: Sequence[str], optional: Sequence[str] = (), *, prefix: str | None = None, min_rows: int = 1,
-    text: Sequence[str] = (),
+    text: Sequence[str] = (), say: Callable[[str], None] | None = None,
 ) -> dict[str, np.ndarray]:
-    """Numeric columns of a CSV by header name; ``prefix`` also collects every column starting with it; ``text``
-    columns are kept as strings.
+    """Numeric columns of a CSV or spreadsheet by header name (``tasks.tables.read_table`` with the dialect options
+    of the command being run); what was detected or converted is said through ``say`` (to stderr by default)."""
+    from ..tasks.tables import read_table
 
-    Raises ``InputError`` naming the file, row and column, and what to do.
-    """
-    try:
-        with open(path, newline="", encoding="utf-8-sig") as fh:
-            reader = csv.reader(fh)
-            try:
-                header = [h.strip() for h in next(reader)]
-            except StopIteration:
-                raise InputError(f"{path} is empty; it needs a header row ({','.join(required)}) and data rows")
-            rows = [row for row in reader if any(cell.strip() for cell in row)]
-    except (OSError, UnicodeDecodeError, csv.Error) as exc:
-        raise InputError(f"cannot read {path}: {exc}") from None
-    wanted = list(required) + [c for c in optional if c in header]
-    if prefix:
-        wanted += [h for h in header if h.startswith(prefix) and h not in wanted]
-    missing = [c for c in required if c not in header]
-    if missing:
-        raise InputError(
-            f"{path} has no column {', '.join(repr(m) for m in missing)} (found: {', '.join(header) or 'none'}); "
-            f"the header row must name {','.join(required)}"
-        )
-    if len(rows) < min_rows:
-        raise InputError(f"{path} has {len(rows)} data rows; this analysis needs at least {min_rows}")
-    out: dict[str, np.ndarray] = {}
-    for col in wanted:
-        j = header.index(col)
-        values: list[Any] = []
-        for i, row in enumerate(rows, start=2):
-            cell = row[j].strip() if j < len(row) else ""
-            if col in text:
-                if not cell:
-                    raise InputError(f"{path} line {i}, column {col} is empty; fill it in or delete that row")
-                values.append(cell)
-                continue
-            try:
-                v = float(cell)
-            except ValueError:
-                raise InputError(
-                    f"{path} line {i}, column {col}: {cell!r} is not a number; fix or delete that row"
-                ) from None
-            if not math.isfinite(v):
-                raise InputError(f"{path} line {i}, column {col}: {cell!r} is not a finite number; fix or delete that "
-                                 "row")
-            values.append(v)
-        out[col] = np.array(values, dtype=object if col in text else float)
-    return out
+    ctx = click.get_current_context(silent=True)
+    params = ctx.meta.get("nightcell.table", {}) if ctx is not None else {}
+    table = read_table(path, required, optional, prefix=prefix, min_rows=min_rows, text=text,
+                       delimiter=params.get("delimiter"), decimal=params.get("decimal"), sheet=params.get("sheet"))
+    if table.notes:
+        (say or (lambda line: click.echo(line, err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+    return table.columns
+
+
+def _table_options(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """--delimiter, --decimal and --sheet: what a file's dialect is when detection is not wanted (read through the
+    click context by ``read_columns``, so the commands' signatures stay as they are)."""
+    fn = click.option("--sheet", default=None, expose_value=False, is_eager=False, callback=_keep,
+                      help="The sheet of an .xlsx/.xls/.ods workbook to read (default: the first).")(fn)
+    fn = click.option("--decimal", type=click.Choice([".", ","]), default=None, expose_value=False, callback=_keep,
+                      help="Decimal mark of the CSV file (default: detected).")(fn)
+    fn = click.option("--delimiter", type=click.Choice([",", ";", "tab", "|"]), default=None, expose_value=False,
+                      callback=_keep, help="Column delimiter of the CSV file (default: detected).")(fn)
+    return fn
+
+
+def _keep(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
+    if value == "tab":
+        value = "\t"
+    ctx.meta.setdefault("nightcell.table", {})[param.name] = value
+    return value
+
+
+def _absorbance_columns(path: Path, first: str, optional: Sequence[str], *, min_rows: int,
+                        accept_suspect: bool) -> tuple[dict[str, np.ndarray], str]:
+    """``first`` and ``absorbance`` of a CSV (a %T column converted by read_table), and how A was obtained.
+
+    Values in an ``absorbance`` column that look like percent transmittance (all within 0–100, some above 4) are
+    refused unless ``accept_suspect``: an LED photometer rarely reads A above 3 (common practice)."""
+    import numpy as np
+
+    notes: list[str] = []
+    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append)
+    for line in notes:
+        click.echo(line, err=True)
+    if any("percent transmittance" in line for line in notes):
+        return cols, "converted from percent transmittance: A = 2 − log10(%T)"
+    a = cols["absorbance"]
+    if a.size and np.all((a >= 0) & (a <= 100)) and a.max() > 4 and not accept_suspect:
+        raise InputError(f"{path}: column absorbance holds values up to {a.max():g}, which look like percent "
+                         "transmittance (0–100), not absorbance (rarely above 3): if they are %T, name the column "
+                         "%T and nightcell converts them (A = 2 − log10 %T); if they are right, pass --accept-suspect")
+    return cols, "column absorbance"
 
 
 def _out_folder_exists(ctx: click.Context, param: click.Parameter, out: Path | None) -> Path | None:
@@ -113,7 +117,7 @@ def _out_option(fn: Callable[..., Any]) -> Callable[..., Any]:
     )(fn)
 
 
-_db_option = source_db_option
+_db_option = source_db_option  # the shared --db and NIGHTCELL_DB, without a default (it switches CSV → database)
 
 
 def _channel_option(fn: Callable[..., Any]) -> Callable[..., Any]:
@@ -121,8 +125,7 @@ def _channel_option(fn: Callable[..., Any]) -> Callable[..., Any]:
                         help="Light channel (with --db).")(fn)
 
 
-_csv_argument = click.argument("csv_file", required=False,
-                               type=click.Path(exists=True, dir_okay=False, path_type=Path))
+_csv_argument = click.argument("csv_file", required=False, type=click.Path(path_type=Path))
 
 
 def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: str) -> Path | None:
@@ -142,6 +145,8 @@ def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: st
 
 
 def _header(path: Path) -> list[str]:
+    import csv
+
     try:
         with open(path, newline="", encoding="utf-8-sig") as fh:
             return [h.strip() for h in next(csv.reader(fh), [])]
@@ -150,9 +155,8 @@ def _header(path: Path) -> list[str]:
 
 
 def _open(db: Path) -> Any:
-    from ..store.database import Store
-
-    return Store.open(db, create=False)
+    # every analysis with --db saves its result: a writing command
+    return open_writing(db)
 
 
 def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None, *, sort_keys: bool = True) -> None:
@@ -163,6 +167,25 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None, *,
     if out is not None:
         try:
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
+        except OSError as exc:
+            raise InputError(f"cannot write {out}: {exc}") from None
+    click.echo(payload if as_json else text)
+
+
+def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str, Any], data: dict[str, Any],
+                  text: str, as_json: bool, out: Path | None, *, sort_keys: bool = True) -> None:
+    """Save a result and write ``--out`` as one step: the file is written inside the transaction that saves the
+    result, so a file that cannot be written leaves the database as it was (and a refused commit, no file)."""
+    from ..render.report import write_atomic
+
+    with store.write():
+        saved = store.save_result(kind, label, inputs, data)
+        data = dict(data, result_id=saved)
+        text += f"\nsaved in {db} as result {saved}"
+        payload = json.dumps(data, indent=1, sort_keys=sort_keys, allow_nan=False)
+        try:
+            if out is not None:
+                write_atomic(out, (payload + "\n").encode("utf-8"))
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
     click.echo(payload if as_json else text)
@@ -183,93 +206,20 @@ def _only_device(store: Any, device: str | None) -> tuple[str, str]:
             raise InputError(f"{len(by_label)} devices are labelled {device!r}: name one by its id "
                              f"({', '.join(by_label)})")
         raise InputError(f"no device {device!r} in {store.path}{did_you_mean(device, list(known.values()))} "
-                         f"Devices: {', '.join(_device_names(known)) or 'none'}")
+                         f"Devices: {', '.join(known.values()) or 'none'}")
     if len(known) == 1:
         return next(iter(known.items()))
     if not known:
         raise InputError(f"{store.path} holds no devices yet: sync a board first")
     raise InputError(f"{store.path} holds {len(known)} devices: name one with --device "
-                     f"({', '.join(_device_names(known))})")
-
-
-def _device_names(known: dict[str, str]) -> list[str]:
-    return [label if label != device else device for device, label in known.items()]
-
-
-def _detail_option(fn: Callable[..., Any]) -> Callable[..., Any]:
-    return click.option("--detail", is_flag=True,
-                        help="Also print the fit criteria (AIC, AICc), the runs test of the residual signs, and "
-                             "the marks the run was read against.")(fn)
-
-
-@click.command("calibrate")
-@_csv_argument
-@_db_option
-@click.option("--device", default=None,
-              help="With --db: the device (its label or id) whose standards to fit (default: the only one).")
-@_channel_option
-@click.option("--quadratic", is_flag=True, help="Fit a quadratic instead of a straight line.")
-@click.option("--through-origin", is_flag=True, help="Fit without an intercept.")
-@click.option("--reading", "readings", type=float, multiple=True,
-              help="Absorbance of an unknown; repeat for replicate readings. Prints its concentration.")
-@click.option("--path-cm", type=float, default=None, help="Path length (cm) to report the molar absorptivity.")
-@click.option("--blank-sd", type=float, default=None,
-              help="SD of repeated blank absorbances; LOD/LOQ then use it as σ.")
-@click.option("--level", type=float, default=0.95, show_default=True, help="Confidence level of intervals.")
-@_detail_option
-@json_option
-@_out_option
-@friendly
-def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None, channel: int, quadratic: bool,
-                      through_origin: bool, readings: tuple[float, ...], path_cm: float | None,
-                      blank_sd: float | None, level: float, detail: bool, as_json: bool, out: Path | None) -> None:
-    """Fit a calibration curve to standards, from a CSV file or from a device's standards in the database.
-
-    CSV columns: concentration,absorbance[,weight][,replicate]. With --db the standards are the device's standard
-    marks, each against its nearest preceding blank, and the calibration is saved in the database.
-
-    Example: nightcell calibrate standards.csv --reading 0.412 --reading 0.409 --path-cm 1
-
-    Example: nightcell calibrate --db class.db --device 5e1f000000000001
-    """
-    db = _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
-    options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
-                   blank_sd=blank_sd)
-    saved = None
-    if db is not None:
-        from ..tasks.analyse import calibrate_from_store
-
-        with _open(db) as store:
-            device, label = _only_device(store, device)
-            cal = calibrate_from_store(store, device, channel, **options)
-            saved = store.save_result("calibration", f"{label} standards", cal.inputs, cal.to_dict())
-    else:
-        assert csv_file is not None
-        cols = read_columns(csv_file, ["concentration", "absorbance"], ["weight"], min_rows=3)
-        cal = _calibration.fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
-                                           inputs={"file": csv_file.name}, **options)
-    data: dict[str, Any] = {"calibration": cal.to_dict()}
-    text = _layout.calibration_text(cal, detail=detail)
-    if readings:
-        pred = cal.predict(list(readings))
-        data["prediction"] = pred.to_dict()
-        text += "\n" + _layout.prediction_text(pred)
-    if path_cm is not None:
-        eps = cal.molar_absorptivity(path_cm)
-        data["molar_absorptivity"] = eps.to_dict()
-        text += f"\nmolar absorptivity: {_n.measured(eps.value, eps.stderr, eps.unit)}"
-    if saved is not None:
-        data["result_id"] = saved
-        text += f"\nsaved in {db} as result {saved}"
-    _finish(data, text, as_json, out)
+                     f"({', '.join(known.values())})")
 
 
 class LawChoice(click.Choice):
     """The rate laws by name; the names of version 0.1 still parse (hidden from --help) with a deprecation message."""
 
-    def __init__(self, extra: Sequence[str] = (), exclude: Sequence[str] = ()):
-        self.extra = tuple(extra)
-        super().__init__(self.extra + tuple(m for m in _kinetics.MODELS if m not in exclude))
+    def __init__(self, extra: Sequence[str] = (), laws: Sequence[str] = ALL_MODELS, exclude: Sequence[str] = ()):
+        super().__init__(tuple(extra) + tuple(m for m in laws if m not in exclude))
 
     def convert(self, value: Any, param: Any, ctx: Any) -> Any:
         if isinstance(value, str) and value in _laws.OLD_NAMES and _laws.OLD_NAMES[value] in self.choices:
@@ -278,12 +228,166 @@ class LawChoice(click.Choice):
         return super().convert(value, param, ctx)
 
 
+def _detail_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    return click.option("--detail", is_flag=True,
+                        help="Also print the fit criteria (AIC, AICc), test statistics such as the runs test of "
+                             "the residual signs, and the marks the readings were taken against.")(fn)
+
+
+@click.command("calibrate")
+@_csv_argument
+@_table_options
+@_db_option
+@click.option("--device", default=None,
+              help="With --db: the device (its label or id) whose standards to fit (default: the only one).")
+@_channel_option
+@click.option("--set", "set_name", default=None, metavar="NAME",
+              help="With --db: the calibration set to fit (its set=NAME label, or the blank key it follows); "
+                   "default: the latest set.")
+@click.option("--unit", default=None, help="Concentration unit of the standards, e.g. µM (with --db: when the "
+              "standards were journaled without one).")
+@click.option("--quadratic", is_flag=True, help="Fit a quadratic instead of a straight line.")
+@click.option("--through-origin", is_flag=True, help="Fit without an intercept.")
+@click.option("--reading", "readings", type=float, multiple=True,
+              help="Absorbance of an unknown; repeat for replicate readings. Prints its concentration.")
+@click.option("--path-cm", type=float, default=None,
+              help="Path length (cm) for the molar absorptivity (with --db: default the board's path_cm setting).")
+@click.option("--blank-sd", type=float, default=None,
+              help="SD of repeated blank absorbances; LOD/LOQ then use it as σ.")
+@click.option("--level", type=float, default=0.95, show_default=True, help="Confidence level of intervals.")
+@accept_suspect_option
+@_detail_option
+@json_option
+@_out_option
+@friendly
+def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None, channel: int,
+                      set_name: str | None, unit: str | None, quadratic: bool,
+                      through_origin: bool, readings: tuple[float, ...], path_cm: float | None,
+                      blank_sd: float | None, level: float, accept_suspect: bool, detail: bool, as_json: bool,
+                      out: Path | None) -> None:
+    """Fit a calibration curve to standards, from a CSV file or from a device's standards in the database.
+
+    CSV columns: concentration,absorbance[,weight][,replicate] (a %T column instead of absorbance is converted).
+    With --db the standards are one calibration set of the device's standard marks (the standards after one
+    blank with no run between, or those labelled set=NAME; the latest unless --set names one), each against its
+    nearest preceding blank, and the calibration is saved in the database.
+
+    Example: nightcell calibrate standards.csv --unit µM --reading 0.412 --reading 0.409 --path-cm 1
+
+    Example: nightcell calibrate --db class.db --device 5e1f000000000001 --set week2
+    """
+    db = _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
+    if set_name is not None and db is None:
+        raise InputError("--set chooses among a device's standards in the database: use it with --db")
+    options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
+                   blank_sd=blank_sd, accept_suspect=accept_suspect)
+    with contextlib.ExitStack() as opened:
+        _calibrate(csv_file, db, device, channel, options, readings, path_cm, as_json, out, opened,
+                   set_name=set_name, unit=unit, detail=detail)
+
+
+def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, channel: int, options: dict[str, Any],
+               readings: tuple[float, ...], path_cm: float | None, as_json: bool, out: Path | None,
+               opened: contextlib.ExitStack, *, set_name: str | None = None, unit: str | None = None,
+               detail: bool = False) -> None:
+    from ..render import fit_layout as _layout
+    from ..render import numbers as _n
+    from ..science.calibration import molar_factor
+
+    store = None
+    path_note = "given with --path-cm"
+    if db is not None:
+        from ..tasks.analyse import calibrate_from_store
+
+        store = opened.enter_context(_open(db))
+        device, bench = _only_device(store, device)
+        cal = calibrate_from_store(store, device, channel, set_name=set_name, unit=unit, **options)
+        if path_cm is None:
+            path_cm, path_note = _stored_path_cm(store, device)
+    else:
+        assert csv_file is not None
+        cols, how = _absorbance_columns(csv_file, "concentration", ["weight"], min_rows=3,
+                                        accept_suspect=options["accept_suspect"])
+        from ..science.calibration import fit_calibration
+
+        cal = fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
+                              inputs={"file": csv_file.name, "absorbance": how}, unit=unit or "", **options)
+    data: dict[str, Any] = {"calibration": cal.to_dict()}
+    text = _layout.calibration_text(cal, unit=cal.unit, detail=detail)
+    u = f" {cal.unit}" if cal.unit else ""
+    if db is not None:
+        used = cal.inputs.get("standards_used", [])
+        text += (f"\ncalibration set: {cal.inputs['set']} ({len(used)} standards; "
+                 + (f"other sets: {'; '.join(cal.inputs['other_sets'])}" if cal.inputs.get("other_sets")
+                    else "no other sets") + ")")
+        text += "\nstandards used: " + ", ".join(
+            f"{d['label']!r} = {d['value']}{(' ' + d['unit']) if d['unit'] else u}" if d["label"]
+            else f"{d['value']}{(' ' + d['unit']) if d['unit'] else u}" for d in used)
+        if detail:
+            text += "\nstandards' marks: " + ", ".join(d["mark"] for d in used)
+        for note in cal.inputs.get("left_out", []) + cal.inputs.get("warnings", []):
+            text += f"\nnote: {note}"
+    if cal.extra.get("suspect"):
+        text += f"\nSUSPECT: {cal.extra['suspect']}"
+    if readings:
+        pred = cal.predict(list(readings))
+        data["prediction"] = pred.to_dict()
+        text += "\n" + _layout.prediction_text(pred, unit=cal.unit)
+        if detail:
+            text += f"\n  interval from t = {_t(pred.level, pred.dof):.3g} with {pred.dof} degrees of freedom"
+    if path_cm is not None:
+        factor = molar_factor(cal.unit) if cal.unit else 1.0
+        if factor is None:
+            text += (f"\nmolar absorptivity not given: the unit {cal.unit} does not convert to mol/L (give the "
+                     "standards in M, mM, µM or nM)")
+        elif not cal.unit and db is not None:
+            text += ("\nmolar absorptivity not given: the standards carry no unit (give --unit, e.g. µM, to have "
+                     "it)")
+        else:
+            eps = cal.molar_absorptivity(path_cm)
+            data["molar_absorptivity"] = dict(eps.to_dict(), path_cm=path_cm, path_source=path_note)
+            text += f"\nmolar absorptivity: {_n.measured(eps.value, eps.stderr, eps.unit)}, path {path_cm:g} cm " \
+                    f"({path_note})"
+    if store is not None:
+        assert db is not None and device is not None
+        _finish_saved(store, db, "calibration", f"{bench} {cal.inputs['set']}", cal.inputs, data, text, as_json,
+                      out)
+        return
+    _finish(data, text, as_json, out)
+
+
+def _t(level: float, dof: int) -> float:
+    from ..science.fitting import t_quantile
+
+    return t_quantile(level, dof)
+
+
+def _stored_path_cm(store: Any, device: str) -> tuple[float | None, str]:
+    """The path length in the device's latest settings record, and where it came from."""
+    row = store.conn.execute("SELECT boot, seq, json FROM settings_records WHERE device = ? "
+                             "ORDER BY boot DESC, seq DESC LIMIT 1", (device,)).fetchone()
+    if row is None:
+        return None, "no settings record"
+    try:
+        value = json.loads(row[2]).get("path_cm")
+    except (ValueError, AttributeError):
+        return None, "settings record unreadable"
+    if not isinstance(value, (int, float)) or not value > 0:
+        return None, "no path_cm setting"
+    return float(value), f"the board's path_cm setting, record {row[0]}:{row[1]}"
+
+
 def _run_layout(analysis: Any) -> dict[str, Any]:
     """A stored run's fits in the one layout, with where the readings came from (``detail`` holds the raw keys)."""
+    import numpy as np
+
+    from ..render import fit_layout as _layout
+
     run = analysis.run
     data = {"run": {"label": run.label, "key": run.key, "device": run.device},
             "readings": {"used": int(len(analysis.time_s) - np.count_nonzero(analysis.flags)),
-                         "left_out_flagged": int(np.count_nonzero(analysis.flags)), "channel": analysis.channel},
+                         "left_out_flagged": int(np.count_nonzero(analysis.flags)),
+                         "flags": analysis.flag_counts(), "channel": analysis.channel},
             **_layout.layout(analysis.fits)}
     data["warnings"] = list(analysis.warnings)
     data["detail"] = dict(data["detail"], readings_from={
@@ -294,10 +398,14 @@ def _run_layout(analysis: Any) -> dict[str, Any]:
 
 
 def _run_text(analysis: Any, data: dict[str, Any], detail: bool) -> str:
+    from ..render import fit_layout as _layout
+
     run = analysis.run
     flagged = data["readings"]["left_out_flagged"]
-    lines = [f"run {run.label!r}: {len(analysis.time_s)} readings"
-             + (f", {flagged} flagged and left out" if flagged else ", none left out")]
+    counts = data["readings"]["flags"]
+    lines = [f"run {run.label or run.key!r}: {len(analysis.time_s)} readings"
+             + (f", {flagged} flagged and left out" if flagged else ", none left out")
+             + (f" ({', '.join(f'{n}: {c}' for n, c in counts.items())})" if counts else "")]
     lines += [f"warning: {w}" for w in analysis.warnings]
     lines.append(_layout.text(data, detail=detail))
     if detail:
@@ -306,155 +414,148 @@ def _run_text(analysis: Any, data: dict[str, Any], detail: bool) -> str:
     return "\n".join(lines)
 
 
-def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None) -> Any:
-    from ..tasks.analyse import run_series
-
-    s = run_series(store, run, channel)
-    inputs = {"run": run.key, "device": run.device, "channel": channel,
-              "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
-              "time_basis": s["time_basis"], "left_out": "flagged readings"}
-    return _kinetics.initial_rate(s["time_s"], s["absorbance"], window, mask=s["flags"] != 0, inputs=inputs)
+def _starts(texts: Sequence[str]) -> dict[str, float]:
+    out = {}
+    for text in texts:
+        name, sep, value = text.partition("=")
+        try:
+            out[name.strip()] = float(value)
+        except ValueError:
+            sep = ""
+        if not sep or not name.strip():
+            raise InputError(f"--start {text!r}: write NAME=VALUE, e.g. --start k=0.001 (names: A0, A_rise, k)")
+    return out
 
 
 @click.command("rate")
 @_csv_argument
+@_table_options
 @_db_option
 @click.option("--run", "run_text", metavar="RUN",
               help="With --db: the run (its number in `list runs`, or its label); default: the only run.")
 @_channel_option
 @click.option("--model", type=LawChoice(extra=("all", "initial_rate")), default="all",
-              show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
+              show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate by AICc "
+                                      "(first_order_rise_to_final only when named).")
 @click.option("--window", type=(float, float), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
 @click.option("--t-start", type=float, default=None, help="Leave out readings before this time (s), e.g. mixing.")
+@click.option("--t-end", type=float, default=None, help="Leave out readings after this time (s).")
 @click.option("--a-end", type=float, default=0.0, show_default=True,
               help="Absorbance when the followed species is used up (zero/first/second-order laws).")
+@click.option("--a0", type=float, default=None,
+              help="first_order_rise_to_final: hold A0 (the absorbance at t = 0) at this value; default: fitted.")
+@click.option("--start", "starts", multiple=True, metavar="NAME=VALUE",
+              help="first_order_rise_to_final: a starting value (A0, A_rise, k); a grid start is always tried too.")
+@click.option("--blank", "blank", metavar="KEY|LABEL", default=None,
+              help="With --db: read the run against this blank (key boot:seq or label) instead of the nearest "
+                   "one before it.")
+@accept_suspect_option
 @_detail_option
 @json_option
 @_out_option
 @friendly
 def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, channel: int, model: str,
-                 window: tuple[float, float] | None, t_start: float | None, a_end: float, detail: bool,
-                 as_json: bool, out: Path | None) -> None:
+                 window: tuple[float, float] | None, t_start: float | None, t_end: float | None, a_end: float,
+                 a0: float | None, starts: tuple[str, ...], blank: str | None, accept_suspect: bool,
+                 detail: bool, as_json: bool, out: Path | None) -> None:
     """Fit rate laws to one run, from a CSV file or from a run in the database.
 
-    CSV columns: time_s,absorbance (times strictly increasing). With --db the run's absorbance is read against its
-    blank, flagged readings are left out, and the result is saved in the database.
+    CSV columns: time_s,absorbance[,weight][,flags] (times strictly increasing; a %T column instead of absorbance
+    is converted; a weight column — as `nightcell export` writes it — weights the fit as --db does, else it is
+    unweighted). With --db the run's absorbance is read against its blank (the nearest before it, else the
+    first after it with a warning, or --blank), flagged readings are left out, readings are weighted by T², and
+    the result is saved in the database.
 
     Example: nightcell rate run.csv --t-start 30 --json
 
-    Example: nightcell rate --db class.db --run "dye fading"
+    Example: nightcell rate --db class.db --run "dye fading" --t-start 20 --t-end 600
+
+    Example: nightcell rate product.csv --model first_order_rise_to_final --a0 0 --start A_rise=1 --start k=0.01
     """
+    from ..render import fit_layout as _layout
+
     db = _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
+    start = _starts(starts)
+    if (a0 is not None or start) and model != "first_order_rise_to_final":
+        raise InputError("--a0 and --start apply to --model first_order_rise_to_final")
+    if t_start is not None and t_end is not None and not t_end > t_start:
+        raise InputError(f"--t-end {t_end:g} must be after --t-start {t_start:g}")
     if db is not None:
-        from ..tasks.analyse import analyse_run
+        from ..tasks.analyse import analyse_run, initial_rate_of
         from ..tasks.export import resolve_run
 
-        if t_start is not None or a_end != 0.0:
-            raise InputError("--t-start and --a-end apply to CSV files; with --db the whole run is fitted "
-                             "(export it with `nightcell export` to trim it)")
+        if a_end != 0.0:
+            raise InputError("--a-end applies to CSV files; with --db fit first_order_to_final, which fits the end")
         with _open(db) as store:
             run = resolve_run(store, run_text)
             if model == "initial_rate":
-                fit = _initial_rate_of(store, run, channel, window)
-                data, text = fit.to_dict(), f"run {run.label or run.key!r}\n" + _layout.initial_rate_text(fit, detail=detail)
+                if t_start is not None or t_end is not None:
+                    raise InputError("--t-start/--t-end choose the readings of a fit; for initial_rate give "
+                                     "--window START END")
+                fit = initial_rate_of(store, run, channel, window, blank=blank, accept_suspect=accept_suspect)
+                data = fit.to_dict()
+                text = f"run {run.label or run.key!r}\n" + _layout.initial_rate_text(fit, detail=detail)
                 inputs = fit.inputs
             else:
                 if window is not None:
                     raise InputError("--window applies to --model initial_rate")
-                analysis = analyse_run(store, run, channel=channel,
-                                       models=None if model == "all" else (model,))
+                if a0 is not None or start:
+                    raise InputError("--a0 and --start with --db: export the run (`nightcell export`) and fit its "
+                                     "absorbance CSV, where they apply (with --db first_order_rise_to_final fits A0 and "
+                                     "starts from its grid)")
+                analysis = analyse_run(store, run, channel=channel, models=None if model == "all" else (model,),
+                                       blank=blank, t_start=t_start, t_end=t_end, accept_suspect=accept_suspect)
                 data = _run_layout(analysis)
                 text = _run_text(analysis, data, detail)
-                inputs = analysis.fits[analysis.best].inputs
-            saved = store.save_result("rate", run.label or run.key, inputs, data)
-        data = dict(data, result_id=saved)
-        _finish(data, text + f"\nsaved in {db} as result {saved}", as_json, out, sort_keys=model == "initial_rate")
+                inputs = analysis.fits[data["answer"]["law"]].inputs
+            _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out,
+                          sort_keys=model == "initial_rate")
         return
+    import numpy as np
+
+    from ..science import kinetics as _kinetics
+
     assert csv_file is not None
-    cols = read_columns(csv_file, ["time_s", "absorbance"], min_rows=4)
-    inputs = {"file": csv_file.name}
+    if blank is not None:
+        raise InputError("--blank names a stored blank: use it with --db")
+    cols, how = _absorbance_columns(csv_file, "time_s", ["weight", "flags"], min_rows=4,
+                                    accept_suspect=accept_suspect)
+    mask = (cols["flags"] != 0) if "flags" in cols else np.zeros(cols["time_s"].size, dtype=bool)
+    weights = cols.get("weight")
+    if weights is not None:
+        mask |= weights == 0  # the export's weight for a flagged reading
+    if t_end is not None:
+        mask |= cols["time_s"] > t_end
+    if weights is not None:
+        weights = np.where(mask, 1.0, weights)
+    inputs = {"file": csv_file.name, "absorbance": how,
+              "weights": "the CSV's weight column" if weights is not None else "none (unweighted: no weight column)",
+              "left_out": "rows with flags other than 0 (or weight 0)" if "flags" in cols or weights is not None
+              else "none", "window_s": [t_start, t_end]}
+    rise = {"a0": a0, "start": start} if model == "first_order_rise_to_final" else {}
+    source = f"\nweights: {inputs['weights']}; absorbance: {how}"
     if model == "initial_rate":
-        result = _kinetics.initial_rate(cols["time_s"], cols["absorbance"], window, t_start=t_start, inputs=inputs)
-        _finish(result.to_dict(), _layout.initial_rate_text(result, detail=detail), as_json, out)
+        result = _kinetics.initial_rate(cols["time_s"], cols["absorbance"], window, t_start=t_start, inputs=inputs,
+                                        mask=mask)
+        _finish(result.to_dict(), _layout.initial_rate_text(result, detail=detail) + source, as_json, out)
         return
     if model == "all":
-        both = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end, inputs=inputs)
+        both = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end,
+                                 inputs=inputs, mask=mask, weights=weights)
         fits, failures = both.results, both.failures
     else:
         fits = {model: _kinetics.fit_model(cols["time_s"], cols["absorbance"], model, t_start=t_start, a_end=a_end,
-                                           inputs=inputs)}
+                                           inputs=inputs, mask=mask, weights=weights, **rise)}
         failures = {}
     data = _layout.layout(fits, failures)
-    _finish(data, _layout.text(data, detail=detail), as_json, out, sort_keys=False)
+    _finish(data, _layout.text(data, detail=detail) + source, as_json, out, sort_keys=False)
 
 
-def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
-    from ..tasks.export import resolve_run
-
-    runs = [resolve_run(store, str(k)) for k in keys]
-    seen = [r.key for r in runs]
-    twice = sorted({k for k in seen if seen.count(k) > 1})
-    if twice:
-        raise InputError(f"run {twice[0]} is listed twice in the CSV: list each run once")
-    return runs
-
-
-@click.command("orders")
-@_csv_argument
-@_db_option
-@_channel_option
-@click.option("--nonlinear", is_flag=True, help="Refine the power law by nonlinear least squares on the rates.")
-@_detail_option
-@json_option
-@_out_option
-@friendly
-def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonlinear: bool, detail: bool,
-                   as_json: bool, out: Path | None) -> None:
-    """Reaction orders from the initial rates of several runs.
-
-    CSV: one row per run with initial_rate[,rate_se] and one conc_<name> column per reactant. With --db the CSV
-    names the runs instead (column run: key or label) and each initial rate comes from that run's readings.
-
-    Example: nightcell orders initial_rates.csv --nonlinear
-
-    Example: nightcell orders --db class.db runs_and_concentrations.csv
-
-    Without a CSV, --db takes the runs whose starting concentrations were recorded with `nightcell condition`.
-    """
-    db = _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
-    with contextlib.ExitStack() as opened:
-        store = None if db is None else opened.enter_context(_open(db))
-        if csv_file is None:
-            cols, source = _plan_from_conditions(store, "orders"), "recorded conditions"
-        elif store is not None:
-            cols, source = read_columns(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",)), csv_file.name
-        else:
-            cols = read_columns(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
-            source = csv_file.name
-        inputs: dict[str, Any] = {"file": source}
-        conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
-        if not conc:
-            raise InputError(f"{csv_file} has no concentration columns; add one column per reactant named "
-                             "conc_<name>")
-        if store is not None:
-            runs = _runs_from_plan(store, cols["run"])
-            fits = [_initial_rate_of(store, run, channel, None) for run in runs]
-            cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
-            cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
-            inputs = {"file": source, "runs": [r.key for r in runs], "channel": channel,
-                      "rate_rule": "initial_rate, window chosen automatically, flagged readings left out"}
-        result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
-        data, text = result.to_dict(), _layout.orders_text(result, detail=detail)
-        if store is not None:
-            saved = store.save_result("orders", Path(source).stem, inputs, data)
-            data = dict(data, result_id=saved)
-            text += f"\nsaved in {db} as result {saved}"
-    _finish(data, text, as_json, out)
-
-
-def _plan_from_conditions(store: Any, kind: str) -> dict[str, np.ndarray]:
+def _plan_from_conditions(store: Any, kind: str) -> dict[str, Any]:
     """The runs and their recorded conditions (``nightcell condition``), as the CSV plan would give them."""
+    import numpy as np
+
     from ..tasks.analyse import run_conditions
 
     if not store.runs():
@@ -475,13 +576,14 @@ def _plan_from_conditions(store: Any, kind: str) -> dict[str, np.ndarray]:
     if len(keys) < 3:
         raise InputError(f"only {len(keys)} run(s) in {store.path} have a recorded {what}; this needs at least 3: "
                          f"record more with `nightcell condition --db {store.path} --run RUN {how}`")
-    cols: dict[str, np.ndarray] = {"run": np.array(keys, dtype=object)}
+    cols: dict[str, Any] = {"run": np.array(keys, dtype=object)}
     if kind == "orders":
         names = sorted({q for c in have.values() for q in c if q.startswith("conc_")})
         incomplete = [k for k in keys if not all(n in have[k] for n in names)]
         if incomplete:
-            raise InputError(f"run {incomplete[0]} has no recorded {', '.join(n for n in names if n not in have[incomplete[0]])}: "
-                             f"record it with `nightcell condition`, or give {plan}")
+            lacking = ", ".join(n for n in names if n not in have[incomplete[0]])
+            raise InputError(f"run {incomplete[0]} has no recorded {lacking}: record it with `nightcell condition`, "
+                             f"or give {plan}")
         for n in names:
             cols["conc_" + n[len("conc_"):-len("_M")]] = np.array([have[k][n]["value"] for k in keys])
     else:
@@ -489,22 +591,84 @@ def _plan_from_conditions(store: Any, kind: str) -> dict[str, np.ndarray]:
     return cols
 
 
-def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
-    """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
-    from ..tasks.analyse import analyse_run
+def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
+    from ..tasks.export import resolve_run
 
-    analysis = analyse_run(store, run, channel=channel, models=(model,))
-    fit = analysis.fits[model]
-    temps = [r["temp_centi"] for r in store.run_samples(run, channel) if r["temp_centi"] is not None]
-    t_k = float(np.mean(temps)) / 100.0 + 273.15 if temps else None
-    return float(fit.values["k"]), float(fit.stderr["k"]), t_k
+    runs = [resolve_run(store, str(k)) for k in keys]
+    seen = [r.key for r in runs]
+    twice = sorted({k for k in seen if seen.count(k) > 1})
+    if twice:
+        raise InputError(f"run {twice[0]} is listed twice in the CSV: list each run once")
+    return runs
+
+
+@click.command("orders")
+@_csv_argument
+@_table_options
+@_db_option
+@_channel_option
+@click.option("--nonlinear", is_flag=True, help="Refine the power law by nonlinear least squares on the rates.")
+@_detail_option
+@json_option
+@_out_option
+@friendly
+def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonlinear: bool, detail: bool,
+                   as_json: bool, out: Path | None) -> None:
+    """Reaction orders from the initial rates of several runs.
+
+    CSV: one row per run with initial_rate[,rate_se] and one conc_<name> column per reactant. With --db the CSV
+    names the runs instead (column run: key or label) and each initial rate comes from that run's readings.
+
+    Example: nightcell orders initial_rates.csv --nonlinear
+
+    Example: nightcell orders --db class.db runs_and_concentrations.csv
+
+    Without a CSV, --db takes the runs whose starting concentrations were recorded with `nightcell condition`.
+    """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import initial_rate_of
+
+    from ..render import fit_layout as _layout
+
+    db = _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
+    with contextlib.ExitStack() as opened:
+        store = None if db is None else opened.enter_context(_open(db))
+        if csv_file is None:
+            cols, source = _plan_from_conditions(store, "orders"), "recorded conditions"
+        elif store is not None:
+            cols, source = read_columns(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",)), csv_file.name
+        else:
+            cols = read_columns(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
+            source = csv_file.name
+        inputs: dict[str, Any] = {"file": source}
+        conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
+        if not conc:
+            raise InputError(f"{csv_file} has no concentration columns; add one column per reactant named "
+                             "conc_<name>")
+        if store is not None:
+            runs = _runs_from_plan(store, cols["run"])
+            fits = [initial_rate_of(store, run, channel, None) for run in runs]
+            cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
+            cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
+            inputs = {"file": source, "runs": [r.key for r in runs], "channel": channel,
+                      "rate_rule": "initial_rate, window chosen automatically, flagged readings left out"}
+        result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
+        data, text = result.to_dict(), _layout.orders_text(result, detail=detail)
+        if store is not None:
+            assert db is not None
+            _finish_saved(store, db, "orders", Path(source).stem, inputs, data, text, as_json, out)
+            return
+    _finish(data, text, as_json, out)
 
 
 @click.command("arrhenius")
 @_csv_argument
+@_table_options
 @_db_option
 @_channel_option
-@click.option("--model", type=LawChoice(exclude=("zero_order",)),
+@click.option("--model", type=LawChoice(laws=MODELS, exclude=("zero_order",)),
               default="first_order_to_final", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
@@ -525,6 +689,13 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
 
     Without a CSV, --db takes the runs whose temperatures were recorded with `nightcell condition`.
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import k_and_temperature
+
+    from ..render import fit_layout as _layout
+
     db = _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     with contextlib.ExitStack() as opened:
         store = None if db is None else opened.enter_context(_open(db))
@@ -538,7 +709,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
         inputs: dict[str, Any] = {"file": source}
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            got = [_k_and_temperature(store, run, channel, model) for run in runs]
+            got = [k_and_temperature(store, run, channel, model) for run in runs]
             if "temperature_K" not in cols:
                 missing = [r.key for r, g in zip(runs, got) if g[2] is None]
                 if missing:
@@ -558,9 +729,9 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             data["eyring"] = ey.to_dict()
         text = _layout.arrhenius_text(fit, ey, detail=detail)
         if store is not None:
-            saved = store.save_result("arrhenius", Path(source).stem, inputs, data)
-            data["result_id"] = saved
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "arrhenius", Path(source).stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
 
 

@@ -13,8 +13,8 @@ import click
 
 from ..errors import NightcellError
 
-__all__ = ["EXIT_CODES", "friendly", "db_option", "db_from_environment", "port_option", "json_option", "emit",
-           "source_db_option"]
+__all__ = ["EXIT_CODES", "friendly", "db_option", "db_from_environment", "port_option", "json_option",
+           "accept_suspect_option", "emit", "open_reading", "open_writing", "source_db_option"]
 
 EXIT_CODES = {
     0: "success",
@@ -34,18 +34,53 @@ class _Failure(click.ClickException):
 
 
 def friendly(fn: Callable[..., Any]) -> Callable[..., Any]:
-    """Turn nightcell's own errors into a message and its documented exit code (no traceback)."""
+    """Turn nightcell's own errors into a message and its documented exit code (no traceback).
+
+    Also: a database SQLite finds damaged is exit 4 with what can still be read; numbers that overflow are exit 5;
+    numpy's and scipy's warnings never reach the terminal (a result that needs one says so in its own words).
+    """
 
     @functools.wraps(fn)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
+        import sqlite3
+        import warnings
+
         try:
-            return fn(*args, **kwargs)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                warnings.simplefilter("ignore", UserWarning)
+                return fn(*args, **kwargs)
         except NightcellError as exc:
             raise _Failure(str(exc), exc.exit_code) from exc
+        except sqlite3.DatabaseError as exc:
+            from ..store.database import damaged
+
+            db = kwargs.get("db")
+            if "malformed" in str(exc) and db is not None:
+                raise _Failure(str(damaged(db, exc)), 4) from exc
+            raise _Failure(f"database error on {db or 'the database'} ({exc}): nothing was written; check the file "
+                           "with `sqlite3 DB 'PRAGMA integrity_check'`", 4) from exc
+        except (FloatingPointError, OverflowError) as exc:
+            raise _Failure(f"the numbers are out of range for this analysis ({exc}): check the values given "
+                           "(absorbances are about 0 to 4, rate constants well below 1e100)", 5) from exc
         except KeyboardInterrupt:
             raise _Failure("interrupted", 130) from None
 
     return wrapper
+
+
+def open_reading(db: Path) -> Any:
+    """The store for a command that only reads: opened read-only, never created, migrated or changed."""
+    from ..store.database import Store
+
+    return Store.open_read(db)
+
+
+def open_writing(db: Path, *, create: bool = False) -> Any:
+    """The store for a command that writes (a result, a condition, a sync): created only where ``create``."""
+    from ..store.database import Store
+
+    return Store.open_write(db, create=create)
 
 
 # -- shared options ------------------------------------------------------------------------------------------------
@@ -78,6 +113,13 @@ def db_from_environment() -> bool:
 def port_option(fn: Callable[..., Any]) -> Callable[..., Any]:
     return click.option("--port", "port", required=True, envvar="NIGHTCELL_PORT", show_envvar=True,
                         help="The board's serial port or any pyserial URL (find boards with `nightcell boards`).")(fn)
+
+
+def accept_suspect_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """``--accept-suspect``: the one option that confirms data a guard refuses (the flag stays on the result)."""
+    return click.option("--accept-suspect", "accept_suspect", is_flag=True,
+                        help="Use data nightcell's checks flag as suspect (a blocked blank, standards that do not "
+                             "rise, an odd temperature); the flag is kept with the result.")(fn)
 
 
 def json_option(fn: Callable[..., Any]) -> Callable[..., Any]:

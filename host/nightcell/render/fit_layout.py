@@ -120,18 +120,13 @@ def layout(fits: Mapping[str, Any], failures: Mapping[str, str] | None = None, *
     best_c = criterion(fits[order[0]])
     ranking = [{"law": m, "law_title": _laws.title(m), "delta_aicc": criterion(fits[m]) - best_c} for m in order]
     ranking += [{"law": m, "law_title": _laws.title(m), "not_fitted": why} for m, why in (failures or {}).items()]
-    detail = {
-        m: {"aic": f.aic, "aicc": f.extra.get("aicc"), "runs_test": f.extra.get("runs_test"), "n": f.n,
-            "dof": f.dof, "rss": f.rss, "time_origin_s": f.extra.get("time_origin_s"), "success": f.success,
-            "message": f.message, "inputs": f.inputs, "parameters": {n: f.values[n] for n in f.names},
-            "standard_errors": {n: f.stderr[n] for n in f.names}, "covariance": f.cov,
-            "parameter_order": list(f.names)}
-        for m, f in fits.items()
-    }
+    detail = {m: f.to_dict() for m, f in fits.items()}  # the full fit record of every law, as the library gives it
     return jsonable({
         "answer": answer,
         "how_well_it_fits": quality,
         "parameters": [_param_row(fit, n, info) for n in fit.names],
+        "intervals": {"level": LEVEL, "rule": "value ± t·SE, Student t of the fit's degrees of freedom",
+                      "t": t_quantile(LEVEL, fit.dof), "degrees_of_freedom": fit.dof},
         "laws_ranked": ranking,
         "detail": detail,
     })
@@ -156,7 +151,9 @@ def text(data: Mapping[str, Any], *, detail: bool = False) -> str:
         if q.get("largest_residual_at_s") is not None:
             res += f" at {_n.quantity(q['largest_residual_at_s'], 's', digits=3)}"
     lines += [res, f"  {q['residuals_in_words']}", f"  {q['best_law_in_words']}"]
-    lines.append("parameters (value ± standard error, 95 % interval)")
+    iv = data.get("intervals", {})
+    lines.append("parameters (value ± standard error, 95 % interval = value ± t·SE"
+                 + (f", t = {iv['t']:.4g} with {iv['degrees_of_freedom']} degrees of freedom)" if iv else ")"))
     width = max(len(p["meaning"]) for p in data["parameters"])
     for p in data["parameters"]:
         lines.append(f"  {p['meaning']:<{width}}  {p['name']:<5}  "
@@ -173,9 +170,9 @@ def text(data: Mapping[str, Any], *, detail: bool = False) -> str:
         for m, d in data["detail"].items():
             if not isinstance(d, Mapping) or "aic" not in d:  # where the readings came from, printed by the caller
                 continue
-            rt = d.get("runs_test") or {}
+            rt = d.get("extra", {}).get("runs_test") or {}
             p = rt.get("p_value")
-            lines.append(f"  {m}: AIC {_n.quantity(d['aic'])}, AICc {_n.quantity(d['aicc'])}, n {d['n']}, "
+            lines.append(f"  {m}: AIC {_n.quantity(d['aic'])}, AICc {_n.quantity(d['extra'].get('aicc'))}, n {d['n']}, "
                          f"dof {d['dof']}, RSS {_n.quantity(d['rss'], digits=3)}, runs-test p "
                          f"{'n/a' if p is None else _n.quantity(p, digits=2)}")
     return "\n".join(lines)
@@ -206,10 +203,17 @@ def calibration_text(cal: Any, *, unit: str = "", detail: bool = False) -> str:
                      + " from zero" + (f" (t = {it['t']:.2f}, p = {it['p_value']:.2g})" if detail else ""))
     lin = ex.get("linearity") or {}
     if lin:
-        lines.append(f"  straightness: {lin['verdict']}")
-    lod_unit = unit or "in the standards' unit"
-    lines.append(f"  limit of detection {_n.quantity(ex.get('lod'), digits=2)}, limit of quantification "
-                 f"{_n.quantity(ex.get('loq'), digits=2)} {lod_unit} (σ from {ex.get('sigma_source', 'the residuals')})")
+        lines.append(f"  linear range: {lin['criterion'] + ': ' if lin.get('criterion') else ''}{lin['verdict']}")
+    u = f" {unit}" if unit else " (in the standards' unit)"
+    sigma = {"residual": "the residual SD s_y/x", "intercept": "the intercept's SE",
+             "blank": "the SD of repeated blank readings"}.get(ex.get("sigma_source"), ex.get("sigma_source", ""))
+    try:
+        from ..science.calibration import LOD_RULE as rule
+    except ImportError:  # pragma: no cover - older science rooms
+        rule = "LOD = 3.3σ/S, LOQ = 10σ/S"
+    lines.append(f"  LOD = {_n.quantity(ex.get('lod'), digits=2)}{u}, LOQ = {_n.quantity(ex.get('loq'), digits=2)}{u}"
+                 f" — convention: {rule}, σ = {sigma}"
+                 + (f" = {_n.quantity(ex['lod_sigma'], 'A', digits=2)}" if ex.get("lod_sigma") is not None else ""))
     if detail:
         lines.append(f"  detail: n {cal.n}, dof {cal.dof}, RSS {_n.quantity(cal.rss, digits=3)}, AIC "
                      f"{_n.quantity(cal.aic)}; straightness test: {lin.get('method', '')}")
@@ -238,7 +242,10 @@ def arrhenius_text(fit: Any, eyring: Any = None, *, detail: bool = False) -> str
              f"  {_n.activation_energy(ea, ea_se)}  (95 % interval "
              f"{_n.interval(ea / 1000 - half, ea / 1000 + half, ea_se / 1000, 'kJ mol⁻¹')})",
              f"  pre-exponential factor A = {_n.measured(fit.extra.get('A'), fit.extra.get('A_se'), 'in the unit of k')}",
-             f"  residual SD of ln k {_n.quantity(fit.residual_sd, digits=2)}"]
+             f"  residual SD of ln k {_n.quantity(fit.residual_sd, digits=2)}; 95 % interval = value ± t·SE, "
+             f"t = {t_quantile(LEVEL, fit.dof):.4g} with {fit.dof} degree(s) of freedom"]
+    if fit.extra.get("se_rule"):
+        lines.append(f"  standard errors: {fit.extra['se_rule']}")
     if eyring is not None:
         lines.append("Eyring (ln(k/T) against 1/T, transmission coefficient 1)")
         lines.append(f"  ΔH‡ = {_n.measured(eyring.values['dH_J_per_mol'] / 1000, eyring.stderr['dH_J_per_mol'] / 1000, 'kJ mol⁻¹')}")

@@ -161,11 +161,14 @@ class FitResult:
     n, dof : number of points used and residual degrees of freedom (n − number of parameters).
     residual_sd : sqrt(RSS / dof) — s_y/x for a calibration line (weighted RSS for weighted fits).
     rss : residual sum of squares (weighted if weights were given).
-    aic : n·ln(RSS/n) + 2k (module docstring).
+    aic : n·ln(RSS/n) + 2k (module docstring); ``aicc`` (property, also in ``extra``) adds 2k(k+1)/(n−k−1).
     success, message : whether the fit can be trusted, and why / why not.
     inputs : plain-JSON record of what the fit came from (ids, windows, choices).
     extra : model-specific derived values (half-life, runs test, LOD...), plain JSON.
     x, y, residuals : the points actually used and their residuals (numpy; not exported).
+    curve_fn : ``curve_fn(x, beta)`` — the fitted model at ``x`` (the units of ``x`` above) for parameters ``beta``
+        in ``names`` order; set by the function that fitted it (None when the model has no curve over ``x``).
+        ``curve`` and ``band`` use it, so a plot asks the result instead of re-deriving the model.
     """
 
     model: str
@@ -185,6 +188,41 @@ class FitResult:
     x: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
     y: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
     residuals: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
+    curve_fn: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = field(default=None, repr=False, compare=False)
+
+    def curve(self, x: Any) -> np.ndarray:
+        """The fitted model at ``x`` (same units as ``self.x``)."""
+        if self.curve_fn is None:
+            raise InputError(f"{self.model} has no curve over x to evaluate")
+        beta = np.array([self.values[n] for n in self.names], dtype=float)
+        return np.asarray(self.curve_fn(np.asarray(x, dtype=float), beta), dtype=float)
+
+    def band(self, x: Any, level: float = 0.95, *, kind: str = "confidence") -> tuple[np.ndarray, np.ndarray]:
+        """Lower and upper edges at ``x`` of the two-sided ``level`` band of the fitted curve.
+
+        ``kind="confidence"``: where the true curve lies; ``kind="prediction"``: where one new observation falls
+        (adds the residual variance; for a weighted fit, an observation of unit relative weight). Half-width
+        ``t(level, dof)·sqrt(g·cov·gᵀ [+ s²])`` with ``g`` the gradient of the curve in the parameters (central
+        differences; exact for models linear in their parameters, the delta method otherwise).
+        """
+        if kind not in ("confidence", "prediction"):
+            raise InputError(f"band kind {kind!r} must be 'confidence' or 'prediction'")
+        xv = np.asarray(x, dtype=float)
+        centre = self.curve(xv)
+        assert self.curve_fn is not None
+        beta = np.array([self.values[n] for n in self.names], dtype=float)
+        grad = np.empty((len(beta),) + centre.shape)
+        for i, (b, se) in enumerate(zip(beta, (self.stderr[n] for n in self.names))):
+            h = 1e-6 * max(abs(b), se if math.isfinite(se) else 0.0) or 1e-9
+            up, down = beta.copy(), beta.copy()
+            up[i] += h
+            down[i] -= h
+            grad[i] = (self.curve_fn(xv, up) - self.curve_fn(xv, down)) / (2.0 * h)
+        var = np.einsum("i...,ij,j...->...", grad, self.cov_matrix, grad)
+        if kind == "prediction":
+            var = var + self.residual_sd**2
+        half = t_quantile(level, self.dof) * np.sqrt(np.clip(var, 0.0, None))
+        return centre - half, centre + half
 
     def param(self, name: str) -> float:
         """Value of parameter ``name``."""
@@ -202,6 +240,11 @@ class FitResult:
         """Covariance between parameters ``a`` and ``b``."""
         self.param(a), self.param(b)
         return float(self.cov[self.names.index(a)][self.names.index(b)])
+
+    @property
+    def aicc(self) -> float:
+        """AIC with the small-sample correction 2k(k+1)/(n−k−1) (module docstring); what models are ranked by."""
+        return float(self.extra.get("aicc", _aicc(self.rss, self.n, len(self.names))))
 
     @property
     def cov_matrix(self) -> np.ndarray:
@@ -226,13 +269,19 @@ class FitResult:
         values (unless ``extras=False``) and the message."""
         lines = [f"model: {self.model}" + ("" if self.success else "  (NOT TRUSTED)")]
         width = max([len(n) for n in self.names] + [9])
+        t = t_quantile(0.95, self.dof)
         for name in self.names:
-            lines.append(f"  {name:<{width}}  {_fmt(self.values[name])} ± {_fmt(self.stderr[name])}")
+            lo, hi = self.confint(name)
+            lines.append(f"  {name:<{width}}  {_fmt(self.values[name])} ± {_fmt(self.stderr[name])} (SE); "
+                         f"95 % CI {_fmt(lo)} to {_fmt(hi)}")
+        lines.append(f"  95 % intervals: value ± t·SE with t = {_fmt(t)} (Student t, {self.dof} dof)")
         lines.append(
             f"  n = {self.n}, dof = {self.dof}, residual SD = {_fmt(self.residual_sd)}, "
-            f"RSS = {_fmt(self.rss)}, AIC = {_fmt(self.aic)}"
+            f"RSS = {_fmt(self.rss)}, AIC = {_fmt(self.aic)}, AICc = {_fmt(self.aicc)}"
         )
         for key, value in (self.extra.items() if extras else ()):
+            if key == "aicc":
+                continue
             if isinstance(value, (int, float, str)) and not isinstance(value, bool):
                 lines.append(f"  {key}: {_fmt(value) if isinstance(value, float) else value}")
         if self.message:
@@ -283,6 +332,7 @@ def _package(
     message: str = "",
     inputs: Mapping[str, Any] | None = None,
     extra: Mapping[str, Any] | None = None,
+    curve: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
 ) -> FitResult:
     n, k = int(y.size), len(names)
     dof = n - k
@@ -309,6 +359,7 @@ def _package(
         x=x,
         y=y,
         residuals=resid,
+        curve_fn=curve,
     )
 
 
@@ -322,8 +373,10 @@ def linear_lstsq(
     x: np.ndarray | None = None,
     inputs: Mapping[str, Any] | None = None,
     extra: Mapping[str, Any] | None = None,
+    curve: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
 ) -> FitResult:
-    """Ordinary or weighted least squares ``y ≈ design @ beta``.
+    """Ordinary or weighted least squares ``y ≈ design @ beta`` (``curve(x, beta)``, optional: the model over ``x``,
+    kept on the result for ``FitResult.curve``/``band``).
 
     The rows are scaled by sqrt(weight), the columns equilibrated to unit norm, and the system solved by a QR
     factorisation; ``cov = s²·(XᵀWX)⁻¹`` with ``s² = Σw·r²/(n−k)`` (scale estimated from the residuals, the
@@ -369,7 +422,7 @@ def linear_lstsq(
     Rinv = np.linalg.inv(R)
     cov = s2 * (Rinv @ Rinv.T) / np.outer(scale, scale)
     xv = np.asarray(x, dtype=float) if x is not None else X[:, min(1, k - 1)]
-    return _package(model, names, beta, cov, xv, yv, resid, rss, inputs=inputs, extra=extra)
+    return _package(model, names, beta, cov, xv, yv, resid, rss, inputs=inputs, extra=extra, curve=curve)
 
 
 def nonlinear_lstsq(

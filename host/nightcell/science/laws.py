@@ -5,7 +5,8 @@ that still parse for one version (with a deprecation message). Must never: fit, 
 
 The identifiers say what the law is in the trade's words: the order, and where the absorbance goes — to zero (or to a
 known end absorbance given as ``a_end``, the absorbance left when the followed species is used up), or towards a
-final absorbance the fit finds.
+final absorbance the fit finds. Kept apart from ``kinetics.py`` (which needs scipy) so that a command can offer the
+names without loading scipy.
 """
 
 from __future__ import annotations
@@ -13,7 +14,7 @@ from __future__ import annotations
 import warnings
 from dataclasses import dataclass
 
-__all__ = ["LAWS", "OLD_NAMES", "Law", "describe", "resolve", "title"]
+__all__ = ["ALL_MODELS", "LAWS", "MODELS", "OLD_NAMES", "Law", "describe", "resolve", "title"]
 
 
 @dataclass(frozen=True)
@@ -40,15 +41,21 @@ LAWS: dict[str, Law] = {
     "first_order_to_final": Law("first order, towards a final absorbance",
                                 "A = A∞ + (A0 − A∞)·e^(−k·t)",
                                 {"A0": _A0, "A_inf": "final absorbance A∞", "k": "rate constant"}, "k", "s⁻¹"),
-    # the rise law being added by the science work (its working name there: first_order_rise)
     "first_order_rise_to_final": Law("first order, rising to a final absorbance",
-                                     "A = A0 + A∞·(1 − e^(−k·t))",
-                                     {"A0": _A0, "A_inf": "rise to the final absorbance A∞", "k": "rate constant"},
-                                     "k", "s⁻¹"),
+                                     "A = A0 + A_rise·(1 − e^(−k·t))",
+                                     {"A0": "absorbance at t = 0", "A_rise": "rise to the final absorbance",
+                                      "k": "rate constant"}, "k", "s⁻¹"),
 }
 
-#: Names of version 0.1, accepted (with a deprecation message) until the next version, and the working name of the
-#: rise law, mapped to the identifiers above. ``tests/test_laws.py`` checks every old name still resolves.
+MODELS: tuple[str, ...] = ("zero_order", "first_order_to_zero", "second_order", "first_order_to_final")
+"""The candidates ranked by default: integrated zero-, first- and second-order laws, and the first-order approach
+towards a final absorbance (offset free)."""
+ALL_MODELS: tuple[str, ...] = MODELS + ("first_order_rise_to_final",)
+"""Every law ``kinetics.fit_model`` knows: ``MODELS`` and the rise to a final value, A = A0 + A_rise·(1 − e^(−kt)),
+fitted only when named (with A0 free it is ``first_order_to_final`` written another way)."""
+
+#: Names of version 0.1, and the rise law's working name while it was developed, accepted (with a deprecation message)
+#: until the next version, mapped to the identifiers above. ``tests/test_laws.py`` checks every old name still resolves.
 OLD_NAMES: dict[str, str] = {
     "first_order_plateau": "first_order_to_final",
     "first_order": "first_order_to_zero",

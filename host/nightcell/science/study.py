@@ -24,7 +24,11 @@ import numpy as np
 from ..errors import DegenerateData, InputError, ShapeMismatch, TooFewPoints
 from .fitting import FitResult, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq
 
-__all__ = ["GAS_CONSTANT", "BOLTZMANN", "PLANCK", "OrderStudy", "arrhenius", "eyring", "orders"]
+__all__ = ["GAS_CONSTANT", "BOLTZMANN", "PLANCK", "SE_RULE", "OrderStudy", "arrhenius", "eyring", "orders"]
+
+SE_RULE = ("SE scaled by the residual scatter (the Birge ratio sqrt(χ²/dof), up or down: NIST/statsmodels "
+           "convention); 95 % interval from Student t with n − 2 dof")
+"""The one rule for the SE of Ea (and every fit over runs): the arrhenius command and the study report both."""
 
 # CODATA 2018 exact values (SI redefinition).
 GAS_CONSTANT = 8.314462618  # J mol⁻¹ K⁻¹
@@ -68,19 +72,25 @@ def _temperature_fit(
     if T.size < 3:
         raise TooFewPoints(f"{model}: {T.size} runs; need at least 3 temperatures to give standard errors")
     w = _log_weights(kv, k_se, "k")
-    x = -1.0 / (GAS_CONSTANT * T)
     if model == "arrhenius":
         y = np.log(kv)
-        X = np.column_stack([x, np.ones_like(x)])
     else:
         y = np.log(kv / T) - math.log(BOLTZMANN / PLANCK)
-        X = np.column_stack([x, np.full_like(x, 1.0 / GAS_CONSTANT)])
     rec = dict(inputs or {})
     rec.update(model=model, weighted=w is not None, absolute_sigma=absolute_sigma)
-    fit = linear_lstsq(X, y, names, model=model, weights=w, x=T, inputs=rec)
+    fit = linear_lstsq(_temperature_design(T, model), y, names, model=model, weights=w, x=T, inputs=rec,
+                       curve=lambda temps, beta: _temperature_design(temps, model) @ beta)
     if absolute_sigma and w is not None:
         _absolute(fit)
     return fit, T, kv
+
+
+def _temperature_design(T: np.ndarray, model: str) -> np.ndarray:
+    """Columns of the straight line in 1/T: ln k (Arrhenius) or ln(k/T) − ln(k_B/h) (Eyring) at temperatures T."""
+    x = -1.0 / (GAS_CONSTANT * T)
+    if model == "arrhenius":
+        return np.column_stack([x, np.ones_like(x)])
+    return np.column_stack([x, np.full_like(x, 1.0 / GAS_CONSTANT)])
 
 
 def arrhenius(
@@ -101,6 +111,12 @@ def arrhenius(
         inputs=inputs,
     )
     a = math.exp(fit.param("ln_A"))
+    lo, hi = fit.confint("Ea_J_per_mol")
+    fit.extra.update(
+        se_rule=(SE_RULE + f" (Birge ratio {fit.residual_sd:.3g})") if not absolute_sigma or k_se is None
+        else "SE from the given k_se alone (absolute_sigma; the scatter of the runs not used)",
+        Ea_ci95_kJ_per_mol=[lo / 1000.0, hi / 1000.0],
+    )
     fit.extra.update(
         A=a, A_se=a * fit.se("ln_A"), Ea_kJ_per_mol=fit.param("Ea_J_per_mol") / 1000.0,
         Ea_se_kJ_per_mol=fit.se("Ea_J_per_mol") / 1000.0, correlation_Ea_lnA=float(fit.correlation()[0, 1]),
@@ -240,6 +256,7 @@ def orders(
             Xi, np.log(mag[idx]), ("ln_rate_at_1", "order"), model=f"order_{name}",
             weights=None if w is None else w[idx], x=conc[name][idx],
             inputs={"reactant": name, "runs": idx.tolist()},
+            curve=lambda c, beta: beta[0] + beta[1] * np.log(c),
         )
 
     study = OrderStudy(joint=joint, per_reactant=per, skipped=skipped)

@@ -23,10 +23,10 @@ from pathlib import Path
 from typing import Any, Iterable, Iterator
 
 import numpy as np
-import sqlite_utils
+from ._sqlite import sqlite_utils
 
 from .. import __version__
-from ..errors import InputError, SchemaTooNew, StoreError
+from ..errors import InputError, RecordConflict, SchemaTooNew, StoreError
 from ..wire.frames import (
     KIND_ANCHOR,
     KIND_BOOT,
@@ -41,8 +41,10 @@ from ..wire.frames import (
     sample_columns,
 )
 from ..science.timeline import unwrap_uptimes
+from .queries import StoreQueries
+from .tables import TIMED_RAW_TABLES
 
-__all__ = ["Store", "migration_files", "Run"]
+__all__ = ["Store", "migration_files", "Run", "damage_report", "damaged"]
 
 BUSY_TIMEOUT_S = 30.0
 _COMPACT = (",", ":")  # JSON of stored results without the padding spaces
@@ -83,6 +85,60 @@ def _migrations() -> sqlite_utils.Migrations:
     return migrations
 
 
+# Migrations that change nothing a reading command reads (write-side guards): a database still without them can
+# be read as it is.
+_READERS_NEED_NOT = {"0004_raw_rows_refuse_replace"}
+
+
+def _existing_file(path: str | Path) -> Path:
+    """``path`` as an existing regular file, or the ``InputError`` that says what it is instead."""
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"no database at {p}: sync a board first, or give the right --db path")
+    if p.is_dir():
+        raise InputError(f"{p} is a folder, not a database file: give a file path with --db")
+    if not p.is_file():
+        raise InputError(f"{p} is not a regular file: give the path of a database file with --db")
+    return p
+
+
+def damaged(path: str | Path, exc: BaseException) -> StoreError:
+    """The error for a database SQLite finds damaged: what can still be read, and how to recover the rest."""
+    return StoreError(f"{path} is a damaged database ({exc}); nothing was written. {damage_report(path)}. Recover "
+                      f"what is readable into a new file with `sqlite3 {path} .recover | sqlite3 recovered.db` and "
+                      "use that file")
+
+
+def _not_ours(path: str | Path, exc: BaseException) -> StoreError:
+    if "malformed" in str(exc):
+        return damaged(path, exc)
+    return StoreError(f"{path} is not a nightcell database ({exc}): check the --db path")
+
+
+def damage_report(path: str | Path) -> str:
+    """What of a damaged database can still be read: the tables whose rows all read back, and those that do not."""
+    try:
+        conn = sqlite3.connect(Path(path).resolve().as_uri() + "?mode=ro", uri=True)
+    except sqlite3.DatabaseError:
+        return "nothing can be read"
+    good, bad = [], []
+    try:
+        names = [r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")]
+        for name in names:
+            try:
+                quoted = name.replace('"', '""')
+                n = conn.execute(f'SELECT count(*) FROM "{quoted}"').fetchone()[0]
+                conn.execute(f'SELECT * FROM "{quoted}"').fetchall()
+                good.append(f"{name} ({n})")
+            except sqlite3.DatabaseError:
+                bad.append(name)
+    except sqlite3.DatabaseError:
+        return "its list of tables cannot be read"
+    finally:
+        conn.close()
+    return (f"Still readable: {', '.join(good) or 'none'}; damaged: {', '.join(bad) or 'an index'}")
+
+
 @dataclass
 class Run:
     """A run as the board marked it: start and stop marks (a run may continue across boots after a power cut)."""
@@ -121,7 +177,7 @@ def _int_columns(names: tuple[str, ...], texts: tuple, n: int, run: Run) -> dict
     return dict(zip(names, values.reshape(len(names), n)))
 
 
-class Store:
+class Store(StoreQueries):
     """One nightcell database file."""
 
     def __init__(self, conn: sqlite3.Connection, path: str):
@@ -133,65 +189,160 @@ class Store:
 
     @classmethod
     def open(cls, path: str | Path, *, create: bool = True, readonly: bool = False) -> "Store":
-        """Open (and create or migrate) a database file.
+        """Open a database file: ``open_read`` when ``readonly``, else ``open_write`` (creating it if ``create``)."""
+        if readonly:
+            return cls.open_read(path)
+        return cls.open_write(path, create=create)
+
+    @classmethod
+    def open_read(cls, path: str | Path) -> "Store":
+        """Open an existing nightcell database for reading only: never creates, migrates or changes the file.
+
+        SQLite opens it with ``mode=ro``; where no write-ahead log can be made beside it (a read-only folder or
+        medium) it is opened ``immutable``. Raises ``InputError`` when there is no file, and ``StoreError`` when
+        the file is not a nightcell database (empty, another program's, damaged) or needs migrating first;
+        ``SchemaTooNew`` when a newer nightcell wrote it.
+        """
+        p = _existing_file(path)
+        with open(p, "rb") as fh:
+            head = fh.read(100)
+        if not head:
+            raise StoreError(f"{p} is empty, not a nightcell database: give the path of a database that "
+                             "`nightcell sync` wrote")
+        if not head.startswith(b"SQLite format 3\x00"):
+            raise StoreError(f"{p} is not a nightcell database (not a SQLite file): check the --db path")
+        uri = p.resolve().as_uri()
+        last: Exception | None = None
+        for query in ("?mode=ro", "?mode=ro&immutable=1"):
+            try:
+                conn = sqlite3.connect(uri + query, uri=True, isolation_level=None, timeout=BUSY_TIMEOUT_S)
+            except sqlite3.DatabaseError as exc:
+                last = exc
+                continue
+            store = cls(conn, str(p))
+            store.readonly = True
+            try:
+                conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+                conn.execute("PRAGMA query_only = ON")
+                conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+            except sqlite3.OperationalError as exc:
+                conn.close()
+                if "unable to open" not in str(exc) and "readonly" not in str(exc):
+                    raise StoreError(f"cannot read {p} ({exc}): another program holds it; try again when it is "
+                                     "done") from exc
+                # a WAL database whose folder cannot hold its -shm file: read it as the unchanging file it is
+                last = exc
+                continue
+            except sqlite3.DatabaseError as exc:
+                conn.close()
+                raise _not_ours(p, exc) from exc
+            try:
+                applied = store._check_schema(write=False)
+                if {name for name, _ in migration_files()} - applied - _READERS_NEED_NOT:
+                    store = store._migrated_copy()
+            except BaseException:
+                conn.close()
+                raise
+            return store
+        raise StoreError(f"cannot open {p} for reading ({last}): check the --db path and that you may read it")
+
+    @classmethod
+    def open_write(cls, path: str | Path, *, create: bool = True) -> "Store":
+        """Open (and create or migrate) a database file for a command that writes.
 
         Raises ``StoreError`` when the file is not a nightcell database or cannot be written, and ``SchemaTooNew``
         when a newer nightcell wrote it.
         """
         p = Path(path)
-        if not create and not p.exists():
-            raise InputError(f"no database at {p}: sync a board first, or give the right --db path")
-        if p.exists() and p.is_dir():
+        if not create:
+            p = _existing_file(p)
+        elif p.exists() and p.is_dir():
             raise InputError(f"{p} is a folder, not a database file: give a file path with --db")
+        elif p.exists() and not p.is_file():
+            raise InputError(f"{p} is not a regular file: give the path of a database file with --db")
         try:
-            if readonly:
-                conn = sqlite3.connect(f"file:{p}?mode=ro", uri=True, isolation_level=None, timeout=BUSY_TIMEOUT_S)
-            else:
-                conn = sqlite3.connect(str(p), isolation_level=None, timeout=BUSY_TIMEOUT_S)
+            conn = sqlite3.connect(str(p), isolation_level=None, timeout=BUSY_TIMEOUT_S)
             conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
             conn.execute("PRAGMA foreign_keys = ON")
         except sqlite3.DatabaseError as exc:
             raise StoreError(f"cannot open {p} as a database ({exc}): is it a nightcell database file?") from exc
         store = cls(conn, str(p))
         try:
-            store._migrate(readonly=readonly)
-            if not readonly:
-                # Only once the file is known to be ours: WAL rewrites the header of any SQLite file it is set on,
-                # and another program's database given by mistake must be left exactly as it was.
-                try:
-                    conn.execute("PRAGMA journal_mode = WAL")
-                except sqlite3.DatabaseError as exc:
-                    raise StoreError(f"cannot open {p} for writing ({exc}): another program holds it, or it is "
-                                     "read-only") from exc
+            store._migrate(readonly=False)
+            # Only once the file is known to be ours: WAL rewrites the header of any SQLite file it is set on,
+            # and another program's database given by mistake must be left exactly as it was.
+            try:
+                conn.execute("PRAGMA journal_mode = WAL")
+            except sqlite3.DatabaseError as exc:
+                raise StoreError(f"cannot open {p} for writing ({exc}): another program holds it, or it is "
+                                 "read-only (reading commands such as `nightcell list runs` still work)") from exc
         except BaseException:
             conn.close()
             raise
         return store
 
-    def _migrate(self, *, readonly: bool) -> None:
-        migrations = _migrations()
+    readonly = False
+    copied = False  # read through a migrated copy in memory (an older nightcell wrote the file)
+
+    def _check_schema(self, *, write: bool) -> set[str]:
+        """The migrations applied to this file, after checking it is a nightcell database this version can read."""
         known = {name for name, _ in migration_files()}
         try:
-            applied = {m.name for m in migrations.applied(self.db)}
+            applied = {m.name for m in _migrations().applied(self.db)}
             tables = set(self.db.table_names())
+            version = int(self.conn.execute("PRAGMA user_version").fetchone()[0])
         except sqlite3.DatabaseError as exc:
-            raise StoreError(f"{self.path} is not a nightcell database ({exc}): check the --db path") from exc
+            raise _not_ours(self.path, exc) from exc
         unknown = applied - known
         if unknown:
             raise SchemaTooNew(
                 f"{self.path} was written by a newer nightcell (migrations {', '.join(sorted(unknown))} are unknown "
                 f"to version {__version__}): upgrade nightcell to open it"
             )
+        if version > len(known):
+            raise SchemaTooNew(f"{self.path} was written by a newer nightcell (schema version {version}; version "
+                               f"{__version__} knows up to {len(known)}): upgrade nightcell to open it")
         if tables - {"_sqlite_migrations"} and not applied:
             raise StoreError(f"{self.path} is a SQLite file but not a nightcell database: give another --db path")
+        if not write and not applied:
+            raise StoreError(f"{self.path} is not a nightcell database (it holds no tables): give the path of a "
+                             "database that `nightcell sync` wrote")
+        return applied
+
+    def _migrated_copy(self) -> "Store":
+        """A database an older nightcell wrote, read through a migrated copy in memory: the file stays as it is."""
+        copy = sqlite3.connect(":memory:", isolation_level=None)
+        self.conn.backup(copy)
+        self.conn.close()
+        store = Store(copy, self.path)
+        store.readonly = True
+        store.copied = True
+        with store.write():
+            _migrations().apply(store.db)
+        copy.execute("PRAGMA query_only = ON")
+        return store
+
+    def _migrate(self, *, readonly: bool) -> None:
+        applied = self._check_schema(write=not readonly)
+        known = {name for name, _ in migration_files()}
         if known - applied:
             if readonly:
-                raise StoreError(f"{self.path} needs migrating: open it once without read-only access")
+                return
             try:
                 with self.write():
-                    migrations.apply(self.db)
+                    _migrations().apply(self.db)
+                    self.conn.execute(f"PRAGMA user_version = {len(known)}")
             except sqlite3.OperationalError as exc:
                 raise StoreError(f"cannot migrate {self.path} ({exc}): is the file or its folder read-only?") from exc
+
+    def check_whole(self) -> None:
+        """Every page of the file reads back (SQLite's ``quick_check``), else the ``damaged`` error."""
+        try:
+            problem = self.conn.execute("PRAGMA quick_check").fetchone()[0]
+        except sqlite3.DatabaseError as exc:
+            raise damaged(self.path, exc) from exc
+        if problem != "ok":
+            raise damaged(self.path, problem)
 
     def close(self) -> None:
         self.conn.close()
@@ -216,22 +367,38 @@ class Store:
             # error, said as such, not a traceback
             if self.conn.in_transaction:
                 self.conn.execute("ROLLBACK")
+            if exc.sqlite_errorcode == sqlite3.SQLITE_FULL if hasattr(exc, "sqlite_errorcode") else "full" in str(exc):
+                raise StoreError(f"cannot write {self.path} ({exc}): free some space and run it again — nothing of "
+                                 "this transaction was stored, and nothing unstored was acknowledged") from exc
             raise StoreError(f"cannot write {self.path} ({exc}): is the file or its folder read-only, or the disk "
                              "full?") from exc
+        except sqlite3.DatabaseError as exc:
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            raise StoreError(f"cannot write {self.path} ({exc}): check it with `sqlite3 {self.path} 'PRAGMA "
+                             "integrity_check'`") from exc
         except BaseException:
-            self.conn.execute("ROLLBACK")
+            # SQLite may have rolled back by itself already (a full disk does that): a second ROLLBACK would fail
+            # and hide the error that matters
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
             raise
         else:
             try:
                 self.conn.execute("COMMIT")
-            except sqlite3.OperationalError as exc:
-                self.conn.execute("ROLLBACK")
-                raise StoreError(f"cannot commit to {self.path} ({exc})") from exc
+            except sqlite3.DatabaseError as exc:
+                if self.conn.in_transaction:
+                    self.conn.execute("ROLLBACK")
+                raise StoreError(f"cannot commit to {self.path} ({exc}): is the disk full? Nothing of this "
+                                 "batch was stored") from exc
 
     # -- ingest -------------------------------------------------------------------------------------------------
 
-    def ingest(self, device: str, records: Iterable[Record], *, journal: int | None = None) -> dict[str, int]:
-        """Insert decoded records (inside the caller's transaction). Rows already present are left as they are.
+    def ingest(self, device: str, records: Iterable[Record], *, journal: int | None = None,
+               refuse_conflicts: bool = False) -> dict[str, int]:
+        """Insert decoded records (inside the caller's transaction). Rows already present are left as they are;
+        with ``refuse_conflicts`` (the sync) a record whose key is stored with other content is refused
+        (``RecordConflict``, see ``insert_rows``).
 
         Record uptimes are unwrapped (u32 milliseconds wrap after 49.7 days) from the last row stored for the same
         boot, so ``uptime_ms`` in every raw table only grows within a boot. SAMPLES records decoded with
@@ -278,7 +445,7 @@ class Store:
                                        f["vsys_mv"]))
         if lazy:
             rows["samples"].extend(self._sample_rows(device, lazy, lazy_uptime))
-        return self.insert_rows(rows)
+        return self.insert_rows(rows, refuse_conflicts=refuse_conflicts, journal=journal)
 
     @staticmethod
     def _sample_rows(device: str, lazy: list[Record], uptime: dict[int, int]) -> list[tuple]:
@@ -303,7 +470,7 @@ class Store:
                                cols.dark[:, c].tolist(), cols.light[:, c].tolist(), temp))
         return out
 
-    _RAW_TABLES = ("boots", "samples", "marks", "anchors", "events", "settings_records", "health")
+    _RAW_TABLES = TIMED_RAW_TABLES
 
     def _unwrapped_uptimes(self, device: str, records: list[Record]) -> list[int]:
         """Each record's uptime with the u32 wrap undone, continuing from the last stored row of its boot."""
@@ -328,8 +495,18 @@ class Store:
                 best = (row[0], row[1])
         return None if best is None else best[1]
 
-    def insert_rows(self, rows: dict[str, list[tuple]]) -> dict[str, int]:
-        """``INSERT OR IGNORE`` raw rows table by table; returns the number of new rows per table."""
+    # How many leading columns of each raw table are its key (device, boot[, seq[, channel]]).
+    _KEY_COLUMNS = {"boots": 2, "samples": 4, "mark_counts": 4, "marks": 3, "anchors": 3, "events": 3,
+                    "settings_records": 3, "health": 3}
+
+    def insert_rows(self, rows: dict[str, list[tuple]], *, refuse_conflicts: bool = False,
+                    journal: int | None = None) -> dict[str, int]:
+        """``INSERT OR IGNORE`` raw rows table by table; returns the number of new rows per table.
+
+        With ``refuse_conflicts`` a row whose key is already stored must be the stored row itself (a row arriving
+        twice); one with other content raises ``RecordConflict`` — inside the caller's transaction, which then
+        writes nothing. Only rows that were not new are looked at, so a sync of fresh records pays nothing.
+        """
         counts = {}
         for table, values in rows.items():
             if not values:
@@ -339,7 +516,37 @@ class Store:
             before = self.conn.total_changes
             self.conn.executemany(f"INSERT OR IGNORE INTO {table} VALUES ({marks})", values)
             counts[table] = self.conn.total_changes - before
+            if refuse_conflicts and counts[table] < len(values):
+                self._refuse_conflicts(table, values, journal)
         return counts
+
+    def _refuse_conflicts(self, table: str, values: list[tuple], journal: int | None) -> None:
+        k = self._KEY_COLUMNS[table]
+        names = [r[1] for r in self.conn.execute(f"PRAGMA table_info({table})")]
+        where = " AND ".join(f"{n} = ?" for n in names[:k])
+        for row in values:
+            stored = self.conn.execute(f"SELECT * FROM {table} WHERE {where}", row[:k]).fetchone()
+            if stored is None or self._same_row(names, stored, row):
+                continue
+            key = ", ".join(f"{n} {v}" for n, v in zip(names[1:k], row[1:k]))
+            other = self.conn.execute("SELECT journal FROM boots WHERE device = ? AND boot = ?",
+                                      row[:2]).fetchone()
+            was = f" (stored from journal {other[0]})" if other and other[0] not in (None, journal) else ""
+            raise RecordConflict(
+                f"journal {journal} of {row[0]} would change rows already stored here: its {table} row of {key} "
+                f"differs from the one stored{was}. Its flash was wiped or reflashed (a new journal counts boots "
+                "from 1 again), or another board has the same device id. Nothing was written: sync it into another "
+                "database (--db other.db) and keep both"
+            )
+
+    @staticmethod
+    def _same_row(names: list[str], stored: tuple, row: tuple) -> bool:
+        for name, a, b in zip(names, stored, row):
+            if name == "position" or (name == "journal" and (a is None or b is None)):
+                continue  # provenance: where the row was read from, unknown for rows stored without it
+            if a != b:
+                return False
+        return True
 
     def touch_device(self, device: str, *, board: str | None = None, firmware: str | None = None,
                      label: str | None = None, now: float | None = None) -> None:

@@ -17,9 +17,11 @@ Example::
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import sqlite3
+import tempfile
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -27,21 +29,11 @@ from typing import Any
 
 from ..errors import InputError
 from .database import Store
-from ..science.timeline import rebuild_clocks
+from .tables import RAW_IDENTITY
+from .clocks import rebuild_clocks
 
 __all__ = ["MergeReport", "merge_database", "RAW_IDENTITY"]
 
-RAW_IDENTITY: dict[str, tuple[str, ...]] = {
-    "boots": ("device", "boot"),
-    "samples": ("device", "boot", "seq", "channel"),
-    "marks": ("device", "boot", "seq"),
-    "mark_counts": ("device", "boot", "seq", "channel"),
-    "anchors": ("device", "boot", "seq"),
-    "events": ("device", "boot", "seq"),
-    "settings_records": ("device", "boot", "seq"),
-    "health": ("device", "boot", "seq"),
-}
-"""Raw tables and the columns that identify a row."""
 
 # Where a row was read from is provenance, not content: two hosts may have read it at different journal positions.
 _PROVENANCE = {"boots": {"journal", "position"}}
@@ -94,10 +86,25 @@ def merge_database(store: Store, source: str | Path, *, strict: bool = False) ->
         raise InputError(f"no database at {src}: give the path of the other host's nightcell database")
     if os.path.exists(store.path) and os.path.samefile(src, store.path):
         raise InputError(f"{src} is the database being merged into: give another host's database")
-    Store.open(src, create=False).close()  # a nightcell database of a version we can read, migrated if older
+    with contextlib.ExitStack() as held:
+        return _merge(store, src, strict, held)
+
+
+def _merge(store: Store, src: Path, strict: bool, held: contextlib.ExitStack) -> MergeReport:
+    # a nightcell database of a version we can read, opened for reading only; one an older nightcell wrote is
+    # read from a migrated copy (the file given is never changed)
+    source = held.enter_context(Store.open_read(src))
+    attach = str(src)
+    if source.copied:
+        folder = Path(held.enter_context(tempfile.TemporaryDirectory(prefix="nightcell-merge-")))
+        attach = str(folder / "source.db")
+        target = sqlite3.connect(attach)
+        source.conn.backup(target)
+        target.close()
+    source.close()
     report = MergeReport(str(src))
     conn = store.conn
-    conn.execute("ATTACH DATABASE ? AS other", (str(src),))
+    conn.execute("ATTACH DATABASE ? AS other", (attach,))
     try:
         with store.write():
             for table, key in RAW_IDENTITY.items():
