@@ -18,6 +18,7 @@ class Board:
     has_probe = False
     has_button = False
     has_status_led = False
+    fault = None  # text of a part that failed while configuring (the logger journals it and retries with back-off)
 
     def __init__(self, port):
         self.port = port

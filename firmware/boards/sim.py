@@ -140,6 +140,12 @@ class SimBoard(Board):
         random.seed(int(config.get("seed", 1)))
         self._t = [1.0] * 5  # transmitted fraction per channel at the last before_measure
         self.resets = 0
+        # the watchdog as on an RP2040 (8 s in main.py): the longest board time between two feeds, and how many
+        # gaps were longer than the timeout (each would have reset a real board)
+        self.wdt_ms = int(config.get("watchdog_ms", 8000))
+        self.fed_at = clock.elapsed()
+        self.wdt_gap = 0
+        self.wdt_trips = 0
 
     def configure(self, settings):
         Board.configure(self, settings)
@@ -151,7 +157,24 @@ class SimBoard(Board):
         return self.clock.ticks_ms()
 
     def sleep_ms(self, ms):
-        self.clock.sleep_ms(ms)
+        while ms > 0:  # as the Pico profile: long sleeps in steps of 1 s, feeding the watchdog after each
+            step = ms if ms < 1000 else 1000
+            self.clock.sleep_ms(step)
+            self.feed()
+            ms -= step
+
+    def feed(self):
+        now = self.clock.elapsed()
+        gap = now - self.fed_at
+        if gap > self.wdt_gap:
+            self.wdt_gap = gap
+        if gap > self.wdt_ms:
+            self.wdt_trips += 1
+        self.fed_at = now
+
+    def starved_ms(self):
+        """Board ms since the last feed (a test's last look at the watchdog)."""
+        return self.clock.elapsed() - self.fed_at
 
     def wait_input(self, ms):
         self.clock.wait(self.port, ms)

@@ -22,10 +22,12 @@ from nightcell_fw.link import LineReader, Frames
 from nightcell_fw.signals import Signals, Button, CODE_SETTINGS, CODE_FULL, CODE_ERROR
 from nightcell_fw import settings as S
 from nightcell_fw import commands
+from nightcell_fw.faults import Faults
 
 HEALTH_MIN_MS = const(600000)  # a HEALTH record rides on a block close at most every 10 min ...
 HEALTH_MAX_MS = const(3600000)  # ... and is forced after an hour
 _MAX_WAIT = const(1000)  # longest sleep between loop turns: the watchdog is fed every turn
+SERVE_MS = const(2000)  # longest time one loop turn answers requests before it feeds, samples and signals again
 HOLD_FILE = "/nc_hold"  # present at boot: stay in the REPL with the watchdog off, once (see main.py)
 
 
@@ -55,7 +57,10 @@ class Logger:
         self.missed_full = 0
         self.stop_mark = None
         self.resume_label = None  # a run that was going when the power went: its start mark is written first
-        self.errors = 0
+        self.faults = Faults()
+        self.unsampled = 0  # slots not measured (late loop or a fault) and not yet journaled as an EVENT 6
+        self.unsampled_at = 0  # uptime of the first of them
+        self.measured = False  # this loop turn took a sample without a fault
         self.settings_crc = 0
         self._apply()
 
@@ -181,6 +186,8 @@ class Logger:
                        % (torn, restored), True)
         if j.full:
             self._full()
+        if b.fault:
+            self.on_error(OSError(b.fault))  # e.g. a sensor that did not answer: journaled, retried with back-off
         self.last_health = self.now()
         label = j._get_small("run")
         if label is not None:
@@ -224,18 +231,37 @@ class Logger:
         self.stop_mark = seq
         return seq
 
+    def _missed(self, n, t):
+        if n and not self.unsampled:
+            self.unsampled_at = t
+        self.unsampled += n
+
+    def skip(self, now):
+        """A slot is due inside a fault's back-off: count it as skipped (journaled when sampling works again)."""
+        sch = self.sch
+        t = sch.take(now)
+        self._missed(sch.skipped + 1, t - sch.skipped * sch.interval)
+
     def sample(self, now):
         sch = self.sch
         t = sch.take(now)
-        if sch.skipped:
-            self.event(R.EVENT_LATE, "%d samples skipped: the loop was %d ms late" % (sch.skipped, now - t + sch.skipped * sch.interval))
-            self.sampler.restart()
+        self._missed(sch.skipped, t - sch.skipped * sch.interval)
         b = self.board
-        b.before_measure(now)
-        late = now - t
-        flags = self.sampler.measure()
-        temp = b.temperature()
+        try:
+            b.before_measure(now)
+            flags = self.sampler.measure()
+            temp = b.temperature()
+        except Exception:  # noqa: BLE001 — counted here, journaled by on_error
+            self._missed(1, t)
+            raise
+        self.measured = True
         b.leds_on(True)
+        late = now - t
+        if self.unsampled:
+            n = self.unsampled
+            self.unsampled = 0
+            self.event(R.EVENT_LATE, "%d samples skipped: the loop was %d ms late" % (n, now - self.unsampled_at))
+            self.sampler.restart()
         if self.journal.full:
             self.missed_full += 1
             return
@@ -261,20 +287,34 @@ class Logger:
 
     # -- the loop ---------------------------------------------------------------------------------------------------
 
+    def serve(self):
+        """Answer what arrived, feeding the watchdog per request (a reply to a port nobody reads can block ~0.5 s),
+        until nothing waits, a sample is due, or ``SERVE_MS`` has passed."""
+        b = self.board
+        start = self.now()
+        while True:
+            line = self.lines.poll()
+            if line is None:
+                return
+            b.feed()
+            commands.handle(self, line)
+            b.feed()
+            now = self.now()
+            if self.running and self.sch.until(now) <= 0 or now - start >= SERVE_MS:
+                return
+
     def step(self):
         """One turn: feed the watchdog, sample if due, answer what arrived, then wait for input or the deadline."""
         b = self.board
         b.feed()
+        self.measured = False
         now = self.now()
         if self.running and self.sch.until(now) <= 0:
-            self.sample(now)
-        while True:
-            line = self.lines.poll()
-            if line is None:
-                break
-            commands.handle(self, line)
-            if self.running and self.sch.until(self.now()) <= 0:
-                break
+            if self.faults.waiting(now):
+                self.skip(now)
+            else:
+                self.sample(now)
+        self.serve()
         now = self.now()
         self.button.poll(self, now)
         self.signals.show(now)
@@ -291,25 +331,38 @@ class Logger:
 
     def run(self, turns=-1):
         """Loop forever (or ``turns`` times in tests); every exception is journaled, never printed."""
+        f = self.faults
         while turns != 0:
             turns -= 1
             try:
                 self.step()
-                self.errors = 0
+                if f.backoff and not f.waiting(self.now()) and (self.measured or not self.running):
+                    n = f.clear()  # a sample (or, idle, a turn) past the back-off without failing: the fault is gone
+                    if n:
+                        self.event(R.EVENT_EXCEPTION, "cleared after %d more failures since the last record" % n)
             except KeyboardInterrupt:
                 raise
             except Exception as e:  # noqa: BLE001 — the link must never see a traceback
                 self.on_error(e)
 
     def on_error(self, e):
-        self.errors += 1
+        """Show the fault (blink code 4), start or lengthen its back-off, and journal it once per back-off interval
+        with the count of repeats it stands for; never raises."""
         self.signals.set(CODE_ERROR)
         try:
-            self.event(R.EVENT_EXCEPTION, "%s: %s" % (type(e).__name__, e))
+            self.board.leds_off()
         except Exception:  # noqa: BLE001
             pass
-        if self.errors > 10:
-            self.board.sleep_ms(1000)  # a fault that repeats every turn: slow down, keep feeding the watchdog
+        f = self.faults
+        now = self.now()
+        if not f.failed(now):
+            return
+        n = f.journaled()
+        try:
+            self.event(R.EVENT_EXCEPTION, "%s: %s (%d more since the last record; retry in %d s)"
+                       % (type(e).__name__, e, n, f.backoff // 1000))
+        except Exception:  # noqa: BLE001 — a journal that cannot be written: still retried, still shown
+            pass
 
     def reset(self, hold=False):
         """Journal the reset (so it is not mistaken for a crash), then reset. With ``hold`` the next boot stays in the
