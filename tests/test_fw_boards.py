@@ -315,3 +315,48 @@ def test_probe_temperature_second_led_and_reference_channel_are_journaled():
         assert smp.light[0] == 16 * 3000 and smp.light[1] == 16 * 200 and smp.light[2] == 16 * 3000
         assert smp.dark == [16 * 200] * 3
     assert json.loads(res["adcs"]) == [26, 26, 27, 4]
+
+
+def test_a_board_without_settings_runs_the_profile_of_its_chip():
+    # sys.implementation._machine names the chip on the rp2 port, e.g. "Raspberry Pi Pico2 with RP2350" [memory]
+    out = run_mp(r"""
+from boards.choose import board_name
+for raw, platform, machine in (({}, "rp2", "Raspberry Pi Pico2 with RP2350"), ({}, "rp2", "Raspberry Pi Pico with RP2040"),
+                               (None, "esp32", "Generic ESP32 module with ESP32"), ({"board": "sim"}, "rp2", "RP2350"),
+                               ({"board": "uno"}, "rp2", "Raspberry Pi Pico W with RP2040")):
+    print("name=" + board_name(raw, platform, machine))
+""")
+    names = [line[5:] for line in out.splitlines() if line.startswith("name=")]
+    assert names == ["pico2", "pico", "esp32", "sim", "pico"]
+
+
+BUTTON = FAKES + r"""
+from boards.pico import PicoBoard
+from nightcell_fw import settings as S
+from nightcell_fw.logger import Logger
+s = S.validate({"interval_ms": 1000, "warmup_ms": 0})
+b = PicoBoard(Machine(), Port(), Clock, OS())
+b.configure(s)
+lg = Logger(b, s, None, "/flash")
+lg.boot()
+def press(ms, then=600):
+    Pin.level[16] = 0
+    t = Clock.t
+    while Clock.t - t < ms:
+        lg.run(1)
+    Pin.level[16] = 1
+    t = Clock.t
+    while Clock.t - t < then:
+        lg.run(1)
+press(2000)
+print("started=%d" % lg.running)
+press(2000, 8000)                 # one long press during a run (a leaning box): the run goes on
+print("after_one=%d" % lg.running)
+press(2000, 1000); press(2000)    # two long presses within 5 s: the distinct gesture that stops it
+print("after_two=%d" % lg.running)
+"""
+
+
+def test_one_long_press_never_stops_a_run_two_within_five_seconds_do():
+    res = results(run_mp(BUTTON))
+    assert res == {**res, "started": "1", "after_one": "1", "after_two": "0"}
