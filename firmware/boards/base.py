@@ -79,5 +79,12 @@ class Board:
     def before_measure(self, now_ms):
         pass
 
+    def conversion_ms(self):
+        """Board ms one read takes beyond the settle waits (0 for an ADC; a sensor's integration time)."""
+        return 0
+
+    def sleep_us(self, us):
+        self.sleep_ms((us + 999) // 1000)
+
     def feed(self):
         pass

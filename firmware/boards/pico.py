@@ -115,6 +115,9 @@ class PicoBoard(Board):
             self.feed()
             ms -= step
 
+    def sleep_us(self, us):
+        self.time.sleep_us(us)  # the rest between read pairs of one measurement: always well under a millisecond or so
+
     def wait_input(self, ms):
         self.port.wait(ms)
 

@@ -27,6 +27,7 @@ from nightcell_fw.faults import Faults
 HEALTH_MIN_MS = const(600000)  # a HEALTH record rides on a block close at most every 10 min ...
 HEALTH_MAX_MS = const(3600000)  # ... and is forced after an hour
 _MAX_WAIT = const(1000)  # longest sleep between loop turns: the watchdog is fed every turn
+MARGIN_MS = const(50)  # an interval must leave this much beyond one measurement for the loop itself
 SERVE_MS = const(2000)  # longest time one loop turn answers requests before it feeds, samples and signals again
 HOLD_FILE = "/nc_hold"  # present at boot: stay in the REPL with the watchdog off, once (see main.py)
 
@@ -63,6 +64,13 @@ class Logger:
         self.measured = False  # this loop turn took a sample without a fault
         self.settings_crc = 0
         self._apply()
+        try:
+            self._fits(settings)
+        except ValueError as e:  # a file written for a faster board: journaled (EVENT 2), and the interval made to fit
+            need = self.measure_ms() + MARGIN_MS
+            self.problem = "%s%s; interval_ms %d used" % (problem + "; " if problem else "", e, need)
+            self.settings = dict(settings, interval_ms=need)
+            self._apply()
 
     # -- settings ---------------------------------------------------------------------------------------------------
 
@@ -70,13 +78,14 @@ class Logger:
         s = self.settings
         self.text = S.canonical(s)
         self.settings_crc = R.crc32(self.text.encode("utf-8"))
-        self.sampler.configure(s["reads"], s["settle_ms"], self.board.channels, s["dark_limit"])
+        self.sampler.configure(s["reads"], s["settle_ms"], self.board.channels, s["dark_limit"], s["window_ms"])
         self.journal.segment_bytes = s["segment_bytes"]
 
     def change(self, key, value):
         """Validate and save one setting; sampling keys apply from the next sample, hardware keys after a reset."""
         S.check(key, value)
         new = S.validate(dict(self.settings, **{key: value}))
+        self._fits(new)
         self.close_block()
         S.save(self.root + "/settings.json", new)
         self.settings = new
@@ -89,6 +98,25 @@ class Logger:
         self.problem = None
         self.signals.clear(CODE_SETTINGS)
         return later
+
+    def measure_ms(self, s=None):
+        """Board ms one measurement takes with settings ``s`` (default: those in force) on this board."""
+        sm = self.sampler
+        if s is None:
+            return sm.duration_ms()
+        keep = (sm.reads, sm.settle_ms, sm.channels, sm.dark_limit, sm.window_ms)
+        sm.configure(s["reads"], s["settle_ms"], self.board.channels, s["dark_limit"], s["window_ms"])
+        ms = sm.duration_ms()
+        sm.configure(*keep)
+        return ms
+
+    def _fits(self, s):
+        ms = self.measure_ms(s)
+        if s["interval_ms"] < ms + MARGIN_MS:
+            raise ValueError("interval_ms %d is shorter than one measurement on this board (%d ms with reads=%d, "
+                             "settle_ms=%d, window_ms=%d) plus %d ms: choose at least %d, or fewer reads"
+                             % (s["interval_ms"], ms, s["reads"], s["settle_ms"], s["window_ms"], MARGIN_MS,
+                                ms + MARGIN_MS))
 
     # -- records ----------------------------------------------------------------------------------------------------
 
@@ -154,8 +182,6 @@ class Logger:
         if measure:
             self.board.before_measure(self.now())
             s.average(self.settings["marker_samples"], lit)
-            if self.running:
-                self.board.leds_on(True)
         self.close_block()
         seq = self.seq
         self.write(R.mark(self.enc, self.boot_id, seq, self.now(), kind, source, reads,
@@ -211,7 +237,7 @@ class Logger:
         self.running = True
         self.signals.running = True
         self.sampler.restart()
-        self.board.leds_on(True)  # warm-up: the LED settles before the first sample
+        self.board.leds_off()  # the LED is lit only in a measurement's pulses (sampler.py): the same for marks
         self.sch.start(self.now() + self.settings["warmup_ms"], self.settings["interval_ms"])
 
     def stop_run(self, source):
@@ -255,7 +281,6 @@ class Logger:
             self._missed(1, t)
             raise
         self.measured = True
-        b.leds_on(True)
         late = now - t
         if self.unsampled:
             n = self.unsampled
