@@ -62,6 +62,8 @@ class Logger:
         self.unsampled = 0  # slots not measured (late loop or a fault) and not yet journaled as an EVENT 6
         self.unsampled_at = 0  # uptime of the first of them
         self.measured = False  # this loop turn took a sample without a fault
+        self.rate_head = -1  # journal bytes (head + open block) at the first sample of this run, for bytes/sample
+        self.rate_samples = 0
         self.settings_crc = 0
         self._apply()
         try:
@@ -233,7 +235,23 @@ class Logger:
         self._begin()
         return seq
 
+    def growth(self):
+        """(journal bytes per sample measured in this run, or None before 20 samples; seconds until the journal is
+        full at that rate and the interval in force, or None). Everything the run writes counts: blocks, events,
+        health records."""
+        n = self.samples - self.rate_samples
+        if self.rate_head < 0 or n < 20:
+            return None, None
+        bps = (self.journal.head + self.block.size - self.rate_head) / n
+        if bps <= 0:
+            return None, None
+        full_in = None
+        if self.running:
+            full_in = int(self.journal.free_bytes() / bps * self.settings["interval_ms"] / 1000)
+        return round(bps, 3), full_in
+
     def _begin(self):
+        self.rate_head = -1
         self.running = True
         self.signals.running = True
         self.sampler.restart()
@@ -296,6 +314,9 @@ class Logger:
             self.resume_label = None
         blk = self.block
         s = self.settings
+        if self.rate_head < 0:
+            self.rate_head = self.journal.head + blk.size
+            self.rate_samples = self.samples
         if not blk.is_open():
             blk.open(self.boot_id, self.seq, t, sch.interval, s["reads"], b.channels, b.has_probe)
         blk.add(late, flags, self.sampler.dark, self.sampler.light, temp)
