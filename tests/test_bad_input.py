@@ -32,13 +32,13 @@ from typing import Any, Callable
 import pytest
 from click.testing import CliRunner
 
-from nightcell import frames as F
-from nightcell import link as link_module
-from nightcell import store as store_module
+from nightcell.wire import frames as F
+from nightcell.wire import link as link_module
+from nightcell.store import database as store_module
 from nightcell.cli import cli
 from nightcell.errors import StoreError
-from nightcell.store import Store
-from nightcell.timeline import rebuild_clocks
+from nightcell.store.database import Store
+from nightcell.science.timeline import rebuild_clocks
 
 ROOT = Path(__file__).resolve().parent.parent
 DEVICE = "5eba000000000007"

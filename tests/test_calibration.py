@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from nightcell import optics
-from nightcell.calibration import CalibrationResult, fit_calibration
+from nightcell.science import optics
+from nightcell.science.calibration import CalibrationResult, fit_calibration
 from nightcell.errors import (
     DegenerateData,
     InputError,
@@ -19,7 +19,7 @@ from nightcell.errors import (
     ShapeMismatch,
     TooFewPoints,
 )
-from nightcell.fitting import FitResult
+from nightcell.science.fitting import FitResult
 
 # Inverse prediction worked example (Miller & Miller, ch. 5 [memory for the attribution; the numbers were
 # reproduced]) — as given in shared/REFERENCES.md.

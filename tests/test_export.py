@@ -13,10 +13,10 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from nightcell import export as export_module
+from nightcell.tasks import export as export_module
 from nightcell.cli import cli
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard
 
 HOSTILE = "<script>alert(1)</script>'; DROP TABLE samples;--"
 RAW_TABLES = ("boots", "samples", "marks", "mark_counts", "anchors", "events", "settings_records", "health")

@@ -1,5 +1,5 @@
 """The simulated board behind a pseudo-terminal speaks the link protocol (schema/protocol.md), in MicroPython and
-in CPython. Replies are decoded with the host's reference codec (host/nightcell/frames.py), which is independent
+in CPython. Replies are decoded with the host's reference codec (host/nightcell/wire/frames.py), which is independent
 of the firmware's encoders. The optics check uses the simulation formula of schema/simulation.md with the
 Beer–Lambert transmittance T = 10^−A (common practice, no source needed).
 """
@@ -21,7 +21,7 @@ from pathlib import Path
 import pytest
 
 from fwharness import FIRMWARE, micropython
-from nightcell import frames as F
+from nightcell.wire import frames as F
 
 
 class SimProcess:

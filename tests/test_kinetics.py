@@ -10,7 +10,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.optimize import curve_fit
 
-from nightcell import kinetics, optics
+from nightcell.science import kinetics, optics
 from nightcell.errors import FitFailed, InputError, NonFiniteInput, TimeOrderError, TooFewPoints
 
 T = np.arange(0.0, 900.0, 10.0)

@@ -30,8 +30,8 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from nightcell import frames as F
-from nightcell.analysis_cli import read_columns
+from nightcell.wire import frames as F
+from nightcell.cli.analysis import read_columns
 from nightcell.errors import InputError, ProtocolError
 
 ROOT = Path(__file__).resolve().parent.parent

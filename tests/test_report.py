@@ -17,8 +17,9 @@ import pytest  # noqa: E402
 from numpy.testing import assert_allclose  # noqa: E402
 from scipy import stats  # noqa: E402
 
-from nightcell import report, study  # noqa: E402
-from nightcell.analyse import (  # noqa: E402
+from nightcell.render import report  # noqa: E402
+from nightcell.science import study  # noqa: E402
+from nightcell.tasks.analyse import (  # noqa: E402
     analyse_run,
     analyse_study,
     calibrate_from_store,

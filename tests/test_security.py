@@ -20,15 +20,16 @@ from click.testing import CliRunner
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from nightcell import export as export_module
-from nightcell import report as report_module
+from nightcell.tasks import export as export_module
+from nightcell.render import report as report_module
 from nightcell.cli import cli
-from nightcell.merge import merge_database
-from nightcell.store import Store
+from nightcell.store.merge import merge_database
+from nightcell.store.database import Store
 from test_bad_input import make_db
 
 ROOT = Path(__file__).resolve().parent.parent
-SOURCES = sorted((ROOT / "host" / "nightcell").glob("*.py")) + sorted((ROOT / "firmware").rglob("*.py"))
+HOST = ROOT / "host" / "nightcell"
+SOURCES = sorted(HOST.rglob("*.py")) + sorted((ROOT / "firmware").rglob("*.py"))
 HOSTILE_LABELS = [
     "<script>alert(1)</script>",
     "'; DROP TABLE samples;--",
@@ -74,30 +75,30 @@ def test_no_eval_exec_pickle_or_shell_anywhere(path):
 # column names from our own schema (constants in the module, or PRAGMA table_info of our own main database), or
 # "?" placeholders. A new place must be reviewed and added here.
 REVIEWED_DYNAMIC_SQL = {
-    ("analyse.py", "run_conditions"): "fixed WHERE clauses with ? placeholders",
-    ("cli.py", "_results"): "a fixed WHERE clause with a ? placeholder",
-    ("merge.py", "_insert_missing"): "table names from RAW_IDENTITY, columns from PRAGMA of main",
-    ("merge.py", "_device_conflicts"): "column names from _DEVICE_METADATA",
-    ("merge.py", "_merge_sync_sessions"): "columns from PRAGMA of main",
-    ("merge.py", "_conflicts"): "table and key names from RAW_IDENTITY, columns from PRAGMA of main",
-    ("merge.py", "_columns"): "table names from RAW_IDENTITY",
-    ("simulate.py", "raw_rows"): "table names from RAW_TABLES (test support)",
-    ("store.py", "query"): "the caller's SQL text; callers pass data as params",
-    ("store.py", "marks"): "fixed WHERE clauses with ? placeholders",
-    ("store.py", "run_samples"): "fixed clauses with ? placeholders",
-    ("store.py", "open"): "an integer from a module constant",
-    ("store.py", "insert_rows"): "table names from ingest's own dict, ? placeholders",
-    ("store.py", "_migrations"): "statements from schema/migrations",
-    ("store.py", "apply"): "statements from schema/migrations",
-    ("store.py", "_last_uptime"): "table names from _RAW_TABLES",
-    ("store.py", "count"): "a table name checked against the database's own table list",
-    ("timeline.py", "rebuild_clocks"): "a fixed WHERE clause with ? placeholders",
+    ("tasks/analyse.py", "run_conditions"): "fixed WHERE clauses with ? placeholders",
+    ("cli/__init__.py", "_results"): "a fixed WHERE clause with a ? placeholder",
+    ("store/merge.py", "_insert_missing"): "table names from RAW_IDENTITY, columns from PRAGMA of main",
+    ("store/merge.py", "_device_conflicts"): "column names from _DEVICE_METADATA",
+    ("store/merge.py", "_merge_sync_sessions"): "columns from PRAGMA of main",
+    ("store/merge.py", "_conflicts"): "table and key names from RAW_IDENTITY, columns from PRAGMA of main",
+    ("store/merge.py", "_columns"): "table names from RAW_IDENTITY",
+    ("sim/board.py", "raw_rows"): "table names from RAW_TABLES (test support)",
+    ("store/database.py", "query"): "the caller's SQL text; callers pass data as params",
+    ("store/database.py", "marks"): "fixed WHERE clauses with ? placeholders",
+    ("store/database.py", "run_samples"): "fixed clauses with ? placeholders",
+    ("store/database.py", "open"): "an integer from a module constant",
+    ("store/database.py", "insert_rows"): "table names from ingest's own dict, ? placeholders",
+    ("store/database.py", "_migrations"): "statements from schema/migrations",
+    ("store/database.py", "apply"): "statements from schema/migrations",
+    ("store/database.py", "_last_uptime"): "table names from _RAW_TABLES",
+    ("store/database.py", "count"): "a table name checked against the database's own table list",
+    ("science/timeline.py", "rebuild_clocks"): "a fixed WHERE clause with ? placeholders",
 }
 
 
 def _dynamic_sql_sites() -> set[tuple[str, str]]:
     sites = set()
-    for path in sorted((ROOT / "host" / "nightcell").glob("*.py")):
+    for path in sorted(HOST.rglob("*.py")):
         tree = ast.parse(path.read_text(encoding="utf-8"))
         for fn in ast.walk(tree):
             if not isinstance(fn, (ast.FunctionDef, ast.AsyncFunctionDef)):
@@ -106,7 +107,7 @@ def _dynamic_sql_sites() -> set[tuple[str, str]]:
                 if (isinstance(node, ast.Call) and isinstance(node.func, ast.Attribute) and node.args
                         and node.func.attr in ("execute", "executemany", "executescript", "query")
                         and not (isinstance(node.args[0], ast.Constant) and isinstance(node.args[0].value, str))):
-                    sites.add((path.name, fn.name))
+                    sites.add((path.relative_to(HOST).as_posix(), fn.name))
     return sites
 
 

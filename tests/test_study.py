@@ -10,7 +10,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy import stats
 
-from nightcell import study
+from nightcell.science import study
 from nightcell.errors import DegenerateData, InputError, NonFiniteInput, ShapeMismatch, TooFewPoints
 
 # Arrhenius worked example, N2O5 decomposition (Daniels & Johnston 1921, as reprinted in physical-chemistry

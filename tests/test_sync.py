@@ -16,11 +16,11 @@ import time
 import pytest
 
 from nightcell.errors import DeviceTimeout, NightcellError
-from nightcell.link import Board
-from nightcell.simulate import (Fault, SimulatedBoard, random_faults, raw_rows, reference_journal,
+from nightcell.wire.link import Board
+from nightcell.sim.board import (Fault, SimulatedBoard, random_faults, raw_rows, reference_journal,
                                 run_fault_schedule)
-from nightcell.store import Store
-from nightcell.sync import sync_board, sync_ports
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_board, sync_ports
 
 SETTINGS = {"interval_ms": 1000, "durability_ms": 2000, "segment_bytes": 4096,
             "channels": [{"name": "red", "led": 15, "adc": 26}, {"name": "green", "led": 14, "adc": 27}]}
@@ -152,9 +152,9 @@ def test_fault_campaign_slice(journal, board_sim, tmp_path):
 
 _KILLED_SYNC = """
 import sys
-from nightcell.link import Board
-from nightcell.store import Store
-from nightcell.sync import sync_board
+from nightcell.wire.link import Board
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_board
 with Board.open(sys.argv[1]) as board, Store.open(sys.argv[2]) as store:
     print("ready", flush=True)
     sync_board(board, store, batch_bytes=2048)

@@ -18,8 +18,8 @@ from pathlib import Path
 
 import sqlite_utils
 
-from nightcell import frames as F
-from nightcell.store import Store, migration_files
+from nightcell.wire import frames as F
+from nightcell.store.database import Store, migration_files
 
 
 def _journal(samples: int, channels: int = 1, seed: int = 1) -> bytes:

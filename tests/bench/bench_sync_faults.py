@@ -18,7 +18,7 @@ import time
 from collections import Counter
 from pathlib import Path
 
-from nightcell.simulate import SimulatedBoard, random_faults, raw_rows, reference_journal, run_fault_schedule
+from nightcell.sim.board import SimulatedBoard, random_faults, raw_rows, reference_journal, run_fault_schedule
 
 SETTINGS = {"interval_ms": 1000, "durability_ms": 2000, "segment_bytes": 4096,
             "channels": [{"name": "red", "led": 15, "adc": 26}, {"name": "green", "led": 14, "adc": 27}]}

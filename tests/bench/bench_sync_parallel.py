@@ -17,10 +17,10 @@ import threading
 import time
 from pathlib import Path
 
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard, fill_journal
-from nightcell.store import Store
-from nightcell.sync import sync_ports
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard, fill_journal
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_ports
 
 BAUD = 115_200
 SETTINGS = {"interval_ms": 1000, "durability_ms": 2000,
