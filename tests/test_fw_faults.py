@@ -8,7 +8,7 @@
   then blocks about 0.5 s, as a USB CDC write to an unread port does [memory, MicroPython rp2 port]) never leaves
   the watchdog unfed for its 8 s, idle or running, and the run's samples go on.
 
-Journals are decoded by the host's reference codec (host/nightcell/frames.py).
+Journals are decoded by the host's reference codec (host/nightcell/wire/frames.py).
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ from __future__ import annotations
 import re
 
 from fwharness import results, run_mp
-from nightcell import frames as F
+from nightcell.wire import frames as F
 from test_fw_boards import FAKES
 
 DEAD_SENSOR = FAKES + r"""

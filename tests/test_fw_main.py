@@ -181,7 +181,7 @@ def test_the_safe_mode_pin_held_low_starts_no_logger_and_no_watchdog(tmp_path):
 
 
 def _frames(proc: subprocess.Popen, want: int, timeout: float) -> list:
-    from nightcell import frames as F
+    from nightcell.wire import frames as F
 
     reader = F.ReplyReader()
     got: list = []
@@ -198,7 +198,7 @@ def _frames(proc: subprocess.Popen, want: int, timeout: float) -> list:
 
 
 def _journal(root: Path) -> list:
-    from nightcell import frames as F
+    from nightcell.wire import frames as F
 
     recs = []
     for seg in sorted((root / "nc").glob("s*")):
@@ -214,7 +214,7 @@ def _start_main(tmp_path: Path, root: Path) -> subprocess.Popen:
 
 
 def test_main_with_a_dead_sensor_keeps_answering_and_journals_the_error(tmp_path):
-    from nightcell import frames as F
+    from nightcell.wire import frames as F
 
     root = _real_board(tmp_path)
     (root / "settings.json").write_text('{"board": "esp32", "interval_ms": 1000, "warmup_ms": 0}')
@@ -241,7 +241,7 @@ def test_main_with_a_dead_sensor_keeps_answering_and_journals_the_error(tmp_path
 
 
 def test_a_logger_that_cannot_start_answers_err_retries_with_backoff_then_logs(tmp_path):
-    from nightcell import frames as F
+    from nightcell.wire import frames as F
 
     root = _real_board(tmp_path)
     (root / "nc").write_text("not a folder")  # the journal cannot be opened: the one error it cannot journal
