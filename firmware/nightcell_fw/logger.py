@@ -27,7 +27,8 @@ from nightcell_fw.faults import Faults
 HEALTH_MIN_MS = const(600000)  # a HEALTH record rides on a block close at most every 10 min ...
 HEALTH_MAX_MS = const(3600000)  # ... and is forced after an hour
 _MAX_WAIT = const(1000)  # longest sleep between loop turns: the watchdog is fed every turn
-MARGIN_MS = const(50)  # an interval must leave this much beyond one measurement for the loop itself
+# an interval must leave this much beyond one measurement for the loop itself (schema/settings.json)
+from nightcell_fw.ranges import INTERVAL_MARGIN_MS as MARGIN_MS
 SERVE_MS = const(2000)  # longest time one loop turn answers requests before it feeds, samples and signals again
 HOLD_FILE = "/nc_hold"  # present at boot: stay in the REPL with the watchdog off, once (see main.py)
 
