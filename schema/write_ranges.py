@@ -56,6 +56,7 @@ def render(table: dict) -> str:
         f"PIN_NAME_MAX_BYTES = {s['status_led']['name_max_bytes']}",
         f"PINS = ({table['pins']['min']}, {table['pins']['max']})",
         f"INTERVAL_MARGIN_MS = {table['interval_margin_ms']}",
+        f"DITHER_PINS_MAX = {s['dither_pins']['max_items']}",
         f"HARDWARE_KEYS = {tuple(table['hardware_keys'])!r}",
         _block("UNITS", {k: d["unit"] for k, d in s.items() if d["unit"]}),
         "",

@@ -18,6 +18,7 @@ class Board:
     has_probe = False
     has_button = False
     has_status_led = False
+    dither_levels = 1  # offsets the ADC dither resistors give (2 ** pins); 1 when none are fitted
     fault = None  # text of a part that failed while configuring (the logger journals it and retries with back-off)
 
     def __init__(self, port):
@@ -77,6 +78,10 @@ class Board:
         pass
 
     def before_measure(self, now_ms):
+        pass
+
+    def dither(self, level):
+        """Set the ADC dither offset to ``level`` (0 … dither_levels − 1); nothing to do without dither pins."""
         pass
 
     def conversion_ms(self):

@@ -164,6 +164,12 @@ class SimBoard(Board):
         self.hum = float(o.get("hum_counts", 0))
         self.mains_hz = float(o.get("mains_hz", 50))
         self.hum_phase = float(o.get("hum_phase", 0.0))
+        self.dnl = bool(o.get("dnl", False))
+        self.dnl_lsb = float(o.get("dnl_lsb", 8))
+        self._wide = 1.0 + self.dnl_lsb  # width of each non-linear code, in ideal LSB
+        self._narrow = (4096.0 - 4 * self._wide) / 4092  # every other code, so that the 4096 codes fill the range
+        self.dither_counts = float(o.get("dither_counts", 6))
+        self._level = 0
         self._dt = [0.0] * 5  # junction temperature rise per LED, K
         self._dt_at = [0] * 5  # board µs of the last update
         self.led_on_us = 0  # board µs any LED was lit, for the power budget (duty cycle)
@@ -181,6 +187,27 @@ class SimBoard(Board):
     def configure(self, settings):
         Board.configure(self, settings)
         self._t = [1.0] * (self.channels + 1)
+        self.dither_levels = 1 << len(settings.get("dither_pins") or [])
+
+    def dither(self, level):
+        self._level = level
+
+    def _code(self, x):
+        """The RP2040-like transfer: codes 512, 1536, 2560, 3584 are ``1 + dnl_lsb`` ideal LSB wide (RP2040
+        datasheet erratum on ADC DNL [memory: about 8 LSB]), the others a little narrower, so the INL is a sawtooth
+        that steps down by ``dnl_lsb`` at each of those codes."""
+        w = self._narrow
+        extra = self._wide - w
+        m = 0
+        for c in (512, 1536, 2560, 3584):
+            start = c * w + m * extra
+            if x < start:
+                break
+            if x < start + self._wide:
+                return c
+            m += 1
+        n = int((x - m * extra) / w) if x > 0 else 0
+        return 4095 if n > 4095 else n
 
     # -- time and link ----------------------------------------------------------------------------------------------
 
@@ -268,8 +295,12 @@ class SimBoard(Board):
         if self.hum:
             v += self.hum * math.sin(6.283185307179586 * (self.mains_hz * self.clock.elapsed_us() / 1e6
                                                           + self.hum_phase))
+        if self._level:
+            v += self.dither_counts * self._level
         if self.noise:
             v += self.noise * self._gauss()
+        if self.dnl:
+            return self._code(v + 0.5)
         v = int(v + 0.5) if v > 0 else 0
         return 4095 if v > 4095 else v
 

@@ -22,6 +22,7 @@ DEFAULTS = {
     'temp_pin': None,
     'button_pin': 16,
     'status_led': 'LED',
+    'dither_pins': [],
     'i2c': {'sda': 21, 'scl': 22, 'sensor': 'tsl2591', 'address': 41},
 }
 WHOLE = {
@@ -46,7 +47,8 @@ NAME_MAX_BYTES = 16
 PIN_NAME_MAX_BYTES = 16
 PINS = (0, 255)
 INTERVAL_MARGIN_MS = 50
-HARDWARE_KEYS = ('board', 'channels', 'reference_adc', 'temp_pin', 'button_pin', 'status_led', 'i2c')
+DITHER_PINS_MAX = 3
+HARDWARE_KEYS = ('board', 'channels', 'reference_adc', 'temp_pin', 'button_pin', 'status_led', 'i2c', 'dither_pins')
 UNITS = {
     'interval_ms': 'ms',
     'settle_ms': 'ms',

@@ -8,7 +8,10 @@ summed into each dark and light value are taken in ``pairs`` (LED off → settle
 light reads → off) spaced evenly over ``window_ms``: 20 ms spans one period of 50 Hz mains, 100 ms five of 50 Hz and
 six of 60 Hz. A pair needs (1 + LEDs) × ``settle_ms``; the window holds the most pairs that fit and divide
 ``reads`` (equal weights); with a window of 0 the reads come in one burst (the earlier firmware's only pattern). The board does the hardware (``led``, ``read``, ``full_scale``, ``sleep_ms``,
-``sleep_us``); values are kept in lists allocated once.
+``sleep_us``); values are kept in lists allocated once. Where dither resistors are fitted (``dither_pins``), the
+reads of each burst step through the dither offsets, the same steps in the dark and the light burst, so the offsets
+cancel in light − dark while the RP2040's non-linear codes (near 512, 1536, 2560, 3584) are crossed by only a
+fraction of the reads of a value instead of all of them at once.
 
 Usage::
 
@@ -78,11 +81,16 @@ class Sampler:
         self._have_prev = False
 
     def _sum(self, ch, k):
+        # with dither resistors fitted, read j of every burst is taken at offset j mod levels: the same offsets in
+        # the dark and the light burst, so they cancel in light − dark while the codes each read lands on are spread
         b = self.board
         fs = b.full_scale(ch)
+        levels = b.dither_levels
         s = 0
         sat = 0
-        for _ in range(k):
+        for j in range(k):
+            if levels > 1:
+                b.dither(j % levels)
             v = b.read(ch)
             if v >= fs:
                 sat = SATURATED
@@ -125,6 +133,8 @@ class Sampler:
                     b.led(led, False)
             if self.rest_us and i < pairs - 1:
                 b.sleep_us(self.rest_us)
+        if b.dither_levels > 1:
+            b.dither(0)
         limit = self.dark_limit
         prev = self._prev_dark
         for c in range(n):

@@ -80,6 +80,13 @@ def check(key, v):
         _pin(key, v)
     elif key == "status_led":
         _pin(key, v, True)
+    elif key == "dither_pins":
+        if not isinstance(v, list) or len(v) > T.DITHER_PINS_MAX:
+            raise ValueError("dither_pins must be a list of at most %d pin numbers" % T.DITHER_PINS_MAX)
+        for p in v:
+            if p is None:
+                raise ValueError("dither_pins must be pin numbers, not null")
+            _pin("dither pin", p)
     elif key == "i2c":
         if not isinstance(v, dict) or sorted(v.keys()) != ["address", "scl", "sda", "sensor"]:
             raise ValueError("i2c must be an object with exactly sda, scl, sensor and address")
