@@ -51,27 +51,28 @@ def _optional(name):
 
 
 def safe_mode(name):
-    """True when the safe-mode pin is held low (pulled up inside, so an open pin never means safe mode)."""
+    """The safe-mode pin's number when it is held low (pulled up inside, so an open pin never means safe mode),
+    else None."""
     pin = SAFE_PINS.get(name)
     if pin is None:
-        return False
+        return None
     try:
         p = machine.Pin(pin, machine.Pin.IN, machine.Pin.PULL_UP)
         time.sleep_ms(2)  # let the pull-up charge the wire
-        return p.value() == 0
+        return pin if p.value() == 0 else None
     except Exception:  # noqa: BLE001 — a pin that cannot be read is not a request for safe mode
-        return False
+        return None
 
 
 def build(name, wdt, settings):
     ow = _optional("onewire")
     ds = _optional("ds18x20")
-    if name == "esp32":
+    from boards.pico import PicoBoard
+    if name != "esp32":
+        board = PicoBoard(machine, _port(), time, os, name, wdt, ow, ds)
+    else:
         from boards.esp32 import Esp32Board
         board = Esp32Board(machine, _port(), time, os, wdt, ow, ds, _optional("esp32"))
-    else:
-        from boards.pico import PicoBoard
-        board = PicoBoard(machine, _port(), time, os, name, wdt, ow, ds)
     board.configure(settings)
     return board
 
@@ -102,9 +103,10 @@ def _status_pin(raw):
 def main():
     raw = S.read_raw("/settings.json")
     name = _board_name(raw)
-    if safe_mode(name):
+    pin = safe_mode(name)
+    if pin is not None:
         print("nightcell: safe mode (pin %d held low): no logger, no watchdog; remove the jumper and reset to log"
-              % SAFE_PINS[name])
+              % pin)
         return
     wdt = machine.WDT(timeout=_WDT_MS)
     limp = None

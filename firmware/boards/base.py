@@ -19,7 +19,7 @@ class Board:
     has_button = False
     has_status_led = False
     dither_levels = 1  # offsets the ADC dither resistors give (2 ** pins); 1 when none are fitted
-    fault = None  # text of a part that failed while configuring (the logger journals it and retries with back-off)
+    fault = None  # type: str | None  # text of a part that failed while configuring (journaled, retried with back-off)
 
     def __init__(self, port):
         self.port = port
@@ -87,6 +87,9 @@ class Board:
     def conversion_ms(self):
         """Board ms one read takes beyond the settle waits (0 for an ADC; a sensor's integration time)."""
         return 0
+
+    def sleep_ms(self, ms):
+        raise NotImplementedError("a board profile sleeps its own way (feeding the watchdog)")
 
     def sleep_us(self, us):
         self.sleep_ms((us + 999) // 1000)

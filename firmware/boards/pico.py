@@ -96,6 +96,8 @@ class PicoBoard(Board):
 
     def chip_temp_centi(self):
         # RP2040 datasheet formula [memory]: T = 27 − (V − 0.706 V) / 0.001721 V/°C, V = counts · 3.3 / 4096
+        if self._chip is None:
+            return -32768
         v = (self._chip.read_u16() >> 4) * 3.3 / 4096
         return int((27 - (v - 0.706) / 0.001721) * 100)
 

@@ -61,9 +61,9 @@ def check(key, v):
         if not isinstance(v, str) or len(v.encode("utf-8")) > T.LABEL_MAX_BYTES:
             raise ValueError("label must be text of at most %d bytes" % T.LABEL_MAX_BYTES)
     elif key in T.NUMBERS:
-        lo, hi = T.NUMBERS[key]
-        if not isinstance(v, (int, float)) or isinstance(v, bool) or not lo <= v <= hi:
-            raise ValueError("%s must be a number from %s to %s, not %s" % (key, _num(lo), _num(hi), _show(v)))
+        least, most = T.NUMBERS[key]
+        if not isinstance(v, (int, float)) or isinstance(v, bool) or not least <= v <= most:
+            raise ValueError("%s must be a number from %s to %s, not %s" % (key, _num(least), _num(most), _show(v)))
     elif key == "channels":
         lo, hi = T.CHANNELS
         if not isinstance(v, list) or not lo <= len(v) <= hi:
