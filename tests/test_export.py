@@ -15,6 +15,7 @@ from click.testing import CliRunner
 
 from nightcell.tasks import export as export_module
 from nightcell.cli import cli
+from nightcell.errors import InputError
 from nightcell.wire.link import Board
 from nightcell.sim.board import SimulatedBoard
 
@@ -160,7 +161,8 @@ def test_write_atomic_leaves_nothing_when_the_rename_fails(tmp_path, monkeypatch
         raise OSError("disk full")
 
     monkeypatch.setattr(export_module._report.os, "replace", broken)
-    with pytest.raises(OSError):
+    # a write the OS refuses is bad input (exit 2) that names the path and the reason
+    with pytest.raises(InputError, match="cannot write .*page.html: disk full"):
         export_module.write_atomic(target, b"new page")
     assert target.read_text() == "old page"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["page.html"]

@@ -26,16 +26,12 @@ import click
 from .. import __version__
 from ..errors import DeviceError, InputError
 from ..wire import settings as _settings
-from .options import EXIT_CODES, db_option, friendly, json_option, port_option
+from .options import EXIT_CODES, db_option, friendly, json_option, open_reading, open_writing, port_option
 from .options import emit as _emit
 
-__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES"]
+__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES", "open_reading",
+           "open_writing"]
 
-def _open_store(db: Path) -> Any:
-    """An existing database (never creates one for a command that only reads)."""
-    from ..store.database import Store
-
-    return Store.open(db, create=False)
 
 
 @contextlib.contextmanager
@@ -538,7 +534,7 @@ def watch(port: str, db: Path, every: float, polls: int | None) -> None:
     from ..tasks.live import watch as live_watch
 
     with _connected(port) as (board, info):
-        store = _open_store(db) if db.exists() else None
+        store = open_reading(db) if db.exists() else None
         try:
             blank = latest_blank(board, info, store)
         finally:
@@ -567,7 +563,7 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
     from ..store.database import Store
     from ..store.sync import sync_board
 
-    with Board.open(port) as board, Store.open(db) as store, sync_progress(not as_json) as update:
+    with Board.open(port) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
         summary = sync_board(board, store, acknowledge=not no_ack,
                              progress=lambda done, total, records: update(port, done, total, records))
     new = sum(summary.new_rows.values())
@@ -609,7 +605,7 @@ def _list_command(name: str) -> Callable[[Callable[..., Any]], click.Command]:
         @friendly
         @functools.wraps(fn)
         def command(db: Path, as_json: bool) -> None:
-            with _open_store(db) as store:
+            with open_reading(db) as store:
                 title, columns, rows, data, empty = fn(store)
             if as_json:
                 _emit(data, True, "")
@@ -779,7 +775,7 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
         values.insert(0, ("temperature_K", temperature_k))
     if not values:
         raise InputError("nothing to record: give --temperature-c/--temperature-k and/or --conc REACTANT=MOLAR")
-    with _open_store(db) as store:
+    with open_writing(db) as store:
         run = resolve_run(store, run_text)
         for quantity, value in values:
             set_run_condition(store, run, quantity, value, source)
@@ -798,9 +794,11 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the HTML pages and figures.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
+@click.option("--level", type=float, default=0.95, show_default=True,
+              help="Confidence level of the calibration's intervals and prediction band.")
 @json_option
 @friendly
-def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int,
+def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int, level: float,
            as_json: bool) -> None:
     """Write self-contained HTML reports (figures embedded; each figure also as PNG and SVG): one per run, or a
     study over several runs with their recorded conditions (see `nightcell condition`).
@@ -811,23 +809,24 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
     """
     from ..errors import AnalysisError
     from ..tasks.export import Written, resolve_run, run_report, study_report
+    from ..render.report import all_or_nothing
 
     if sum([all_runs, bool(run_text), study]) > 1:
         raise InputError("give one of --run, --all or --study")
     done = Written()
     if study:
-        with _open_store(db) as store:
-            done = study_report(store, out, channel)
+        with open_reading(db) as store, all_or_nothing():
+            done = study_report(store, out, channel, level=level)
         lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
         _emit(done.to_dict(), as_json, "\n".join(lines))
         return
-    with _open_store(db) as store:
+    with open_reading(db) as store, all_or_nothing():
         runs = store.runs() if all_runs else [resolve_run(store, run_text)]
         if not runs:
             raise InputError(f"{db} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
         for run in runs:
             try:
-                one = run_report(store, run, out, channel)
+                one = run_report(store, run, out, channel, level=level)
             except AnalysisError as exc:
                 if not all_runs:
                     raise
@@ -853,8 +852,9 @@ def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: boo
     Example: nightcell export --db class.db --out csv
     """
     from ..tasks.export import export_csv, resolve_run
+    from ..render.report import all_or_nothing
 
-    with _open_store(db) as store:
+    with open_reading(db) as store, all_or_nothing():
         runs = None if run_text is None else [resolve_run(store, run_text)]
         done = export_csv(store, out, runs, channel)
     lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
@@ -865,9 +865,11 @@ def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: boo
 
 from . import analysis as _analysis  # noqa: E402  (the group above must exist before they register)
 from . import board as _board  # noqa: E402
+from . import dashboard as _dashboard  # noqa: E402
 
 _analysis.register(cli)
 _board.register(cli)
+_dashboard.register(cli)
 
 
 def main(argv: list[str] | None = None) -> None:

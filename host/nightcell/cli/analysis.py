@@ -23,77 +23,56 @@ CSV layouts (header row required, comma-separated, extra columns ignored):
 from __future__ import annotations
 
 import contextlib
-import csv
 import json
-import math
 from pathlib import Path
-from typing import Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import click
-import numpy as np
 
-from ..science import calibration as _calibration
-from ..science import kinetics as _kinetics
-from ..science import study as _study
-from .options import friendly, json_option
 from ..errors import InputError
+from ..science.laws import MODELS
+from .options import friendly, json_option, open_writing
+
+if TYPE_CHECKING:
+    import numpy as np
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
 
 
 def read_columns(
     path: Path, required: Sequence[str], optional: Sequence[str] = (), *, prefix: str | None = None, min_rows: int = 1,
-    text: Sequence[str] = (),
+    text: Sequence[str] = (), say: Callable[[str], None] | None = None,
 ) -> dict[str, np.ndarray]:
-    """Numeric columns of a CSV by header name; ``prefix`` also collects every column starting with it; ``text``
-    columns are kept as strings.
+    """Numeric columns of a CSV or spreadsheet by header name (``tasks.tables.read_table`` with the dialect options
+    of the command being run); what was detected or converted is said through ``say`` (to stderr by default)."""
+    from ..tasks.tables import read_table
 
-    Raises ``InputError`` naming the file, row and column, and what to do.
-    """
-    try:
-        with open(path, newline="", encoding="utf-8-sig") as fh:
-            reader = csv.reader(fh)
-            try:
-                header = [h.strip() for h in next(reader)]
-            except StopIteration:
-                raise InputError(f"{path} is empty; it needs a header row ({','.join(required)}) and data rows")
-            rows = [row for row in reader if any(cell.strip() for cell in row)]
-    except (OSError, UnicodeDecodeError, csv.Error) as exc:
-        raise InputError(f"cannot read {path}: {exc}") from None
-    wanted = list(required) + [c for c in optional if c in header]
-    if prefix:
-        wanted += [h for h in header if h.startswith(prefix) and h not in wanted]
-    missing = [c for c in required if c not in header]
-    if missing:
-        raise InputError(
-            f"{path} has no column {', '.join(repr(m) for m in missing)} (found: {', '.join(header) or 'none'}); "
-            f"the header row must name {','.join(required)}"
-        )
-    if len(rows) < min_rows:
-        raise InputError(f"{path} has {len(rows)} data rows; this analysis needs at least {min_rows}")
-    out: dict[str, np.ndarray] = {}
-    for col in wanted:
-        j = header.index(col)
-        values: list[Any] = []
-        for i, row in enumerate(rows, start=2):
-            cell = row[j].strip() if j < len(row) else ""
-            if col in text:
-                if not cell:
-                    raise InputError(f"{path} line {i}, column {col} is empty; fill it in or delete that row")
-                values.append(cell)
-                continue
-            try:
-                v = float(cell)
-            except ValueError:
-                raise InputError(
-                    f"{path} line {i}, column {col}: {cell!r} is not a number; fix or delete that row"
-                ) from None
-            if not math.isfinite(v):
-                raise InputError(f"{path} line {i}, column {col}: {cell!r} is not a finite number; fix or delete that "
-                                 "row")
-            values.append(v)
-        out[col] = np.array(values, dtype=object if col in text else float)
-    return out
+    ctx = click.get_current_context(silent=True)
+    params = ctx.meta.get("nightcell.table", {}) if ctx is not None else {}
+    table = read_table(path, required, optional, prefix=prefix, min_rows=min_rows, text=text,
+                       delimiter=params.get("delimiter"), decimal=params.get("decimal"), sheet=params.get("sheet"))
+    if table.notes:
+        (say or (lambda line: click.echo(line, err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+    return table.columns
+
+
+def _table_options(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """--delimiter, --decimal and --sheet: what a file's dialect is when detection is not wanted (read through the
+    click context by ``read_columns``, so the commands' signatures stay as they are)."""
+    fn = click.option("--sheet", default=None, expose_value=False, is_eager=False, callback=_keep,
+                      help="The sheet of an .xlsx/.xls/.ods workbook to read (default: the first).")(fn)
+    fn = click.option("--decimal", type=click.Choice([".", ","]), default=None, expose_value=False, callback=_keep,
+                      help="Decimal mark of the CSV file (default: detected).")(fn)
+    fn = click.option("--delimiter", type=click.Choice([",", ";", "tab", "|"]), default=None, expose_value=False,
+                      callback=_keep, help="Column delimiter of the CSV file (default: detected).")(fn)
+    return fn
+
+
+def _keep(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
+    if value == "tab":
+        value = "\t"
+    ctx.meta.setdefault("nightcell.table", {})[param.name] = value
+    return value
 
 
 def _out_folder_exists(ctx: click.Context, param: click.Parameter, out: Path | None) -> Path | None:
@@ -122,8 +101,7 @@ def _channel_option(fn: Callable[..., Any]) -> Callable[..., Any]:
                         help="Light channel (with --db).")(fn)
 
 
-_csv_argument = click.argument("csv_file", required=False,
-                               type=click.Path(exists=True, dir_okay=False, path_type=Path))
+_csv_argument = click.argument("csv_file", required=False, type=click.Path(path_type=Path))
 
 
 def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: str) -> None:
@@ -135,9 +113,8 @@ def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: st
 
 
 def _open(db: Path) -> Any:
-    from ..store.database import Store
-
-    return Store.open(db, create=False)
+    # every analysis with --db saves its result: a writing command
+    return open_writing(db)
 
 
 def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) -> None:
@@ -147,6 +124,25 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) ->
     if out is not None:
         try:
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
+        except OSError as exc:
+            raise InputError(f"cannot write {out}: {exc}") from None
+    click.echo(payload if as_json else text)
+
+
+def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str, Any], data: dict[str, Any],
+                  text: str, as_json: bool, out: Path | None) -> None:
+    """Save a result and write ``--out`` as one step: the file is written inside the transaction that saves the
+    result, so a file that cannot be written leaves the database as it was (and a refused commit, no file)."""
+    from ..render.report import write_atomic
+
+    with store.write():
+        saved = store.save_result(kind, label, inputs, data)
+        data = dict(data, result_id=saved)
+        text += f"\nsaved in {db} as result {saved}"
+        payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
+        try:
+            if out is not None:
+                write_atomic(out, (payload + "\n").encode("utf-8"))
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
     click.echo(payload if as_json else text)
@@ -168,6 +164,7 @@ def _only_device(store: Any, device: str | None) -> str:
 
 @click.command("calibrate")
 @_csv_argument
+@_table_options
 @_db_option
 @click.option("--device", default=None, help="With --db: the device whose standards to fit (default: the only one).")
 @_channel_option
@@ -197,19 +194,27 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
     _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
     options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
                    blank_sd=blank_sd)
-    saved = None
+    with contextlib.ExitStack() as opened:
+        _calibrate(csv_file, db, device, channel, options, readings, path_cm, as_json, out, opened)
+
+
+def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, channel: int, options: dict[str, Any],
+               readings: tuple[float, ...], path_cm: float | None, as_json: bool, out: Path | None,
+               opened: contextlib.ExitStack) -> None:
+    store = None
     if db is not None:
         from ..tasks.analyse import calibrate_from_store
 
-        with _open(db) as store:
-            device = _only_device(store, device)
-            cal = calibrate_from_store(store, device, channel, **options)
-            saved = store.save_result("calibration", f"{device} standards", cal.inputs, cal.to_dict())
+        store = opened.enter_context(_open(db))
+        device = _only_device(store, device)
+        cal = calibrate_from_store(store, device, channel, **options)
     else:
         assert csv_file is not None
         cols = read_columns(csv_file, ["concentration", "absorbance"], ["weight"], min_rows=3)
-        cal = _calibration.fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
-                                           inputs={"file": csv_file.name}, **options)
+        from ..science.calibration import fit_calibration
+
+        cal = fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
+                                inputs={"file": csv_file.name}, **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
     text = cal.report()
     if readings:
@@ -222,13 +227,16 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
         eps = cal.molar_absorptivity(path_cm)
         data["molar_absorptivity"] = eps.to_dict()
         text += f"\nmolar absorptivity: {eps.value:.6g} ± {eps.stderr:.3g} {eps.unit}"
-    if saved is not None:
-        data["result_id"] = saved
-        text += f"\nsaved in {db} as result {saved}"
+    if store is not None:
+        assert db is not None and device is not None
+        _finish_saved(store, db, "calibration", f"{device} standards", cal.inputs, data, text, as_json, out)
+        return
     _finish(data, text, as_json, out)
 
 
 def _run_text(analysis: Any) -> str:
+    import numpy as np
+
     run = analysis.run
     lines = [f"run {run.key} {run.label!r}: {len(analysis.time_s)} readings, "
              f"{int(np.count_nonzero(analysis.flags))} flagged and left out",
@@ -241,22 +249,13 @@ def _run_text(analysis: Any) -> str:
     return "\n".join(lines)
 
 
-def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None) -> Any:
-    from ..tasks.analyse import run_series
-
-    s = run_series(store, run, channel)
-    inputs = {"run": run.key, "device": run.device, "channel": channel,
-              "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
-              "time_basis": s["time_basis"], "left_out": "flagged readings"}
-    return _kinetics.initial_rate(s["time_s"], s["absorbance"], window, mask=s["flags"] != 0, inputs=inputs)
-
-
 @click.command("rate")
 @_csv_argument
+@_table_options
 @_db_option
 @click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
 @_channel_option
-@click.option("--model", type=click.Choice(("all", "initial_rate") + _kinetics.MODELS), default="all",
+@click.option("--model", type=click.Choice(("all", "initial_rate") + MODELS), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
 @click.option("--window", type=(float, float), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
@@ -280,7 +279,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
     """
     _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
     if db is not None:
-        from ..tasks.analyse import analyse_run
+        from ..tasks.analyse import analyse_run, initial_rate_of
         from ..tasks.export import resolve_run
 
         if t_start is not None or a_end != 0.0:
@@ -289,7 +288,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
         with _open(db) as store:
             run = resolve_run(store, run_text)
             if model == "initial_rate":
-                fit = _initial_rate_of(store, run, channel, window)
+                fit = initial_rate_of(store, run, channel, window)
                 data, text = fit.to_dict(), f"run {run.key} {run.label!r}\n" + fit.report()
                 inputs = fit.inputs
             else:
@@ -299,10 +298,10 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                                        models=None if model == "all" else (model,))
                 data, text = analysis.to_dict(), _run_text(analysis)
                 inputs = analysis.fits[analysis.best].inputs
-            saved = store.save_result("rate", run.label or run.key, inputs, data)
-        data = dict(data, result_id=saved)
-        _finish(data, text + f"\nsaved in {db} as result {saved}", as_json, out)
+            _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out)
         return
+    from ..science import kinetics as _kinetics
+
     assert csv_file is not None
     cols = read_columns(csv_file, ["time_s", "absorbance"], min_rows=4)
     inputs = {"file": csv_file.name}
@@ -330,6 +329,7 @@ def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
 
 @click.command("orders")
 @_csv_argument
+@_table_options
 @_db_option
 @_channel_option
 @click.option("--nonlinear", is_flag=True, help="Refine the power law by nonlinear least squares on the rates.")
@@ -347,6 +347,11 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
 
     Example: nightcell orders --db class.db runs_and_concentrations.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import initial_rate_of
+
     _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -361,7 +366,7 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            fits = [_initial_rate_of(store, run, channel, None) for run in runs]
+            fits = [initial_rate_of(store, run, channel, None) for run in runs]
             cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
             cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
             inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
@@ -369,28 +374,18 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
         data, text = result.to_dict(), result.report()
         if store is not None:
-            saved = store.save_result("orders", csv_file.stem, inputs, data)
-            data = dict(data, result_id=saved)
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "orders", csv_file.stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
-
-
-def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
-    """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
-    from ..tasks.analyse import analyse_run
-
-    analysis = analyse_run(store, run, channel=channel, models=(model,))
-    fit = analysis.fits[model]
-    temps = [r["temp_centi"] for r in store.run_samples(run, channel) if r["temp_centi"] is not None]
-    t_k = float(np.mean(temps)) / 100.0 + 273.15 if temps else None
-    return float(fit.values["k"]), float(fit.stderr["k"]), t_k
 
 
 @click.command("arrhenius")
 @_csv_argument
+@_table_options
 @_db_option
 @_channel_option
-@click.option("--model", type=click.Choice([m for m in _kinetics.MODELS if m != "zero_order"]),
+@click.option("--model", type=click.Choice([m for m in MODELS if m != "zero_order"]),
               default="first_order_plateau", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
@@ -408,6 +403,11 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
 
     Example: nightcell arrhenius --db class.db runs_and_temperatures.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import k_and_temperature
+
     _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -419,7 +419,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            got = [_k_and_temperature(store, run, channel, model) for run in runs]
+            got = [k_and_temperature(store, run, channel, model) for run in runs]
             if "temperature_K" not in cols:
                 missing = [r.key for r, g in zip(runs, got) if g[2] is None]
                 if missing:
@@ -439,9 +439,9 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             data["eyring"] = ey.to_dict()
             text += "\n" + ey.report()
         if store is not None:
-            saved = store.save_result("arrhenius", csv_file.stem, inputs, data)
-            data["result_id"] = saved
-            text += f"\nsaved in {db} as result {saved}"
+            assert db is not None
+            _finish_saved(store, db, "arrhenius", csv_file.stem, inputs, data, text, as_json, out)
+            return
     _finish(data, text, as_json, out)
 
 

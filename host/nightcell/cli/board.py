@@ -15,7 +15,7 @@ from typing import Any, Iterator
 
 import click
 
-from .options import db_option, friendly, json_option, port_option
+from .options import db_option, friendly, json_option, open_writing, port_option
 from ..errors import DeviceNotFound, InputError
 
 __all__ = ["register", "sync_progress"]
@@ -138,8 +138,22 @@ def merge(other: Path, db: Path, strict: bool, as_json: bool) -> None:
     from ..store.merge import merge_database
     from ..store.database import Store
 
-    with Store.open(db) as store:
-        report = merge_database(store, other, strict=strict)
+    if not other.exists():
+        raise InputError(f"no database at {other}: give the path of the other host's nightcell database")
+    if db.exists() and other.resolve() == db.resolve():
+        raise InputError(f"{other} is the database being merged into: give another host's database")
+    # the other database is checked whole before this one is created or migrated: a refused merge writes nothing
+    with Store.open_read(other) as source:
+        source.check_whole()
+    created = not db.exists()
+    try:
+        with open_writing(db, create=True) as store:
+            report = merge_database(store, other, strict=strict)
+    except BaseException:
+        if created:  # a merge refused into a new file leaves no file
+            for extra in ("", "-wal", "-shm", "-journal"):
+                Path(str(db) + extra).unlink(missing_ok=True)
+        raise
     _emit(report.to_dict(), as_json, report.text())
     if not report.applied:
         raise InputError(f"nothing merged: {len(report.conflicts)} rows disagree (listed above); merge without "

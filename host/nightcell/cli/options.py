@@ -13,7 +13,7 @@ import click
 
 from ..errors import NightcellError
 
-__all__ = ["EXIT_CODES", "friendly", "db_option", "port_option", "json_option", "emit"]
+__all__ = ["EXIT_CODES", "friendly", "db_option", "port_option", "json_option", "emit", "open_reading", "open_writing"]
 
 EXIT_CODES = {
     0: "success",
@@ -33,18 +33,53 @@ class _Failure(click.ClickException):
 
 
 def friendly(fn: Callable[..., Any]) -> Callable[..., Any]:
-    """Turn nightcell's own errors into a message and its documented exit code (no traceback)."""
+    """Turn nightcell's own errors into a message and its documented exit code (no traceback).
+
+    Also: a database SQLite finds damaged is exit 4 with what can still be read; numbers that overflow are exit 5;
+    numpy's and scipy's warnings never reach the terminal (a result that needs one says so in its own words).
+    """
 
     @functools.wraps(fn)
     def wrapper(*args: Any, **kwargs: Any) -> Any:
+        import sqlite3
+        import warnings
+
         try:
-            return fn(*args, **kwargs)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)
+                warnings.simplefilter("ignore", UserWarning)
+                return fn(*args, **kwargs)
         except NightcellError as exc:
             raise _Failure(str(exc), exc.exit_code) from exc
+        except sqlite3.DatabaseError as exc:
+            from ..store.database import damaged
+
+            db = kwargs.get("db")
+            if "malformed" in str(exc) and db is not None:
+                raise _Failure(str(damaged(db, exc)), 4) from exc
+            raise _Failure(f"database error on {db or 'the database'} ({exc}): nothing was written; check the file "
+                           "with `sqlite3 DB 'PRAGMA integrity_check'`", 4) from exc
+        except (FloatingPointError, OverflowError) as exc:
+            raise _Failure(f"the numbers are out of range for this analysis ({exc}): check the values given "
+                           "(absorbances are about 0 to 4, rate constants well below 1e100)", 5) from exc
         except KeyboardInterrupt:
             raise _Failure("interrupted", 130) from None
 
     return wrapper
+
+
+def open_reading(db: Path) -> Any:
+    """The store for a command that only reads: opened read-only, never created, migrated or changed."""
+    from ..store.database import Store
+
+    return Store.open_read(db)
+
+
+def open_writing(db: Path, *, create: bool = False) -> Any:
+    """The store for a command that writes (a result, a condition, a sync): created only where ``create``."""
+    from ..store.database import Store
+
+    return Store.open_write(db, create=create)
 
 
 # -- shared options ------------------------------------------------------------------------------------------------

@@ -23,7 +23,7 @@ from pathlib import Path
 from typing import Any, Iterable, Iterator
 
 import numpy as np
-import sqlite_utils
+from ._sqlite import sqlite_utils
 
 from .. import __version__
 from ..errors import InputError, SchemaTooNew, StoreError
@@ -42,7 +42,7 @@ from ..wire.frames import (
 )
 from ..science.timeline import unwrap_uptimes
 
-__all__ = ["Store", "migration_files", "Run"]
+__all__ = ["Store", "migration_files", "Run", "damage_report", "damaged"]
 
 BUSY_TIMEOUT_S = 30.0
 _COMPACT = (",", ":")  # JSON of stored results without the padding spaces
@@ -81,6 +81,60 @@ def _migrations() -> sqlite_utils.Migrations:
 
         migrations(name=name)(apply)
     return migrations
+
+
+# Migrations that change nothing a reading command reads (write-side guards): a database still without them can
+# be read as it is.
+_READERS_NEED_NOT = {"0004_raw_rows_refuse_replace"}
+
+
+def _existing_file(path: str | Path) -> Path:
+    """``path`` as an existing regular file, or the ``InputError`` that says what it is instead."""
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"no database at {p}: sync a board first, or give the right --db path")
+    if p.is_dir():
+        raise InputError(f"{p} is a folder, not a database file: give a file path with --db")
+    if not p.is_file():
+        raise InputError(f"{p} is not a regular file: give the path of a database file with --db")
+    return p
+
+
+def damaged(path: str | Path, exc: BaseException) -> StoreError:
+    """The error for a database SQLite finds damaged: what can still be read, and how to recover the rest."""
+    return StoreError(f"{path} is a damaged database ({exc}); nothing was written. {damage_report(path)}. Recover "
+                      f"what is readable into a new file with `sqlite3 {path} .recover | sqlite3 recovered.db` and "
+                      "use that file")
+
+
+def _not_ours(path: str | Path, exc: BaseException) -> StoreError:
+    if "malformed" in str(exc):
+        return damaged(path, exc)
+    return StoreError(f"{path} is not a nightcell database ({exc}): check the --db path")
+
+
+def damage_report(path: str | Path) -> str:
+    """What of a damaged database can still be read: the tables whose rows all read back, and those that do not."""
+    try:
+        conn = sqlite3.connect(Path(path).resolve().as_uri() + "?mode=ro", uri=True)
+    except sqlite3.DatabaseError:
+        return "nothing can be read"
+    good, bad = [], []
+    try:
+        names = [r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")]
+        for name in names:
+            try:
+                quoted = name.replace('"', '""')
+                n = conn.execute(f'SELECT count(*) FROM "{quoted}"').fetchone()[0]
+                conn.execute(f'SELECT * FROM "{quoted}"').fetchall()
+                good.append(f"{name} ({n})")
+            except sqlite3.DatabaseError:
+                bad.append(name)
+    except sqlite3.DatabaseError:
+        return "its list of tables cannot be read"
+    finally:
+        conn.close()
+    return (f"Still readable: {', '.join(good) or 'none'}; damaged: {', '.join(bad) or 'an index'}")
 
 
 @dataclass
@@ -133,65 +187,160 @@ class Store:
 
     @classmethod
     def open(cls, path: str | Path, *, create: bool = True, readonly: bool = False) -> "Store":
-        """Open (and create or migrate) a database file.
+        """Open a database file: ``open_read`` when ``readonly``, else ``open_write`` (creating it if ``create``)."""
+        if readonly:
+            return cls.open_read(path)
+        return cls.open_write(path, create=create)
+
+    @classmethod
+    def open_read(cls, path: str | Path) -> "Store":
+        """Open an existing nightcell database for reading only: never creates, migrates or changes the file.
+
+        SQLite opens it with ``mode=ro``; where no write-ahead log can be made beside it (a read-only folder or
+        medium) it is opened ``immutable``. Raises ``InputError`` when there is no file, and ``StoreError`` when
+        the file is not a nightcell database (empty, another program's, damaged) or needs migrating first;
+        ``SchemaTooNew`` when a newer nightcell wrote it.
+        """
+        p = _existing_file(path)
+        with open(p, "rb") as fh:
+            head = fh.read(100)
+        if not head:
+            raise StoreError(f"{p} is empty, not a nightcell database: give the path of a database that "
+                             "`nightcell sync` wrote")
+        if not head.startswith(b"SQLite format 3\x00"):
+            raise StoreError(f"{p} is not a nightcell database (not a SQLite file): check the --db path")
+        uri = p.resolve().as_uri()
+        last: Exception | None = None
+        for query in ("?mode=ro", "?mode=ro&immutable=1"):
+            try:
+                conn = sqlite3.connect(uri + query, uri=True, isolation_level=None, timeout=BUSY_TIMEOUT_S)
+            except sqlite3.DatabaseError as exc:
+                last = exc
+                continue
+            store = cls(conn, str(p))
+            store.readonly = True
+            try:
+                conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+                conn.execute("PRAGMA query_only = ON")
+                conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+            except sqlite3.OperationalError as exc:
+                conn.close()
+                if "unable to open" not in str(exc) and "readonly" not in str(exc):
+                    raise StoreError(f"cannot read {p} ({exc}): another program holds it; try again when it is "
+                                     "done") from exc
+                # a WAL database whose folder cannot hold its -shm file: read it as the unchanging file it is
+                last = exc
+                continue
+            except sqlite3.DatabaseError as exc:
+                conn.close()
+                raise _not_ours(p, exc) from exc
+            try:
+                applied = store._check_schema(write=False)
+                if {name for name, _ in migration_files()} - applied - _READERS_NEED_NOT:
+                    store = store._migrated_copy()
+            except BaseException:
+                conn.close()
+                raise
+            return store
+        raise StoreError(f"cannot open {p} for reading ({last}): check the --db path and that you may read it")
+
+    @classmethod
+    def open_write(cls, path: str | Path, *, create: bool = True) -> "Store":
+        """Open (and create or migrate) a database file for a command that writes.
 
         Raises ``StoreError`` when the file is not a nightcell database or cannot be written, and ``SchemaTooNew``
         when a newer nightcell wrote it.
         """
         p = Path(path)
-        if not create and not p.exists():
-            raise InputError(f"no database at {p}: sync a board first, or give the right --db path")
-        if p.exists() and p.is_dir():
+        if not create:
+            p = _existing_file(p)
+        elif p.exists() and p.is_dir():
             raise InputError(f"{p} is a folder, not a database file: give a file path with --db")
+        elif p.exists() and not p.is_file():
+            raise InputError(f"{p} is not a regular file: give the path of a database file with --db")
         try:
-            if readonly:
-                conn = sqlite3.connect(f"file:{p}?mode=ro", uri=True, isolation_level=None, timeout=BUSY_TIMEOUT_S)
-            else:
-                conn = sqlite3.connect(str(p), isolation_level=None, timeout=BUSY_TIMEOUT_S)
+            conn = sqlite3.connect(str(p), isolation_level=None, timeout=BUSY_TIMEOUT_S)
             conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
             conn.execute("PRAGMA foreign_keys = ON")
         except sqlite3.DatabaseError as exc:
             raise StoreError(f"cannot open {p} as a database ({exc}): is it a nightcell database file?") from exc
         store = cls(conn, str(p))
         try:
-            store._migrate(readonly=readonly)
-            if not readonly:
-                # Only once the file is known to be ours: WAL rewrites the header of any SQLite file it is set on,
-                # and another program's database given by mistake must be left exactly as it was.
-                try:
-                    conn.execute("PRAGMA journal_mode = WAL")
-                except sqlite3.DatabaseError as exc:
-                    raise StoreError(f"cannot open {p} for writing ({exc}): another program holds it, or it is "
-                                     "read-only") from exc
+            store._migrate(readonly=False)
+            # Only once the file is known to be ours: WAL rewrites the header of any SQLite file it is set on,
+            # and another program's database given by mistake must be left exactly as it was.
+            try:
+                conn.execute("PRAGMA journal_mode = WAL")
+            except sqlite3.DatabaseError as exc:
+                raise StoreError(f"cannot open {p} for writing ({exc}): another program holds it, or it is "
+                                 "read-only (reading commands such as `nightcell list runs` still work)") from exc
         except BaseException:
             conn.close()
             raise
         return store
 
-    def _migrate(self, *, readonly: bool) -> None:
-        migrations = _migrations()
+    readonly = False
+    copied = False  # read through a migrated copy in memory (an older nightcell wrote the file)
+
+    def _check_schema(self, *, write: bool) -> set[str]:
+        """The migrations applied to this file, after checking it is a nightcell database this version can read."""
         known = {name for name, _ in migration_files()}
         try:
-            applied = {m.name for m in migrations.applied(self.db)}
+            applied = {m.name for m in _migrations().applied(self.db)}
             tables = set(self.db.table_names())
+            version = int(self.conn.execute("PRAGMA user_version").fetchone()[0])
         except sqlite3.DatabaseError as exc:
-            raise StoreError(f"{self.path} is not a nightcell database ({exc}): check the --db path") from exc
+            raise _not_ours(self.path, exc) from exc
         unknown = applied - known
         if unknown:
             raise SchemaTooNew(
                 f"{self.path} was written by a newer nightcell (migrations {', '.join(sorted(unknown))} are unknown "
                 f"to version {__version__}): upgrade nightcell to open it"
             )
+        if version > len(known):
+            raise SchemaTooNew(f"{self.path} was written by a newer nightcell (schema version {version}; version "
+                               f"{__version__} knows up to {len(known)}): upgrade nightcell to open it")
         if tables - {"_sqlite_migrations"} and not applied:
             raise StoreError(f"{self.path} is a SQLite file but not a nightcell database: give another --db path")
+        if not write and not applied:
+            raise StoreError(f"{self.path} is not a nightcell database (it holds no tables): give the path of a "
+                             "database that `nightcell sync` wrote")
+        return applied
+
+    def _migrated_copy(self) -> "Store":
+        """A database an older nightcell wrote, read through a migrated copy in memory: the file stays as it is."""
+        copy = sqlite3.connect(":memory:", isolation_level=None)
+        self.conn.backup(copy)
+        self.conn.close()
+        store = Store(copy, self.path)
+        store.readonly = True
+        store.copied = True
+        with store.write():
+            _migrations().apply(store.db)
+        copy.execute("PRAGMA query_only = ON")
+        return store
+
+    def _migrate(self, *, readonly: bool) -> None:
+        applied = self._check_schema(write=not readonly)
+        known = {name for name, _ in migration_files()}
         if known - applied:
             if readonly:
-                raise StoreError(f"{self.path} needs migrating: open it once without read-only access")
+                return
             try:
                 with self.write():
-                    migrations.apply(self.db)
+                    _migrations().apply(self.db)
+                    self.conn.execute(f"PRAGMA user_version = {len(known)}")
             except sqlite3.OperationalError as exc:
                 raise StoreError(f"cannot migrate {self.path} ({exc}): is the file or its folder read-only?") from exc
+
+    def check_whole(self) -> None:
+        """Every page of the file reads back (SQLite's ``quick_check``), else the ``damaged`` error."""
+        try:
+            problem = self.conn.execute("PRAGMA quick_check").fetchone()[0]
+        except sqlite3.DatabaseError as exc:
+            raise damaged(self.path, exc) from exc
+        if problem != "ok":
+            raise damaged(self.path, problem)
 
     def close(self) -> None:
         self.conn.close()
@@ -216,17 +365,30 @@ class Store:
             # error, said as such, not a traceback
             if self.conn.in_transaction:
                 self.conn.execute("ROLLBACK")
+            if exc.sqlite_errorcode == sqlite3.SQLITE_FULL if hasattr(exc, "sqlite_errorcode") else "full" in str(exc):
+                raise StoreError(f"cannot write {self.path} ({exc}): free some space and run it again — nothing of "
+                                 "this transaction was stored, and nothing unstored was acknowledged") from exc
             raise StoreError(f"cannot write {self.path} ({exc}): is the file or its folder read-only, or the disk "
                              "full?") from exc
+        except sqlite3.DatabaseError as exc:
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            raise StoreError(f"cannot write {self.path} ({exc}): check it with `sqlite3 {self.path} 'PRAGMA "
+                             "integrity_check'`") from exc
         except BaseException:
-            self.conn.execute("ROLLBACK")
+            # SQLite may have rolled back by itself already (a full disk does that): a second ROLLBACK would fail
+            # and hide the error that matters
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
             raise
         else:
             try:
                 self.conn.execute("COMMIT")
-            except sqlite3.OperationalError as exc:
-                self.conn.execute("ROLLBACK")
-                raise StoreError(f"cannot commit to {self.path} ({exc})") from exc
+            except sqlite3.DatabaseError as exc:
+                if self.conn.in_transaction:
+                    self.conn.execute("ROLLBACK")
+                raise StoreError(f"cannot commit to {self.path} ({exc}): is the disk full? Nothing of this "
+                                 "batch was stored") from exc
 
     # -- ingest -------------------------------------------------------------------------------------------------
 

@@ -17,9 +17,11 @@ Example::
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import sqlite3
+import tempfile
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -94,10 +96,25 @@ def merge_database(store: Store, source: str | Path, *, strict: bool = False) ->
         raise InputError(f"no database at {src}: give the path of the other host's nightcell database")
     if os.path.exists(store.path) and os.path.samefile(src, store.path):
         raise InputError(f"{src} is the database being merged into: give another host's database")
-    Store.open(src, create=False).close()  # a nightcell database of a version we can read, migrated if older
+    with contextlib.ExitStack() as held:
+        return _merge(store, src, strict, held)
+
+
+def _merge(store: Store, src: Path, strict: bool, held: contextlib.ExitStack) -> MergeReport:
+    # a nightcell database of a version we can read, opened for reading only; one an older nightcell wrote is
+    # read from a migrated copy (the file given is never changed)
+    source = held.enter_context(Store.open_read(src))
+    attach = str(src)
+    if source.copied:
+        folder = Path(held.enter_context(tempfile.TemporaryDirectory(prefix="nightcell-merge-")))
+        attach = str(folder / "source.db")
+        target = sqlite3.connect(attach)
+        source.conn.backup(target)
+        target.close()
+    source.close()
     report = MergeReport(str(src))
     conn = store.conn
-    conn.execute("ATTACH DATABASE ? AS other", (str(src),))
+    conn.execute("ATTACH DATABASE ? AS other", (attach,))
     try:
         with store.write():
             for table, key in RAW_IDENTITY.items():

@@ -42,7 +42,8 @@ from ..store.database import Run, Store
 
 __all__ = ["BlankChoice", "RunAnalysis", "choose_blank", "standards_from_store", "calibrate_from_store",
            "run_series", "analyse_run", "run_bounds", "set_run_condition", "run_conditions", "run_provenance",
-           "RunSummary", "StudyAnalysis", "analyse_study", "CONDITION_PATTERN", "RESUME_SOURCE"]
+           "RunSummary", "StudyAnalysis", "analyse_study", "CONDITION_PATTERN", "RESUME_SOURCE", "initial_rate_of",
+           "k_and_temperature"]
 
 RESUME_SOURCE = 2
 """MARK source of a run_start the board journals by itself when it resumes a run after a restart."""
@@ -587,7 +588,7 @@ def _pick_group(items: list[RunSummary], key: Any, level: Any) -> list[RunSummar
 
 
 def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str = "first_order_plateau",
-                  channel: int = 0) -> StudyAnalysis:
+                  channel: int = 0, level: float = 0.95) -> StudyAnalysis:
     """Every run with its recorded conditions → per-run k (``model``) → orders and Arrhenius/Eyring (study.py).
 
     Orders: for each reactant, the largest set of runs at one temperature and one level of every other reactant
@@ -608,7 +609,7 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
             continue
         if run.device not in cals:
             try:
-                cals[run.device] = calibrate_from_store(store, run.device, channel)
+                cals[run.device] = calibrate_from_store(store, run.device, channel, level=level)
             except AnalysisError:
                 cals[run.device] = None
         try:
@@ -691,3 +692,21 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
         except AnalysisError as exc:
             out.skipped["arrhenius"] = str(exc)
     return out
+
+
+def initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None) -> Any:
+    """The run's initial rate (``window`` in s, or chosen automatically), flagged readings left out, with its inputs."""
+    s = run_series(store, run, channel)
+    inputs = {"run": run.key, "device": run.device, "channel": channel,
+              "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
+              "time_basis": s["time_basis"], "left_out": "flagged readings"}
+    return _kinetics.initial_rate(s["time_s"], s["absorbance"], window, mask=s["flags"] != 0, inputs=inputs)
+
+
+def k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
+    """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
+    analysis = analyse_run(store, run, channel=channel, models=(model,))
+    fit = analysis.fits[model]
+    temps = [r["temp_centi"] for r in store.run_samples(run, channel) if r["temp_centi"] is not None]
+    t_k = float(np.mean(temps)) / 100.0 + 273.15 if temps else None
+    return float(fit.values["k"]), float(fit.stderr["k"]), t_k
