@@ -244,14 +244,17 @@ kit.request(b"22 flush")
 j = lg.journal
 head, tail, segs = j.head, j.tail, len(j.starts)
 print("segments=%d" % segs)
-kind, text = reply(b"23 ack %d" % (head + 1))
+from nightcell_fw.records import crc32
+def ack(tag, pos):  # ack carries its check field (schema/protocol.md)
+    return b"%d ack %d %08x" % (tag, pos, crc32(b"ack %d" % pos))
+kind, text = reply(ack(23, head + 1))
 print("past_head=%d %s" % (kind, text.decode()))
 assert (j.tail, len(j.starts)) == (tail, segs)
 second = j.starts[1]
-kind, text = reply(b"24 ack %d" % (second - 1))
+kind, text = reply(ack(24, second - 1))
 print("mid_first=%d" % kind)
 assert j.tail == tail and len(j.starts) == segs  # the first segment still holds unacknowledged bytes
-kind, text = reply(b"25 ack %d" % second)
+kind, text = reply(ack(25, second))
 print("at_second=%d tail=%d" % (kind, j.tail))
 assert j.tail == second and len(j.starts) == segs - 1
 s, n = j.read(second, 4096, memoryview(bytearray(4096)))
