@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import statistics
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 
 FADE = r"""
 import sys, math

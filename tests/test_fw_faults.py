@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import re
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 from nightcell.wire import frames as F
 from test_fw_boards import FAKES
 

@@ -22,7 +22,7 @@ import statistics
 
 import pytest
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 
 REGIME = r"""
 import sys, math

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import json
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 
 ROOM = r"""
 import json

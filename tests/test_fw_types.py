@@ -20,7 +20,7 @@ from pathlib import Path
 
 import pytest
 
-from fwharness import FIRMWARE
+from support.fwharness import FIRMWARE
 
 STUBS = {"rp2": "micropython-rp2-rpi-pico-stubs==1.29.0.post1",
          "esp32": "micropython-esp32-esp32-generic-stubs==1.29.0.post1"}

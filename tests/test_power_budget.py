@@ -12,7 +12,7 @@ from pathlib import Path
 
 import pytest
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 from test_fw_boards import FAKES
 
 NOTES = Path(__file__).resolve().parent.parent / "hardware_notes" / "power.md"

@@ -11,7 +11,7 @@ import json
 import re
 import sys
 
-from fwharness import FIRMWARE, SCHEMA, results, run_mp
+from support.fwharness import FIRMWARE, SCHEMA, results, run_mp
 
 TABLE = json.loads((SCHEMA / "settings.json").read_text(encoding="utf-8"))
 SETTINGS = TABLE["settings"]
