@@ -25,6 +25,7 @@ from nightcell.cli import cli
 
 pytestmark = pytest.mark.skipif(browser_missing() is not None, reason=browser_missing() or "")
 
+SIM_DEVICE = "5e1fdab0a4d00001"  # the test's own boards (every sim-board folder now makes an id of its own)
 HOSTILE_IMG = "<img src=x onerror=pwned=1>"
 HOSTILE_SCRIPT = "<script>pwned=2</script>"
 SIM_DEVICE = "5e1fdab0a4d00001"
