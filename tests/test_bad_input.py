@@ -691,6 +691,19 @@ CASES = [
          5, "first_order_to_zero: the fitted rate constant k = -0.0", csv=_csv(RISING_RUN)),
     Case("negative rate constant with --db saves nothing", ["rate", "--db", "{db}", "--model", "second_order"], 5,
          "second_order: the fitted rate constant k = -", db=_variant(curve=_rising)),
+    # -- a run that cannot be done on this board -------------------------------------------------------------------
+    Case("start --for that is not a duration", ["start", "--for", "a week"], 2, "--for 'a week' is not a duration",
+         port="missing"),
+    # 10^6 B free at 3.26 B a sample every 1 s: 3.6 days; 7 days needs 1.972 s (tasks/room.py)
+    Case("start --for a run the journal cannot hold", ["start", "--for", "7d"], 2,
+         "a run of 7.0 days does not fit on 5eba000000000007: 1.00 MB free at measured 3.26 B a sample every 1 s holds "
+         "3.6 days (the longest run that fits); an interval of 1.972 s or more would fit 7.0 days",
+         port=board_then_vanish("start", dict(HELLO, running=False, interval_ms=1000, bytes_per_sample=3.26,
+                                               channels=1))),
+    Case("setup interval shorter than the board's measurement", ["setup", "--interval", "1"], 2,
+         "--interval 1 s is shorter than one measurement on 5eba000000000007 (3858 ms with its reads, settle and "
+         "window) plus 50 ms: choose at least 3.908 s",
+         port=board_then_vanish("set", dict(HELLO, measure_ms=3858))),
 ]
 
 

@@ -271,7 +271,7 @@ def test_a_wiped_board_whose_new_journal_reuses_the_keys_is_refused_and_nothing_
     database: the records' keys are those of rows already stored with other content, so the sync refuses (exit 3,
     RecordConflict), nothing is written or acknowledged, and the first journal's rows and times stay as they were."""
     from nightcell.errors import RecordConflict
-    from nightcell.sim.board import fill_journal
+    from support.campaigns import fill_journal
 
     sim = SimulatedBoard(tmp_path / "sim", device="5e1f0000000000e1", speed=200.0, seed=7, settings=SETTINGS)
     db = tmp_path / "class.db"

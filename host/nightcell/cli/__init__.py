@@ -25,6 +25,7 @@ import click
 
 from .. import __version__
 from ..errors import DeviceError, InputError
+from ..wire import settings as _settings
 from .options import EXIT_CODES, accept_suspect_option, db_option, friendly, json_option, open_reading, open_writing, port_option
 from .options import emit as _emit
 
@@ -224,6 +225,8 @@ def hello(port: str, detail: bool, as_json: bool) -> None:
 
     Example: nightcell hello --port /dev/ttyACM0
     """
+    from ..tasks.room import human_duration
+
     with _connected(port) as (_, info):
         pass
     used = max(0, int(info.get("head", 0)) - int(info.get("tail", 0)))
@@ -234,16 +237,19 @@ def hello(port: str, detail: bool, as_json: bool) -> None:
              + f"; a sample every {int(info.get('interval_ms', 0)) / 1000:g} s when it does",
              f"storage: {used / 1024:.0f} KiB used, {free / 1024:.0f} KiB free",
              f"switched on {int(info.get('uptime_ms', 0)) / 1000:.1f} s ago"]
+    if info.get("full_in_s") is not None:
+        lines.append(f"storage full in: {human_duration(float(info['full_in_s']))} at this interval (board's estimate)")
     if detail:
         lines += ["detail:"] + [f"  {k}: {v}" for k, v in sorted(info.items())]
     _emit(info, as_json, "\n".join(lines))
 
 
-# Host-side checks of the settings `setup` changes: the ranges of schema/settings.md (a test compares them).
-SETTING_RANGES_MS = {"interval_ms": (200, 86_400_000), "warmup_ms": (0, 600_000), "durability_ms": (0, 3_600_000)}
-SETTING_RANGES = {"reads": (1, 256), "path_cm": (0.01, 10.0)}
-LABEL_MAX_BYTES = 32
-MAX_CHANNELS = 4
+# Host-side checks of the settings `setup` changes, from the one settings table (schema/settings.json).
+SETTING_RANGES_MS = {k: _settings.whole_range(k) for k in ("interval_ms", "warmup_ms", "durability_ms")}
+SETTING_RANGES: dict[str, tuple[float, float]] = {"reads": _settings.whole_range("reads"),
+                                                  "path_cm": _settings.number_range("path_cm")}
+LABEL_MAX_BYTES = _settings.label_max_bytes()
+MAX_CHANNELS = _settings.max_channels()
 
 
 def _seconds_to_ms(key: str, seconds: float | None) -> int | None:
@@ -345,6 +351,14 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
     after_reset: list[str] = []
     reply: dict[str, Any] = {}
     with _connected(port) as (board, info):
+        measure = info.get("measure_ms")
+        if "interval_ms" in changes and measure is not None and "reads" not in changes:
+            need = int(measure) + _settings.interval_margin_ms()
+            if changes["interval_ms"] < need:
+                raise InputError(f"--interval {changes['interval_ms'] / 1000:g} s is shorter than one measurement "
+                                 f"on {info['device']} ({int(measure)} ms with its reads, settle and window) plus "
+                                 f"{_settings.interval_margin_ms()} ms: choose at least {need / 1000:g} s, or fewer "
+                                 "--reads")
         for key, value in changes.items():
             reply = board.set(key, value)
             applied[key] = value
@@ -486,23 +500,42 @@ def standard(port: str, value: str, label: str, unit: str, set_name: str, as_jso
 @cli.command()
 @port_option
 @click.option("--label", default="", help="The run's label, e.g. what is in the cuvette.")
+@click.option("--for", "planned", default=None, metavar="DURATION",
+              help="How long the run is meant to last, e.g. 7d, 36h, 90m: refused unless the journal has room.")
+@click.option("--even-if-short", is_flag=True,
+              help="Start even though the journal fills before --for is over (logging stops when it is full).")
 @json_option
 @friendly
-def start(port: str, label: str, as_json: bool) -> None:
-    """Start a run: the LED warms up, then the board samples at its interval until `stop`, unattended.
+def start(port: str, label: str, planned: str | None, even_if_short: bool, as_json: bool) -> None:
+    """Start a run: after the warm-up wait the board samples at its interval until `stop`, unattended.
 
-    Example: nightcell start --port /dev/ttyACM0 --label "dye fading 25 °C"
+    With --for, the board's free journal space and its measured bytes per sample are checked first, and a run that
+    would not fit is refused with the longest run that fits and the interval that would fit.
+
+    Example: nightcell start --port /dev/ttyACM0 --label "dye fading 25 °C" --for 7d
     """
+    from ..tasks.room import human_duration, parse_duration, plan_run
+
     _check_text("label", label, "start")
+    seconds = parse_duration(planned) if planned is not None else None
     with _connected(port) as (board, info):
         if info.get("running"):
             raise InputError(f"{info['device']} is already logging a run: stop it first with `nightcell stop`, "
                              "or leave it running")
+        room = plan_run(info, seconds) if seconds is not None else None
+        if room is not None and not room.fits and not even_if_short:
+            raise InputError(room.message())
         reply = board.start(label)
     run_key = f"{info['device']}:{reply['boot']}:{reply['seq']}"
     text = (f"{_who(info)}: run{' ' + repr(label) if label else ''} started, a sample every "
             f"{int(info.get('interval_ms', 0)) / 1000:g} s; you may unplug the computer now")
-    _emit(dict(reply, device=info["device"], run=run_key, label=label), as_json, text)
+    if room is not None:
+        text += (f"\nthe board's storage holds about {human_duration(room.seconds_that_fit)} at this interval"
+                 + ("" if room.fits else f": it fills before the planned {human_duration(room.seconds_wanted)}"))
+    out = dict(reply, device=info["device"], run=run_key, label=label)
+    if room is not None:
+        out["room"] = room.to_dict()
+    _emit(out, as_json, text)
 
 
 @cli.command()
