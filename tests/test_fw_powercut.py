@@ -133,7 +133,7 @@ def sync_and_ack():
                 host[k] = v
                 if k in open_keys:
                     del open_keys[k]
-    r = kit.request(b"90 ack %d" % upto)
+    r = kit.request(b"90 ack %d %08x" % (upto, R.crc32(b"ack %d" % upto)))
     assert r[2] == 1, r
 
 def action():

@@ -52,6 +52,8 @@ FIGURES: dict[str, str] = {
     "interval coverage": r"coverage",
     "demo time": r"demo.*(time|seconds)",
     "start-up": r"start-?up: nightcell --help",
+    "CSV reader ratio": r"csv_reader_over_loadtxt",
+    "page update latency": r"update latency (median|worst)",
 }
 
 

@@ -818,9 +818,11 @@ def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: boo
 
 from . import analysis as _analysis  # noqa: E402  (the group above must exist before they register)
 from . import board as _board  # noqa: E402
+from . import dashboard as _dashboard  # noqa: E402
 
 _analysis.register(cli)
 _board.register(cli)
+_dashboard.register(cli)
 
 
 def main(argv: list[str] | None = None) -> None:

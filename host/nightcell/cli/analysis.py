@@ -23,9 +23,7 @@ CSV layouts (header row required, comma-separated, extra columns ignored):
 from __future__ import annotations
 
 import contextlib
-import csv
 import json
-import math
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Callable, Sequence
 
@@ -43,59 +41,38 @@ __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_com
 
 def read_columns(
     path: Path, required: Sequence[str], optional: Sequence[str] = (), *, prefix: str | None = None, min_rows: int = 1,
-    text: Sequence[str] = (),
+    text: Sequence[str] = (), say: Callable[[str], None] | None = None,
 ) -> dict[str, np.ndarray]:
-    """Numeric columns of a CSV by header name; ``prefix`` also collects every column starting with it; ``text``
-    columns are kept as strings.
+    """Numeric columns of a CSV or spreadsheet by header name (``tasks.tables.read_table`` with the dialect options
+    of the command being run); what was detected or converted is said through ``say`` (to stderr by default)."""
+    from ..tasks.tables import read_table
 
-    Raises ``InputError`` naming the file, row and column, and what to do.
-    """
-    import numpy as np
+    ctx = click.get_current_context(silent=True)
+    params = ctx.meta.get("nightcell.table", {}) if ctx is not None else {}
+    table = read_table(path, required, optional, prefix=prefix, min_rows=min_rows, text=text,
+                       delimiter=params.get("delimiter"), decimal=params.get("decimal"), sheet=params.get("sheet"))
+    if table.notes:
+        (say or (lambda line: click.echo(line, err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+    return table.columns
 
-    try:
-        with open(path, newline="", encoding="utf-8-sig") as fh:
-            reader = csv.reader(fh)
-            try:
-                header = [h.strip() for h in next(reader)]
-            except StopIteration:
-                raise InputError(f"{path} is empty; it needs a header row ({','.join(required)}) and data rows")
-            rows = [row for row in reader if any(cell.strip() for cell in row)]
-    except (OSError, UnicodeDecodeError, csv.Error) as exc:
-        raise InputError(f"cannot read {path}: {exc}") from None
-    wanted = list(required) + [c for c in optional if c in header]
-    if prefix:
-        wanted += [h for h in header if h.startswith(prefix) and h not in wanted]
-    missing = [c for c in required if c not in header]
-    if missing:
-        raise InputError(
-            f"{path} has no column {', '.join(repr(m) for m in missing)} (found: {', '.join(header) or 'none'}); "
-            f"the header row must name {','.join(required)}"
-        )
-    if len(rows) < min_rows:
-        raise InputError(f"{path} has {len(rows)} data rows; this analysis needs at least {min_rows}")
-    out: dict[str, np.ndarray] = {}
-    for col in wanted:
-        j = header.index(col)
-        values: list[Any] = []
-        for i, row in enumerate(rows, start=2):
-            cell = row[j].strip() if j < len(row) else ""
-            if col in text:
-                if not cell:
-                    raise InputError(f"{path} line {i}, column {col} is empty; fill it in or delete that row")
-                values.append(cell)
-                continue
-            try:
-                v = float(cell)
-            except ValueError:
-                raise InputError(
-                    f"{path} line {i}, column {col}: {cell!r} is not a number; fix or delete that row"
-                ) from None
-            if not math.isfinite(v):
-                raise InputError(f"{path} line {i}, column {col}: {cell!r} is not a finite number; fix or delete that "
-                                 "row")
-            values.append(v)
-        out[col] = np.array(values, dtype=object if col in text else float)
-    return out
+
+def _table_options(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """--delimiter, --decimal and --sheet: what a file's dialect is when detection is not wanted (read through the
+    click context by ``read_columns``, so the commands' signatures stay as they are)."""
+    fn = click.option("--sheet", default=None, expose_value=False, is_eager=False, callback=_keep,
+                      help="The sheet of an .xlsx/.xls/.ods workbook to read (default: the first).")(fn)
+    fn = click.option("--decimal", type=click.Choice([".", ","]), default=None, expose_value=False, callback=_keep,
+                      help="Decimal mark of the CSV file (default: detected).")(fn)
+    fn = click.option("--delimiter", type=click.Choice([",", ";", "tab", "|"]), default=None, expose_value=False,
+                      callback=_keep, help="Column delimiter of the CSV file (default: detected).")(fn)
+    return fn
+
+
+def _keep(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
+    if value == "tab":
+        value = "\t"
+    ctx.meta.setdefault("nightcell.table", {})[param.name] = value
+    return value
 
 
 def _out_folder_exists(ctx: click.Context, param: click.Parameter, out: Path | None) -> Path | None:
@@ -124,8 +101,7 @@ def _channel_option(fn: Callable[..., Any]) -> Callable[..., Any]:
                         help="Light channel (with --db).")(fn)
 
 
-_csv_argument = click.argument("csv_file", required=False,
-                               type=click.Path(exists=True, dir_okay=False, path_type=Path))
+_csv_argument = click.argument("csv_file", required=False, type=click.Path(path_type=Path))
 
 
 def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: str) -> None:
@@ -188,6 +164,7 @@ def _only_device(store: Any, device: str | None) -> str:
 
 @click.command("calibrate")
 @_csv_argument
+@_table_options
 @_db_option
 @click.option("--device", default=None, help="With --db: the device whose standards to fit (default: the only one).")
 @_channel_option
@@ -274,6 +251,7 @@ def _run_text(analysis: Any) -> str:
 
 @click.command("rate")
 @_csv_argument
+@_table_options
 @_db_option
 @click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
 @_channel_option
@@ -351,6 +329,7 @@ def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
 
 @click.command("orders")
 @_csv_argument
+@_table_options
 @_db_option
 @_channel_option
 @click.option("--nonlinear", is_flag=True, help="Refine the power law by nonlinear least squares on the rates.")
@@ -403,6 +382,7 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
 
 @click.command("arrhenius")
 @_csv_argument
+@_table_options
 @_db_option
 @_channel_option
 @click.option("--model", type=click.Choice([m for m in MODELS if m != "zero_order"]),

@@ -367,17 +367,30 @@ class Store(StoreQueries):
             # error, said as such, not a traceback
             if self.conn.in_transaction:
                 self.conn.execute("ROLLBACK")
+            if exc.sqlite_errorcode == sqlite3.SQLITE_FULL if hasattr(exc, "sqlite_errorcode") else "full" in str(exc):
+                raise StoreError(f"cannot write {self.path} ({exc}): free some space and run it again — nothing of "
+                                 "this transaction was stored, and nothing unstored was acknowledged") from exc
             raise StoreError(f"cannot write {self.path} ({exc}): is the file or its folder read-only, or the disk "
                              "full?") from exc
+        except sqlite3.DatabaseError as exc:
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            raise StoreError(f"cannot write {self.path} ({exc}): check it with `sqlite3 {self.path} 'PRAGMA "
+                             "integrity_check'`") from exc
         except BaseException:
-            self.conn.execute("ROLLBACK")
+            # SQLite may have rolled back by itself already (a full disk does that): a second ROLLBACK would fail
+            # and hide the error that matters
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
             raise
         else:
             try:
                 self.conn.execute("COMMIT")
-            except sqlite3.OperationalError as exc:
-                self.conn.execute("ROLLBACK")
-                raise StoreError(f"cannot commit to {self.path} ({exc})") from exc
+            except sqlite3.DatabaseError as exc:
+                if self.conn.in_transaction:
+                    self.conn.execute("ROLLBACK")
+                raise StoreError(f"cannot commit to {self.path} ({exc}): is the disk full? Nothing of this "
+                                 "batch was stored") from exc
 
     # -- ingest -------------------------------------------------------------------------------------------------
 
