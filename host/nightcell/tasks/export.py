@@ -15,13 +15,14 @@ Example::
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
 from ..render import report as _report
 from .analyse import analyse_run, calibrate_from_store, run_conditions, run_provenance, run_series
-from ..errors import AnalysisError, InputError
+from ..errors import AnalysisError, InputError, SuspectData
 from ..science.optics import flag_names
 from ..render.report import out_folder, write_atomic
 from ..store.database import Run, Store
@@ -85,7 +86,9 @@ SAMPLE_COLUMNS = ("device", "boot", "seq", "channel", "uptime_ms", "wall_clock_u
                   "dark", "light", "temp_centi")
 MARK_COLUMNS = ("device", "boot", "seq", "uptime_ms", "mark", "source", "label", "value", "channel", "reads", "dark",
                 "light")
-ABSORBANCE_COLUMNS = ("time_s", "absorbance", "flags", "flag_names", "boot", "seq", "blank", "time_basis")
+ABSORBANCE_COLUMNS = ("time_s", "absorbance", "flags", "flag_names", "boot", "seq", "blank", "time_basis", "weight")
+"""``weight`` is the T² weight ``rate --db`` fits with (0 for flagged readings, which it leaves out), so
+``nightcell rate`` on this file weighs the readings the same way and gives the same k and SE."""
 
 
 def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None, channel: int = 0) -> Written:
@@ -120,16 +123,17 @@ def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None,
             continue
         blank = f"{series['blank'].boot}:{series['blank'].seq}"
         done.files.append(_csv(out / f"{name}-absorbance.csv", ABSORBANCE_COLUMNS, (
-            (float(t), float(a), int(f), " ".join(flag_names(int(f))), b, s, blank, series["time_basis"])
+            (float(t), float(a), int(f), " ".join(flag_names(int(f))), b, s, blank, series["time_basis"],
+             repr(float(10.0 ** (-2.0 * a))) if f == 0 and math.isfinite(a) else 0)
             for t, a, f, (b, s) in zip(series["time_s"], series["absorbance"], series["flags"], series["seqs"]))))
     return done
 
 
 def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cache: dict | None = None,
-               level: float = 0.95) -> Written:
+               blank: str | None = None, accept_suspect: bool = False, level: float = 0.95) -> Written:
     """One self-contained HTML page for a run (figures embedded), and its figures as PNG and SVG beside it.
 
-    The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AIC). When its
+    The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AICc). When its
     device recorded standards the calibration is fitted, shown, and used to give concentrations. The page itself is
     drawn by ``report.run_report``; this function gathers what it shows from the store. ``level``: the
     calibration's intervals and prediction band.
@@ -138,10 +142,14 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
     done = Written()
     cal = None
     try:
-        cal = calibrate_from_store(store, run.device, channel, level=level)
+        cal = calibrate_from_store(store, run.device, channel, before=(run.start_boot, run.start_seq),
+                                   accept_suspect=accept_suspect, level=level)
+    except SuspectData as exc:
+        done.skipped.append(f"calibration for run {run.key}: {exc}")
     except AnalysisError:
         cal = None  # no standards (or none usable) on this device: the page shows absorbance only
-    analysis = analyse_run(store, run, channel=channel, calibration=cal)
+    analysis = analyse_run(store, run, channel=channel, calibration=cal, blank=blank,
+                           accept_suspect=accept_suspect)
     provenance = run_provenance(store, analysis, cal)
     conditions = run_conditions(store, run).get(run.key)
     files = _report.run_report(analysis, out, calibration=cal, provenance=provenance, conditions=conditions,
