@@ -85,6 +85,7 @@ REVIEWED_DYNAMIC_SQL = {
     ("store.py", "query"): "the caller's SQL text; callers pass data as params",
     ("store.py", "marks"): "fixed WHERE clauses with ? placeholders",
     ("store.py", "run_samples"): "fixed clauses with ? placeholders",
+    ("store.py", "_run_sample_columns"): "fixed clauses with ? placeholders and column names from its own tuples",
     ("store.py", "open"): "an integer from a module constant",
     ("store.py", "insert_rows"): "table names from ingest's own dict, ? placeholders",
     ("store.py", "_migrations"): "statements from schema/migrations",

@@ -20,10 +20,9 @@ import time
 from dataclasses import dataclass
 from itertools import repeat
 from pathlib import Path
-from typing import Any, Iterable, Iterator
+from typing import TYPE_CHECKING, Any, Iterable, Iterator
 
 import numpy as np
-import sqlite_utils
 
 from . import __version__
 from .errors import InputError, SchemaTooNew, StoreError
@@ -41,6 +40,9 @@ from .frames import (
     sample_columns,
 )
 from .timeline import unwrap_uptimes
+
+if TYPE_CHECKING:
+    import sqlite_utils
 
 __all__ = ["Store", "migration_files", "Run"]
 
@@ -71,11 +73,13 @@ def _statements(sql: str) -> Iterator[str]:
         raise StoreError("a migration file ends in an incomplete SQL statement")
 
 
-def _migrations() -> sqlite_utils.Migrations:
+def _migrations() -> "sqlite_utils.Migrations":
+    import sqlite_utils  # only to migrate: opening a database that is up to date does not load it (nor pandas)
+
     migrations = sqlite_utils.Migrations(MIGRATION_SET)
     for name, sql in migration_files():
 
-        def apply(db: sqlite_utils.Database, _sql: str = sql) -> None:
+        def apply(db: "sqlite_utils.Database", _sql: str = sql) -> None:
             for stmt in _statements(_sql):
                 db.conn.execute(stmt)
 
@@ -110,24 +114,23 @@ class Run:
         }
 
 
-def _int_columns(names: tuple[str, ...], texts: tuple, n: int, run: Run) -> dict[str, np.ndarray]:
-    """Columns of ``n`` integers each from SQLite's comma-separated group_concat texts (parsed in one go)."""
-    if n == 0:
-        return {name: np.zeros(0, dtype=np.int64) for name in names}
-    values = np.fromstring(",".join(texts), dtype=np.int64, sep=",")
-    if values.size != len(names) * n:
-        raise StoreError(f"run {run.key}: a sample column did not read back whole; check the database with "
-                         "`sqlite3 DB 'PRAGMA integrity_check'`")
-    return dict(zip(names, values.reshape(len(names), n)))
-
-
 class Store:
     """One nightcell database file."""
 
     def __init__(self, conn: sqlite3.Connection, path: str):
         self.conn = conn
         self.path = path
-        self.db = sqlite_utils.Database(conn)
+        self._db: "sqlite_utils.Database | None" = None
+
+    @property
+    def db(self) -> "sqlite_utils.Database":
+        """sqlite-utils' view of the same connection, made when first asked for (importing sqlite-utils also
+        imports pandas where it is installed: about a second of start-up that reading a database does not need)."""
+        if self._db is None:
+            import sqlite_utils
+
+            self._db = sqlite_utils.Database(self.conn)
+        return self._db
 
     # -- opening ------------------------------------------------------------------------------------------------
 
@@ -169,11 +172,12 @@ class Store:
         return store
 
     def _migrate(self, *, readonly: bool) -> None:
-        migrations = _migrations()
         known = {name for name, _ in migration_files()}
         try:
-            applied = {m.name for m in migrations.applied(self.db)}
-            tables = set(self.db.table_names())
+            # what sqlite-utils' Migrations.applied and Database.table_names read, read here with plain SQL
+            tables = {name for (name,) in self.conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+            applied = set() if "_sqlite_migrations" not in tables else {name for (name,) in self.conn.execute(
+                "SELECT name FROM _sqlite_migrations WHERE migration_set = ?", (MIGRATION_SET,))}
         except sqlite3.DatabaseError as exc:
             raise StoreError(f"{self.path} is not a nightcell database ({exc}): check the --db path") from exc
         unknown = applied - known
@@ -189,7 +193,7 @@ class Store:
                 raise StoreError(f"{self.path} needs migrating: open it once without read-only access")
             try:
                 with self.write():
-                    migrations.apply(self.db)
+                    _migrations().apply(self.db)
             except sqlite3.OperationalError as exc:
                 raise StoreError(f"cannot migrate {self.path} ({exc}): is the file or its folder read-only?") from exc
 
@@ -423,7 +427,14 @@ class Store:
         the run that was open when the board lost power."""
         runs: list[Run] = []
         open_run: dict[str, Run] = {}
-        for m in self.marks(device):
+        # only the run marks, without their counts (a run needs neither; one query, not one per mark)
+        if device is None:
+            marks = self.query("SELECT device, boot, seq, mark, source, label FROM marks "
+                               "WHERE mark IN ('run_start', 'run_stop') ORDER BY device, boot, seq")
+        else:
+            marks = self.query("SELECT device, boot, seq, mark, source, label FROM marks "
+                               "WHERE device = ? AND mark IN ('run_start', 'run_stop') ORDER BY boot, seq", (device,))
+        for m in marks:
             if m["mark"] == "run_start":
                 current = open_run.get(m["device"])
                 if m["source"] == 2 and current is not None:
@@ -452,55 +463,70 @@ class Store:
         sql += " ORDER BY s.boot, s.seq"
         return self.query(sql, params)
 
+    def run_sample_counts(self, runs: Iterable[Run], channel: int = 0) -> list[int]:
+        """How many samples of ``channel`` each run holds (the rows ``run_samples`` would return), counted by SQLite
+        over each run's range of the primary key, so listing runs reads no sample into Python."""
+        out = []
+        for run in runs:
+            if run.stop_boot == run.start_boot:
+                row = self.conn.execute(
+                    "SELECT count(*) FROM samples WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?",
+                    (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)).fetchone()
+            else:
+                stop = (run.stop_boot, run.stop_seq) if run.stop_boot is not None else (_NO_END, _NO_END)
+                row = self.conn.execute(
+                    "SELECT count(*) FROM samples WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) "
+                    "AND (boot, seq) < (?, ?)", (run.device, channel, run.start_boot, run.start_seq, *stop)).fetchone()
+            out.append(int(row[0]))
+        return out
+
     def run_sample_columns(self, run: Run, channel: int = 0) -> dict[str, Any]:
         """A run's samples as numpy columns, in (boot, seq) order across boots, and the clocks of their boots.
 
         Returns ``boot``, ``seq``, ``uptime_ms``, ``flags``, ``reads``, ``dark``, ``light`` (int64 arrays, one entry per
         sample; the same rows as ``run_samples``) and ``clocks``: ``{boot: (unix_at_zero, rate, quality)}`` for the
-        boots that have a clock. Made for the analysis of many runs: one range scan of the samples' primary key,
-        each column read as one text (SQLite writes the digits; numpy parses them), with no per-row Python objects.
-        In a run within one boot the boot is known, and reads and flags (the same for every sample of most runs)
-        are read as text only when they vary. The range scan meets rows in key order; the order is checked, and
-        restored if it ever were not.
+        boots that have a clock. Made for long runs and for many runs: SQLite counts the run's samples first, then
+        one range scan of the samples' primary key streams straight into preallocated arrays (``numpy.fromiter``),
+        so no row outlives its step and no text of the whole run is built. In a run within one boot the boot is
+        known, and reads and flags (the same for every sample of most runs) are read only when they vary (three
+        cheap aggregates tell). The range scan meets rows in key order (``ORDER BY`` the key costs nothing more).
         """
+        own = not self.conn.in_transaction
+        if own:  # the count and the scan see one snapshot, even while a sync adds rows
+            self.conn.execute("BEGIN")
+        try:
+            return self._run_sample_columns(run, channel)
+        finally:
+            if own and self.conn.in_transaction:
+                self.conn.execute("COMMIT")
+
+    def _run_sample_columns(self, run: Run, channel: int) -> dict[str, Any]:
         stop = (run.stop_boot, run.stop_seq) if run.stop_boot is not None else (_NO_END, _NO_END)
-        names = ("seq", "uptime_ms", "dark", "light")
         if run.stop_boot == run.start_boot:
-            # a run within one boot (most runs): plain bounds on seq, the boot known, and reads and flags checked
-            # with three cheap aggregates (each extra column of text costs more than the scan itself)
-            where = (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)
-            row = self.conn.execute(
-                "SELECT count(*), min(reads), max(reads), sum(flags <> 0), group_concat(seq), group_concat(uptime_ms), "
-                "group_concat(dark), group_concat(light) FROM samples "
-                "WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?", where).fetchone()
-            n = int(row[0])
-            cols = _int_columns(names, row[4:], n, run)
-            cols["boot"] = np.full(n, run.start_boot, dtype=np.int64)
-            if n and row[1] == row[2] and row[3] == 0:
-                cols["reads"] = np.full(n, row[1], dtype=np.int64)
-                cols["flags"] = np.zeros(n, dtype=np.int64)
-            elif n:
-                more = self.conn.execute(
-                    "SELECT group_concat(seq), group_concat(reads), group_concat(flags) FROM samples "
-                    "WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?", where).fetchone()
-                extra = _int_columns(("seq", "reads", "flags"), more, n, run)
-                if not np.array_equal(extra.pop("seq"), cols["seq"]):
-                    raise StoreError(f"run {run.key}: its samples changed while they were read; read it again")
-                cols.update(extra)
+            # a run within one boot (most runs): plain bounds on seq, the boot known
+            where = "WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?"
+            params: tuple = (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)
+            n, lo_reads, hi_reads, flagged = self.conn.execute(
+                f"SELECT count(*), min(reads), max(reads), sum(flags <> 0) FROM samples {where}", params).fetchone()
+            same = bool(n) and lo_reads == hi_reads and flagged == 0
+            names = ("seq", "uptime_ms", "dark", "light") + (() if same else ("reads", "flags"))
         else:
-            row = self.conn.execute(
-                "SELECT count(*), group_concat(seq), group_concat(uptime_ms), group_concat(dark), group_concat(light), "
-                "group_concat(boot), group_concat(reads), group_concat(flags) FROM samples "
-                "WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?)",
-                (run.device, channel, run.start_boot, run.start_seq, *stop)).fetchone()
-            n = int(row[0])
-            cols = _int_columns(names + ("boot", "reads", "flags"), row[1:], n, run)
-        if n:
-            key_b, key_s = cols["boot"], cols["seq"]
-            if np.any((key_b[1:] < key_b[:-1]) | ((key_b[1:] == key_b[:-1]) & (key_s[1:] <= key_s[:-1]))):
-                # SQLite does not promise the order in which group_concat meets rows; put them in order if it moved
-                order = np.lexsort((key_s, key_b))
-                cols = {name: c[order] for name, c in cols.items()}
+            where = "WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?)"
+            params = (run.device, channel, run.start_boot, run.start_seq, *stop)
+            (n,) = self.conn.execute(f"SELECT count(*) FROM samples {where}", params).fetchone()
+            same = False
+            names = ("boot", "seq", "uptime_ms", "dark", "light", "reads", "flags")
+        n = int(n)
+        # our own column names, never input (the security test lists this place)
+        cur = self.conn.execute(f"SELECT {', '.join(names)} FROM samples {where} ORDER BY boot, seq", params)
+        table = np.fromiter(cur if len(names) > 1 else (r[0] for r in cur),
+                            dtype=[(name, np.int64) for name in names], count=n)
+        cols: dict[str, Any] = {name: table[name] for name in names}  # views of the one table: no copies
+        if "boot" not in cols:
+            cols["boot"] = np.full(n, run.start_boot, dtype=np.int64)
+        if same:
+            cols["reads"] = np.full(n, lo_reads, dtype=np.int64)
+            cols["flags"] = np.zeros(n, dtype=np.int64)
         clocks = {b: (u, r, q) for b, u, r, q in self.conn.execute(
             "SELECT boot, unix_at_zero, rate, quality FROM boot_clocks WHERE device = ? AND boot >= ? AND boot <= ?",
             (run.device, run.start_boot, stop[0]))}

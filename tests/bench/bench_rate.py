@@ -19,7 +19,7 @@ import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from sidebyside import DEVICE, PLAIN_RATE, build_runs_db, interleaved_processes, median, ratio_row  # noqa: E402
+from sidebyside import DEVICE, LONG_RUN_RATE_SPAN_S, PLAIN_RATE, build_runs_db, interleaved_processes, median, ratio_row  # noqa: E402
 
 from nightcell.store import Store  # noqa: E402
 
@@ -30,7 +30,7 @@ def run(quick: bool) -> list[dict]:
     n_points = 100_000 if quick else 1_000_000
     with tempfile.TemporaryDirectory() as tmp:
         db = Path(tmp) / "long.db"
-        (truth,) = build_runs_db(db, 1, n_points)
+        (truth,) = build_runs_db(db, 1, n_points, span_s=LONG_RUN_RATE_SPAN_S)
         with Store.open(db) as store:
             (r,) = store.runs()
         script = Path(tmp) / "plain_rate.py"

@@ -18,7 +18,7 @@ import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from sidebyside import (DEVICE, PLAIN_PNG, PLAIN_RATE, build_runs_db, interleaved_processes, median,  # noqa: E402
+from sidebyside import (DEVICE, LONG_RUN_RATE_SPAN_S, PLAIN_PNG, PLAIN_RATE, build_runs_db, interleaved_processes, median,  # noqa: E402
                         ratio_row)
 
 from nightcell.store import Store  # noqa: E402
@@ -31,7 +31,7 @@ def run(quick: bool) -> list[dict]:
     with tempfile.TemporaryDirectory() as tmp:
         tmp_p = Path(tmp)
         db = tmp_p / "long.db"
-        build_runs_db(db, 1, n_points)
+        build_runs_db(db, 1, n_points, span_s=LONG_RUN_RATE_SPAN_S)
         with Store.open(db) as store:
             (r,) = store.runs()
         (tmp_p / "plain_rate.py").write_text(PLAIN_RATE)

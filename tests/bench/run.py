@@ -54,6 +54,11 @@ FIGURES: dict[str, str] = {
     "NIST digits": r"nist",
     "interval coverage": r"coverage",
     "demo time": r"demo.*(time|seconds)",
+    "list runs ratio": r"list_runs_over_plain",
+    "list runs flat in samples": r"list_runs_flat",
+    "long-run rate time and memory": r"rate_db_long_run_(time|memory)_ratio",
+    "long-run report time, memory and files": r"report_run_long_(time|memory)_ratio|report_largest_file",
+    "study report per run": r"study_report_seconds_per_run_beyond",
 }
 
 

@@ -96,6 +96,9 @@ def median(values: Sequence[float]) -> float:
 DEVICE = "bench-cell"
 READS, DARK, LED, INTERVAL_MS, COUNT_SD = 16, 100.0, 3400.0, 2000, 3.0
 UNIX_ZERO_MS = 1_796_000_000_000
+# a long run logs on long after its reaction ends: rates drawn as for a run of 2000 s (k·span of thousands over
+# 10⁶ samples), the case where a search limited to k·span < 300 gave up
+LONG_RUN_RATE_SPAN_S = 2000.0
 
 
 def plateau(t: np.ndarray, a0: float, a_inf: float, k: float) -> np.ndarray:
