@@ -23,7 +23,7 @@ def vectors() -> dict:
 @pytest.fixture
 def store(tmp_path):
     """A fresh nightcell database file."""
-    from nightcell.store import Store
+    from nightcell.store.database import Store
 
     s = Store.open(tmp_path / "test.db")
     yield s
@@ -33,7 +33,7 @@ def store(tmp_path):
 @pytest.fixture
 def sim_board(tmp_path):
     """A simulated board (real firmware in MicroPython where installed) behind a pty; yields the SimulatedBoard."""
-    from nightcell.simulate import SimulatedBoard
+    from nightcell.sim.board import SimulatedBoard
 
     sim = SimulatedBoard(tmp_path / "sim", device="5e1f000000000001", speed=50.0, seed=3,
                          settings={"interval_ms": 2000, "durability_ms": 2000})

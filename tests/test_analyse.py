@@ -16,8 +16,8 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.optimize import curve_fit
 
-from nightcell import study
-from nightcell.analyse import (
+from nightcell.science import study
+from nightcell.tasks.analyse import (
     BLANK_RULE,
     analyse_run,
     analyse_study,
@@ -30,7 +30,7 @@ from nightcell.analyse import (
     standards_from_store,
 )
 from nightcell.errors import AnalysisError, InputError
-from nightcell.timeline import rebuild_clocks
+from nightcell.store.clocks import rebuild_clocks
 
 DEV = "a0b1c2d3e4f50607"
 READS = 16

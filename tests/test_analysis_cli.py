@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from nightcell import analysis_cli
+from nightcell.cli import analysis as analysis_cli
 
 
 @pytest.fixture()

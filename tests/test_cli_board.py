@@ -14,8 +14,8 @@ from click.testing import CliRunner
 
 from nightcell import cli as cli_module
 from nightcell.cli import cli
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard
 
 SETTINGS_MD = Path(__file__).resolve().parent.parent / "schema" / "settings.md"
 

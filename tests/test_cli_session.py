@@ -20,7 +20,7 @@ import pytest
 from click.testing import CliRunner
 
 from nightcell.cli import cli
-from nightcell.simulate import SimulatedBoard
+from nightcell.sim.board import SimulatedBoard
 
 # The session's invented cuvette (ours, used nowhere else): absorbance per µM, standards, and a first-order fading.
 EPSILON_PER_UM = 0.075

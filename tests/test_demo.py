@@ -1,7 +1,7 @@
 """End to end: the demo runs the real firmware on two simulated boards side by side, logs with the host unplugged,
 survives a power cut in the middle of a run, syncs each board once into one database, analyses and reports.
 
-The scenario's numbers are invented for the demo (host/nightcell/demo.py, DemoScenario); here they are the truth the
+The scenario's numbers are invented for the demo (host/nightcell/tasks/demo.py, DemoScenario); here they are the truth the
 fits must recover, within the uncertainty each fit states. One demo run serves every test in this module.
 """
 
@@ -14,7 +14,7 @@ import sqlite3
 
 import pytest
 
-from nightcell.demo import DemoScenario, run_demo
+from nightcell.tasks.demo import DemoScenario, run_demo
 
 SC = DemoScenario()
 

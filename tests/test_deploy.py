@@ -7,9 +7,9 @@ import time
 
 import pytest
 
-from nightcell.deploy import SIM_FILES, build_firmware, deploy, firmware_version
-from nightcell.link import Board
-from nightcell.simulate import UnixRepl, micropython_command
+from nightcell.tasks.deploy import SIM_FILES, build_firmware, deploy, firmware_version
+from nightcell.wire.link import Board
+from nightcell.sim.board import UnixRepl, micropython_command
 
 # A real board restarts with a reset; the unix stand-in runs the firmware again in the same interpreter, so the
 # simulated flash mounted by the run before is unmounted first.
@@ -60,11 +60,11 @@ def test_deploy_to_a_unix_repl_and_leave_it_logging(tmp_path):
 def test_a_running_board_is_held_before_anything_is_copied(tmp_path):
     """Before copying, deploy asks a board that answers `hello` to restart held (no watchdog, no logger, once), so a
     watchdog reset cannot cut the copy short; the board journals why it reset."""
-    from nightcell import deploy as deploy_module
-    from nightcell.simulate import SimulatedBoard
-    from nightcell.store import Store
-    from nightcell.sync import sync_board
-    from nightcell.link import Board
+    from nightcell.tasks import deploy as deploy_module
+    from nightcell.sim.board import SimulatedBoard
+    from nightcell.store.database import Store
+    from nightcell.store.sync import sync_board
+    from nightcell.wire.link import Board
 
     sim = SimulatedBoard(tmp_path / "held", device="5e1f0000000000d7", speed=20.0)
     sim.start()

@@ -13,13 +13,14 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from nightcell import export as export_module
+from nightcell.tasks import export as export_module
 from nightcell.cli import cli
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard
+from nightcell.errors import InputError
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard
+from nightcell.store.tables import RAW_TABLES
 
 HOSTILE = "<script>alert(1)</script>'; DROP TABLE samples;--"
-RAW_TABLES = ("boots", "samples", "marks", "mark_counts", "anchors", "events", "settings_records", "health")
 
 
 def _cli(*args, env=None):
@@ -160,7 +161,8 @@ def test_write_atomic_leaves_nothing_when_the_rename_fails(tmp_path, monkeypatch
         raise OSError("disk full")
 
     monkeypatch.setattr(export_module._report.os, "replace", broken)
-    with pytest.raises(OSError):
+    # a write the OS refuses is bad input (exit 2) that names the path and the reason
+    with pytest.raises(InputError, match="cannot write .*page.html: disk full"):
         export_module.write_atomic(target, b"new page")
     assert target.read_text() == "old page"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["page.html"]

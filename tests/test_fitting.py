@@ -10,7 +10,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from nightcell.errors import DegenerateData, FitFailed, NonFiniteInput, ShapeMismatch, TooFewPoints
-from nightcell.fitting import FitResult, check_pairs, linear_lstsq, nonlinear_lstsq, runs_test
+from nightcell.science.fitting import FitResult, check_pairs, linear_lstsq, nonlinear_lstsq, runs_test
 
 # NIST Statistical Reference Datasets (StRD), Norris — table copied from shared/REFERENCES.md.
 NORRIS_Y = np.array([

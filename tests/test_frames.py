@@ -8,7 +8,7 @@ import zlib
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from nightcell import frames as F
+from nightcell.wire import frames as F
 from nightcell.errors import ProtocolError
 
 
@@ -162,7 +162,7 @@ def test_ack_and_anchor_carry_their_check_on_the_wire(vectors):
     assert F.check_field("anchor", 1796131200123) == lines["anchor"].split()[-1]
 
     from nightcell.errors import DeviceTimeout
-    from nightcell.link import Board, Transport
+    from nightcell.wire.link import Board, Transport
 
     sent = []
 

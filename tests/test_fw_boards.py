@@ -8,7 +8,7 @@ MicroPython's rp2 port source [memory]; the test only relies on the top 12 bits 
 
 import json
 
-from fwharness import SCHEMA, results, run_mp
+from support.fwharness import SCHEMA, results, run_mp
 
 FAKES = r"""
 import sys, json
@@ -299,7 +299,7 @@ print("adcs=" + json.dumps(ADC.made))
 
 
 def test_probe_temperature_second_led_and_reference_channel_are_journaled():
-    from nightcell import frames as F
+    from nightcell.wire import frames as F
 
     res = results(run_mp(PROBE_AND_CHANNELS))
     recs = list(F.iter_records(bytes.fromhex(res["journal"]), 0))  # decoded by the host's reference codec

@@ -6,15 +6,15 @@ the board then remounts, recovers and resumes. After every cut the script checks
 record of the journal reads back whole with a good CRC (0 unreadable journals), the new boot wrote its BOOT record,
 no (boot, seq) appears twice, every sample taken more than the durability window before the cut is on the board or
 already with the host, and its counts are the ones the sampler produced. The final journal is then decoded again in
-CPython with the host's reference codec (host/nightcell/frames.py).
+CPython with the host's reference codec (host/nightcell/wire/frames.py).
 
 The benchmark tests/bench/bench_fw_powercut.py runs the same campaign with ≥ 2000 cuts.
 """
 
 from __future__ import annotations
 
-from fwharness import results, run_mp
-from nightcell import frames as F
+from support.fwharness import results, run_mp
+from nightcell.wire import frames as F
 
 CAMPAIGN = r"""
 import sys, struct, random, binascii
@@ -133,7 +133,7 @@ def sync_and_ack():
                 host[k] = v
                 if k in open_keys:
                     del open_keys[k]
-    r = kit.request(b"90 ack %d" % upto)
+    r = kit.request(b"90 ack %d %08x" % (upto, R.crc32(b"ack %d" % upto)))
     assert r[2] == 1, r
 
 def action():

@@ -1,5 +1,5 @@
 """The simulated board behind a pseudo-terminal speaks the link protocol (schema/protocol.md), in MicroPython and
-in CPython. Replies are decoded with the host's reference codec (host/nightcell/frames.py), which is independent
+in CPython. Replies are decoded with the host's reference codec (host/nightcell/wire/frames.py), which is independent
 of the firmware's encoders. The optics check uses the simulation formula of schema/simulation.md with the
 Beer–Lambert transmittance T = 10^−A (common practice, no source needed).
 """
@@ -20,8 +20,8 @@ from pathlib import Path
 
 import pytest
 
-from fwharness import FIRMWARE, micropython
-from nightcell import frames as F
+from support.fwharness import FIRMWARE, micropython
+from nightcell.wire import frames as F
 
 
 class SimProcess:
@@ -195,6 +195,9 @@ def test_every_verb_answers_per_protocol(tmp_path, interp):
         good = F.check_field("ack", pos)
         damaged = sim.send("ack", pos + 1, good)
         assert damaged.kind == F.REPLY_ERR and "check field" in damaged.text()
+        # an ack must carry its check: without one (noise that dropped it) the board trims nothing
+        unchecked = sim.send("ack", pos)
+        assert unchecked.kind == F.REPLY_ERR and "usage: ack <position> <check>" in unchecked.text()
         assert sim.send("anchor", 1796131200999, F.check_field("anchor", 1796131200123)).kind == F.REPLY_ERR
         assert sim.ok("anchor", 1796131200999, F.check_field("anchor", 1796131200999))["boot"] >= 1
         tail = sim.ok("ack", pos, good)["tail"]

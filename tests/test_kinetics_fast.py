@@ -18,7 +18,7 @@ import pytest
 from numpy.testing import assert_allclose
 from scipy.optimize import curve_fit, least_squares
 
-from nightcell import kinetics
+from nightcell.science import kinetics
 from nightcell.errors import FitFailed
 
 T = np.arange(0.0, 2000.0, 2.0)
@@ -215,7 +215,7 @@ def test_half_life_and_ranking_unchanged_in_shape(no_reference):
 def test_columnar_read_of_a_run_equals_the_row_read(store):
     """``Store.run_sample_columns`` (group_concat text parsed by numpy) gives exactly the rows ``run_samples`` gives:
     a run across two boots, a run with no stop mark, runs within one boot whose reads and flags vary or do not."""
-    from nightcell.store import Run
+    from nightcell.store.database import Run
 
     rng = np.random.default_rng(8)
     rows = {"marks": [], "mark_counts": [], "samples": []}
@@ -246,7 +246,7 @@ def test_columnar_read_of_a_run_equals_the_row_read(store):
 def test_kept_mark_list_follows_changes_from_this_and_other_connections(store, tmp_path):
     import sqlite3
 
-    from nightcell.analyse import _mark_before
+    from nightcell.tasks.analyse import _mark_before
 
     def blank(boot, seq):
         return {"marks": [("dev", boot, seq, 0, "blank", 0, 16, "water", "")],

@@ -14,11 +14,11 @@ import pytest
 from click.testing import CliRunner
 from serial.tools.list_ports_common import ListPortInfo
 
-from nightcell import link
+from nightcell.wire import link
 from nightcell.cli import cli
-from nightcell.link import Board, JournalPull, candidate_ports, discover
-from nightcell.simulate import STRAY_TRACEBACK, Fault, Relay, SimulatedBoard
-from nightcell.store import Store
+from nightcell.wire.link import Board, JournalPull, candidate_ports, discover
+from nightcell.sim.board import STRAY_TRACEBACK, Fault, Relay, SimulatedBoard
+from nightcell.store.database import Store
 
 
 def _port(device, vid, pid):
@@ -208,7 +208,7 @@ class _FakeTransport:
     """Replies fed by the test; requests recorded (no port)."""
 
     def __init__(self):
-        from nightcell.frames import ReplyReader
+        from nightcell.wire.frames import ReplyReader
 
         self.reader = ReplyReader()
         self.sent = []
@@ -226,7 +226,7 @@ class _FakeTransport:
 def test_a_duplicated_reply_after_the_last_chunk_is_ignored():
     """The last chunk arrives and a duplicate of a reply is already arriving behind it (a duplicated stretch on the
     cable): the pull ends cleanly with nothing in flight. (Found by the fault campaign.)"""
-    from nightcell import frames as F
+    from nightcell.wire import frames as F
 
     t = _FakeTransport()
     board = Board(t, timeout=0.2, retries=2)

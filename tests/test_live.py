@@ -8,7 +8,7 @@ import math
 
 import pytest
 
-from nightcell.live import Blank, format_duration, journal_fill, reading_absorbance, render_text, sparkline, watch
+from nightcell.tasks.live import Blank, format_duration, journal_fill, reading_absorbance, render_text, sparkline, watch
 
 BLANK = Blank(light=[3100.0], dark=[100.0], boot=1, seq=4, label="water", source="board")
 

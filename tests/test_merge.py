@@ -9,10 +9,10 @@ import sqlite3
 
 import pytest
 
-from nightcell import frames as F
+from nightcell.wire import frames as F
 from nightcell.errors import InputError, SchemaTooNew
-from nightcell.merge import RAW_IDENTITY, merge_database
-from nightcell.store import Store
+from nightcell.store.merge import RAW_IDENTITY, merge_database
+from nightcell.store.database import Store
 
 
 def _records(vectors, names=None):

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from nightcell import optics
+from nightcell.science import optics
 from nightcell.errors import InputError, NonFiniteInput, ShapeMismatch
 
 BLANK_LIGHT, BLANK_DARK = 3600.0, 120.0

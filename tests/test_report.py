@@ -17,8 +17,9 @@ import pytest  # noqa: E402
 from numpy.testing import assert_allclose  # noqa: E402
 from scipy import stats  # noqa: E402
 
-from nightcell import report, study  # noqa: E402
-from nightcell.analyse import (  # noqa: E402
+from nightcell.render import report  # noqa: E402
+from nightcell.science import study  # noqa: E402
+from nightcell.tasks.analyse import (  # noqa: E402
     analyse_run,
     analyse_study,
     calibrate_from_store,
@@ -236,7 +237,7 @@ def test_a_dense_series_is_thinned_for_drawing_only_keeping_each_slices_extremes
 def test_a_run_of_a_hundred_thousand_readings_draws_small_files_that_say_they_are_thinned(tmp_path):
     """The figure of a long run is a few hundred kB in either format (goal: ≤ 2 MB, issue 17), its text says the
     drawing is thinned, and the fit it shows was made from every reading."""
-    from nightcell import kinetics
+    from nightcell.science import kinetics
 
     rng = np.random.default_rng(3)
     t = np.arange(100_000) * 2.0
@@ -244,12 +245,30 @@ def test_a_run_of_a_hundred_thousand_readings_draws_small_files_that_say_they_ar
     fit = kinetics.fit_model(t, a, "first_order_plateau")
     assert fit.n == t.size
     fig, ax, rax = report._two_panel()
-    try:
-        report.plot_run(t, a, fit, ax=ax, resid_ax=rax, title="long")
-        done: list = []
-        png = report._figure_files(fig, tmp_path / "long", done)
-    finally:
-        plt.close(fig)
+    report.plot_run(t, a, fit, ax=ax, resid_ax=rax, title="long")
+    png = report._figure_files(fig, tmp_path / "long", [])
     svg = (tmp_path / "long.svg").read_bytes()
     assert len(png) < 2e6 and len(svg) < 2e6, (len(png), len(svg))
     assert b"thinned" in svg
+
+
+@pytest.mark.parametrize("level", [0.90, 0.99])
+def test_calibration_plot_draws_the_prediction_band_at_the_calibrations_level(level):
+    from nightcell.science.calibration import fit_calibration
+
+    # synthetic standards (invented numbers); the band's half-width at the mean concentration is
+    # t(level, dof)·s_y/x·sqrt(1 + 1/n) for a straight line (the textbook prediction interval, common practice)
+    x = np.array([0.0, 2.0, 4.0, 6.0, 8.0, 10.0])
+    y = 0.004 + 0.075 * x + np.array([0.002, -0.001, 0.0015, -0.002, 0.001, -0.0005])
+    cal = fit_calibration(x, y, level=level)
+    fig, ax = plt.subplots()
+    try:
+        report.plot_calibration(cal, ax=ax)
+        assert f"{100 * level:g} % prediction band" in [t.get_text() for t in ax.get_legend().get_texts()]
+        verts = ax.collections[0].get_paths()[0].vertices
+        at_mean = verts[np.argmin(np.abs(verts[:, 0] - x.mean()))]
+        half = stats.t.ppf(0.5 + level / 2, x.size - 2) * cal.residual_sd * math.sqrt(1 + 1 / x.size)
+        centre = cal.intercept + cal.slope * at_mean[0]
+        assert_allclose(abs(at_mean[1] - centre), half, rtol=2e-2)  # the grid point nearest the mean
+    finally:
+        plt.close(fig)

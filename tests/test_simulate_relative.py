@@ -1,8 +1,8 @@
 """A simulated board made with a relative folder (as `nightcell demo` makes one from a fresh checkout) still starts:
 the firmware runs in its own folder, so every path handed to it must be absolute."""
 
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard
 
 
 def test_relative_workdir_board_answers(tmp_path, monkeypatch):

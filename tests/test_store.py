@@ -4,10 +4,10 @@ import sqlite3
 
 import pytest
 
-from nightcell import frames as F
+from nightcell.wire import frames as F
 from nightcell.errors import InputError, SchemaTooNew, StoreError
-from nightcell.store import Store, migration_files
-from nightcell.timeline import rebuild_clocks
+from nightcell.store.database import Store, migration_files
+from nightcell.store.clocks import rebuild_clocks
 
 
 def _records(vectors):
@@ -112,7 +112,7 @@ def test_an_older_database_is_migrated_when_opened(tmp_path, vectors):
     """A file written by a nightcell that knew only migration 0001 gets the newer ones, in one go, recorded."""
     import sqlite_utils
 
-    from nightcell.store import _statements
+    from nightcell.store.database import _statements
 
     p = tmp_path / "old.db"
     db = sqlite_utils.Database(p)

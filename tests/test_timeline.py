@@ -11,9 +11,10 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from nightcell import frames as F
-from nightcell.store import Store
-from nightcell.timeline import UPTIME_WRAP_MS, fit_boot_clock, rebuild_clocks, unwrap_uptimes
+from nightcell.wire import frames as F
+from nightcell.store.database import Store
+from nightcell.science.timeline import UPTIME_WRAP_MS, fit_boot_clock, unwrap_uptimes
+from nightcell.store.clocks import rebuild_clocks
 
 WEEK_MS = 7 * 86400 * 1000
 

@@ -7,7 +7,7 @@ when the format version changes, and say so in the commit.
 import json
 import pathlib
 
-from nightcell import frames as F
+from nightcell.wire import frames as F
 
 HERE = pathlib.Path(__file__).resolve().parent
 

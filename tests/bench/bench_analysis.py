@@ -40,9 +40,10 @@ from pathlib import Path
 import numpy as np
 from scipy.optimize import curve_fit
 
-from nightcell import analyse, kinetics
-from nightcell import frames as F
-from nightcell.store import Store
+from nightcell.tasks import analyse
+from nightcell.science import kinetics
+from nightcell.wire import frames as F
+from nightcell.store.database import Store
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 from test_bad_input import store_as_synced  # noqa: E402  (the database a sync would have made of these records)

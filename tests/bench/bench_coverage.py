@@ -21,7 +21,7 @@ import math
 
 import numpy as np
 
-from nightcell import calibration, kinetics, optics, study
+from nightcell.science import calibration, kinetics, optics, study
 
 LOW, HIGH = 0.935, 0.965
 BLANK_LIGHT, DARK, FULL_SCALE = 3500.0, 100.0, 4095.0

@@ -16,7 +16,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from test_fw_powercut import run_campaign  # noqa: E402
 
-from nightcell import frames as F  # noqa: E402
+from nightcell.wire import frames as F  # noqa: E402
 
 
 def run(quick: bool) -> list[dict]:

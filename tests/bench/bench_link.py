@@ -18,10 +18,12 @@ import tempfile
 import time
 from pathlib import Path
 
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard, fill_journal
-from nightcell.store import Store
-from nightcell.sync import sync_board
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the shared support package
+from support.campaigns import fill_journal
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_board
 
 BAUD = 115_200
 CAPACITY = BAUD / 10.0

@@ -22,8 +22,8 @@ from pathlib import Path
 
 import numpy as np
 
-from nightcell.calibration import fit_calibration
-from nightcell.fitting import nonlinear_lstsq
+from nightcell.science.calibration import fit_calibration
+from nightcell.science.fitting import nonlinear_lstsq
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 # NIST StRD Norris and Misra1a data, as the fitting tests hold them (copied from shared/REFERENCES.md)

@@ -21,7 +21,7 @@ from pathlib import Path
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from sidebyside import DEVICE, LONG_RUN_RATE_SPAN_S, PLAIN_RATE, build_runs_db, interleaved_processes, median, ratio_row  # noqa: E402
 
-from nightcell.store import Store  # noqa: E402
+from nightcell.store.database import Store  # noqa: E402
 
 TIME_GOAL, MEMORY_GOAL = 1.2, 1.5
 

@@ -21,7 +21,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from sidebyside import (DEVICE, LONG_RUN_RATE_SPAN_S, PLAIN_PNG, PLAIN_RATE, build_runs_db, interleaved_processes, median,  # noqa: E402
                         ratio_row)
 
-from nightcell.store import Store  # noqa: E402
+from nightcell.store.database import Store  # noqa: E402
 
 TIME_GOAL, MEMORY_GOAL, FILE_GOAL_MB = 1.5, 1.5, 2.0
 

@@ -22,8 +22,8 @@ import sqlite_utils
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from sidebyside import ROUNDS, median, ratio_row  # noqa: E402
 
-from nightcell import frames as F
-from nightcell.store import Store, migration_files
+from nightcell.store.database import Store, migration_files  # noqa: E402
+from nightcell.wire import frames as F  # noqa: E402
 
 
 def _journal(samples: int, channels: int = 1, seed: int = 1) -> bytes:

@@ -24,9 +24,9 @@ from sidebyside import build_runs_db  # noqa: E402
 
 import matplotlib.pyplot as plt  # noqa: E402
 
-from nightcell import analyse, export  # noqa: E402
-from nightcell import report as _report  # noqa: E402
-from nightcell.store import Store  # noqa: E402
+from nightcell.tasks import analyse, export  # noqa: E402
+from nightcell.render import report as _report  # noqa: E402
+from nightcell.store.database import Store  # noqa: E402
 
 GOAL_S = 0.15
 FIGURE_FUNCTIONS = ("_figure", "_two_panel", "plot_run", "_shade_restarts", "plot_calibration", "plot_orders",

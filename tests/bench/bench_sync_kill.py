@@ -21,10 +21,12 @@ import time
 from collections import Counter
 from pathlib import Path
 
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard, raw_rows, reference_journal
-from nightcell.store import Store
-from nightcell.sync import sync_board
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the shared support package
+from support.campaigns import raw_rows, reference_journal
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_board
 
 SETTINGS = {"interval_ms": 1000, "durability_ms": 2000, "segment_bytes": 4096,
             "channels": [{"name": "red", "led": 15, "adc": 26}, {"name": "green", "led": 14, "adc": 27}]}
@@ -32,9 +34,9 @@ BAUD = 230_400
 
 _SYNC = """
 import sys
-from nightcell.link import Board
-from nightcell.store import Store
-from nightcell.sync import sync_board
+from nightcell.wire.link import Board
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_board
 with Board.open(sys.argv[1]) as board, Store.open(sys.argv[2]) as store:
     print("ready", flush=True)
     sync_board(board, store, batch_bytes=2048)

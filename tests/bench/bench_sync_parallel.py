@@ -18,10 +18,12 @@ import threading
 import time
 from pathlib import Path
 
-from nightcell.link import Board
-from nightcell.simulate import SimulatedBoard, fill_journal
-from nightcell.store import Store
-from nightcell.sync import sync_ports
+from nightcell.wire.link import Board
+from nightcell.sim.board import SimulatedBoard
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the shared support package
+from support.campaigns import fill_journal
+from nightcell.store.database import Store
+from nightcell.store.sync import sync_ports
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from sidebyside import ROUNDS, ratio_row  # noqa: E402

@@ -59,6 +59,9 @@ FIGURES: dict[str, str] = {
     "long-run rate time and memory": r"rate_db_long_run_(time|memory)_ratio",
     "long-run report time, memory and files": r"report_run_long_(time|memory)_ratio|report_largest_file",
     "study report per run": r"study_report_seconds_per_run_beyond",
+    "start-up": r"start-?up: nightcell --help",
+    "CSV reader ratio": r"csv_reader_over_loadtxt",
+    "page update latency": r"update latency (median|worst)",
 }
 
 

@@ -112,8 +112,8 @@ def build_runs_db(path: Path, n_runs: int, n_points: int, seed: int = 1234,
     rebuilt. Each run is an exponential approach to a plateau seen through counts with Gaussian noise (invented
     numbers, fixed seed); its k is drawn so the run lasts a few half-lives to a few tens (``span_s``: the run's
     length in seconds the rate is drawn for, default its own). Returns each run's true (A0, A_inf, k)."""
-    from nightcell.store import Store
-    from nightcell.timeline import rebuild_clocks
+    from nightcell.store.database import Store
+    from nightcell.store.clocks import rebuild_clocks
 
     rng = np.random.default_rng(seed)
     t = np.arange(n_points) * (INTERVAL_MS / 1000.0)

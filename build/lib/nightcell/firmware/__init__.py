@@ -1,1 +1,0 @@
-"""nightcell firmware (MicroPython); shipped inside the host package as data."""

@@ -1,1 +1,0 @@
-"""Formats both sides obey; shipped inside the host package as data."""

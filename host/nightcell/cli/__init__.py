@@ -1,0 +1,881 @@
+"""The ``nightcell`` command: thin click commands over the library.
+
+Each command parses its options, calls the library, prints the result (or JSON with ``--json``) and turns the
+project's own errors into a one-line message and the error's exit code. Nothing here computes. Shared options
+(``--db``, ``--port``, ``--json``) are defined once in ``options.py`` and mean the same in every command, including
+the families in their own modules (``analysis.py``, ``board.py``), which this group registers at the end.
+
+Exit codes: 0 success; 1 usage or unexpected failure; 2 bad input (file, option, value); 3 board not found, not
+answering or refusing; 4 database cannot be opened or written; 5 the data cannot support the analysis;
+130 interrupted.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import datetime
+import functools
+import json
+import sys
+import time
+from pathlib import Path
+from typing import Any, Callable, Iterator, Sequence
+
+import click
+
+from .. import __version__
+from ..errors import DeviceError, InputError
+from .options import EXIT_CODES, db_option, friendly, json_option, open_reading, open_writing, port_option
+from .options import emit as _emit
+
+__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES", "open_reading",
+           "open_writing"]
+
+
+
+@contextlib.contextmanager
+def _connected(port: str) -> Iterator[tuple[Any, dict[str, Any]]]:
+    """The board on ``port`` and its ``hello``: a clear error at once when nothing there speaks nightcell."""
+    from ..wire.link import Board
+
+    with Board.open(port) as board:
+        yield board, board.hello()
+
+
+def _utc(unix_s: float | None) -> str:
+    if unix_s is None:
+        return ""
+    return datetime.datetime.fromtimestamp(unix_s, datetime.timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
+@click.version_option(__version__, prog_name="nightcell")
+def cli() -> None:
+    """nightcell: log a colorimeter cell unattended, then sync, analyse and report.
+
+    Start with `nightcell demo` (no hardware needed). A session: `roll-call` to find the board, `setup`, `clock`,
+    `dark`, `blank`, `standard` for each standard, `start`, `watch`, unplug and let it log, plug in, `stop`, `sync`,
+    then `list runs`, `calibrate`, `rate`, `report` and `export` on the database.
+
+    \b
+    Exit codes:
+      0  success
+      1  usage error or unexpected failure
+      2  bad input: a file, option or value that cannot be used as given
+      3  board: not found, not answering, or refusing a request
+      4  database: cannot be opened, migrated or written
+      5  analysis: the data cannot support the analysis asked for
+      130 interrupted (Ctrl-C)
+    """
+
+
+@cli.command()
+@click.option("--out", type=click.Path(file_okay=False, path_type=Path), default="nightcell-demo",
+              show_default=True, help="Folder for the database, report and figures.")
+@click.option("--force", is_flag=True, help="Write into a folder that is not empty.")
+@click.option("--interpreter", type=click.Choice(["auto", "micropython", "cpython"]), default="auto",
+              show_default=True, help="Run the firmware in MicroPython's unix port or in CPython.")
+@json_option
+@friendly
+def demo(out: Path, force: bool, interpreter: str, as_json: bool) -> None:
+    """Run the whole job on two simulated boards: calibrate, log unattended through a power cut, sync, analyse
+    orders and activation energy, report.
+
+    Example: nightcell demo --out demo-run
+    """
+    from ..tasks.demo import run_demo
+
+    outcome = run_demo(out, force=force, interpreter=interpreter, say=(lambda s: None) if as_json else click.echo)
+    if as_json:
+        _emit({"report": str(outcome.report), "db": str(outcome.db), "seconds": round(outcome.seconds, 2),
+               **outcome.summary}, True, "")
+    else:
+        click.echo(f"done in {outcome.seconds:.1f} s")
+
+
+# -- a simulated board to try every command on -----------------------------------------------------------------------
+
+SIM_DEVICE = "5e1fc0ffee000001"
+
+
+def _sim_folder(path: Path) -> Path:
+    if path.exists() and not path.is_dir():
+        raise InputError(f"{path} is a file: give --dir a folder for the simulated board's flash and cuvette")
+    return path
+
+
+@cli.command("sim-board")
+@click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
+              show_default=True, help="Folder for the board's flash image and cuvette file (kept between runs).")
+@click.option("--speed", type=click.FloatRange(min=1.0, max=1000.0), default=1.0, show_default=True,
+              help="How many times faster than real time the board's clock runs.")
+@click.option("--seconds", type=click.FloatRange(min=0.1), default=None,
+              help="Stop by itself after this many real seconds (default: run until Ctrl-C).")
+@click.option("--interpreter", type=click.Choice(["auto", "micropython", "cpython"]), default="auto",
+              show_default=True, help="Run the firmware in MicroPython's unix port or in CPython.")
+@friendly
+def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: str) -> None:
+    """Run the real firmware on a simulated board and print its port, to try every board command without hardware.
+
+    Leave it running; in another terminal give its port to the other commands and change its cuvette with
+    `nightcell sim-cuvette`. Ctrl-C switches it off (its flash is kept in --dir, so it starts again where it was).
+
+    Example: nightcell sim-board --dir my-sim
+    """
+    import time
+
+    from ..sim.board import SimulatedBoard
+
+    sim = SimulatedBoard(_sim_folder(folder), device=SIM_DEVICE, speed=speed, interpreter=interpreter)
+    sim.start()
+    try:
+        click.echo(f"port: {sim.url}")
+        click.echo(f"simulated board {SIM_DEVICE} running the firmware in {sim.interpreter}, clock x{speed:g}; "
+                   f"its cuvette holds {sim.cell_path.name} in {sim.workdir}")
+        click.echo(f"try: NIGHTCELL_PORT={sim.url} nightcell hello   — Ctrl-C switches the board off")
+        sys.stdout.flush()
+        end = None if seconds is None else time.monotonic() + seconds
+        while end is None or time.monotonic() < end:
+            time.sleep(0.2)
+            if not sim.alive():
+                raise DeviceError("the simulated board stopped by itself:\n" + sim.stderr_text()[-2000:])
+    except KeyboardInterrupt:
+        pass
+    finally:
+        sim.stop()
+    click.echo("simulated board switched off (its flash is kept)")
+
+
+@cli.command("sim-cuvette")
+@click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
+              show_default=True, help="The folder a running `nightcell sim-board` was given.")
+@click.option("--absorbance", type=float, help="A solution of this absorbance (0 for the blank's solvent).")
+@click.option("--fading", metavar="A0:A_END:K",
+              help="A reaction: absorbance A0 fading (or growing) to A_END with rate constant K per second.")
+@click.option("--blocked", is_flag=True, help="Block the light path (for `nightcell opaque`).")
+@json_option
+@friendly
+def sim_cuvette(folder: Path, absorbance: float | None, fading: str | None, blocked: bool, as_json: bool) -> None:
+    """Put something in the simulated board's cuvette: a solution, a reaction, or nothing at all (blocked).
+
+    Example: nightcell sim-cuvette --absorbance 0.35
+    """
+    import math
+
+    from ..sim.board import SimulatedBoard
+
+    if sum([absorbance is not None, fading is not None, blocked]) != 1:
+        raise InputError("give exactly one of --absorbance, --fading A0:A_END:K or --blocked")
+    if not (_sim_folder(folder) / f"{SIM_DEVICE}.cell.json").exists():
+        raise InputError(f"no simulated board in {folder}: start one with `nightcell sim-board --dir {folder}`")
+    if absorbance is not None:
+        if not math.isfinite(absorbance) or not -0.1 <= absorbance <= 5.0:
+            raise InputError(f"--absorbance {absorbance:g} is not a plausible absorbance: give 0 to 5")
+        content: dict[str, Any] = {"absorbance": absorbance}
+    elif fading is not None:
+        try:
+            a0, a_end, k = (float(v) for v in fading.split(":"))
+        except ValueError:
+            raise InputError(f"--fading {fading!r}: write A0:A_END:K, e.g. 0.8:0.05:0.01") from None
+        if not all(math.isfinite(v) for v in (a0, a_end, k)) or k <= 0 or not (0 <= a0 <= 5 and 0 <= a_end <= 5):
+            raise InputError(f"--fading {fading!r}: absorbances 0 to 5 and a positive rate constant, please")
+        content = {"reaction": {"a0": a0, "a_inf": a_end, "k_per_s": k}}
+    else:
+        content = {"opaque": True}
+    SimulatedBoard(folder, device=SIM_DEVICE).set_cell(content)
+    _emit(content, as_json, f"the simulated cuvette now holds {json.dumps(content)}")
+
+
+# -- boards ----------------------------------------------------------------------------------------------------------
+
+@cli.command()
+@json_option
+@friendly
+def boards(as_json: bool) -> None:
+    """List serial ports whose USB id a nightcell board can have (`nightcell roll-call` also asks who is there).
+
+    Example: nightcell boards
+    """
+    from ..wire.link import candidate_ports
+
+    found = candidate_ports()
+    lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" for p in found] or \
+        ["no candidate boards found: plug one in (see hardware_notes/linux.md for permissions)"]
+    _emit(found, as_json, "\n".join(lines))
+
+
+@cli.command()
+@port_option
+@json_option
+@friendly
+def hello(port: str, as_json: bool) -> None:
+    """Ask a board who it is and how full its journal is.
+
+    Example: nightcell hello --port /dev/ttyACM0
+    """
+    with _connected(port) as (_, info):
+        pass
+    text = "\n".join(f"{k}: {v}" for k, v in sorted(info.items()))
+    _emit(info, as_json, text)
+
+
+# Host-side checks of the settings `setup` changes: the ranges of schema/settings.md (a test compares them).
+SETTING_RANGES_MS = {"interval_ms": (200, 86_400_000), "warmup_ms": (0, 600_000), "durability_ms": (0, 3_600_000)}
+SETTING_RANGES = {"reads": (1, 256), "path_cm": (0.01, 10.0)}
+LABEL_MAX_BYTES = 32
+MAX_CHANNELS = 4
+
+
+def _seconds_to_ms(key: str, seconds: float | None) -> int | None:
+    if seconds is None:
+        return None
+    lo, hi = SETTING_RANGES_MS[key]
+    ms = int(round(seconds * 1000))
+    if not lo <= ms <= hi:
+        raise InputError(f"{key[:-3].replace('_', '-')} must be from {lo / 1000:g} to {hi / 1000:g} s, not "
+                         f"{seconds:g} s")
+    return ms
+
+
+def _channel(text: str) -> dict[str, Any]:
+    parts = text.split(":")
+    if len(parts) != 3 or not parts[0]:
+        raise InputError(f"--channel {text!r} must be NAME:LED:ADC, e.g. red:15:26 (name, LED pin, ADC pin or "
+                         "sensor channel)")
+    name, led, adc = parts
+    if len(name.encode("utf-8")) > 16:
+        raise InputError(f"channel name {name!r} is longer than 16 bytes: shorten it")
+    try:
+        led_pin, adc_pin = int(led), int(adc)
+    except ValueError:
+        raise InputError(f"--channel {text!r}: LED and ADC must be pin numbers, e.g. red:15:26") from None
+    if not (0 <= led_pin < 256 and 0 <= adc_pin < 256):
+        raise InputError(f"--channel {text!r}: pin numbers run from 0 to 255")
+    return {"name": name, "led": led_pin, "adc": adc_pin}
+
+
+def _check_text(what: str, text: str, verb: str, max_bytes: int | None = None) -> str:
+    """A label or note the board will accept: not too long once percent-encoded on one request line."""
+    from ..wire.frames import encode_request, quote_text
+
+    if max_bytes is not None and len(text.encode("utf-8")) > max_bytes:
+        raise InputError(f"{what} {text!r} is {len(text.encode('utf-8'))} bytes; the board keeps at most "
+                         f"{max_bytes}: shorten it")
+    try:
+        too_long = len(encode_request(65535, verb, "-0.000000000000000000000000001", quote_text(text))) > 250
+    except ValueError:  # the codec refuses lines longer than the protocol allows
+        too_long = True
+    if too_long:
+        raise InputError(f"{what} is too long for one request to the board: keep it under about 60 characters")
+    return text
+
+
+@cli.command()
+@port_option
+@click.option("--interval", type=float, metavar="SECONDS", help="Time between samples of a run (0.2 s to 1 day).")
+@click.option("--warmup", type=float, metavar="SECONDS", help="LED on before a run's first sample (0 to 600 s).")
+@click.option("--durability", type=float, metavar="SECONDS",
+              help="Durability window: samples older than this are on flash (0 to 3600 s; shorter wears flash more).")
+@click.option("--label", "device_label", help=f"The board's own label, e.g. 'bench 3' (at most {LABEL_MAX_BYTES} "
+                                             "bytes).")
+@click.option("--channel", "channels", multiple=True, metavar="NAME:LED:ADC",
+              help="A light channel: name, LED pin, ADC pin (or sensor channel); repeat for up to 4. Replaces all "
+                   "channels; takes effect after the board restarts.")
+@click.option("--reads", type=int, help="ADC reads summed per dark and per light value (1 to 256).")
+@click.option("--path-cm", type=float, help="Optical path length of the cuvette in cm (0.01 to 10).")
+@json_option
+@friendly
+def setup(port: str, interval: float | None, warmup: float | None, durability: float | None,
+          device_label: str | None, channels: tuple[str, ...], reads: int | None, path_cm: float | None,
+          as_json: bool) -> None:
+    """Set a board up: sampling interval, LED warm-up, durability window, label, channels, reads, path length.
+
+    Every value is checked here before anything is sent, so a bad value changes nothing on the board.
+
+    Example: nightcell setup --port /dev/ttyACM0 --interval 30 --warmup 5 --durability 60 --label "bench 3"
+    """
+    changes: dict[str, Any] = {}
+    if device_label is not None:
+        changes["label"] = _check_text("label", device_label, "set", LABEL_MAX_BYTES)
+    for key, seconds in (("interval_ms", interval), ("warmup_ms", warmup), ("durability_ms", durability)):
+        ms = _seconds_to_ms(key, seconds)
+        if ms is not None:
+            changes[key] = ms
+    if reads is not None:
+        lo, hi = SETTING_RANGES["reads"]
+        if not lo <= reads <= hi:
+            raise InputError(f"--reads must be from {lo} to {hi}, not {reads}")
+        changes["reads"] = reads
+    if path_cm is not None:
+        lo, hi = SETTING_RANGES["path_cm"]
+        if not lo <= path_cm <= hi:
+            raise InputError(f"--path-cm must be from {lo:g} to {hi:g} cm, not {path_cm:g}")
+        changes["path_cm"] = path_cm
+    if channels:
+        if len(channels) > MAX_CHANNELS:
+            raise InputError(f"{len(channels)} channels given; a board has at most {MAX_CHANNELS}")
+        parsed = [_channel(c) for c in channels]
+        if len({c["name"] for c in parsed}) != len(parsed):
+            raise InputError("two channels have the same name: give each its own")
+        changes["channels"] = parsed
+    if not changes:
+        raise InputError("nothing to set: give at least one of --interval, --warmup, --durability, --label, "
+                         "--channel, --reads, --path-cm (see `nightcell setup --help`)")
+    applied: dict[str, Any] = {}
+    after_reset: list[str] = []
+    reply: dict[str, Any] = {}
+    with _connected(port) as (board, info):
+        for key, value in changes.items():
+            reply = board.set(key, value)
+            applied[key] = value
+            if reply.get("after_reset"):
+                after_reset.append(key)
+    lines = [f"{info['device']}: " + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
+    lines.append(f"journaled on the board; its settings crc is now {reply.get('settings_crc')}")
+    if after_reset:
+        lines.append(f"{', '.join(after_reset)} take effect when the board restarts (unplug and plug it in)")
+    _emit({"device": info["device"], "applied": applied, "after_reset": after_reset,
+           "settings": reply.get("settings"), "settings_crc": reply.get("settings_crc")}, as_json, "\n".join(lines))
+
+
+@cli.command()
+@port_option
+@json_option
+@friendly
+def clock(port: str, as_json: bool) -> None:
+    """Journal a clock anchor: the host's time now, so the board's readings can be placed in wall-clock time.
+
+    `sync` takes one too; take one before a run that starts while the board is away from its host.
+
+    Example: nightcell clock --port /dev/ttyACM0
+    """
+    with _connected(port) as (board, info):
+        now_ms = int(round(time.time() * 1000))
+        reply = board.anchor(now_ms)
+    text = (f"{info['device']}: clock anchor {reply['boot']}:{reply['seq']} — host time {_utc(now_ms / 1000)} at "
+            f"board uptime {reply['uptime_ms'] / 1000:.1f} s")
+    _emit(dict(reply, device=info["device"], host_unix_ms=now_ms), as_json, text)
+
+
+def _mark_text(device: str, kind: str, reply: dict[str, Any], label: str) -> str:
+    reads = max(1, int(reply.get("reads") or 1))
+    counts = ", ".join(f"channel {c}: light {li / reads:.1f}, dark {d / reads:.1f}"
+                       for c, (li, d) in enumerate(zip(reply.get("light", []), reply.get("dark", []))))
+    shown = f" {label!r}" if label else ""
+    return f"{device}: {kind}{shown} journaled as {reply['boot']}:{reply['seq']} — {counts} (counts per read)"
+
+
+def _measure_command(kind: str, doc: str) -> click.Command:
+    @port_option
+    @click.option("--label", default="", help="A note kept with this mark, e.g. the cuvette's content.")
+    @json_option
+    @friendly
+    def command(port: str, label: str, as_json: bool) -> None:
+        _check_text("label", label, kind)
+        with _connected(port) as (board, info):
+            reply = board.mark(kind, label)
+        _emit(dict(reply, device=info["device"], mark=kind, label=label), as_json,
+              _mark_text(info["device"], kind, reply, label))
+
+    command.__doc__ = doc
+    return cli.command(kind)(command)
+
+
+_measure_command("dark", """Measure with the LED off and journal a dark mark (cover the cell first).
+
+    Example: nightcell dark --port /dev/ttyACM0 --label "lid on"
+    """)
+_measure_command("blank", """Measure the blank (solvent only) and journal a blank mark; absorbance is read against it.
+
+    Example: nightcell blank --port /dev/ttyACM0 --label "buffer pH 7"
+    """)
+_measure_command("opaque", """Measure with the light path blocked and journal an opaque mark (gives the stray light).
+
+    Example: nightcell opaque --port /dev/ttyACM0 --label "black card"
+    """)
+
+
+@cli.command()
+@port_option
+@click.argument("value")
+@click.option("--label", default="", help="A note kept with this standard, e.g. its name and unit.")
+@json_option
+@friendly
+def standard(port: str, value: str, label: str, as_json: bool) -> None:
+    """Measure a standard of known concentration VALUE (as typed, any unit) and journal a standard mark.
+
+    Example: nightcell standard --port /dev/ttyACM0 2.0 --label "dye 2 µM"
+    """
+    try:
+        float(value)
+        ok = len(value) <= 32 and all(c in "0123456789.+-eE" for c in value)
+    except ValueError:
+        ok = False
+    if not ok:
+        raise InputError(f"the standard's VALUE must be a decimal number as typed, e.g. 0.250, not {value!r} "
+                         "(put the unit in --label)")
+    _check_text("label", label, "standard")
+    with _connected(port) as (board, info):
+        reply = board.mark("standard", label, value=value)
+    _emit(dict(reply, device=info["device"], mark="standard", value=value, label=label), as_json,
+          _mark_text(info["device"], f"standard {value}", reply, label))
+
+
+@cli.command()
+@port_option
+@click.option("--label", default="", help="The run's label, e.g. what is in the cuvette.")
+@json_option
+@friendly
+def start(port: str, label: str, as_json: bool) -> None:
+    """Start a run: the LED warms up, then the board samples at its interval until `stop`, unattended.
+
+    Example: nightcell start --port /dev/ttyACM0 --label "dye fading 25 °C"
+    """
+    _check_text("label", label, "start")
+    with _connected(port) as (board, info):
+        if info.get("running"):
+            raise InputError(f"{info['device']} is already logging a run: stop it first with `nightcell stop`, "
+                             "or leave it running")
+        reply = board.start(label)
+    run_key = f"{info['device']}:{reply['boot']}:{reply['seq']}"
+    text = (f"{info['device']}: run {run_key} started{' ' + repr(label) if label else ''}, a sample every "
+            f"{int(info.get('interval_ms', 0)) / 1000:g} s; you may unplug the host now")
+    _emit(dict(reply, device=info["device"], run=run_key, label=label), as_json, text)
+
+
+@cli.command()
+@port_option
+@json_option
+@friendly
+def stop(port: str, as_json: bool) -> None:
+    """Stop the run being logged (the samples stay on the board until synced).
+
+    Example: nightcell stop --port /dev/ttyACM0
+    """
+    with _connected(port) as (board, info):
+        if not info.get("running"):
+            raise InputError(f"{info['device']} is not logging a run: nothing to stop")
+        reply = board.stop()
+    text = f"{info['device']}: run stopped at {reply['boot']}:{reply['seq']}; sync it with `nightcell sync`"
+    _emit(dict(reply, device=info["device"]), as_json, text)
+
+
+@cli.command()
+@port_option
+@click.argument("text")
+@json_option
+@friendly
+def note(port: str, text: str, as_json: bool) -> None:
+    """Journal a note at this moment (what the board's button does), e.g. when a reagent was added.
+
+    Example: nightcell note --port /dev/ttyACM0 "added 1 mL NaOH"
+    """
+    if not text.strip():
+        raise InputError("the note is empty: write what happened, e.g. \"added 1 mL NaOH\"")
+    _check_text("note", text, "note")
+    with _connected(port) as (board, info):
+        reply = board.note(text)
+    _emit(dict(reply, device=info["device"], text=text), as_json,
+          f"{info['device']}: note journaled as {reply['boot']}:{reply['seq']}")
+
+
+@cli.command()
+@port_option
+@db_option
+@click.option("--every", type=click.FloatRange(min=0.1), default=1.0, show_default=True, metavar="SECONDS",
+              help="How often to ask the board.")
+@click.option("--polls", type=click.IntRange(min=1), default=None,
+              help="Stop after this many polls (default: until Ctrl-C).")
+@friendly
+def watch(port: str, db: Path, every: float, polls: int | None) -> None:
+    """Live view: counts, absorbance against the latest blank, a trend, journal fill and time until full.
+
+    Only asks the board for its status: Ctrl-C ends the view and the board goes on logging. The blank is the
+    newest one on the board, else the newest in --db (if that file exists).
+
+    Example: nightcell watch --port /dev/ttyACM0 --every 2
+    """
+    from rich.console import Console
+
+    from ..tasks.live import latest_blank
+    from ..tasks.live import watch as live_watch
+
+    with _connected(port) as (board, info):
+        store = open_reading(db) if db.exists() else None
+        try:
+            blank = latest_blank(board, info, store)
+        finally:
+            if store is not None:
+                store.close()
+        history = live_watch(board, blank, info=info, every=every, polls=polls, console=Console())
+    click.echo("")
+    click.echo(f"stopped watching after {len(history)} polls; the board goes on logging"
+               if info.get("running") or (history and history[-1].get("running")) else
+               f"stopped watching after {len(history)} polls")
+
+
+@cli.command()
+@port_option
+@db_option
+@click.option("--no-ack", is_flag=True, help="Do not let the board trim what was stored.")
+@json_option
+@friendly
+def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
+    """Pull a board's journal into the database (resumable; running it again adds nothing).
+
+    Example: nightcell sync --port /dev/ttyACM0 --db class.db
+    """
+    from .board import sync_progress
+    from ..wire.link import Board
+    from ..store.database import Store
+    from ..store.sync import sync_board
+
+    with Board.open(port) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
+        summary = sync_board(board, store, acknowledge=not no_ack,
+                             progress=lambda done, total, records: update(port, done, total, records))
+    new = sum(summary.new_rows.values())
+    text = (f"{summary.device}: {summary.records} records, {summary.bytes} bytes, {new} new rows "
+            f"in {summary.seconds:.1f} s; journal stored to {summary.end}")
+    for w in summary.warnings:
+        text += f"\nwarning: {w}"
+    _emit(summary.to_dict(), as_json, text)
+
+
+# -- the database ------------------------------------------------------------------------------------------------------
+
+def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> None:
+    """Print a table with rich; every cell is plain text (labels from users are never read as markup).
+
+    A table that fits the console's width with one line per row is drawn by ``_box_lines`` in rich's own layout:
+    rich lays out and wraps every cell (about 1.5 ms a row, seconds for a thousand runs), which only a table too
+    wide for the console needs.
+    """
+    from rich.console import Console
+    from rich.table import Table
+    from rich.text import Text
+
+    console = Console(highlight=False)
+    lines = _box_lines(title, columns, rows, console.width, console.is_terminal)
+    if lines is not None:
+        console.file.write("\n".join(lines) + "\n")
+        console.file.flush()
+        return
+    table = Table(title=title, title_justify="left")
+    for c in columns:
+        table.add_column(c, overflow="fold")
+    for row in rows:
+        table.add_row(*[Text("" if v is None else str(v)) for v in row])
+    console.print(table)
+
+
+def _box_lines(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], width: int,
+               styled: bool) -> list[str] | None:
+    """The lines rich draws for a table of printable one-line cells that fits ``width`` (heavy head, title on the
+    left, italic title and bold headers on a terminal), or None when rich must lay it out itself."""
+    from rich.cells import cell_len
+
+    head = [str(c) for c in columns]
+    body = [["" if v is None else str(v) for v in row] for row in rows]
+    widths = [cell_len(h) for h in head]
+    for row in body:
+        for i, c in enumerate(row):
+            if not c.isprintable():
+                return None
+            n = cell_len(c)
+            if n > widths[i]:
+                widths[i] = n
+    total = sum(widths) + 3 * len(widths) + 1
+    if total > width or not all(h.isprintable() for h in head + [title]) or cell_len(title) > total:
+        return None
+    bold, italic, plain = ("\x1b[1m", "\x1b[3m", "\x1b[0m") if styled else ("", "", "")
+
+    def cells(values: list[str], bar: str, on: str = "", off: str = "") -> str:
+        return bar + bar.join(f" {on}{v}{off}{' ' * (w - cell_len(v))} " for v, w in zip(values, widths)) + bar
+
+    def rule(left: str, fill: str, mid: str, right: str) -> str:
+        return left + mid.join(fill * (w + 2) for w in widths) + right
+
+    lines = [f"{italic}{title}{' ' * (total - cell_len(title))}{plain}" if styled
+             else title + " " * (total - cell_len(title)),
+             rule("┏", "━", "┳", "┓"), cells(head, "┃", bold, plain), rule("┡", "━", "╇", "┩")]
+    lines += [cells(row, "│") for row in body]
+    lines.append(rule("└", "─", "┴", "┘"))
+    return lines
+
+
+@cli.group("list")
+def list_group() -> None:
+    """List what a database holds: devices, runs, blanks, calibrations, results, conditions.
+
+    Example: nightcell list runs --db class.db
+    """
+
+
+def _list_command(name: str) -> Callable[[Callable[..., Any]], click.Command]:
+    def decorate(fn: Callable[..., Any]) -> click.Command:
+        @db_option
+        @json_option
+        @friendly
+        @functools.wraps(fn)
+        def command(db: Path, as_json: bool) -> None:
+            with open_reading(db) as store:
+                title, columns, rows, data, empty = fn(store)
+            if as_json:
+                _emit(data, True, "")
+            elif not rows:
+                click.echo(empty)
+            else:
+                _table(title, columns, rows)
+
+        return list_group.command(name)(command)
+
+    return decorate
+
+
+@_list_command("devices")
+def list_devices(store: Any) -> tuple:
+    """Devices synced into the database, with their runs and samples.
+
+    Example: nightcell list devices --db class.db
+    """
+    data = []
+    for d in store.devices():
+        n_runs = len(store.runs(d["device"]))
+        n_samples = store.sample_count(d["device"], channel=0)
+        data.append(dict(d, runs=n_runs, samples=n_samples))
+    rows = [(d["device"], d["label"] or "", d["board"], d["firmware"], d["runs"], d["samples"],
+             _utc(d["last_seen_unix"])) for d in data]
+    return ("devices", ("device", "label", "board", "firmware", "runs", "samples", "last synced"), rows, data,
+            "no devices yet: sync a board with `nightcell sync --port PORT --db DB`")
+
+
+@_list_command("runs")
+def list_runs(store: Any) -> tuple:
+    """Runs in the database: key (what --run takes), label, start time, samples, open or stopped.
+
+    Example: nightcell list runs --db class.db
+    """
+    starts = store.mark_times("run_start")
+    data = []
+    runs = store.runs()
+    for run, samples in zip(runs, store.run_sample_counts(runs)):
+        d = run.to_dict()
+        d["samples"] = samples
+        d["started_utc"] = starts.get((run.device, run.start_boot, run.start_seq), "")
+        d["state"] = "stopped" if run.stop_seq is not None else "open (still logging, or not synced to its stop)"
+        data.append(d)
+    rows = [(d["key"], d["label"], d["started_utc"], d["samples"], "stopped" if d["stop_seq"] is not None else "open")
+            for d in data]
+    return ("runs", ("run", "label", "started (UTC)", "samples", "state"), rows, data,
+            "no runs yet: start one with `nightcell start`, then `nightcell sync`")
+
+
+@_list_command("blanks")
+def list_blanks(store: Any) -> tuple:
+    """Blank marks in the database, with their counts per read (what absorbance is measured against).
+
+    Example: nightcell list blanks --db class.db
+    """
+    times = store.mark_times("blank")
+    data = []
+    for m in store.marks(mark="blank"):
+        reads = max(1, m["reads"])
+        data.append({"device": m["device"], "blank": f"{m['boot']}:{m['seq']}", "label": m["label"],
+                     "taken_utc": times.get((m["device"], m["boot"], m["seq"]), ""),
+                     "light_per_read": [v / reads for v in m["light"]],
+                     "dark_per_read": [v / reads for v in m["dark"]]})
+    rows = [(d["device"], d["blank"], d["label"], d["taken_utc"],
+             " ".join(f"{v:.1f}" for v in d["light_per_read"]), " ".join(f"{v:.1f}" for v in d["dark_per_read"]))
+            for d in data]
+    return ("blanks", ("device", "blank", "label", "taken (UTC)", "light/read", "dark/read"), rows, data,
+            "no blanks yet: take one with `nightcell blank`, then `nightcell sync`")
+
+
+@_list_command("calibrations")
+def list_calibrations(store: Any) -> tuple:
+    """Calibrations saved in the database (by `nightcell calibrate --db`), with slope and its standard error.
+
+    Example: nightcell list calibrations --db class.db
+    """
+    data = store.results("calibration")
+    rows = []
+    for r in data:
+        res = r["result"]
+        slope, se = res.get("values", {}).get("slope"), res.get("stderr", {}).get("slope")
+        rows.append((r["id"], r["label"], r["inputs"].get("device", ""), res.get("model", ""), res.get("n", ""),
+                     "" if slope is None else f"{slope:.6g} ± {se:.2g}" if se is not None else f"{slope:.6g}",
+                     _utc(r["created_unix"])))
+    return ("calibrations", ("id", "label", "device", "model", "standards", "slope ± SE", "saved"), rows, data,
+            "no calibrations saved yet: fit one with `nightcell calibrate --db DB --device DEVICE`")
+
+
+@_list_command("results")
+def list_results(store: Any) -> tuple:
+    """Every result saved in the database: calibrations, rate fits, studies, each with the inputs it names.
+
+    Example: nightcell list results --db class.db
+    """
+    data = store.results()
+    rows = [(r["id"], r["kind"], r["label"], r["inputs"].get("run") or r["inputs"].get("device") or "",
+             r["nightcell_version"], _utc(r["created_unix"])) for r in data]
+    return ("results", ("id", "kind", "label", "input", "version", "saved"), rows, data,
+            "no results saved yet: run `nightcell calibrate --db DB` or `nightcell rate --db DB`")
+
+
+@_list_command("conditions")
+def list_conditions(store: Any) -> tuple:
+    """Recorded run conditions (temperature, starting concentrations), each with where it came from.
+
+    Example: nightcell list conditions --db class.db
+    """
+    from ..tasks.analyse import run_conditions
+
+    conds = run_conditions(store)
+    rows = [(key, q, f"{v['value']:g}", v["source"]) for key, qs in conds.items() for q, v in sorted(qs.items())]
+    return ("run conditions", ("run", "quantity", "value", "source"), rows, conds,
+            "no conditions recorded yet: record them with `nightcell condition`")
+
+
+def _concentration(text: str) -> tuple[str, float]:
+    name, sep, value = text.partition("=")
+    if not sep or not name.strip() or not value.strip():
+        raise InputError(f"--conc {text!r}: write REACTANT=MOLAR, e.g. --conc hydroxide=0.02")
+    try:
+        return f"conc_{name.strip().lower()}_M", float(value)
+    except ValueError:
+        raise InputError(f"--conc {text!r}: {value!r} is not a number of mol/L") from None
+
+
+@cli.command()
+@db_option
+@click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
+@click.option("--temperature-c", "temperature_c", type=float, help="The run's temperature in °C.")
+@click.option("--temperature-k", "temperature_k", type=float, help="The run's temperature in kelvin.")
+@click.option("--conc", "concentrations", multiple=True, metavar="REACTANT=MOLAR",
+              help="A starting concentration in mol/L, e.g. hydroxide=0.02 (repeat for each reactant).")
+@click.option("--source", default="typed in by the user", show_default=True,
+              help="Where the values come from, e.g. 'bench sheet' (kept beside each value).")
+@json_option
+@friendly
+def condition(db: Path, run_text: str | None, temperature_c: float | None, temperature_k: float | None,
+              concentrations: tuple[str, ...], source: str, as_json: bool) -> None:
+    """Record a run's conditions (temperature, starting concentrations) for studies of order and activation energy.
+
+    Example: nightcell condition --db class.db --run "fading 1" --temperature-c 25 --conc hydroxide=0.02
+    """
+    from ..tasks.analyse import run_conditions, set_run_condition
+    from ..tasks.export import resolve_run
+
+    if temperature_c is not None and temperature_k is not None:
+        raise InputError("give the temperature once: --temperature-c or --temperature-k")
+    values: list[tuple[str, float]] = [_concentration(c) for c in concentrations]
+    if temperature_c is not None:
+        values.insert(0, ("temperature_K", temperature_c + 273.15))
+    elif temperature_k is not None:
+        values.insert(0, ("temperature_K", temperature_k))
+    if not values:
+        raise InputError("nothing to record: give --temperature-c/--temperature-k and/or --conc REACTANT=MOLAR")
+    with open_writing(db) as store:
+        run = resolve_run(store, run_text)
+        for quantity, value in values:
+            set_run_condition(store, run, quantity, value, source)
+        recorded = run_conditions(store, run).get(run.key, {})
+    text = "\n".join(f"{run.key} {q} = {v['value']:g} ({v['source']})" for q, v in sorted(recorded.items()))
+    _emit({"run": run.key, "conditions": recorded}, as_json, text)
+
+
+@cli.command()
+@db_option
+@click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
+@click.option("--all", "all_runs", is_flag=True, help="One report per run in the database.")
+@click.option("--study", "study", is_flag=True,
+              help="A study page over every run with recorded conditions (orders, Arrhenius, Eyring), linking "
+                   "one page per run.")
+@click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
+              help="Folder for the HTML pages and figures.")
+@click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
+@click.option("--level", type=float, default=0.95, show_default=True,
+              help="Confidence level of the calibration's intervals and prediction band.")
+@json_option
+@friendly
+def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int, level: float,
+           as_json: bool) -> None:
+    """Write self-contained HTML reports (figures embedded; each figure also as PNG and SVG): one per run, or a
+    study over several runs with their recorded conditions (see `nightcell condition`).
+
+    Example: nightcell report --db class.db --all --out reports
+
+    Example: nightcell report --db class.db --study --out reports
+    """
+    from ..errors import AnalysisError
+    from ..tasks.export import Written, resolve_run, run_report, study_report
+    from ..render.report import all_or_nothing
+
+    if sum([all_runs, bool(run_text), study]) > 1:
+        raise InputError("give one of --run, --all or --study")
+    done = Written()
+    if study:
+        with open_reading(db) as store, all_or_nothing():
+            done = study_report(store, out, channel, level=level)
+        lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
+        _emit(done.to_dict(), as_json, "\n".join(lines))
+        return
+    with open_reading(db) as store, all_or_nothing():
+        runs = store.runs() if all_runs else [resolve_run(store, run_text)]
+        if not runs:
+            raise InputError(f"{db} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
+        for run in runs:
+            try:
+                one = run_report(store, run, out, channel, level=level)
+            except AnalysisError as exc:
+                if not all_runs:
+                    raise
+                done.skipped.append(f"run {run.key} ({run.label!r}): {exc}")
+                continue
+            done.files += one.files
+            done.skipped += one.skipped
+    lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
+    _emit(done.to_dict(), as_json, "\n".join(lines))
+
+
+@cli.command()
+@db_option
+@click.option("--run", "run_text", metavar="KEY", help="Only this run (key or label); default: every run.")
+@click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
+              help="Folder for the CSV files.")
+@click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
+@json_option
+@friendly
+def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: bool) -> None:
+    """Write CSV files: every mark, and per run its raw samples and its absorbance against the blank.
+
+    Example: nightcell export --db class.db --out csv
+    """
+    from ..tasks.export import export_csv, resolve_run
+    from ..render.report import all_or_nothing
+
+    with open_reading(db) as store, all_or_nothing():
+        runs = None if run_text is None else [resolve_run(store, run_text)]
+        done = export_csv(store, out, runs, channel)
+    lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
+    _emit(done.to_dict(), as_json, "\n".join(lines))
+
+
+# -- the command families that live in their own modules -------------------------------------------------------
+
+from . import analysis as _analysis  # noqa: E402  (the group above must exist before they register)
+from . import board as _board  # noqa: E402
+from . import dashboard as _dashboard  # noqa: E402
+
+_analysis.register(cli)
+_board.register(cli)
+_dashboard.register(cli)
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Console entry point."""
+    cli.main(args=argv, prog_name="nightcell")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main(sys.argv[1:])

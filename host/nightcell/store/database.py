@@ -1,0 +1,720 @@
+"""The SQLite store: open and migrate, ingest decoded records, and answer the queries the analysis needs.
+
+Owns the database file. Raw rows are inserted once and never changed (triggers enforce it); everything derived
+can be recomputed from them. Writes happen in ``BEGIN IMMEDIATE`` transactions with a busy timeout, so several
+syncs and readers can share one file. This module never talks to a board.
+
+Example::
+
+    with Store.open("class.db") as store:
+        print(store.devices())
+"""
+
+from __future__ import annotations
+
+import contextlib
+import importlib.resources
+import json
+import sqlite3
+import time
+from dataclasses import dataclass
+from itertools import repeat
+from pathlib import Path
+from typing import Any, Iterable, Iterator
+
+import numpy as np
+from ._sqlite import sqlite_utils
+
+from .. import __version__
+from ..errors import InputError, SchemaTooNew, StoreError
+from ..wire.frames import (
+    KIND_ANCHOR,
+    KIND_BOOT,
+    KIND_EVENT,
+    KIND_HEALTH,
+    KIND_MARK,
+    KIND_SAMPLES,
+    KIND_SETTINGS,
+    MARK_NAMES,
+    NO_TEMPERATURE,
+    Record,
+    sample_columns,
+)
+from ..science.timeline import unwrap_uptimes
+from .queries import StoreQueries
+from .tables import TIMED_RAW_TABLES
+
+__all__ = ["Store", "migration_files", "Run", "damage_report", "damaged"]
+
+BUSY_TIMEOUT_S = 30.0
+_COMPACT = (",", ":")  # JSON of stored results without the padding spaces
+_NO_END = 1 << 62  # beyond any boot or seq: the upper bound of a run that has no stop mark
+MIGRATION_SET = "nightcell"
+
+
+def migration_files() -> list[tuple[str, str]]:
+    """The ordered (name, SQL) migrations shipped in ``schema/migrations``."""
+    root = importlib.resources.files("nightcell.schema").joinpath("migrations")
+    files = sorted((p.name, p.read_text(encoding="utf-8")) for p in root.iterdir() if p.name.endswith(".sql"))
+    return [(name[: -len(".sql")], sql) for name, sql in files]
+
+
+def _statements(sql: str) -> Iterator[str]:
+    """Split a script into whole statements (``executescript`` would commit behind our transaction's back)."""
+    buf = ""
+    for line in sql.splitlines(keepends=True):
+        buf += line
+        if sqlite3.complete_statement(buf):
+            stmt = buf.strip()
+            buf = ""
+            if stmt and not all(ln.strip().startswith("--") or not ln.strip() for ln in stmt.splitlines()):
+                yield stmt
+    if buf.strip() and not all(ln.strip().startswith("--") or not ln.strip() for ln in buf.splitlines()):
+        raise StoreError("a migration file ends in an incomplete SQL statement")
+
+
+def _migrations() -> sqlite_utils.Migrations:
+    migrations = sqlite_utils.Migrations(MIGRATION_SET)
+    for name, sql in migration_files():
+
+        def apply(db: sqlite_utils.Database, _sql: str = sql) -> None:
+            for stmt in _statements(_sql):
+                db.conn.execute(stmt)
+
+        migrations(name=name)(apply)
+    return migrations
+
+
+# Migrations that change nothing a reading command reads (write-side guards): a database still without them can
+# be read as it is.
+_READERS_NEED_NOT = {"0004_raw_rows_refuse_replace"}
+
+
+def _existing_file(path: str | Path) -> Path:
+    """``path`` as an existing regular file, or the ``InputError`` that says what it is instead."""
+    p = Path(path)
+    if not p.exists():
+        raise InputError(f"no database at {p}: sync a board first, or give the right --db path")
+    if p.is_dir():
+        raise InputError(f"{p} is a folder, not a database file: give a file path with --db")
+    if not p.is_file():
+        raise InputError(f"{p} is not a regular file: give the path of a database file with --db")
+    return p
+
+
+def damaged(path: str | Path, exc: BaseException) -> StoreError:
+    """The error for a database SQLite finds damaged: what can still be read, and how to recover the rest."""
+    return StoreError(f"{path} is a damaged database ({exc}); nothing was written. {damage_report(path)}. Recover "
+                      f"what is readable into a new file with `sqlite3 {path} .recover | sqlite3 recovered.db` and "
+                      "use that file")
+
+
+def _not_ours(path: str | Path, exc: BaseException) -> StoreError:
+    if "malformed" in str(exc):
+        return damaged(path, exc)
+    return StoreError(f"{path} is not a nightcell database ({exc}): check the --db path")
+
+
+def damage_report(path: str | Path) -> str:
+    """What of a damaged database can still be read: the tables whose rows all read back, and those that do not."""
+    try:
+        conn = sqlite3.connect(Path(path).resolve().as_uri() + "?mode=ro", uri=True)
+    except sqlite3.DatabaseError:
+        return "nothing can be read"
+    good, bad = [], []
+    try:
+        names = [r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table' ORDER BY name")]
+        for name in names:
+            try:
+                quoted = name.replace('"', '""')
+                n = conn.execute(f'SELECT count(*) FROM "{quoted}"').fetchone()[0]
+                conn.execute(f'SELECT * FROM "{quoted}"').fetchall()
+                good.append(f"{name} ({n})")
+            except sqlite3.DatabaseError:
+                bad.append(name)
+    except sqlite3.DatabaseError:
+        return "its list of tables cannot be read"
+    finally:
+        conn.close()
+    return (f"Still readable: {', '.join(good) or 'none'}; damaged: {', '.join(bad) or 'an index'}")
+
+
+@dataclass
+class Run:
+    """A run as the board marked it: start and stop marks (a run may continue across boots after a power cut)."""
+
+    device: str
+    label: str
+    start_boot: int
+    start_seq: int
+    stop_boot: int | None
+    stop_seq: int | None
+
+    @property
+    def key(self) -> str:
+        return f"{self.device}:{self.start_boot}:{self.start_seq}"
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "key": self.key,
+            "device": self.device,
+            "label": self.label,
+            "start_boot": self.start_boot,
+            "start_seq": self.start_seq,
+            "stop_boot": self.stop_boot,
+            "stop_seq": self.stop_seq,
+        }
+
+
+class Store(StoreQueries):
+    """One nightcell database file."""
+
+    def __init__(self, conn: sqlite3.Connection, path: str):
+        self.conn = conn
+        self.path = path
+        self.db = sqlite_utils.Database(conn)
+
+    # -- opening ------------------------------------------------------------------------------------------------
+
+    @classmethod
+    def open(cls, path: str | Path, *, create: bool = True, readonly: bool = False) -> "Store":
+        """Open a database file: ``open_read`` when ``readonly``, else ``open_write`` (creating it if ``create``)."""
+        if readonly:
+            return cls.open_read(path)
+        return cls.open_write(path, create=create)
+
+    @classmethod
+    def open_read(cls, path: str | Path) -> "Store":
+        """Open an existing nightcell database for reading only: never creates, migrates or changes the file.
+
+        SQLite opens it with ``mode=ro``; where no write-ahead log can be made beside it (a read-only folder or
+        medium) it is opened ``immutable``. Raises ``InputError`` when there is no file, and ``StoreError`` when
+        the file is not a nightcell database (empty, another program's, damaged) or needs migrating first;
+        ``SchemaTooNew`` when a newer nightcell wrote it.
+        """
+        p = _existing_file(path)
+        with open(p, "rb") as fh:
+            head = fh.read(100)
+        if not head:
+            raise StoreError(f"{p} is empty, not a nightcell database: give the path of a database that "
+                             "`nightcell sync` wrote")
+        if not head.startswith(b"SQLite format 3\x00"):
+            raise StoreError(f"{p} is not a nightcell database (not a SQLite file): check the --db path")
+        uri = p.resolve().as_uri()
+        last: Exception | None = None
+        for query in ("?mode=ro", "?mode=ro&immutable=1"):
+            try:
+                conn = sqlite3.connect(uri + query, uri=True, isolation_level=None, timeout=BUSY_TIMEOUT_S)
+            except sqlite3.DatabaseError as exc:
+                last = exc
+                continue
+            store = cls(conn, str(p))
+            store.readonly = True
+            try:
+                conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+                conn.execute("PRAGMA query_only = ON")
+                conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+            except sqlite3.OperationalError as exc:
+                conn.close()
+                if "unable to open" not in str(exc) and "readonly" not in str(exc):
+                    raise StoreError(f"cannot read {p} ({exc}): another program holds it; try again when it is "
+                                     "done") from exc
+                # a WAL database whose folder cannot hold its -shm file: read it as the unchanging file it is
+                last = exc
+                continue
+            except sqlite3.DatabaseError as exc:
+                conn.close()
+                raise _not_ours(p, exc) from exc
+            try:
+                applied = store._check_schema(write=False)
+                if {name for name, _ in migration_files()} - applied - _READERS_NEED_NOT:
+                    store = store._migrated_copy()
+            except BaseException:
+                conn.close()
+                raise
+            return store
+        raise StoreError(f"cannot open {p} for reading ({last}): check the --db path and that you may read it")
+
+    @classmethod
+    def open_write(cls, path: str | Path, *, create: bool = True) -> "Store":
+        """Open (and create or migrate) a database file for a command that writes.
+
+        Raises ``StoreError`` when the file is not a nightcell database or cannot be written, and ``SchemaTooNew``
+        when a newer nightcell wrote it.
+        """
+        p = Path(path)
+        if not create:
+            p = _existing_file(p)
+        elif p.exists() and p.is_dir():
+            raise InputError(f"{p} is a folder, not a database file: give a file path with --db")
+        elif p.exists() and not p.is_file():
+            raise InputError(f"{p} is not a regular file: give the path of a database file with --db")
+        try:
+            conn = sqlite3.connect(str(p), isolation_level=None, timeout=BUSY_TIMEOUT_S)
+            conn.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+            conn.execute("PRAGMA foreign_keys = ON")
+        except sqlite3.DatabaseError as exc:
+            raise StoreError(f"cannot open {p} as a database ({exc}): is it a nightcell database file?") from exc
+        store = cls(conn, str(p))
+        try:
+            store._migrate(readonly=False)
+            # Only once the file is known to be ours: WAL rewrites the header of any SQLite file it is set on,
+            # and another program's database given by mistake must be left exactly as it was.
+            try:
+                conn.execute("PRAGMA journal_mode = WAL")
+            except sqlite3.DatabaseError as exc:
+                raise StoreError(f"cannot open {p} for writing ({exc}): another program holds it, or it is "
+                                 "read-only (reading commands such as `nightcell list runs` still work)") from exc
+        except BaseException:
+            conn.close()
+            raise
+        return store
+
+    readonly = False
+    copied = False  # read through a migrated copy in memory (an older nightcell wrote the file)
+
+    def _check_schema(self, *, write: bool) -> set[str]:
+        """The migrations applied to this file, after checking it is a nightcell database this version can read."""
+        known = {name for name, _ in migration_files()}
+        try:
+            applied = {m.name for m in _migrations().applied(self.db)}
+            tables = set(self.db.table_names())
+            version = int(self.conn.execute("PRAGMA user_version").fetchone()[0])
+        except sqlite3.DatabaseError as exc:
+            raise _not_ours(self.path, exc) from exc
+        unknown = applied - known
+        if unknown:
+            raise SchemaTooNew(
+                f"{self.path} was written by a newer nightcell (migrations {', '.join(sorted(unknown))} are unknown "
+                f"to version {__version__}): upgrade nightcell to open it"
+            )
+        if version > len(known):
+            raise SchemaTooNew(f"{self.path} was written by a newer nightcell (schema version {version}; version "
+                               f"{__version__} knows up to {len(known)}): upgrade nightcell to open it")
+        if tables - {"_sqlite_migrations"} and not applied:
+            raise StoreError(f"{self.path} is a SQLite file but not a nightcell database: give another --db path")
+        if not write and not applied:
+            raise StoreError(f"{self.path} is not a nightcell database (it holds no tables): give the path of a "
+                             "database that `nightcell sync` wrote")
+        return applied
+
+    def _migrated_copy(self) -> "Store":
+        """A database an older nightcell wrote, read through a migrated copy in memory: the file stays as it is."""
+        copy = sqlite3.connect(":memory:", isolation_level=None)
+        self.conn.backup(copy)
+        self.conn.close()
+        store = Store(copy, self.path)
+        store.readonly = True
+        store.copied = True
+        with store.write():
+            _migrations().apply(store.db)
+        copy.execute("PRAGMA query_only = ON")
+        return store
+
+    def _migrate(self, *, readonly: bool) -> None:
+        applied = self._check_schema(write=not readonly)
+        known = {name for name, _ in migration_files()}
+        if known - applied:
+            if readonly:
+                return
+            try:
+                with self.write():
+                    _migrations().apply(self.db)
+                    self.conn.execute(f"PRAGMA user_version = {len(known)}")
+            except sqlite3.OperationalError as exc:
+                raise StoreError(f"cannot migrate {self.path} ({exc}): is the file or its folder read-only?") from exc
+
+    def check_whole(self) -> None:
+        """Every page of the file reads back (SQLite's ``quick_check``), else the ``damaged`` error."""
+        try:
+            problem = self.conn.execute("PRAGMA quick_check").fetchone()[0]
+        except sqlite3.DatabaseError as exc:
+            raise damaged(self.path, exc) from exc
+        if problem != "ok":
+            raise damaged(self.path, problem)
+
+    def close(self) -> None:
+        self.conn.close()
+
+    def __enter__(self) -> "Store":
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    @contextlib.contextmanager
+    def write(self) -> Iterator[sqlite3.Connection]:
+        """One write transaction (``BEGIN IMMEDIATE``): all or nothing."""
+        try:
+            self.conn.execute("BEGIN IMMEDIATE")
+        except sqlite3.OperationalError as exc:
+            raise StoreError(f"cannot write {self.path} ({exc}): another program holds it, or it is read-only") from exc
+        try:
+            yield self.conn
+        except sqlite3.OperationalError as exc:
+            # a write refused inside the transaction (a read-only file or folder, a full disk) is the database's
+            # error, said as such, not a traceback
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            if exc.sqlite_errorcode == sqlite3.SQLITE_FULL if hasattr(exc, "sqlite_errorcode") else "full" in str(exc):
+                raise StoreError(f"cannot write {self.path} ({exc}): free some space and run it again — nothing of "
+                                 "this transaction was stored, and nothing unstored was acknowledged") from exc
+            raise StoreError(f"cannot write {self.path} ({exc}): is the file or its folder read-only, or the disk "
+                             "full?") from exc
+        except sqlite3.DatabaseError as exc:
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            raise StoreError(f"cannot write {self.path} ({exc}): check it with `sqlite3 {self.path} 'PRAGMA "
+                             "integrity_check'`") from exc
+        except BaseException:
+            # SQLite may have rolled back by itself already (a full disk does that): a second ROLLBACK would fail
+            # and hide the error that matters
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            raise
+        else:
+            try:
+                self.conn.execute("COMMIT")
+            except sqlite3.DatabaseError as exc:
+                if self.conn.in_transaction:
+                    self.conn.execute("ROLLBACK")
+                raise StoreError(f"cannot commit to {self.path} ({exc}): is the disk full? Nothing of this "
+                                 "batch was stored") from exc
+
+    # -- ingest -------------------------------------------------------------------------------------------------
+
+    def ingest(self, device: str, records: Iterable[Record], *, journal: int | None = None) -> dict[str, int]:
+        """Insert decoded records (inside the caller's transaction). Rows already present are left as they are.
+
+        Record uptimes are unwrapped (u32 milliseconds wrap after 49.7 days) from the last row stored for the same
+        boot, so ``uptime_ms`` in every raw table only grows within a boot. SAMPLES records decoded with
+        ``lazy_samples=True`` are decoded here many at a time (``frames.sample_columns``). Returns how many rows
+        of each kind were new.
+        """
+        rows: dict[str, list[tuple]] = {k: [] for k in
+                                         ("boots", "samples", "marks", "mark_counts", "anchors", "events",
+                                          "settings_records", "health")}
+        records = list(records)
+        uptime = self._unwrapped_uptimes(device, records)
+        lazy: list[Record] = []
+        lazy_uptime: dict[int, int] = {}
+        for r, up in zip(records, uptime):
+            k = r.kind
+            f = r.fields
+            if k == KIND_SAMPLES:
+                if r.payload is not None and "samples" not in f:
+                    lazy.append(r)
+                    lazy_uptime[id(r)] = up
+                    continue
+                reads = f["reads"]
+                for s in r.samples():
+                    at = up + (s.uptime_ms - r.uptime_ms)
+                    for c in range(f["channels"]):
+                        rows["samples"].append((device, r.boot, s.seq, c, at, s.late_ms, s.flags, reads,
+                                                s.dark[c], s.light[c], s.temp_centi))
+            elif k == KIND_MARK:
+                rows["marks"].append((device, r.boot, r.seq, up, MARK_NAMES.get(f["mark"], str(f["mark"])),
+                                      f["source"], f["reads"], f["label"], f["value"]))
+                for c, (d, li) in enumerate(zip(f["dark"], f["light"])):
+                    rows["mark_counts"].append((device, r.boot, r.seq, c, d, li))
+            elif k == KIND_BOOT:
+                rows["boots"].append((device, r.boot, r.seq, up, f["reset_cause"], f["settings_crc"],
+                                      f["firmware"], f["board"], journal, r.position))
+            elif k == KIND_ANCHOR:
+                rows["anchors"].append((device, r.boot, r.seq, up, f["host_unix_ms"]))
+            elif k == KIND_EVENT:
+                rows["events"].append((device, r.boot, r.seq, up, f["code"], f["text"]))
+            elif k == KIND_SETTINGS:
+                rows["settings_records"].append((device, r.boot, r.seq, up, f["json"]))
+            elif k == KIND_HEALTH:
+                rows["health"].append((device, r.boot, r.seq, up, f["chip_temp_centi"], f["free_kb"],
+                                       f["vsys_mv"]))
+        if lazy:
+            rows["samples"].extend(self._sample_rows(device, lazy, lazy_uptime))
+        return self.insert_rows(rows)
+
+    @staticmethod
+    def _sample_rows(device: str, lazy: list[Record], uptime: dict[int, int]) -> list[tuple]:
+        out: list[tuple] = []
+        for cols in sample_columns(lazy):
+            recs = cols.records
+            rec = cols.record
+            boot = np.array([r.boot for r in recs], dtype=np.int64)[rec].tolist()
+            seq = (np.array([r.seq for r in recs], dtype=np.int64)[rec] + cols.index).tolist()
+            at = (np.array([uptime[id(r)] for r in recs], dtype=np.int64)[rec]
+                  + cols.index * np.array([r.fields["interval_ms"] for r in recs], dtype=np.int64)[rec]
+                  + cols.late_ms).tolist()
+            reads = np.array([r.fields["reads"] for r in recs], dtype=np.int64)[rec].tolist()
+            late = cols.late_ms.tolist()
+            flags = cols.flags.tolist()
+            if cols.temp_centi is None:
+                temp = [None] * len(seq)
+            else:
+                temp = [None if t == NO_TEMPERATURE else t for t in cols.temp_centi.tolist()]
+            for c in range(cols.channels):
+                out.extend(zip(repeat(device), boot, seq, repeat(c), at, late, flags, reads,
+                               cols.dark[:, c].tolist(), cols.light[:, c].tolist(), temp))
+        return out
+
+    _RAW_TABLES = TIMED_RAW_TABLES
+
+    def _unwrapped_uptimes(self, device: str, records: list[Record]) -> list[int]:
+        """Each record's uptime with the u32 wrap undone, continuing from the last stored row of its boot."""
+        last: dict[int, int | None] = {}
+        out = []
+        for r in records:
+            if r.boot not in last:
+                last[r.boot] = self._last_uptime(device, r.boot)
+            (u,) = unwrap_uptimes([r.uptime_ms], last[r.boot])
+            last[r.boot] = u
+            out.append(u)
+        return out
+
+    def _last_uptime(self, device: str, boot: int) -> int | None:
+        """The uptime of the highest-seq raw row stored for a boot (None when none is)."""
+        best: tuple[int, int] | None = None
+        for table in self._RAW_TABLES:
+            row = self.conn.execute(
+                f"SELECT seq, uptime_ms FROM {table} WHERE device = ? AND boot = ? ORDER BY seq DESC LIMIT 1",
+                (device, boot)).fetchone()
+            if row is not None and (best is None or row[0] > best[0]):
+                best = (row[0], row[1])
+        return None if best is None else best[1]
+
+    def insert_rows(self, rows: dict[str, list[tuple]]) -> dict[str, int]:
+        """``INSERT OR IGNORE`` raw rows table by table; returns the number of new rows per table."""
+        counts = {}
+        for table, values in rows.items():
+            if not values:
+                counts[table] = 0
+                continue
+            marks = ",".join("?" * len(values[0]))
+            before = self.conn.total_changes
+            self.conn.executemany(f"INSERT OR IGNORE INTO {table} VALUES ({marks})", values)
+            counts[table] = self.conn.total_changes - before
+        return counts
+
+    def touch_device(self, device: str, *, board: str | None = None, firmware: str | None = None,
+                     label: str | None = None, now: float | None = None) -> None:
+        """Create or update the device row (metadata, not raw data)."""
+        now = time.time() if now is None else now
+        self.conn.execute(
+            "INSERT INTO devices(device, board, firmware, label, first_seen_unix, last_seen_unix) "
+            "VALUES (?,?,?,?,?,?) ON CONFLICT(device) DO UPDATE SET "
+            "board = coalesce(excluded.board, board), firmware = coalesce(excluded.firmware, firmware), "
+            "label = coalesce(excluded.label, label), last_seen_unix = excluded.last_seen_unix",
+            (device, board, firmware, label, now, now),
+        )
+
+    def journal_state(self, device: str, journal: int) -> tuple[int, int] | None:
+        """(stored_to, acked_to) for a device's journal, or None when never synced."""
+        row = self.conn.execute("SELECT stored_to, acked_to FROM journals WHERE device = ? AND journal = ?",
+                                (device, journal)).fetchone()
+        return None if row is None else (row[0], row[1])
+
+    def set_journal_state(self, device: str, journal: int, *, stored_to: int | None = None,
+                          acked_to: int | None = None) -> None:
+        now = time.time()
+        self.conn.execute(
+            "INSERT INTO journals(device, journal, stored_to, acked_to, updated_unix) VALUES (?,?,?,?,?) "
+            "ON CONFLICT(device, journal) DO UPDATE SET "
+            "stored_to = max(stored_to, coalesce(?, stored_to)), acked_to = max(acked_to, coalesce(?, acked_to)), "
+            "updated_unix = ?",
+            (device, journal, stored_to or 0, acked_to or 0, now, stored_to, acked_to, now),
+        )
+
+    def log_sync(self, summary: Any, *, host: str, started_unix: float) -> None:
+        """Record one sync in ``sync_sessions`` (inside the caller's transaction)."""
+        self.conn.execute(
+            "INSERT INTO sync_sessions(device, journal, host, port, started_unix, seconds, from_position, "
+            "to_position, bytes, records, new_rows, acked_to) VALUES (?,?,?,?,?,?,?,?,?,?,?,?)",
+            (summary.device, summary.journal, host, summary.port, started_unix, summary.seconds, summary.start,
+             summary.end, summary.bytes, summary.records, sum(summary.new_rows.values()), summary.acked_to),
+        )
+
+    # -- queries ------------------------------------------------------------------------------------------------
+
+    def query(self, sql: str, params: Iterable[Any] = ()) -> list[dict[str, Any]]:
+        """Rows of a read query as dicts keyed by column name."""
+        cur = self.conn.execute(sql, tuple(params))
+        cols = [d[0] for d in cur.description]
+        return [dict(zip(cols, row)) for row in cur.fetchall()]
+
+    def devices(self) -> list[dict[str, Any]]:
+        return self.query("SELECT * FROM devices ORDER BY device")
+
+    def count(self, table: str) -> int:
+        if table not in self.db.table_names():
+            raise InputError(f"no table {table!r} in the store")
+        return self.conn.execute(f"SELECT count(*) FROM [{table}]").fetchone()[0]
+
+    def marks(self, device: str | None = None, mark: str | None = None) -> list[dict[str, Any]]:
+        """Marks in journal order, each with its per-channel counts as lists ``dark`` and ``light``."""
+        where = []
+        params: list[Any] = []
+        if device is not None:
+            where.append("m.device = ?")
+            params.append(device)
+        if mark is not None:
+            where.append("m.mark = ?")
+            params.append(mark)
+        sql = "SELECT m.* FROM marks m" + (" WHERE " + " AND ".join(where) if where else "")
+        sql += " ORDER BY m.device, m.boot, m.seq"
+        return [self.with_counts(m) for m in self.query(sql, params)]
+
+    def with_counts(self, mark: dict[str, Any]) -> dict[str, Any]:
+        """A marks row given its per-channel counts as lists ``dark`` and ``light`` (in channel order)."""
+        counts = self.conn.execute(
+            "SELECT dark, light FROM mark_counts WHERE device = ? AND boot = ? AND seq = ? ORDER BY channel",
+            (mark["device"], mark["boot"], mark["seq"])).fetchall()
+        mark["dark"] = [c[0] for c in counts]
+        mark["light"] = [c[1] for c in counts]
+        return mark
+
+    def runs(self, device: str | None = None) -> list[Run]:
+        """Runs from their marks. A run_start journaled by the board itself (source 2) after a restart continues
+        the run that was open when the board lost power."""
+        runs: list[Run] = []
+        open_run: dict[str, Run] = {}
+        # only the run marks, without their counts (a run needs neither; one query, not one per mark)
+        if device is None:
+            marks = self.query("SELECT device, boot, seq, mark, source, label FROM marks "
+                               "WHERE mark IN ('run_start', 'run_stop') ORDER BY device, boot, seq")
+        else:
+            marks = self.query("SELECT device, boot, seq, mark, source, label FROM marks "
+                               "WHERE device = ? AND mark IN ('run_start', 'run_stop') ORDER BY boot, seq", (device,))
+        for m in marks:
+            if m["mark"] == "run_start":
+                current = open_run.get(m["device"])
+                if m["source"] == 2 and current is not None:
+                    continue
+                run = Run(m["device"], m["label"], m["boot"], m["seq"], None, None)
+                runs.append(run)
+                open_run[m["device"]] = run
+            elif m["mark"] == "run_stop" and m["device"] in open_run:
+                run = open_run.pop(m["device"])
+                run.stop_boot, run.stop_seq = m["boot"], m["seq"]
+        return runs
+
+    def run_samples(self, run: Run, channel: int = 0) -> list[dict[str, Any]]:
+        """Samples of a run, in order, across boots, joined to the boot clocks."""
+        sql = (
+            "SELECT s.*, c.unix_at_zero, c.rate, c.quality FROM samples s "
+            "LEFT JOIN boot_clocks c ON c.device = s.device AND c.boot = s.boot "
+            "WHERE s.device = ? AND s.channel = ? AND (s.boot, s.seq) > (?, ?)"
+        )
+        # row values, so SQLite scans only the run's range of the primary key (an OR of the two halves scanned
+        # every sample of the device: 30 ms a run in a database of 200 runs)
+        params: list[Any] = [run.device, channel, run.start_boot, run.start_seq]
+        if run.stop_boot is not None:
+            sql += " AND (s.boot, s.seq) < (?, ?)"
+            params += [run.stop_boot, run.stop_seq]
+        sql += " ORDER BY s.boot, s.seq"
+        return self.query(sql, params)
+
+    def run_sample_counts(self, runs: Iterable[Run], channel: int = 0) -> list[int]:
+        """How many samples of ``channel`` each run holds (the rows ``run_samples`` would return), counted by SQLite
+        over each run's range of the primary key, so listing runs reads no sample into Python."""
+        out = []
+        for run in runs:
+            if run.stop_boot == run.start_boot:
+                row = self.conn.execute(
+                    "SELECT count(*) FROM samples WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?",
+                    (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)).fetchone()
+            else:
+                stop = (run.stop_boot, run.stop_seq) if run.stop_boot is not None else (_NO_END, _NO_END)
+                row = self.conn.execute(
+                    "SELECT count(*) FROM samples WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) "
+                    "AND (boot, seq) < (?, ?)", (run.device, channel, run.start_boot, run.start_seq, *stop)).fetchone()
+            out.append(int(row[0]))
+        return out
+
+    def run_sample_columns(self, run: Run, channel: int = 0) -> dict[str, Any]:
+        """A run's samples as numpy columns, in (boot, seq) order across boots, and the clocks of their boots.
+
+        Returns ``boot``, ``seq``, ``uptime_ms``, ``flags``, ``reads``, ``dark``, ``light`` (int64 arrays, one entry per
+        sample; the same rows as ``run_samples``) and ``clocks``: ``{boot: (unix_at_zero, rate, quality)}`` for the
+        boots that have a clock. Made for long runs and for many runs: SQLite counts the run's samples first, then
+        one range scan of the samples' primary key streams straight into preallocated arrays (``numpy.fromiter``),
+        so no row outlives its step and no text of the whole run is built. In a run within one boot the boot is
+        known, and reads and flags (the same for every sample of most runs) are read only when they vary (three
+        cheap aggregates tell). The range scan meets rows in key order (``ORDER BY`` the key costs nothing more).
+        """
+        own = not self.conn.in_transaction
+        if own:  # the count and the scan see one snapshot, even while a sync adds rows
+            self.conn.execute("BEGIN")
+        try:
+            return self._run_sample_columns(run, channel)
+        finally:
+            if own and self.conn.in_transaction:
+                self.conn.execute("COMMIT")
+
+    def _run_sample_columns(self, run: Run, channel: int) -> dict[str, Any]:
+        stop = (run.stop_boot, run.stop_seq) if run.stop_boot is not None else (_NO_END, _NO_END)
+        if run.stop_boot == run.start_boot:
+            # a run within one boot (most runs): plain bounds on seq, the boot known
+            where = "WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?"
+            params: tuple = (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)
+            n, lo_reads, hi_reads, flagged = self.conn.execute(
+                f"SELECT count(*), min(reads), max(reads), sum(flags <> 0) FROM samples {where}", params).fetchone()
+            same = bool(n) and lo_reads == hi_reads and flagged == 0
+            names = ("seq", "uptime_ms", "dark", "light") + (() if same else ("reads", "flags"))
+        else:
+            where = "WHERE device = ? AND channel = ? AND (boot, seq) > (?, ?) AND (boot, seq) < (?, ?)"
+            params = (run.device, channel, run.start_boot, run.start_seq, *stop)
+            (n,) = self.conn.execute(f"SELECT count(*) FROM samples {where}", params).fetchone()
+            same = False
+            names = ("boot", "seq", "uptime_ms", "dark", "light", "reads", "flags")
+        n = int(n)
+        # our own column names, never input (the security test lists this place)
+        cur = self.conn.execute(f"SELECT {', '.join(names)} FROM samples {where} ORDER BY boot, seq", params)
+        table = np.fromiter(cur if len(names) > 1 else (r[0] for r in cur),
+                            dtype=[(name, np.int64) for name in names], count=n)
+        cols: dict[str, Any] = {name: table[name] for name in names}  # views of the one table: no copies
+        if "boot" not in cols:
+            cols["boot"] = np.full(n, run.start_boot, dtype=np.int64)
+        if same:
+            cols["reads"] = np.full(n, lo_reads, dtype=np.int64)
+            cols["flags"] = np.zeros(n, dtype=np.int64)
+        clocks = {b: (u, r, q) for b, u, r, q in self.conn.execute(
+            "SELECT boot, unix_at_zero, rate, quality FROM boot_clocks WHERE device = ? AND boot >= ? AND boot <= ?",
+            (run.device, run.start_boot, stop[0]))}
+        cols["clocks"] = clocks
+        return cols
+
+    def mark_keys(self, device: str, mark: str) -> list[tuple[int, int]]:
+        """(boot, seq) of every mark of one kind (``"blank"``, ``"opaque"``...) of a device, in journal order.
+
+        The marks table has no index by kind, so finding "the blank before this run" would read every earlier mark;
+        this list is read once and kept while the database is unchanged (SQLite's ``data_version`` for commits by
+        other connections, this connection's ``total_changes`` for its own), so analysing many runs reads it once.
+        """
+        state = (self.conn.execute("PRAGMA data_version").fetchone()[0], self.conn.total_changes)
+        cache = self.__dict__.setdefault("_mark_keys", {})
+        hit = cache.get((device, mark))
+        if hit is not None and hit[0] == state:
+            return hit[1]
+        keys = self.conn.execute("SELECT boot, seq FROM marks WHERE device = ? AND mark = ? ORDER BY boot, seq",
+                                 (device, mark)).fetchall()
+        cache[(device, mark)] = (state, keys)
+        return keys
+
+    def save_result(self, kind: str, label: str, inputs: dict[str, Any], result: dict[str, Any]) -> int:
+        """Store a derived result with its inputs; returns its id.
+
+        Inside a caller's ``write()`` transaction the row joins it, so the results of many runs can be committed
+        (and synced to disk) once; otherwise the result is committed on its own.
+        """
+        if self.conn.in_transaction:
+            return self._insert_result(kind, label, inputs, result)
+        with self.write():
+            return self._insert_result(kind, label, inputs, result)
+
+    def _insert_result(self, kind: str, label: str, inputs: dict[str, Any], result: dict[str, Any]) -> int:
+        cur = self.conn.execute(
+            "INSERT INTO results(kind, label, created_unix, nightcell_version, inputs_json, result_json) "
+            "VALUES (?,?,?,?,?,?)",
+            (kind, label, time.time(), __version__, json.dumps(inputs, sort_keys=True, separators=_COMPACT),
+             json.dumps(result, sort_keys=True, separators=_COMPACT)),
+        )
+        return int(cur.lastrowid)
