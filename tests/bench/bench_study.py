@@ -86,8 +86,8 @@ def run(quick: bool) -> list[dict]:
                 clock.restore()
     per_run = (total - clock.seconds) / n_runs
     return [
-        {"name": f"study_report_seconds_per_run_beyond_figures ({n_runs} runs x 1000 samples)",
-         "value": round(per_run, 4), "goal": f"<= {GOAL_S}", "ok": per_run <= GOAL_S},
+        {"name": "study_report_seconds_per_run_beyond_figures", "value": round(per_run, 4),
+         "goal": f"<= {GOAL_S} ({n_runs} runs x 1000 samples)", "ok": per_run <= GOAL_S},
         {"name": "study_report_seconds_per_run (figures included)", "value": round(total / n_runs, 4), "goal": None,
          "ok": None},
         {"name": "study_report_files_written", "value": len(done.files), "goal": f">= {n_runs + 1} pages",
