@@ -1,5 +1,6 @@
 """Benchmark: analysis of stored runs versus what a user would write by hand — sqlite3 + numpy + one ``curve_fit``
-reading the same run from the same file (issue 17) — and, as before, versus a bare ``curve_fit`` on arrays (issue 5).
+reading the same run from the same file (issue 17) — and, as before, versus a bare ``curve_fit`` on arrays (issue
+5).
 
 Full analysis of a stored run = what ``nightcell rate --db`` does for each run: read the run's samples from a real
 nightcell SQLite database (``analyse.analyse_run``: the run's bounds, its blank and stray light by the recorded
@@ -9,22 +10,23 @@ inputs) saved with ``Store.save_result``. Results are committed once per batch o
 analyses many runs would do; the commit time is counted in the full path, and one commit alone is reported beside.
 
 The hand-written reference (goal: full ≤ 1.5×) = ``sidebyside.PLAIN_RATE``'s ``read_run`` and ``fit``: the run's
-stop mark and the blank before it found with two queries, the samples read with ``fetchall`` into a numpy array
-(its own sqlite3 connection to the same file, opened once), absorbance against the blank, and ``curve_fit`` of the
+stop mark and the blank before it found with two queries, the samples read with ``fetchall`` into a numpy array (its
+own sqlite3 connection to the same file, opened once), absorbance against the blank, and ``curve_fit`` of the
 plateau law weighted T², started at the true parameters.
 
-The bare reference (the old goal, ≤ 3×, reported beside) = ``scipy.optimize.curve_fit`` of the exponential approach to a plateau on the same arrays (the
-run's times, absorbances and weights as the full path read them, flagged points left out), started at the true
-parameters (the most favourable case for it). All are timed run by run, interleaved (the order alternates), in one
-process, so the ratio is meaningful on a shared, noisy machine; the runs are split into ``ROUNDS`` rounds of
-consecutive runs, each ratio is the median of the per-round ratios and its spread is printed. Reported beside them, timed in
-the same interleaved loop: nightcell's ``fit_model`` of the same single model on the same arrays, and the full
-path's two big parts on their own (the read, ``analyse.run_series``; the fits, ``kinetics.fit_all``).
+The bare reference (the old goal, ≤ 3×, reported beside) = ``scipy.optimize.curve_fit`` of the exponential approach
+to a plateau on the same arrays (the run's times, absorbances and weights as the full path read them, flagged points
+left out), started at the true parameters (the most favourable case for it). All are timed run by run, interleaved
+(the order alternates), in one process, so the ratio is meaningful on a shared, noisy machine; the runs are split
+into ``ROUNDS`` rounds of consecutive runs, each ratio is the median of the per-round ratios and its spread is
+printed. Reported beside them, timed in the same interleaved loop: nightcell's ``fit_model`` of the same single
+model on the same arrays, and the full path's two big parts on their own (the read, ``analyse.run_series``; the
+fits, ``kinetics.fit_all``).
 
 The database is built from encoded journal records (one boot: anchors, a blank, then each run as a run_start mark,
 samples records of at most 250 samples, a run_stop mark), ingested as a sync stores them. Runs are synthetic
-(invented numbers, fixed seed): an exponential approach to a plateau seen through counts with Gaussian noise,
-summed over 16 reads and stored as integers.
+(invented numbers, fixed seed): an exponential approach to a plateau seen through counts with Gaussian noise, summed
+over 16 reads and stored as integers.
 
 Usage: python tests/bench/bench_analysis.py [--quick]
 """

@@ -1,18 +1,20 @@
 """Benchmark: ``nightcell list runs`` against a plain sqlite3 script listing the same runs with their sample counts.
 
-The database holds 1000 stopped runs of 1000 samples (full; 100 runs of 300 quick) of one device (``sidebyside.build_runs_db``). The
-plain script is what a user would write: the start and stop marks in journal order, paired, then one ``count(*)``
-of each run's samples between its marks, printed as lines. Both are timed in this process on the same file,
-interleaved over ≥ 5 rounds: nightcell's command through click's runner (the table printed), the script as a
-function. Goal: ≤ 2× (median of the per-round ratios). Flat in samples per run: how much slower each gets on
-the database of 1000 samples per run than on one of as many runs with 10 samples each; both count with
-SQLite's ``count(*)``, which walks each run's range of the key (a cost per sample that no listing avoids without a
-stored count), so the goal is that nightcell's growth be ≤ 1.5× the plain script's own (both growths printed).
+The database holds 1000 stopped runs of 1000 samples (full; 100 runs of 300 quick) of one device
+(``sidebyside.build_runs_db``). The plain script is what a user would write: the start and stop marks in journal
+order, paired, then one ``count(*)`` of each run's samples between its marks, printed as lines. Both are timed in
+this process on the same file, interleaved over ≥ 5 rounds: nightcell's command through click's runner (the table
+printed), the script as a function. Goal: ≤ 2× (median of the per-round ratios). Flat in samples per run: how much
+slower each gets on the database of 1000 samples per run than on one of as many runs with 10 samples each; both
+count with SQLite's ``count(*)``, which walks each run's range of the key (a cost per sample that no listing avoids
+without a stored count), so the goal is that nightcell's growth be ≤ 1.5× the plain script's own (both growths
+printed).
 
 Reported beside them: both as fresh processes (the ``nightcell`` command against ``python script.py``), which adds
 nightcell's start-up (its imports) to the command's own work.
 
     python tests/bench/bench_list.py [--quick]
+
 """
 
 from __future__ import annotations

@@ -1,15 +1,16 @@
 """Benchmark: ``nightcell rate --db`` on one long stored run against a plain script (sqlite3 → numpy arrays → one
 ``curve_fit``), each in a fresh process, time and peak memory side by side.
 
-The run holds 10⁶ samples (full; 2·10⁴ quick, where start-up is most of either side) of one device in a database built by ``sidebyside.build_runs_db``.
-nightcell reads it against its blank, fits every rate law with standard errors, ranks them and saves the result;
-the plain script (``sidebyside.PLAIN_RATE``) reads the same run from the same file into arrays, makes absorbance
-against the same blank and fits the plateau law with ``curve_fit`` started at the true parameters (the most
-favourable case for it), weights T². Each is a fresh process (``sidebyside.fresh_process``: wall time of the
-command, peak RSS from ``getrusage(RUSAGE_CHILDREN)``), interleaved over ≥ 5 rounds. Goals: time ≤ 1.2×, peak
-memory ≤ 1.5× (medians of the per-round ratios).
+The run holds 10⁶ samples (full; 2·10⁴ quick, where start-up is most of either side) of one device in a database
+built by ``sidebyside.build_runs_db``. nightcell reads it against its blank, fits every rate law with standard
+errors, ranks them and saves the result; the plain script (``sidebyside.PLAIN_RATE``) reads the same run from the
+same file into arrays, makes absorbance against the same blank and fits the plateau law with ``curve_fit`` started
+at the true parameters (the most favourable case for it), weights T². Each is a fresh process
+(``sidebyside.fresh_process``: wall time of the command, peak RSS from ``getrusage(RUSAGE_CHILDREN)``), interleaved
+over ≥ 5 rounds. Goals: time ≤ 1.2×, peak memory ≤ 1.5× (medians of the per-round ratios).
 
     python tests/bench/bench_rate.py [--quick]
+
 """
 
 from __future__ import annotations
@@ -19,7 +20,8 @@ import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from sidebyside import DEVICE, LONG_RUN_RATE_SPAN_S, PLAIN_RATE, build_runs_db, interleaved_processes, median, ratio_row  # noqa: E402
+from sidebyside import (DEVICE, LONG_RUN_RATE_SPAN_S, PLAIN_RATE, build_runs_db, interleaved_processes,  # noqa: E402
+                        median, ratio_row)
 
 from nightcell.store.database import Store  # noqa: E402
 

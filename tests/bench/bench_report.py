@@ -1,14 +1,15 @@
 """Benchmark: ``nightcell report --run`` on one long stored run against a plain one-PNG matplotlib script, each in a
 fresh process, time and peak memory side by side, and the size of every file the report writes.
 
-The run holds 10⁶ samples (full; 2·10⁴ quick, where start-up is most of either side), built by ``sidebyside.build_runs_db``. nightcell reads it, fits every
-rate law, draws the run with its best fit and residuals, and writes the HTML page with each figure as PNG and SVG;
-the plain script (``sidebyside.PLAIN_PNG``) reads the same run from the same file into arrays (the plain read of
-``sidebyside.PLAIN_RATE``) and saves one PNG of its points, no fit. Each is a fresh process
-(``sidebyside.fresh_process``), interleaved over ≥ 5 rounds. Goals: time ≤ 1.5×, peak memory ≤ 1.5× (medians of
-the per-round ratios), every file ≤ 2 MB.
+The run holds 10⁶ samples (full; 2·10⁴ quick, where start-up is most of either side), built by
+``sidebyside.build_runs_db``. nightcell reads it, fits every rate law, draws the run with its best fit and
+residuals, and writes the HTML page with each figure as PNG and SVG; the plain script (``sidebyside.PLAIN_PNG``)
+reads the same run from the same file into arrays (the plain read of ``sidebyside.PLAIN_RATE``) and saves one PNG of
+its points, no fit. Each is a fresh process (``sidebyside.fresh_process``), interleaved over ≥ 5 rounds. Goals: time
+≤ 1.5×, peak memory ≤ 1.5× (medians of the per-round ratios), every file ≤ 2 MB.
 
     python tests/bench/bench_report.py [--quick]
+
 """
 
 from __future__ import annotations
@@ -18,8 +19,8 @@ import tempfile
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from sidebyside import (DEVICE, LONG_RUN_RATE_SPAN_S, PLAIN_PNG, PLAIN_RATE, build_runs_db, interleaved_processes, median,  # noqa: E402
-                        ratio_row)
+from sidebyside import (DEVICE, LONG_RUN_RATE_SPAN_S, PLAIN_PNG, PLAIN_RATE, build_runs_db,  # noqa: E402
+                        interleaved_processes, median, ratio_row)
 
 from nightcell.store.database import Store  # noqa: E402
 

@@ -61,8 +61,9 @@ from matplotlib.figure import Figure  # noqa: E402
 from .. import __version__  # noqa: E402
 
 __all__ = ["plot_calibration", "plot_run", "thin_for_drawing", "DRAW_LIMIT", "plot_orders", "plot_arrhenius",
-           "figure_png", "figure_svg", "save_figure", "html_report", "fit_table", "write_csv", "safe_filename", "ReportFiles", "run_report",
-           "study_report", "plain_text", "plus_minus", "html_table", "write_atomic", "out_folder", "all_or_nothing"]
+           "figure_png", "figure_svg", "save_figure", "html_report", "fit_table", "write_csv", "safe_filename",
+           "ReportFiles", "run_report", "study_report", "plain_text", "plus_minus", "html_table", "write_atomic",
+           "out_folder", "all_or_nothing"]
 
 
 def plain_text(label: Any) -> str:
@@ -132,7 +133,8 @@ def thin_for_drawing(x: np.ndarray, y: np.ndarray, limit: int = DRAW_LIMIT,
     return finite[np.unique(np.concatenate((order[first], order[last], even)))]
 
 
-def _drawn(ax: Any, x: np.ndarray, y: np.ndarray, what: str, *, at: float = 0.98) -> tuple[np.ndarray, np.ndarray, str]:
+def _drawn(ax: Any, x: np.ndarray, y: np.ndarray, what: str, *,
+           at: float = 0.98) -> tuple[np.ndarray, np.ndarray, str]:
     """The points of a series to draw and the words for its legend; a thinned series says so inside ``ax``."""
     keep = thin_for_drawing(x, y)
     if keep is None:

@@ -633,7 +633,8 @@ class Store(StoreQueries):
         for run in runs:
             if run.stop_boot == run.start_boot:
                 row = self.conn.execute(
-                    "SELECT count(*) FROM samples WHERE device = ? AND boot = ? AND seq > ? AND seq < ? AND channel = ?",
+                    "SELECT count(*) FROM samples WHERE device = ? AND boot = ? AND seq > ? AND seq < ? "
+                    "AND channel = ?",
                     (run.device, run.start_boot, run.start_seq, run.stop_seq, channel)).fetchone()
             else:
                 stop = (run.stop_boot, run.stop_seq) if run.stop_boot is not None else (_NO_END, _NO_END)
