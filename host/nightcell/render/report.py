@@ -54,9 +54,7 @@ def _matplotlib_config_folder() -> None:
 
 _matplotlib_config_folder()
 
-import matplotlib  # noqa: E402
 import numpy as np  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
 
 from .. import __version__  # noqa: E402
 
@@ -508,6 +506,8 @@ def _new_axes() -> Any:
 
 def _figure(figsize: tuple[float, float] | None = None, **kw: Any) -> tuple[Any, Any]:
     """A report figure: a bare ``Figure`` (no pyplot, no backend) laid out by constrained layout."""
+    from matplotlib.figure import Figure  # on first use: commands that only write files do not load matplotlib
+
     fig = Figure(figsize=figsize, layout="constrained")
     return fig, fig.subplots(**kw)
 
@@ -693,6 +693,8 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
     if study.runs:
         fig, ax = _figure(figsize=(7.0, 4.4))
         try:
+            import matplotlib
+
             cmap = matplotlib.colormaps["viridis"]
             # one figure for every run: the points drawn are shared out (about 4 × DRAW_LIMIT in all, at least 30
             # a run), so a study of many runs stays a figure of a few MB
