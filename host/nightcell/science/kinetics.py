@@ -214,6 +214,7 @@ class _Moments:
         self.span = float(tau[-1]) if tau[-1] > 0 else 1.0
         self.ntau = -tau
         self._integral: np.ndarray | None = None
+        self._warm: _Moments | None = None
 
     def warm_start(self) -> "_Moments | None":
         """For a long run (> ``_WARM_MIN`` points), the moments of a subset of its points — the first
@@ -223,8 +224,10 @@ class _Moments:
         n = self.tau.size
         if n <= 2 * _WARM_MIN:
             return None
-        idx = np.union1d(np.arange(_WARM_HEAD), np.arange(0, n, n // _WARM_MIN))
-        return _Moments(self.tau[idx], self.a[idx], None if self.w is None else self.w[idx])
+        if self._warm is None:  # made once, shared by the laws fitted to these points
+            idx = np.union1d(np.arange(_WARM_HEAD), np.arange(0, n, n // _WARM_MIN))
+            self._warm = _Moments(self.tau[idx], self.a[idx], None if self.w is None else self.w[idx])
+        return self._warm
 
     def integral(self) -> np.ndarray:
         """∫A dτ from the first point (trapezoid rule)."""
@@ -455,17 +458,20 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
     tau, a = m.tau, m.a
     if model == "zero_order":
         return _fast_line(m, inputs)
+    # the starts come from a subset of a long run's points (its warm start; the points themselves otherwise): a start
+    # only has to lie near the minimum, which the search over every point then finds
+    s = m.warm_start() or m
     if model == "first_order_plateau":
         c = math.nan
-        X = np.column_stack([np.ones_like(tau), tau, m.integral()])
+        X = np.column_stack([np.ones_like(s.tau), s.tau, s.integral()])
         try:
-            coef = np.linalg.solve(X.T @ X, X.T @ a)  # A = A0 + k·A_inf·τ − k·∫A dτ (the law, integrated)
+            coef = np.linalg.solve(X.T @ X, X.T @ s.a)  # A = A0 + k·A_inf·τ − k·∫A dτ (the law, integrated)
             c = -float(coef[2])
         except np.linalg.LinAlgError:
             pass
         # the integrated law's k where it is a usable start (on a long run that reached its plateau early, k·span
         # runs to thousands, beyond the grid's range)
-        k0 = c if math.isfinite(c) and 0.05 < c * m.span else _plateau_start(tau, a)[2]
+        k0 = c if math.isfinite(c) and 0.05 < c * m.span else _plateau_start(s.tau, s.a)[2]
         got = _fast_exponential(m, k0, None)
         if got is None:
             return None
@@ -488,13 +494,13 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
         rss = float(m.wv @ (resid * resid))
         cov = np.array(T) * (rss / (m.a.size - 3))
         return _package(model, ("A0", "A_inf", "k"), beta, cov, m.tau, m.a, resid, rss, inputs=inputs)
-    integral_d = m.integral() - a_end * tau  # ∫(A − a_end) dτ
     d = a - a_end
+    sd = s.a - a_end
     if model == "first_order":
-        _, slope = _line(integral_d, d)  # D = D0 − k·∫D dτ (the law, integrated)
+        _, slope = _line(s.integral() - a_end * s.tau, sd)  # D = D0 − k·∫D dτ (the law, integrated)
         k0 = -slope
         if not (math.isfinite(k0) and k0 > 0):
-            k0 = _first_order_start(tau, d)
+            k0 = _first_order_start(s.tau, sd)
         got = _fast_exponential(m, k0, a_end)
         if got is None:
             return None
@@ -507,12 +513,12 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
     if model == "second_order":
         sign = _second_sign(d)
         # D = D0 − (c/D0)·∫D² dτ (the law, integrated)
-        sq = d * d
-        integral_sq = np.concatenate(([0.0], np.cumsum(np.diff(tau) * (sq[1:] + sq[:-1]) * 0.5)))
-        d0_line, slope = _line(integral_sq, d)
+        sq = sd * sd
+        integral_sq = np.concatenate(([0.0], np.cumsum(np.diff(s.tau) * (sq[1:] + sq[:-1]) * 0.5)))
+        d0_line, slope = _line(integral_sq, sd)
         c0 = -slope * d0_line
         if not (math.isfinite(c0) and c0 > 0):
-            k_start, inv_d0 = _second_order_start(tau, d, sign)
+            k_start, inv_d0 = _second_order_start(s.tau, sd, sign)
             c0 = k_start / inv_d0
         got = _fast_second(m, c0, a_end)
         if got is None:
