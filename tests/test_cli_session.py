@@ -158,7 +158,7 @@ def test_calibration_recovers_the_invented_absorptivity(session):
 def test_rate_recovers_the_invented_fading_rate(session):
     _, by, _ = session
     out = by["rate"].output
-    assert "best rate law by AIC:" in out
+    assert "best rate law by AICc:" in out
     k_line = next(line for line in out.splitlines() if line.strip().startswith("k "))
     k, se = float(k_line.split()[1]), float(k_line.split()[3])
     # times come from the host's clock anchors (clock and sync); the board runs in real time here

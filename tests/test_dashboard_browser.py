@@ -20,13 +20,15 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from dashboard_harness import boards, browser, browser_missing, page_server, tile_absorbance_js
-from nightcell.cli import SIM_DEVICE, cli
+from support.dashboard import boards, browser, browser_missing, page_server, tile_absorbance_js
+from nightcell.cli import cli
 
 pytestmark = pytest.mark.skipif(browser_missing() is not None, reason=browser_missing() or "")
 
+SIM_DEVICE = "5e1fdab0a4d00001"  # the test's own boards (every sim-board folder now makes an id of its own)
 HOSTILE_IMG = "<img src=x onerror=pwned=1>"
 HOSTILE_SCRIPT = "<script>pwned=2</script>"
+SIM_DEVICE = "5e1fdab0a4d00001"
 SPECS = [(SIM_DEVICE, "bench 1", 200), ("5e1fdab0a4d00002", HOSTILE_IMG, 1000),
          ("5e1fdab0a4d00003", HOSTILE_SCRIPT, 1000)]
 
@@ -80,7 +82,8 @@ def test_a_tile_follows_a_cuvette_change_within_two_seconds(room):
                                polling=20)
         assert time.monotonic() - t0 < 2.0
         shown = page.text_content(f"{_tile(SIM_DEVICE)} .value")
-        assert abs(float(shown) - target) < 0.02 and len(shown.split(".")[1]) == 3
+        decimals = int(page.get_attribute(f"{_tile(SIM_DEVICE)} .value", "data-decimals"))
+        assert abs(float(shown) - target) < 0.02 and len(shown.split(".")[1]) == decimals and 1 <= decimals <= 4
 
 
 def _widest(page) -> dict:

@@ -13,7 +13,7 @@ import click
 
 from ..errors import NightcellError
 
-__all__ = ["EXIT_CODES", "friendly", "db_option", "port_option", "json_option", "emit", "open_reading", "open_writing"]
+__all__ = ["EXIT_CODES", "friendly", "db_option", "port_option", "json_option", "accept_suspect_option", "emit", "open_reading", "open_writing"]
 
 EXIT_CODES = {
     0: "success",
@@ -93,6 +93,13 @@ def db_option(fn: Callable[..., Any]) -> Callable[..., Any]:
 def port_option(fn: Callable[..., Any]) -> Callable[..., Any]:
     return click.option("--port", "port", required=True, envvar="NIGHTCELL_PORT", show_envvar=True,
                         help="The board's serial port or any pyserial URL (find boards with `nightcell boards`).")(fn)
+
+
+def accept_suspect_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """``--accept-suspect``: the one option that confirms data a guard refuses (the flag stays on the result)."""
+    return click.option("--accept-suspect", "accept_suspect", is_flag=True,
+                        help="Use data nightcell's checks flag as suspect (a blocked blank, standards that do not "
+                             "rise, an odd temperature); the flag is kept with the result.")(fn)
 
 
 def json_option(fn: Callable[..., Any]) -> Callable[..., Any]:

@@ -341,6 +341,8 @@ class SimulatedBoard:
                   "speed": self.speed, "seed": self.seed + self.boots, "cell": str(self.cell_path),
                   "settings": self.settings, "optics": self.optics, "ticks_start_ms": self.ticks_start_ms}
         self.config_path.write_text(json.dumps(config, indent=1))
+        # the folder names the board it holds, so `nightcell sim-cuvette --dir` finds its cuvette
+        (self.workdir / SIM_DEVICE_FILE).write_text(self.device + "\n", encoding="ascii")
         if self.relay is None:
             board_master, board_slave = pty.openpty()
             host_master, host_slave = pty.openpty()
@@ -466,6 +468,38 @@ def new_device_id(rng: random.Random | None = None) -> str:
     """A random 16-hex-digit device id for a simulated board."""
     rng = rng or random.Random()
     return "".join(rng.choice("0123456789abcdef") for _ in range(16))
+
+
+SIM_DEVICE_FILE = "device_id"
+_LEGACY_SIM_DEVICE = "5e1fc0ffee000001"  # the one id every simulated board of `nightcell sim-board` once had
+
+
+def folder_device_id(folder: str | Path, *, create: bool) -> str | None:
+    """The device id of the simulated board kept in ``folder``: made (random) the first time, then kept.
+
+    Two simulated boards in two folders get two ids, so their rows never share a key in one database; the same
+    folder started again is the same board (its flash is there) and keeps its id. A folder made before ids were
+    kept there holds the old shared id's cuvette file, and keeps that id. None when there is no board and
+    ``create`` is false.
+    """
+    folder = Path(folder)
+    path = folder / SIM_DEVICE_FILE
+    try:
+        text = path.read_text(encoding="ascii").strip()
+        if 1 <= len(text) <= 64 and all(c.isalnum() or c in "-_.:" for c in text):
+            return text  # made here, or written by a SimulatedBoard started in this folder
+    except (OSError, UnicodeDecodeError):
+        pass
+    if (folder / f"{_LEGACY_SIM_DEVICE}.cell.json").exists():
+        return _LEGACY_SIM_DEVICE
+    if not create:
+        return None
+    device = new_device_id(random.SystemRandom())
+    folder.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_suffix(".tmp")
+    tmp.write_text(device + "\n", encoding="ascii")
+    os.replace(tmp, path)
+    return device
 
 
 def copy_firmware(dest: str | Path) -> Path:

@@ -3,7 +3,7 @@
 The browser is the system's Chromium (Debian/Ubuntu: ``apt-get install -y chromium``; ``.ci/run`` installs it),
 driven by the ``playwright`` package with ``executable_path`` — never a browser downloaded by playwright.
 
-Usage::
+Usage (from tests/, which puts the support package on the path)::
 
     with boards(tmp, [("5e1f...", "bench 1", 200)]) as sims, page_server([s.url for s in sims], db) as server:
         with browser() as (pw_browser, note):
@@ -25,7 +25,7 @@ from pathlib import Path
 from typing import Any, Iterator, Sequence
 
 from nightcell.wire.link import Board
-from nightcell.sim.board import SimulatedBoard
+from nightcell.sim.board import SIM_DEVICE_FILE, SimulatedBoard
 
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync", "--no-first-run"]
@@ -75,7 +75,10 @@ def boards(workdir: Path, specs: Sequence[tuple[str, str, int]], *, run: bool = 
     sims: list[SimulatedBoard] = []
     try:
         for i, (device, label, interval_ms) in enumerate(specs):
-            sim = SimulatedBoard(workdir / f"board{i}", device=device, seed=11 + i,
+            folder = workdir / f"board{i}"
+            folder.mkdir(parents=True, exist_ok=True)
+            (folder / SIM_DEVICE_FILE).write_text(device + "\n", encoding="ascii")  # so `sim-cuvette --dir` finds it
+            sim = SimulatedBoard(folder, device=device, seed=11 + i,
                                  settings={"interval_ms": interval_ms, "durability_ms": 1000, "label": label})
             sims.append(sim.start())
         for sim in sims:
