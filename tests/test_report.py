@@ -247,7 +247,7 @@ def test_a_run_of_a_hundred_thousand_readings_draws_small_files_that_say_they_ar
     rng = np.random.default_rng(3)
     t = np.arange(100_000) * 2.0
     a = _plateau(t, 0.8, 0.1, 0.004) + rng.normal(0, 0.003, t.size)
-    fit = kinetics.fit_model(t, a, "first_order_plateau")
+    fit = kinetics.fit_model(t, a, "first_order_to_final")
     assert fit.n == t.size
     fig, ax, rax = report._two_panel()
     report.plot_run(t, a, fit, ax=ax, resid_ax=rax, title="long")
