@@ -379,6 +379,35 @@ CASES = [
          port="missing"),
     Case("setup channel not NAME:LED:ADC", ["setup", "--channel", "red"], 2, "must be NAME:LED:ADC", port="missing"),
     Case("empty note", ["note", "   "], 2, "the note is empty", port="missing"),
+    Case("setup interval NaN", ["setup", "--interval", "nan"], 2, "'nan' is not a finite number", port="missing"),
+    Case("setup warm-up infinite", ["setup", "--warmup", "inf"], 2, "'inf' is not a finite number", port="missing"),
+    Case("setup path length NaN", ["setup", "--path-cm", "nan"], 2, "'nan' is not a finite number", port="missing"),
+    Case("standard value beyond a double", ["standard", "1e999"], 2, "'1e999' is not a usable concentration",
+         port="missing"),
+    Case("standard value negative", ["standard", "--", "-2"], 2, "'-2' is not a usable concentration", port="missing"),
+    Case("watch every NaN seconds", ["watch", "--every", "nan"], 2, "'nan' is not a finite number", port="missing"),
+    Case("condition temperature NaN", ["condition", "--db", "{db}", "--temperature-c", "nan"], 2,
+         "'nan' is not a finite number"),
+    Case("condition temperature below absolute zero", ["condition", "--db", "{db}", "--temperature-k", "-5"], 2,
+         "-5 K is out of range: give a number from 0 to 1300 K"),
+    Case("condition concentration infinite", ["condition", "--db", "{db}", "--conc", "naoh=inf"], 2,
+         "give a finite concentration"),
+    Case("calibrate --level 1.5", ["calibrate", "{csv}", "--level", "1.5"], 2,
+         "1.5 is out of range: give a number between 0 and 1, not either end", csv=_csv(GOOD_CAL)),
+    Case("calibrate --level 0", ["calibrate", "--db", "{db}", "--level", "0"], 2,
+         "0 is out of range: give a number between 0 and 1", csv=None),
+    Case("calibrate --reading NaN", ["calibrate", "{csv}", "--reading", "nan"], 2, "'nan' is not a finite number",
+         csv=_csv(GOOD_CAL)),
+    Case("rate --window with infinity", ["rate", "--db", "{db}", "--model", "initial_rate", "--window", "0", "inf"],
+         2, "'inf' is not a finite number"),
+    Case("roll-call --timeout NaN", ["roll-call", "--timeout", "nan"], 2, "'nan' is not a finite number"),
+    Case("arrhenius on °C written as K", ["arrhenius", "{csv}"], 2, "look like °C — add 273.15",
+         csv=_csv("temperature_K,k\n15,0.010\n25,0.021\n35,0.043\n")),
+    Case("arrhenius --eyring with k of 1e300", ["arrhenius", "{csv}", "--eyring"], 2,
+         "line 2, column k: 1e+300 is beyond any plausible value",
+         csv=_csv("temperature_K,k\n288,1e300\n298,2e300\n308,4e300\n")),
+    Case("rate with absorbances of 1e300", ["rate", "{csv}"], 2, "column absorbance: 1e+300 is beyond any plausible",
+         csv=_csv("time_s,absorbance\n0,1e300\n2,0.9e300\n4,0.8e300\n6,0.7e300\n8,0.6e300\n")),
     Case("sync with no port given", ["sync", "--db", "{db}"], 2, "Missing option '--port'", env={"NIGHTCELL_PORT": ""}),
     # -- CSV import ------------------------------------------------------------------------------------------------
     Case("CSV empty file", ["calibrate", "{csv}"], 2, "is empty; it needs a header row", csv=_csv("")),
@@ -474,6 +503,12 @@ CASES = [
          chatter=b"\x1b[2J MicroPython v1.99 REPL >>> " * 4),
     Case("a board of another protocol", ["hello"], 3, "speaks an unknown protocol",
          port=board_then_vanish("never", dict(HELLO, protocol=7))),
+    Case("hello with head before tail", ["sync", "--db", "{db}"], 3, "which ends before it starts",
+         port=board_then_vanish("never", dict(HELLO, head=10, tail=500))),
+    Case("hello with a negative head", ["hello"], 3, "with head = -1, not a position",
+         port=board_then_vanish("never", dict(HELLO, head=-1))),
+    Case("hello with a device id that is not hex", ["sync", "--db", "{db}"], 3, "not 16 hex digits",
+         port=board_then_vanish("never", dict(HELLO, device="../../x"))),
     Case("board vanishes mid-command (stop)", ["stop"], 3, "", port=board_then_vanish("stop")),
     Case("board vanishes mid-sync (anchor)", ["sync", "--db", "{db}"], 3, "", port=board_then_vanish("anchor")),
     Case("board vanishes mid-mark (blank)", ["blank", "--label", "water"], 3, "", port=board_then_vanish("blank")),
@@ -665,3 +700,47 @@ def test_settings_defaults_file_loads_cleanly(tmp_path):
     shutil.copy(ROOT / "schema" / "settings_default.json", path)
     got, problem = settings.load(str(path))
     assert problem is None and got == settings.defaults()
+
+
+# -- values already journaled that cannot be used -------------------------------------------------------------------
+
+def test_a_journaled_standard_of_1e999_is_left_out_and_named(tmp_path):
+    records = [F.decode_record(r)[0] for r in journal_records()]
+    for r in records:
+        if r.kind == F.KIND_MARK and r.fields["label"] == "dye 6":
+            r.fields["value"] = "1e999"  # what `standard 1e999` journaled before the CLI checked it
+    db = store_as_synced(tmp_path / "bad-standard.db", DEVICE, records)
+    out = CliRunner().invoke(cli, ["calibrate", "--db", str(db), "--json"])
+    cal = json.loads(out.stdout)["calibration"]
+    assert cal["n"] == 4
+    assert cal["inputs"]["skipped"] == ["standard 'dye 6' (1:6) left out: its value '1e999' is not a usable "
+                                        "concentration"]
+    text = CliRunner().invoke(cli, ["calibrate", "--db", str(db)]).output
+    assert "warning: standard 'dye 6' (1:6) left out" in text
+
+
+# -- file names: one page per run, whatever the labels ---------------------------------------------------------------
+
+def test_n_runs_give_n_pages_whatever_their_labels(tmp_path):
+    labels = ["NaOH 0.02 M", "NaOH 0.04 M", "x" * 61, "x" * 61 + "y", "CON", "end dot."]
+    records = []
+    for i, label in enumerate(labels):
+        device = f"5eba0000000001{i:02x}"
+        records.append((device, [F.decode_record(r)[0] for r in journal_records(device=device, run_label=label)]))
+    db = tmp_path / "many.db"
+    for device, recs in records:
+        store_as_synced(db, device, recs)
+    result = CliRunner().invoke(cli, ["report", "--db", str(db), "--all", "--out", str(tmp_path / "r")])
+    assert result.exit_code == 0, result.output
+    pages = sorted((tmp_path / "r").glob("*.html"))
+    assert len(pages) == len(labels), [p.name for p in pages]
+    figures = sorted((tmp_path / "r").glob("*-absorbance.png"))
+    assert len(figures) == len(labels) and len(list((tmp_path / "r").glob("*-absorbance.svg"))) == len(labels)
+    wrote = [ln for ln in result.output.splitlines() if ln.startswith("wrote ")]
+    assert len(wrote) == len(set(wrote)) == len(list((tmp_path / "r").iterdir()))
+    reserved = {"CON", "PRN", "AUX", "NUL", *(f"COM{i}" for i in range(10)), *(f"LPT{i}" for i in range(10))}
+    for p in (tmp_path / "r").iterdir():
+        assert p.name.split(".")[0].upper() not in reserved and not p.name.endswith((".", " ")), p.name
+    csv_out = CliRunner().invoke(cli, ["export", "--db", str(db), "--out", str(tmp_path / "x")])
+    assert csv_out.exit_code == 0, csv_out.output
+    assert len(list((tmp_path / "x").glob("*-absorbance.csv"))) == len(labels)

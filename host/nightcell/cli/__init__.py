@@ -16,6 +16,7 @@ import contextlib
 import datetime
 import functools
 import json
+import math
 import sys
 import time
 from pathlib import Path
@@ -25,7 +26,7 @@ import click
 
 from .. import __version__
 from ..errors import DeviceError, InputError
-from .options import EXIT_CODES, db_option, friendly, json_option, open_reading, open_writing, port_option
+from .options import EXIT_CODES, FINITE, Finite, db_option, inert, friendly, json_option, open_reading, open_writing, port_option
 from .options import emit as _emit
 
 __all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES", "open_reading",
@@ -107,9 +108,9 @@ def _sim_folder(path: Path) -> Path:
 @cli.command("sim-board")
 @click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
               show_default=True, help="Folder for the board's flash image and cuvette file (kept between runs).")
-@click.option("--speed", type=click.FloatRange(min=1.0, max=1000.0), default=1.0, show_default=True,
+@click.option("--speed", type=Finite(1.0, 1000.0), default=1.0, show_default=True,
               help="How many times faster than real time the board's clock runs.")
-@click.option("--seconds", type=click.FloatRange(min=0.1), default=None,
+@click.option("--seconds", type=Finite(0.1, unit="s"), default=None,
               help="Stop by itself after this many real seconds (default: run until Ctrl-C).")
 @click.option("--interpreter", type=click.Choice(["auto", "micropython", "cpython"]), default="auto",
               show_default=True, help="Run the firmware in MicroPython's unix port or in CPython.")
@@ -149,7 +150,7 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
 @cli.command("sim-cuvette")
 @click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
               show_default=True, help="The folder a running `nightcell sim-board` was given.")
-@click.option("--absorbance", type=float, help="A solution of this absorbance (0 for the blank's solvent).")
+@click.option("--absorbance", type=FINITE, help="A solution of this absorbance (0 for the blank's solvent).")
 @click.option("--fading", metavar="A0:A_END:K",
               help="A reaction: absorbance A0 fading (or growing) to A_END with rate constant K per second.")
 @click.option("--blocked", is_flag=True, help="Block the light path (for `nightcell opaque`).")
@@ -272,9 +273,9 @@ def _check_text(what: str, text: str, verb: str, max_bytes: int | None = None) -
 
 @cli.command()
 @port_option
-@click.option("--interval", type=float, metavar="SECONDS", help="Time between samples of a run (0.2 s to 1 day).")
-@click.option("--warmup", type=float, metavar="SECONDS", help="LED on before a run's first sample (0 to 600 s).")
-@click.option("--durability", type=float, metavar="SECONDS",
+@click.option("--interval", type=FINITE, metavar="SECONDS", help="Time between samples of a run (0.2 s to 1 day).")
+@click.option("--warmup", type=FINITE, metavar="SECONDS", help="LED on before a run's first sample (0 to 600 s).")
+@click.option("--durability", type=FINITE, metavar="SECONDS",
               help="Durability window: samples older than this are on flash (0 to 3600 s; shorter wears flash more).")
 @click.option("--label", "device_label", help=f"The board's own label, e.g. 'bench 3' (at most {LABEL_MAX_BYTES} "
                                              "bytes).")
@@ -282,7 +283,7 @@ def _check_text(what: str, text: str, verb: str, max_bytes: int | None = None) -
               help="A light channel: name, LED pin, ADC pin (or sensor channel); repeat for up to 4. Replaces all "
                    "channels; takes effect after the board restarts.")
 @click.option("--reads", type=int, help="ADC reads summed per dark and per light value (1 to 256).")
-@click.option("--path-cm", type=float, help="Optical path length of the cuvette in cm (0.01 to 10).")
+@click.option("--path-cm", type=FINITE, help="Optical path length of the cuvette in cm (0.01 to 10).")
 @json_option
 @friendly
 def setup(port: str, interval: float | None, warmup: float | None, durability: float | None,
@@ -407,10 +408,13 @@ def standard(port: str, value: str, label: str, as_json: bool) -> None:
     Example: nightcell standard --port /dev/ttyACM0 2.0 --label "dye 2 µM"
     """
     try:
-        float(value)
+        number = float(value)
         ok = len(value) <= 32 and all(c in "0123456789.+-eE" for c in value)
     except ValueError:
-        ok = False
+        number, ok = 0.0, False
+    if ok and not (math.isfinite(number) and 0.0 <= number < 1e50):
+        raise InputError(f"the standard's VALUE {value!r} is not a usable concentration: give a finite number of "
+                         "0 or more, e.g. 0.250")
     if not ok:
         raise InputError(f"the standard's VALUE must be a decimal number as typed, e.g. 0.250, not {value!r} "
                          "(put the unit in --label)")
@@ -482,7 +486,7 @@ def note(port: str, text: str, as_json: bool) -> None:
 @cli.command()
 @port_option
 @db_option
-@click.option("--every", type=click.FloatRange(min=0.1), default=1.0, show_default=True, metavar="SECONDS",
+@click.option("--every", type=Finite(0.1, unit="s"), default=1.0, show_default=True, metavar="SECONDS",
               help="How often to ask the board.")
 @click.option("--polls", type=click.IntRange(min=1), default=None,
               help="Stop after this many polls (default: until Ctrl-C).")
@@ -553,7 +557,7 @@ def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) ->
     for c in columns:
         table.add_column(c, overflow="fold")
     for row in rows:
-        table.add_row(*[Text("" if v is None else str(v)) for v in row])
+        table.add_row(*[Text("" if v is None else inert(str(v))) for v in row])
     Console(highlight=False).print(table)
 
 
@@ -708,16 +712,19 @@ def _concentration(text: str) -> tuple[str, float]:
     if not sep or not name.strip() or not value.strip():
         raise InputError(f"--conc {text!r}: write REACTANT=MOLAR, e.g. --conc hydroxide=0.02")
     try:
-        return f"conc_{name.strip().lower()}_M", float(value)
+        molar = float(value)
     except ValueError:
         raise InputError(f"--conc {text!r}: {value!r} is not a number of mol/L") from None
+    if not (math.isfinite(molar) and 0.0 <= molar < 1e3):
+        raise InputError(f"--conc {text!r}: give a finite concentration from 0 to 1000 mol/L")
+    return f"conc_{name.strip().lower()}_M", molar
 
 
 @cli.command()
 @db_option
 @click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
-@click.option("--temperature-c", "temperature_c", type=float, help="The run's temperature in °C.")
-@click.option("--temperature-k", "temperature_k", type=float, help="The run's temperature in kelvin.")
+@click.option("--temperature-c", "temperature_c", type=Finite(-273.15, 1000.0, unit="°C"), help="The run's temperature in °C.")
+@click.option("--temperature-k", "temperature_k", type=Finite(0.0, 1300.0, unit="K", open_ends=False), help="The run's temperature in kelvin.")
 @click.option("--conc", "concentrations", multiple=True, metavar="REACTANT=MOLAR",
               help="A starting concentration in mol/L, e.g. hydroxide=0.02 (repeat for each reactant).")
 @click.option("--source", default="typed in by the user", show_default=True,

@@ -33,7 +33,7 @@ import numpy as np
 from ..science import calibration as _calibration
 from ..science import kinetics as _kinetics
 from ..science import study as _study
-from .options import friendly, json_option, open_writing
+from .options import FINITE, Finite, friendly, inert, json_option, open_writing
 from ..errors import InputError
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
@@ -52,8 +52,26 @@ def read_columns(
     table = read_table(path, required, optional, prefix=prefix, min_rows=min_rows, text=text,
                        delimiter=params.get("delimiter"), decimal=params.get("decimal"), sheet=params.get("sheet"))
     if table.notes:
-        (say or (lambda line: click.echo(line, err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+        (say or (lambda line: click.echo(inert(line), err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+    _plausible(table)
     return table.columns
+
+
+# Beyond these no reading of a colorimeter or rate constant lies, and the fits' arithmetic would overflow.
+_LIMITS = {"absorbance": 50.0, "k": 1e50, "k_se": 1e50, "initial_rate": 1e50, "rate_se": 1e50, "weight": 1e50,
+           "concentration": 1e50, "time_s": 1e12, "temperature_K": 1e5}
+
+
+def _plausible(table: Any) -> None:
+    for name, values in table.columns.items():
+        limit = _LIMITS.get(name, 1e50 if name.startswith("conc_") else None)
+        if limit is None or values.dtype == object or values.size == 0:
+            continue
+        big = np.flatnonzero(np.abs(values) > limit)
+        if big.size:
+            i = int(big[0])
+            raise InputError(f"{table.path} line {table.line(i)}, column {name}: {values[i]:g} is beyond any plausible value "
+                             f"(at most {limit:g} in size): fix or delete that row")
 
 
 def _table_options(fn: Callable[..., Any]) -> Callable[..., Any]:
@@ -126,7 +144,7 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) ->
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
-    click.echo(payload if as_json else text)
+    click.echo(payload if as_json else inert(text))
 
 
 def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str, Any], data: dict[str, Any],
@@ -145,7 +163,7 @@ def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str,
                 write_atomic(out, (payload + "\n").encode("utf-8"))
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
-    click.echo(payload if as_json else text)
+    click.echo(payload if as_json else inert(text))
 
 
 def _only_device(store: Any, device: str | None) -> str:
@@ -170,12 +188,13 @@ def _only_device(store: Any, device: str | None) -> str:
 @_channel_option
 @click.option("--quadratic", is_flag=True, help="Fit a quadratic instead of a straight line.")
 @click.option("--through-origin", is_flag=True, help="Fit without an intercept.")
-@click.option("--reading", "readings", type=float, multiple=True,
+@click.option("--reading", "readings", type=FINITE, multiple=True,
               help="Absorbance of an unknown; repeat for replicate readings. Prints its concentration.")
-@click.option("--path-cm", type=float, default=None, help="Path length (cm) to report the molar absorptivity.")
-@click.option("--blank-sd", type=float, default=None,
+@click.option("--path-cm", type=Finite(0.001, 100.0, unit="cm"), default=None, help="Path length (cm) to report the molar absorptivity.")
+@click.option("--blank-sd", type=Finite(0.0), default=None,
               help="SD of repeated blank absorbances; LOD/LOQ then use it as σ.")
-@click.option("--level", type=float, default=0.95, show_default=True, help="Confidence level of intervals.")
+@click.option("--level", type=Finite(0.0, 1.0, open_ends=True), default=0.95,
+              show_default=True, help="Confidence level of intervals, between 0 and 1 (e.g. 0.95).")
 @json_option
 @_out_option
 @friendly
@@ -215,6 +234,8 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
                                            inputs={"file": csv_file.name}, **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
     text = cal.report()
+    for line in cal.inputs.get("skipped", []):
+        text += f"\nwarning: {line}"
     if readings:
         pred = cal.predict(list(readings))
         data["prediction"] = pred.to_dict()
@@ -263,10 +284,10 @@ def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, fl
 @_channel_option
 @click.option("--model", type=click.Choice(("all", "initial_rate") + _kinetics.MODELS), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
-@click.option("--window", type=(float, float), default=None, metavar="START END",
+@click.option("--window", type=(FINITE, FINITE), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
-@click.option("--t-start", type=float, default=None, help="Leave out readings before this time (s), e.g. mixing.")
-@click.option("--a-end", type=float, default=0.0, show_default=True,
+@click.option("--t-start", type=FINITE, default=None, help="Leave out readings before this time (s), e.g. mixing.")
+@click.option("--a-end", type=FINITE, default=0.0, show_default=True,
               help="Absorbance when the followed species is used up (zero/first/second-order laws).")
 @json_option
 @_out_option
@@ -379,6 +400,14 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
     _finish(data, text, as_json, out)
 
 
+def _kelvin(path: Path, temperature_k: np.ndarray) -> None:
+    """Refuse temperatures that are plainly °C written as kelvin (no solution is studied below 200 K)."""
+    t = np.asarray(temperature_k, dtype=float)
+    if t.size and float(np.max(t)) < 200.0:
+        raise InputError(f"{path}: temperatures {float(np.min(t)):g} to {float(np.max(t)):g} K look like °C — add "
+                         "273.15 to each (or name the column 'temperature (°C)', which is converted)")
+
+
 def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
     """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
     from ..tasks.analyse import analyse_run
@@ -436,6 +465,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel, "model": model,
                       "temperature": "from the CSV" if "temperature_K" in cols and not all(g[2] for g in got)
                       else "CSV column, else the run's mean probe temperature"}
+        _kelvin(csv_file, cols["temperature_K"])
         fit = _study.arrhenius(cols["temperature_K"], cols["k"], cols.get("k_se"), inputs=inputs)
         data: dict[str, Any] = {"arrhenius": fit.to_dict()}
         text = fit.report()

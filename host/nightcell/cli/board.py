@@ -15,17 +15,13 @@ from typing import Any, Iterator
 
 import click
 
-from .options import db_option, friendly, json_option, open_writing, port_option
+from .options import Finite, db_option, emit, friendly, json_option, open_writing, port_option
 from ..errors import DeviceNotFound, InputError
 
 __all__ = ["register", "sync_progress"]
 
 
-def _emit(data: Any, as_json: bool, text: str) -> None:
-    if as_json:
-        click.echo(json.dumps(data, indent=1, sort_keys=True, default=str))
-    else:
-        click.echo(text)
+_emit = emit  # JSON, or text made inert for the terminal
 
 
 @contextlib.contextmanager
@@ -55,7 +51,7 @@ def sync_progress(enabled: bool = True) -> Iterator[Any]:
 
 
 @click.command("roll-call")
-@click.option("--timeout", type=float, default=1.0, show_default=True, help="Seconds to wait for each board.")
+@click.option("--timeout", type=Finite(0.05, 3600.0, unit="s"), default=1.0, show_default=True, help="Seconds to wait for each board.")
 @json_option
 @friendly
 def roll_call(timeout: float, as_json: bool) -> None:
@@ -85,7 +81,7 @@ def roll_call(timeout: float, as_json: bool) -> None:
 @db_option
 @click.option("--parallel", is_flag=True, help="Sync all ports at once instead of one after another.")
 @click.option("--no-ack", is_flag=True, help="Do not let the boards trim what was stored.")
-@click.option("--timeout", type=float, default=5.0, show_default=True, help="Seconds to wait for each reply.")
+@click.option("--timeout", type=Finite(0.05, 3600.0, unit="s"), default=5.0, show_default=True, help="Seconds to wait for each reply.")
 @json_option
 @friendly
 def sync_all(ports: tuple[str, ...], db: Path, parallel: bool, no_ack: bool, timeout: float, as_json: bool) -> None:
@@ -163,7 +159,7 @@ def merge(other: Path, db: Path, strict: bool, as_json: bool) -> None:
 @click.command("deploy")
 @port_option
 @click.option("--no-compile", is_flag=True, help="Copy .py sources instead of compiling them with mpy-cross.")
-@click.option("--wait", type=float, default=20.0, show_default=True,
+@click.option("--wait", type=Finite(0.0, 3600.0, unit="s"), default=20.0, show_default=True,
               help="Seconds to wait for the board to answer after its restart.")
 @json_option
 @friendly

@@ -158,22 +158,32 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
 
 def standards_from_store(store: Store, device: str, channel: int = 0) -> dict[str, Any]:
     """Concentration and absorbance of every standard mark of a device, each against its own blank."""
-    conc, absorb, ids, blanks, strays = [], [], [], [], []
+    conc, absorb, ids, blanks, strays, skipped = [], [], [], [], [], []
     for m in store.marks(device, "standard"):
+        name = f"standard {m['label']!r} ({m['boot']}:{m['seq']})" if m["label"] else f"standard {m['boot']}:{m['seq']}"
         try:
             c = float(m["value"])
-        except ValueError as exc:
-            raise AnalysisError(f"standard {m['boot']}:{m['seq']} has value {m['value']!r}, not a number") from exc
+        except ValueError:
+            c = math.nan
+        if not (math.isfinite(c) and 0.0 <= c < 1e50):
+            # a journaled mark cannot be taken back: the analysis leaves it out and names it, so one bad value
+            # never blocks the device's other standards
+            skipped.append(f"{name} left out: its value {m['value']!r} is not a usable concentration")
+            continue
         b = choose_blank(store, device, (m["boot"], m["seq"]), channel)
         light, dark = _mark_means(m, channel)
         res = _absorbance([light], [dark], b)
+        a = float(res.absorbance[0])
+        if not math.isfinite(a):
+            skipped.append(f"{name} left out: its absorbance cannot be read (no light above the dark)")
+            continue
         conc.append(c)
-        absorb.append(float(res.absorbance[0]))
+        absorb.append(a)
         ids.append(f"{m['boot']}:{m['seq']}")
         blanks.append(f"{b.boot}:{b.seq}")
         strays.append(b.stray_text)
     return {"concentration": np.array(conc), "absorbance": np.array(absorb), "marks": ids, "blanks": blanks,
-            "stray": strays}
+            "stray": strays, "skipped": skipped}
 
 
 def calibrate_from_store(store: Store, device: str, channel: int = 0, **options: Any) -> _calibration.CalibrationResult:
@@ -183,6 +193,8 @@ def calibrate_from_store(store: Store, device: str, channel: int = 0, **options:
         raise AnalysisError(f"device {device} has no standards: record some with `nightcell standard`")
     inputs = {"device": device, "channel": channel, "standards": std["marks"], "blanks": std["blanks"],
               "blank_rule": BLANK_RULE, "stray_light": sorted(set(std["stray"]))}
+    if std["skipped"]:
+        inputs["skipped"] = std["skipped"]
     return _calibration.fit_calibration(std["concentration"], std["absorbance"], inputs=inputs, **options)
 
 

@@ -62,6 +62,11 @@ class Table:
     units: dict[str, str] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
     rows: list[int] = field(default_factory=list)
+    first_line: int = 2  # the line of the first data row when ``rows`` is empty (a plain file read in one go)
+
+    def line(self, i: int) -> int:
+        """The file's line (or sheet row) of data row ``i``."""
+        return self.rows[i] if self.rows else self.first_line + i
 
     def to_dict(self) -> dict[str, Any]:
         return {"file": self.path.name, "units": dict(self.units), "notes": list(self.notes)}
@@ -491,4 +496,4 @@ def _fast_path(p: Path, data: bytes, header_line: str, delimiter: str, decimal: 
         out[h.name] = values[:, j] * h.scale if h.scale != 1.0 else values[:, j]
         if h.unit:
             units[h.name] = h.unit
-    return Table(p, out, units, notes, [])
+    return Table(p, out, units, notes, [], first_line=data[:start].count(b"\n") + 2)

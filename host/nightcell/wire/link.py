@@ -14,6 +14,7 @@ Example::
 from __future__ import annotations
 
 import json
+import re
 import struct
 import time
 from typing import Any, Callable, Iterator
@@ -86,6 +87,28 @@ def discover(*, timeout: float = 1.0, ports: list[dict[str, Any]] | None = None)
             entry["error"] = str(exc)
         found.append(entry)
     return found
+
+
+def _check_hello(info: dict[str, Any], url: str) -> None:
+    """A ``hello`` whose journal positions and ids a host can act on; anything else is refused before anything is
+    stored (a board that claims its journal ends before it starts would make a sync skip or store nonsense)."""
+    def whole(key: str) -> int:
+        v = info.get(key)
+        if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v < 1 << 53:
+            raise ProtocolError(f"the board on {url} sent a hello with {key} = {v!r}, not a position or count: "
+                                "restart it (unplug it and plug it in) and try again; nothing was stored")
+        return v
+
+    head, tail = whole("head"), whole("tail")
+    whole("journal")
+    whole("boot")
+    if head < tail:
+        raise ProtocolError(f"the board on {url} says its journal runs from {tail} to {head}, which ends before it "
+                            "starts: restart it (unplug it and plug it in) and try again; nothing was stored")
+    device = info.get("device")
+    if not isinstance(device, str) or not re.fullmatch(r"[0-9a-f]{16}", device):
+        raise ProtocolError(f"the board on {url} sent a hello with device id {device!r}, not 16 hex digits: is it "
+                            "running nightcell firmware?")
 
 
 class Transport:
@@ -239,6 +262,7 @@ class Board:
             ) from exc
         if not isinstance(info, dict) or info.get("protocol") != 1:
             raise ProtocolError(f"the device on {self.transport.url} speaks an unknown protocol: {info!r}")
+        _check_hello(info, self.transport.url)
         return info
 
     def anchor(self, host_unix_ms: int) -> dict[str, Any]:
