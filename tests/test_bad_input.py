@@ -536,10 +536,70 @@ def _fill(arg: Any, subs: dict[str, str]) -> str:
     return text
 
 
-def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPatch) -> tuple[Any, Path, dict, dict]:
+class _Medium:
+    """A small tmpfs mounted for one row: ``readonly`` holds a copy of the row's database and is remounted
+    read-only; ``full`` holds the copy (and the row's folder) and is then filled to its last byte. Needs root and a
+    kernel that lets us mount; otherwise the row is skipped with the reason."""
+
+    def __init__(self, kind: str, root: Path):
+        self.kind, self.root = kind, root
+
+    def __enter__(self) -> "_Medium":
+        import subprocess
+
+        self.root.mkdir(parents=True, exist_ok=True)
+        if os.geteuid() != 0:
+            pytest.skip("mounting a small tmpfs needs root; run the suite as root (CI does) to run this row")
+        done = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=512k", "tmpfs", str(self.root)],
+                              capture_output=True, text=True)
+        if done.returncode != 0:
+            pytest.skip(f"this machine does not let us mount a tmpfs ({done.stderr.strip()})")
+        return self
+
+    def place(self, db: Path) -> Path:
+        """Copy ``db`` onto the medium, then make it read-only or full; returns the copy's path."""
+        import subprocess
+
+        if not db.exists():
+            return db
+        if db.is_dir():
+            return self.root
+        copy = self.root / db.name
+        if copy != db:
+            shutil.copy(db, copy)
+        return copy
+
+    def seal(self) -> None:
+        """Once the row's inputs are in place: remount read-only, or fill every byte left."""
+        import subprocess
+
+        if self.kind == "readonly":
+            subprocess.run(["mount", "-o", "remount,ro", str(self.root)], check=True)
+        else:
+            fd = os.open(self.root / "filler", os.O_WRONLY | os.O_CREAT | os.O_EXCL)
+            try:
+                for size in (65536, 4096, 512, 1):
+                    while True:
+                        try:
+                            os.write(fd, b"\0" * size)
+                        except OSError:
+                            break
+            finally:
+                os.close(fd)
+
+    def __exit__(self, *exc: object) -> None:
+        import subprocess
+
+        subprocess.run(["umount", "-l", str(self.root)], capture_output=True)
+
+
+def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPatch,
+            medium: _Medium | None = None) -> tuple[Any, Path, dict, dict]:
     monkeypatch.setattr(link_module, "Deadline", _QuickDeadline)
     monkeypatch.setattr(store_module, "BUSY_TIMEOUT_S", 0.2)
     db = case.db(template, work)
+    if medium is not None:
+        db = medium.place(db)
     subs = {"db": str(db), "dir": str(work)}
     if case.csv is not None:
         subs["csv"] = str(case.csv(work))
@@ -554,6 +614,8 @@ def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPa
     if fake is not None:
         env["NIGHTCELL_PORT"] = fake.path
     env.update(case.env)
+    if medium is not None:
+        medium.seal()
     undo = case.setup(db, work) if case.setup else None
     before = snapshot(db)
     try:
@@ -583,6 +645,31 @@ def test_bad_input(case: Case, template: Path, tmp_path: Path, monkeypatch: pyte
     made = [a for a in (_fill(a, {"dir": str(tmp_path)}) for a in case.absent) if Path(a).exists()]
     assert not made, f"a refused command left {made}"
     assert not list(tmp_path.rglob("*.part")), list(tmp_path.rglob("*.part"))
+
+
+@pytest.mark.parametrize("kind", ["readonly", "full"])
+@pytest.mark.parametrize("case", [c for c in CASES if c.setup is None], ids=[c.name for c in CASES if c.setup is None])
+def test_bad_input_on_a_read_only_or_full_medium(case: Case, kind: str, template: Path, tmp_path: Path,
+                                                  monkeypatch: pytest.MonkeyPatch):
+    """The whole table again, with the row's database on a read-only medium, or on a full one with the row's
+    outputs: every row is still refused with one line and a documented code, nothing changes and nothing is left
+    behind. A row refused before the database is touched gives the same code; a row whose command writes may
+    instead be refused as read-only or full (exit 4) or unwritable (exit 2)."""
+    with _Medium(kind, tmp_path / "medium") as medium:
+        work = tmp_path / "medium" if kind == "full" else tmp_path / "work"
+        work.mkdir(exist_ok=True)
+        result, db, before, after = _invoke(case, template, work, monkeypatch, medium)
+        output = result.output
+        assert result.exit_code != 0, output
+        assert result.exit_code == case.code or (result.exit_code in (2, 4) and any(
+            w in output for w in ("read-only", "readonly", "No space left", "disk is full", "full"))), \
+            f"exit {result.exit_code}, expected {case.code}:\n{output}\n{result.exception!r}"
+        assert "Traceback" not in output and "Warning" not in output
+        assert output.strip() and len(output.strip().splitlines()) <= 8, output
+        assert not isinstance(result.exception, (AssertionError, TypeError, AttributeError, KeyError, IndexError)), \
+            output
+        assert after == before, f"the database changed: {before} -> {after}"
+        assert not list(work.rglob("*.part")), list(work.rglob("*.part"))
 
 
 def test_the_table_has_at_least_forty_rows_across_every_kind():
@@ -744,3 +831,67 @@ def test_n_runs_give_n_pages_whatever_their_labels(tmp_path):
     csv_out = CliRunner().invoke(cli, ["export", "--db", str(db), "--out", str(tmp_path / "x")])
     assert csv_out.exit_code == 0, csv_out.output
     assert len(list((tmp_path / "x").glob("*-absorbance.csv"))) == len(labels)
+
+
+# -- reading commands on a read-only medium work; outputs onto a full one are refused whole ------------------------
+
+@pytest.mark.parametrize("args", [
+    ["list", "runs", "--db", "{db}"],
+    ["list", "devices", "--db", "{db}"],
+    ["report", "--db", "{db}", "--all", "--out", "{dir}/r"],
+    ["export", "--db", "{db}", "--out", "{dir}/x"],
+    ["merge", "{db}", "--db", "{dir}/target.db"],
+], ids=["list runs", "list devices", "report", "export", "merge from it"])
+def test_reading_commands_work_on_a_read_only_database(args, template, tmp_path):
+    # a WAL database on a read-only filesystem: SQLite cannot make its -shm file there, so it is read immutable
+    with _Medium("readonly", tmp_path / "medium") as medium:
+        db = medium.place(_copy(template, tmp_path))
+        medium.seal()
+        before = snapshot(db)
+        result = CliRunner().invoke(cli, [_fill(a, {"db": str(db), "dir": str(tmp_path)}) for a in args])
+        assert result.exit_code == 0, result.output
+        assert "Traceback" not in result.output and "Warning" not in result.output
+        assert snapshot(db) == before
+    if args[0] == "merge":
+        assert Store.open_read(tmp_path / "target.db").count("samples") == 40
+
+
+def test_a_writing_command_on_a_read_only_database_says_so(template, tmp_path):
+    with _Medium("readonly", tmp_path / "medium") as medium:
+        db = medium.place(_copy(template, tmp_path))
+        medium.seal()
+        result = CliRunner().invoke(cli, ["rate", "--db", str(db)])
+    assert result.exit_code == 4, result.output
+    assert "the file or its folder is read-only; this command saves to the database" in result.output
+
+
+@pytest.mark.parametrize("args", [["export", "--db", "{db}", "--out", "{out}"],
+                                  ["report", "--db", "{db}", "--all", "--out", "{out}"],
+                                  ["rate", "--db", "{db}", "--out", "{out}/fit.json"]],
+                         ids=["export", "report", "rate --out"])
+def test_outputs_onto_a_full_disk_are_refused_whole(args, template, tmp_path):
+    db = _copy(template, tmp_path)
+    with _Medium("full", tmp_path / "medium") as medium:
+        out = tmp_path / "medium" / "out"
+        out.mkdir()
+        medium.seal()
+        before = snapshot(db)
+        result = CliRunner().invoke(cli, [_fill(a, {"db": str(db), "out": str(out)}) for a in args])
+        assert result.exit_code == 2, result.output
+        assert "No space left on device" in result.output and "cannot write" in result.output, result.output
+        assert sorted(p.name for p in out.iterdir()) == []  # no part file, no half of the outputs
+        assert snapshot(db) == before  # rate --out saves nothing when its file cannot be written
+
+
+def test_a_read_only_home_gives_no_matplotlib_noise(template, tmp_path):
+    import subprocess
+
+    db = _copy(template, tmp_path)
+    with _Medium("readonly", tmp_path / "home") as home:
+        home.seal()
+        env = dict(os.environ, HOME=str(tmp_path / "home"), XDG_CONFIG_HOME="", XDG_CACHE_HOME="")
+        env.pop("MPLCONFIGDIR", None)
+        done = subprocess.run([sys.executable, "-m", "nightcell.cli", "report", "--db", str(db), "--all", "--out",
+                               str(tmp_path / "r")], capture_output=True, text=True, env=env, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "matplotlib" not in done.stderr and "mkdir" not in done.stderr, done.stderr
