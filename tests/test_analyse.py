@@ -30,7 +30,7 @@ from nightcell.tasks.analyse import (
     standards_from_store,
 )
 from nightcell.errors import AnalysisError, InputError
-from nightcell.science.timeline import rebuild_clocks
+from nightcell.store.clocks import rebuild_clocks
 
 DEV = "a0b1c2d3e4f50607"
 READS = 16

@@ -21,6 +21,7 @@ import os
 import pty
 import shutil
 import sqlite3
+import struct
 import sys
 import threading
 import time
@@ -38,7 +39,7 @@ from nightcell.store import database as store_module
 from nightcell.cli import cli
 from nightcell.errors import StoreError
 from nightcell.store.database import Store
-from nightcell.science.timeline import rebuild_clocks
+from nightcell.store.clocks import rebuild_clocks
 
 ROOT = Path(__file__).resolve().parent.parent
 DEVICE = "5eba000000000007"
@@ -327,6 +328,88 @@ def frame_with_bad_crc(line: bytes) -> bytes:
     return good[:-1] + bytes([good[-1] ^ 0xFF])
 
 
+class ScriptedBoard:
+    """A board that speaks protocol v1 (schema/protocol.md) from a script: its journal is ``records`` (encoded
+    records laid end to end from position 0), and it may misbehave on purpose.
+
+    ``hello`` replaces fields of the board's hello (a value of ``MISSING`` removes one), ``raw_hello`` replaces the
+    whole reply payload, ``read_offset`` makes every DATA reply claim a position that many bytes past where its
+    records really start (a board that skips part of its journal), for reads at or after ``gap_from``. It answers ``anchor``, ``flush``, ``read``,
+    ``ack`` (verifying the check) and ``start`` as the firmware does (a read with at most ``max_reply`` bytes), and keeps the requests it got
+    (``requests``) and the positions acknowledged (``acks``).
+    """
+
+    MISSING = object()
+
+    def __init__(self, records: list[bytes] | None = None, *, device: str = "5eba0000000000ab",
+                 hello: dict[str, Any] | None = None, raw_hello: bytes | None = None, read_offset: int = 0,
+                 gap_from: int = 0, max_reply: int = 4096):
+        self.journal = b"".join(journal_records(device=device) if records is None else records)
+        self.starts = []
+        at = 0
+        for r in (journal_records(device=device) if records is None else records):
+            self.starts.append(at)
+            at += len(r)
+        self.device = device
+        self.tail = 0
+        self.read_offset = read_offset
+        self.gap_from = gap_from
+        self.max_reply = max_reply
+        info = dict(HELLO, device=device, journal=0x5C0FF1ED, head=len(self.journal) + read_offset, tail=0)
+        for k, v in (hello or {}).items():
+            if v is self.MISSING:
+                info.pop(k, None)
+            else:
+                info[k] = v
+        self.hello_payload = raw_hello if raw_hello is not None else json.dumps(info).encode()
+        self.requests: list[str] = []
+        self.acks: list[int] = []
+
+    def verbs(self) -> list[str]:
+        return [r.split(" ")[1] for r in self.requests if " " in r]
+
+    def __call__(self, line: bytes) -> bytes:
+        text = line.decode("ascii", "replace").strip()
+        self.requests.append(text)
+        parts = text.split(" ")
+        tag, verb, args = int(parts[0]), parts[1], parts[2:]
+        ok = lambda d: F.encode_reply(F.REPLY_OK, tag, json.dumps(d).encode())  # noqa: E731
+        if verb == "hello":
+            return F.encode_reply(F.REPLY_OK, tag, self.hello_payload)
+        if verb == "anchor":
+            return ok({"boot": 1, "seq": 99, "uptime_ms": 1000})
+        if verb == "flush":
+            return ok({"head": len(self.journal)})
+        if verb == "read":
+            pos, n = int(args[0]), min(int(args[1]), self.max_reply)
+            pos = next((p for p in self.starts if p >= max(pos, self.tail)), len(self.journal))
+            end = pos
+            for p in self.starts:
+                if p >= pos:
+                    nxt = next((q for q in self.starts if q > p), len(self.journal))
+                    if nxt - pos > n:
+                        break
+                    end = nxt
+            shift = self.read_offset if pos >= self.gap_from else 0
+            payload = struct.pack("<I", pos + shift) + self.journal[pos:end]
+            return F.encode_reply(F.REPLY_DATA, tag, payload)
+        if verb == "ack":
+            if len(args) != 2 or args[1] != F.check_field("ack", int(args[0])):
+                return F.encode_reply(F.REPLY_ERR, tag, b"check field does not match")
+            self.acks.append(int(args[0]))
+            return ok({"tail": self.tail})
+        if verb == "start":
+            return ok({"boot": 1, "seq": 100})
+        return F.encode_reply(F.REPLY_ERR, tag, b"unknown verb")
+
+
+def _deep_json(depth: int) -> bytes:
+    """A hello holding lists nested ``depth`` deep (2000 fit in one 4200-byte reply)."""
+    payload = b'{"protocol": 1, "x": ' + b"[" * depth + b"]" * depth + b"}"
+    assert len(payload) <= 4200
+    return payload
+
+
 class _QuickDeadline(link_module.Deadline):
     """Every wait of the link shortened (a test of refusals, not of patience): at most 0.3 s."""
 
@@ -350,6 +433,8 @@ class Case:
     chatter: bytes = b""
     setup: Callable[[Path, Path], Any] | None = None   # (db, dir) -> something to undo (a lock)
     env: dict[str, str] = field(default_factory=dict)
+    never_sent: tuple[str, ...] = ()    # verbs that must not have reached the (scripted) board
+    disk_pages: int | None = None       # the disk holds only this many more database pages (SQLite's own limit)
     absent: tuple[str, ...] = ("{dir}/r", "{dir}/x", "{dir}/target.db")  # outputs a refusal must not create
 
 
@@ -409,6 +494,12 @@ CASES = [
     Case("rate with absorbances of 1e300", ["rate", "{csv}"], 2, "column absorbance: 1e+300 is beyond any plausible",
          csv=_csv("time_s,absorbance\n0,1e300\n2,0.9e300\n4,0.8e300\n6,0.7e300\n8,0.6e300\n")),
     Case("sync with no port given", ["sync", "--db", "{db}"], 2, "Missing option '--port'", env={"NIGHTCELL_PORT": ""}),
+    Case("benches with a planned end that is no time", ["benches", "--db", "{db}", "--no-browser", "--planned-end",
+                                                          "tea time"], 2, "give a time today as HH:MM"),
+    Case("benches asking boards faster than 0.2 s", ["benches", "--db", "{db}", "--every", "0.05"], 2,
+         "Invalid value for '--every'"),
+    Case("benches on a TCP port beyond 65535", ["benches", "--db", "{db}", "--http-port", "70000"], 2,
+         "Invalid value for '--http-port'"),
     # -- CSV import ------------------------------------------------------------------------------------------------
     Case("CSV empty file", ["calibrate", "{csv}"], 2, "is empty; it needs a header row", csv=_csv("")),
     Case("CSV header only", ["calibrate", "{csv}"], 2, "has 0 data rows", csv=_csv("concentration,absorbance\n")),
@@ -499,19 +590,39 @@ CASES = [
     Case("another device on the port", ["stop"], 3, "no board answered", port=echo_other_device),
     Case("garbage from the port", ["sync", "--db", "{db}"], 3, "", port=garbage),
     Case("frames with a bad CRC", ["hello"], 3, "no board answered", port=frame_with_bad_crc),
+    Case("benches with no board anywhere", ["benches", "--db", "{db}", "--no-browser"], 3,
+         "no board answered on any port with a board's USB id"),
     Case("chatter with no frame in it", ["hello"], 3, "no board answered", port="silent",
          chatter=b"\x1b[2J MicroPython v1.99 REPL >>> " * 4),
     Case("a board of another protocol", ["hello"], 3, "speaks an unknown protocol",
          port=board_then_vanish("never", dict(HELLO, protocol=7))),
-    Case("hello with head before tail", ["sync", "--db", "{db}"], 3, "which ends before it starts",
+    Case("hello with head before tail", ["sync", "--db", "{db}"], 3, "'tail' lies past the head 10",
          port=board_then_vanish("never", dict(HELLO, head=10, tail=500))),
-    Case("hello with a negative head", ["hello"], 3, "with head = -1, not a position",
+    Case("hello with a negative head", ["hello"], 3, "'head' must be a whole number",
          port=board_then_vanish("never", dict(HELLO, head=-1))),
-    Case("hello with a device id that is not hex", ["sync", "--db", "{db}"], 3, "not 16 hex digits",
+    Case("hello with a device id that is a path", ["sync", "--db", "{db}"], 3, "'device' must be a device id",
          port=board_then_vanish("never", dict(HELLO, device="../../x"))),
     Case("board vanishes mid-command (stop)", ["stop"], 3, "", port=board_then_vanish("stop")),
     Case("board vanishes mid-sync (anchor)", ["sync", "--db", "{db}"], 3, "", port=board_then_vanish("anchor")),
     Case("board vanishes mid-mark (blank)", ["blank", "--label", "water"], 3, "", port=board_then_vanish("blank")),
+    # -- a board that answers what the host does not expect (a scripted board on a real pty) ---------------------
+    Case("board's reply starts 100 kB past the position asked", ["sync", "--db", "{db}"], 3,
+         "sent records from 100000, 100000 bytes past it", port=lambda: ScriptedBoard(read_offset=100_000),
+         never_sent=("ack",)),
+    Case("hello whose journal is text", ["sync", "--db", "{db}"], 3, "'journal' must be a whole number",
+         port=lambda: ScriptedBoard(hello={"journal": "one"}), never_sent=("read", "ack")),
+    Case("hello with no device", ["sync", "--db", "{db}"], 3, "'device' is missing",
+         port=lambda: ScriptedBoard(hello={"device": ScriptedBoard.MISSING}), never_sent=("read", "ack")),
+    Case("hello whose device is a dict", ["sync", "--db", "{db}"], 3, "'device' must be a device id",
+         port=lambda: ScriptedBoard(hello={"device": {"a": [1, 2]}}), never_sent=("read", "ack")),
+    Case("hello JSON nested 2000 deep", ["sync", "--db", "{db}"], 3, "is not JSON this host can read",
+         port=lambda: ScriptedBoard(raw_hello=_deep_json(2000)), never_sent=("read", "ack")),
+    Case("hello whose interval is text, before start", ["start", "--label", "x"], 3,
+         "'interval_ms' must be a whole number", port=lambda: ScriptedBoard(hello={"interval_ms": "2 s"}),
+         never_sent=("start",)),
+    Case("disk full in the middle of a sync", ["sync", "--db", "{db}"], 4, "database or disk is full",
+         port=lambda: ScriptedBoard(journal_records(device="5eba0000000000ab", n_samples=250)), never_sent=("ack",),
+         disk_pages=0),
     # -- hostile labels --------------------------------------------------------------------------------------------
     Case("label with SQL in --run", ["rate", "--db", "{db}", "--run", "x' OR '1'='1"], 2, "no run"),
     Case("label that is a path in --run", ["report", "--db", "{db}", "--run", "../../etc/passwd", "--out", "{dir}/r"],
@@ -596,6 +707,7 @@ class _Medium:
 def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPatch,
             medium: _Medium | None = None) -> tuple[Any, Path, dict, dict]:
     monkeypatch.setattr(link_module, "Deadline", _QuickDeadline)
+    monkeypatch.setattr(link_module, "candidate_ports", lambda: [])  # no row probes this machine's own serial ports
     monkeypatch.setattr(store_module, "BUSY_TIMEOUT_S", 0.2)
     db = case.db(template, work)
     if medium is not None:
@@ -609,6 +721,9 @@ def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPa
         env["NIGHTCELL_PORT"] = "/dev/nightcell-never-opened"
     elif case.port == "silent":
         fake = FakePort(None, case.chatter)
+    elif isinstance(case.port, type(lambda: 0)) and case.port.__code__.co_argcount == 0:
+        scripted = case.port()  # a fresh scripted board for this row
+        fake = FakePort(scripted, case.chatter)
     elif callable(case.port):
         fake = FakePort(case.port, case.chatter)
     if fake is not None:
@@ -618,6 +733,8 @@ def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPa
         medium.seal()
     undo = case.setup(db, work) if case.setup else None
     before = snapshot(db)
+    if case.disk_pages is not None:
+        monkeypatch.setattr(store_module, "sqlite3", _FullDiskSqlite(sqlite3, db, case.disk_pages))
     try:
         result = CliRunner().invoke(cli, [_fill(a, subs) for a in case.args], env=env)
     finally:
@@ -626,6 +743,9 @@ def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPa
             undo.close()
         if fake is not None:
             fake.close()
+    if case.never_sent:
+        got = fake.behaviour.verbs() if isinstance(fake.behaviour, ScriptedBoard) else []
+        assert not set(got) & set(case.never_sent), f"{set(got) & set(case.never_sent)} reached the board: {got}"
     return result, db, before, snapshot(db)
 
 
@@ -678,6 +798,27 @@ def test_the_table_has_at_least_forty_rows_across_every_kind():
     assert sum(1 for c in CASES if c.port not in (None, "missing") or "port" in c.name) >= 8
     assert sum(1 for c in CASES if c.csv is not None or "CSV" in c.name) >= 10
     assert sum(1 for c in CASES if c.name.startswith(("DB", "merge"))) >= 8
+
+
+class _FullDiskSqlite:
+    """``sqlite3`` as the store sees it on a disk with room for only ``pages`` more pages of ``db``.
+
+    SQLite's ``max_page_count`` caps the file at its size when opened plus ``pages``: a write past it fails with
+    SQLITE_FULL, "database or disk is full", the same error and code as a disk with no space left (ENOSPC).
+    """
+
+    def __init__(self, real: Any, db: Path, pages: int):
+        self._real, self._db, self._pages = real, str(db), pages
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._real, name)
+
+    def connect(self, database: Any, *args: Any, **kwargs: Any) -> Any:
+        conn = self._real.connect(database, *args, **kwargs)
+        if str(database).endswith(self._db):
+            count = conn.execute("PRAGMA page_count").fetchone()[0]
+            conn.execute(f"PRAGMA max_page_count = {count + self._pages}")
+        return conn
 
 
 # -- database files the OS will not let us write ---------------------------------------------------------------------
@@ -895,3 +1036,82 @@ def test_a_read_only_home_gives_no_matplotlib_noise(template, tmp_path):
                                str(tmp_path / "r")], capture_output=True, text=True, env=env, timeout=300)
     assert done.returncode == 0, done.stderr
     assert "matplotlib" not in done.stderr and "mkdir" not in done.stderr, done.stderr
+
+
+# -- a sync that fails half-way acknowledges nothing it has not committed ---------------------------------------------
+
+def _many_records(device: str) -> list[bytes]:
+    """Three boots of ``journal_records``: enough batches for a sync to fail half-way."""
+    out = []
+    for boot in (1, 2, 3):
+        for r in journal_records(device=device, n_samples=200):
+            rec, _ = F.decode_record(r)
+            out.append(F.encode_record(rec.kind, boot, rec.seq, rec.uptime_ms, rec.fields))
+    return out
+
+
+def _sync_scripted(board: ScriptedBoard, db: Path, *, max_pages: int | None = None) -> Any:
+    from nightcell.wire.link import Board
+    from nightcell.store.sync import sync_board
+
+    fake = FakePort(board)
+    try:
+        with Board.open(fake.path, timeout=2.0) as link, Store.open(db) as store:
+            if max_pages is not None:
+                count = store.conn.execute("PRAGMA page_count").fetchone()[0]
+                store.conn.execute(f"PRAGMA max_page_count = {count + max_pages}")
+            return sync_board(link, store, batch_bytes=512)
+    finally:
+        fake.close()
+
+
+def test_disk_full_mid_sync_acknowledges_only_what_was_committed_and_a_second_sync_completes(tmp_path):
+    """The disk fills after some batches have committed: exit 4 (StoreError), every ``ack`` the board got is at or
+    before the committed stored position, and once there is room again a sync completes with every row once."""
+    device = "5eba0000000000ac"
+    records = _many_records(device)
+    db = tmp_path / "full.db"
+    Store.open(db).close()
+    scratch = tmp_path / "scratch.db"
+    shutil.copy(db, scratch)
+    with Store.open(scratch) as store:
+        before = store.conn.execute("PRAGMA page_count").fetchone()[0]
+    _sync_scripted(ScriptedBoard(records, device=device, max_reply=1024), scratch)
+    with Store.open(scratch) as store:
+        needed = store.conn.execute("PRAGMA page_count").fetchone()[0] - before
+    board = ScriptedBoard(records, device=device, max_reply=1024)
+    with pytest.raises(StoreError, match="database or disk is full") as err:
+        _sync_scripted(board, db, max_pages=needed // 2)  # room for about half of what the whole sync needs
+    assert err.value.exit_code == 4
+    with Store.open(db) as store:
+        state = store.journal_state(device, 0x5C0FF1ED)
+        samples_before = store.count("samples")
+    assert state is not None and board.acks, "the disk filled before any batch committed: the test proves nothing"
+    assert max(board.acks) <= state[0] < len(board.journal), (board.acks, state)
+    assert samples_before < 600
+    again = ScriptedBoard(records, device=device, max_reply=1024)
+    summary = _sync_scripted(again, db)
+    with Store.open(db) as store:
+        assert store.count("samples") == 600  # three boots of 200 samples, each once
+        assert store.journal_state(device, 0x5C0FF1ED) == (len(board.journal), len(board.journal))
+    assert summary.start == state[0] and max(again.acks) == len(board.journal)
+
+
+def test_a_gap_after_some_progress_stops_the_sync_and_nothing_past_it_is_acknowledged(tmp_path):
+    """A board that answers honestly, then, from some position on, with records from 5000 bytes further on: the sync
+    stops with a board fault (exit 3) naming the gap, and no ``ack`` reaches past where its records stopped
+    continuing."""
+    from nightcell.errors import ProtocolError
+
+    device = "5eba0000000000ad"
+    records = _many_records(device)
+    board = ScriptedBoard(records, device=device, read_offset=5000, max_reply=1024)
+    board.gap_from = board.starts[len(board.starts) // 2]
+    db = tmp_path / "gap.db"
+    with pytest.raises(ProtocolError, match=f"asked for its journal at {board.gap_from} and sent records from "
+                                            f"{board.gap_from + 5000}, 5000 bytes past it") as err:
+        _sync_scripted(board, db)
+    assert err.value.exit_code == 3
+    with Store.open(db) as store:
+        stored_to, acked_to = store.journal_state(device, 0x5C0FF1ED)
+    assert board.acks and max(board.acks) <= board.gap_from and stored_to <= board.gap_from

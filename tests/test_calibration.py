@@ -249,3 +249,26 @@ def test_prediction_interval_coverage_ci_slice():
         pred = cal.predict(read(np.full(3, eps_l * c_true)))
         covered += pred.ci_low <= c_true <= pred.ci_high
     assert 0.90 <= covered / runs <= 0.99
+
+
+def test_curve_and_bands_at_any_level_agree_with_statsmodels():
+    sm = pytest.importorskip("statsmodels.api")
+    grid = np.linspace(0.0, max(MM_X) * 1.1, 7)
+    for quadratic in (False, True):
+        cal = fit_calibration(MM_X, MM_Y, model="quadratic" if quadratic else "line")
+        powers = (0, 1, 2) if quadratic else (0, 1)
+        ref = sm.OLS(MM_Y, np.column_stack([np.asarray(MM_X, float) ** p for p in powers])).fit()
+        new = np.column_stack([grid**p for p in powers])
+        for level in (0.80, 0.95, 0.99):
+            # statsmodels OLS get_prediction: fitted mean, mean_ci (confidence) and obs_ci (prediction) at alpha =
+            # 1 - level (reference library)
+            frame = ref.get_prediction(new).summary_frame(alpha=1.0 - level)
+            assert_allclose(cal.curve(grid), frame["mean"], rtol=1e-9, atol=1e-12)
+            low, high = cal.band(grid, level)
+            assert_allclose(low, frame["mean_ci_lower"], rtol=1e-7, atol=1e-10)
+            assert_allclose(high, frame["mean_ci_upper"], rtol=1e-7, atol=1e-10)
+            low, high = cal.band(grid, level, kind="prediction")
+            assert_allclose(low, frame["obs_ci_lower"], rtol=1e-7, atol=1e-10)
+            assert_allclose(high, frame["obs_ci_upper"], rtol=1e-7, atol=1e-10)
+    with pytest.raises(InputError, match="between 0 and 1"):
+        cal.band(grid, 1.5)

@@ -18,9 +18,9 @@ from nightcell.cli import cli
 from nightcell.errors import InputError
 from nightcell.wire.link import Board
 from nightcell.sim.board import SimulatedBoard
+from nightcell.store.tables import RAW_TABLES
 
 HOSTILE = "<script>alert(1)</script>'; DROP TABLE samples;--"
-RAW_TABLES = ("boots", "samples", "marks", "mark_counts", "anchors", "events", "settings_records", "health")
 
 
 def _cli(*args, env=None):

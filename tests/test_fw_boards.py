@@ -8,7 +8,7 @@ MicroPython's rp2 port source [memory]; the test only relies on the top 12 bits 
 
 import json
 
-from fwharness import SCHEMA, results, run_mp
+from support.fwharness import SCHEMA, results, run_mp
 
 FAKES = r"""
 import sys, json

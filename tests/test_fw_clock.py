@@ -7,7 +7,7 @@ scheduled time must be exactly first + k·interval (zero cumulative drift), late
 missed slots must be counted, not moved.
 """
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 
 SCHEDULE = r"""
 import sys, random

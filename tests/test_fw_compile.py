@@ -10,7 +10,7 @@ from pathlib import Path
 
 import pytest
 
-from fwharness import FIRMWARE, results, run_mp
+from support.fwharness import FIRMWARE, results, run_mp
 
 
 def _mpy_cross() -> str:

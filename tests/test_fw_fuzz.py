@@ -5,7 +5,7 @@ no exception caught by the main loop (the loop would journal it as EVENT 1), no 
 reads back with good CRCs. A slice runs here; tests/bench/bench_fw_fuzz.py runs ≥ 10 000 inputs.
 """
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 
 FUZZ = r"""
 import sys, random, struct

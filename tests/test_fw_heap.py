@@ -16,7 +16,7 @@ flushes, host reads and acknowledgements every 1000 samples. The firmware is loa
 
 import subprocess
 
-from fwharness import FIRMWARE, results, run_mp
+from support.fwharness import FIRMWARE, results, run_mp
 from test_fw_compile import SOURCES, _mpy_cross
 
 HEAP = r"""
@@ -25,6 +25,7 @@ N = int(sys.argv[1])
 MODE = sys.argv[2]
 folder = sys.argv[3] if len(sys.argv) > 3 else None
 from boards.simkit import SimKit, IntegerBoard
+from nightcell_fw import records as R
 buf = bytearray(4096)
 kit = SimKit(blocks=40, settings={"interval_ms": 1000, "warmup_ms": 0}, board_class=IntegerBoard, folder=folder)
 kit.request(b"1 start")
@@ -64,7 +65,7 @@ while lg.samples < N:
             if not n:
                 break
             pos = s + n
-        kit.request(b"12 ack %d" % pos)
+        kit.request(b"12 ack %d %08x" % (pos, R.crc32(b"ack %d" % pos)))
         kit.port.sent = None
         kit.port.sent = bytearray(64)
         if not warm:

@@ -2,7 +2,7 @@
 odd positions, and the durability window (how often the open block is saved). Expected behaviour is the firmware
 issue's and schema/protocol.md's; decoding on the CPython side uses the host's reference codec."""
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 
 COMMON = r"""
 import struct, os
@@ -75,7 +75,7 @@ print("kept=%d" % (sample_seqs(recs2)[:len(seqs)] == seqs))
 print("still_running=%d" % kit.lg.running)
 # the host stores everything and acknowledges it: logging resumes
 head = kit.lg.journal.head
-r = reply(kit, b"5 ack %d" % head)
+r = reply(kit, b"5 ack %d %08x" % (head, R.crc32(b"ack %d" % head)))
 print("ack_kind=%d" % r[0])
 print("freed=%d" % (not kit.lg.journal.full))
 n0 = kit.lg.samples
@@ -135,11 +135,11 @@ j = kit.lg.journal
 head = j.head
 starts = list(j.starts)
 print("segments=%d" % len(starts))
-r = reply(kit, b"3 ack %d" % (head + 1))
+r = reply(kit, b"3 ack %d %08x" % (head + 1, R.crc32(b"ack %d" % (head + 1))))
 print("beyond_kind=%d" % r[0])
 print("beyond_tail=%d" % j.tail)
 mid = starts[3] + 5    # inside the fourth segment: only the first three may go
-r = reply(kit, b"4 ack %d" % mid)
+r = reply(kit, b"4 ack %d %08x" % (mid, R.crc32(b"ack %d" % mid)))
 print("ack_tail=%d" % (j.tail == starts[3]))
 print("deleted=%d" % (len(starts) - len(j.starts)))
 # read from inside a record: the reply starts at the next record boundary

@@ -15,7 +15,7 @@ import shutil
 import subprocess
 from pathlib import Path
 
-from fwharness import FIRMWARE, micropython
+from support.fwharness import FIRMWARE, micropython
 
 WDT_STOP = 42
 

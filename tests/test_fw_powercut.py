@@ -13,7 +13,7 @@ The benchmark tests/bench/bench_fw_powercut.py runs the same campaign with ≥ 2
 
 from __future__ import annotations
 
-from fwharness import results, run_mp
+from support.fwharness import results, run_mp
 from nightcell.wire import frames as F
 
 CAMPAIGN = r"""
@@ -133,7 +133,7 @@ def sync_and_ack():
                 host[k] = v
                 if k in open_keys:
                     del open_keys[k]
-    r = kit.request(b"90 ack %d" % upto)
+    r = kit.request(b"90 ack %d %08x" % (upto, R.crc32(b"ack %d" % upto)))
     assert r[2] == 1, r
 
 def action():

@@ -7,7 +7,7 @@ and the settings' canonical JSON against CPython's own json module (sort_keys, c
 
 import json
 
-from fwharness import ENCODE_RECORD, SCHEMA, results, run_mp
+from support.fwharness import ENCODE_RECORD, SCHEMA, results, run_mp
 
 ENCODE_ALL = r"""
 import json, binascii

@@ -20,7 +20,7 @@ from pathlib import Path
 
 import pytest
 
-from fwharness import FIRMWARE, micropython
+from support.fwharness import FIRMWARE, micropython
 from nightcell.wire import frames as F
 
 
@@ -195,6 +195,9 @@ def test_every_verb_answers_per_protocol(tmp_path, interp):
         good = F.check_field("ack", pos)
         damaged = sim.send("ack", pos + 1, good)
         assert damaged.kind == F.REPLY_ERR and "check field" in damaged.text()
+        # an ack must carry its check: without one (noise that dropped it) the board trims nothing
+        unchecked = sim.send("ack", pos)
+        assert unchecked.kind == F.REPLY_ERR and "usage: ack <position> <check>" in unchecked.text()
         assert sim.send("anchor", 1796131200999, F.check_field("anchor", 1796131200123)).kind == F.REPLY_ERR
         assert sim.ok("anchor", 1796131200999, F.check_field("anchor", 1796131200999))["boot"] >= 1
         tail = sim.ok("ack", pos, good)["tail"]

@@ -151,3 +151,35 @@ def test_rate_constant_interval_coverage_ci_slice():
         lo, hi = fit.confint("k")
         covered += lo <= k_true <= hi
     assert 0.90 <= covered / runs <= 0.99
+
+
+@pytest.mark.parametrize("model", kinetics.MODELS)
+def test_every_rate_law_evaluates_its_curve_and_band_like_uncertainties(model):
+    unc = pytest.importorskip("uncertainties")
+    from uncertainties import unumpy
+    from scipy import stats
+
+    fit = kinetics.fit_model(T, _synthetic_plateau(4), model)
+    # the curve at the fitted points is the data minus the residuals
+    assert_allclose(fit.curve(fit.x), fit.y - fit.residuals, rtol=1e-9, atol=1e-12)
+    # delta-method band: uncertainties propagates the correlated parameters through the same law (reference
+    # library), times Student t at the fit's dof (scipy)
+    p = unc.correlated_values([fit.values[n] for n in fit.names], fit.cov_matrix)
+    grid = np.linspace(0.0, fit.x.max(), 9)
+    names = dict(zip(fit.names, p))
+    if model == "zero_order":
+        law = names["A0"] + names["rate"] * grid
+    elif model == "first_order_plateau":
+        law = names["A_inf"] + (names["A0"] - names["A_inf"]) * unumpy.exp(-names["k"] * grid)
+    elif model == "first_order":
+        law = names["A0"] * unumpy.exp(-names["k"] * grid)  # a_end = 0
+    else:
+        law = names["A0"] / (1.0 + names["k"] * names["A0"] * grid)  # a_end = 0, decreasing signal
+    sd = unumpy.std_devs(law)
+    for level in (0.9, 0.99):
+        q = stats.t.ppf(0.5 + level / 2.0, fit.dof)
+        low, high = fit.band(grid, level)
+        assert_allclose(fit.curve(grid), unumpy.nominal_values(law), rtol=1e-9)
+        assert_allclose(high - fit.curve(grid), q * sd, rtol=1e-5)
+        low_p, high_p = fit.band(grid, level, kind="prediction")
+        assert_allclose(high_p - fit.curve(grid), q * np.sqrt(sd**2 + fit.residual_sd**2), rtol=1e-5)

@@ -4,7 +4,7 @@ Host (CPython): the record layout (encode/decode round trips, lazy and eager dec
 decodes or raises ``ProtocolError``, any single flipped bit is caught), reply frames (round trip through garbage,
 resynchronisation), request lines and percent-encoding, the CSV reader, the firmware's settings parser.
 
-Firmware (MicroPython, through tests/fwharness.py): hypothesis draws batches of inputs, one MicroPython process
+Firmware (MicroPython, through tests/support/fwharness.py): hypothesis draws batches of inputs, one MicroPython process
 answers a whole batch, and the answers are compared with the host's reference codec — the record encoder (bytes
 equal to ``frames.encode_record``), the request-line parser and ``unquote`` (they invert the host's
 ``encode_request`` and ``quote_text``), and the settings parser (the same verdict and the same canonical JSON as in
@@ -347,7 +347,7 @@ def test_settings_file_of_any_bytes_never_stops_the_board(tmp_path_factory, data
 
 # -- the firmware's decoders and encoder, in MicroPython ---------------------------------------------------------------
 
-from fwharness import ENCODE_RECORD  # noqa: E402  (MicroPython source of the record encoder dispatch)
+from support.fwharness import ENCODE_RECORD  # noqa: E402  (MicroPython source of the record encoder dispatch)
 
 MP_SCRIPT = r"""
 import sys, json, binascii
@@ -385,7 +385,7 @@ f.close()
 
 
 def _run_firmware(batch: dict, tmp: Path) -> list:
-    from fwharness import micropython, run_mp
+    from support.fwharness import micropython, run_mp
 
     micropython()  # skips the test where MicroPython is not installed
     path = tmp / "batch.json"

@@ -208,3 +208,25 @@ def test_plus_minus_uses_one_power_of_ten_far_from_one():
     assert report.plus_minus(3.989e7, 1.1e6) == "(3.99 ± 0.11)e+07"
     assert report.plus_minus(float("nan"), 1.0) == "—"
     assert report.plus_minus(2.5, float("nan")) == "2.5"
+
+
+@pytest.mark.parametrize("level", [0.90, 0.99])
+def test_calibration_plot_draws_the_prediction_band_at_the_calibrations_level(level):
+    from nightcell.science.calibration import fit_calibration
+
+    # synthetic standards (invented numbers); the band's half-width at the mean concentration is
+    # t(level, dof)·s_y/x·sqrt(1 + 1/n) for a straight line (the textbook prediction interval, common practice)
+    x = np.array([0.0, 2.0, 4.0, 6.0, 8.0, 10.0])
+    y = 0.004 + 0.075 * x + np.array([0.002, -0.001, 0.0015, -0.002, 0.001, -0.0005])
+    cal = fit_calibration(x, y, level=level)
+    fig, ax = plt.subplots()
+    try:
+        report.plot_calibration(cal, ax=ax)
+        assert f"{100 * level:g} % prediction band" in [t.get_text() for t in ax.get_legend().get_texts()]
+        verts = ax.collections[0].get_paths()[0].vertices
+        at_mean = verts[np.argmin(np.abs(verts[:, 0] - x.mean()))]
+        half = stats.t.ppf(0.5 + level / 2, x.size - 2) * cal.residual_sd * math.sqrt(1 + 1 / x.size)
+        centre = cal.intercept + cal.slope * at_mean[0]
+        assert_allclose(abs(at_mean[1] - centre), half, rtol=2e-2)  # the grid point nearest the mean
+    finally:
+        plt.close(fig)

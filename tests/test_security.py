@@ -75,14 +75,11 @@ def test_no_eval_exec_pickle_or_shell_anywhere(path):
 # column names from our own schema (constants in the module, or PRAGMA table_info of our own main database), or
 # "?" placeholders. A new place must be reviewed and added here.
 REVIEWED_DYNAMIC_SQL = {
-    ("tasks/analyse.py", "run_conditions"): "fixed WHERE clauses with ? placeholders",
-    ("cli/__init__.py", "_results"): "a fixed WHERE clause with a ? placeholder",
     ("store/merge.py", "_insert_missing"): "table names from RAW_IDENTITY, columns from PRAGMA of main",
     ("store/merge.py", "_device_conflicts"): "column names from _DEVICE_METADATA",
     ("store/merge.py", "_merge_sync_sessions"): "columns from PRAGMA of main",
     ("store/merge.py", "_conflicts"): "table and key names from RAW_IDENTITY, columns from PRAGMA of main",
     ("store/merge.py", "_columns"): "table names from RAW_IDENTITY",
-    ("sim/board.py", "raw_rows"): "table names from RAW_TABLES (test support)",
     ("store/database.py", "query"): "the caller's SQL text; callers pass data as params",
     ("store/database.py", "marks"): "fixed WHERE clauses with ? placeholders",
     ("store/database.py", "run_samples"): "fixed clauses with ? placeholders",
@@ -91,11 +88,16 @@ REVIEWED_DYNAMIC_SQL = {
     ("store/database.py", "_migrate"): "an integer: the number of migration files shipped",
     ("store/database.py", "damage_report"): "table names read from the damaged file's own sqlite_master, double-quoted",
     ("store/database.py", "insert_rows"): "table names from ingest's own dict, ? placeholders",
+    ("store/database.py", "_refuse_conflicts"): "table names from ingest's own dict, column names from its PRAGMA "
+                                                 "table_info, ? placeholders",
     ("store/database.py", "_migrations"): "statements from schema/migrations",
     ("store/database.py", "apply"): "statements from schema/migrations",
     ("store/database.py", "_last_uptime"): "table names from _RAW_TABLES",
     ("store/database.py", "count"): "a table name checked against the database's own table list",
-    ("science/timeline.py", "rebuild_clocks"): "a fixed WHERE clause with ? placeholders",
+    ("store/clocks.py", "rebuild_clocks"): "a fixed WHERE clause with ? placeholders",
+    ("store/queries.py", "_rows"): "SQL text written in this module's own methods; values as params",
+    ("store/queries.py", "sample_count"): "fixed WHERE clauses with ? placeholders",
+    ("store/queries.py", "run_condition_rows"): "a fixed WHERE clause with ? placeholders",
 }
 
 
@@ -254,7 +256,7 @@ def _protocol_verbs() -> set[str]:
 
 
 def test_the_board_knows_exactly_the_documented_verbs():
-    from fwharness import results, run_mp
+    from support.fwharness import results, run_mp
 
     out = results(run_mp("from nightcell_fw.commands import VERBS\nprint('verbs=' + ' '.join(sorted(VERBS)))"))
     assert set(out["verbs"].split()) == _protocol_verbs() and len(_protocol_verbs()) == 16
@@ -263,6 +265,7 @@ def test_the_board_knows_exactly_the_documented_verbs():
 BOARD = r"""
 import struct
 from boards.simkit import SimKit
+from nightcell_fw import records as R
 kit = SimKit(blocks=64, settings={"interval_ms": 1000, "warmup_ms": 0, "marker_samples": 1, "reads": 2,
                                   "segment_bytes": 1024, "durability_ms": 1000})
 lg = kit.lg
@@ -289,14 +292,20 @@ kit.request(b"22 flush")
 j = lg.journal
 head, tail, segs = j.head, j.tail, len(j.starts)
 print("segments=%d" % segs)
-kind, text = reply(b"23 ack %d" % (head + 1))
+def ack(tag, pos):
+    return reply(b"%d ack %d %08x" % (tag, pos, R.crc32(b"ack %d" % pos)))
+
+kind, text = ack(23, head + 1)
 print("past_head=%d %s" % (kind, text.decode()))
 assert (j.tail, len(j.starts)) == (tail, segs)
 second = j.starts[1]
-kind, text = reply(b"24 ack %d" % (second - 1))
+kind, text = reply(b"26 ack %d" % second)  # no check: not verified, so nothing is trimmed
+print("unchecked=%d %s" % (kind, text.decode()))
+assert kind == 2 and (j.tail, len(j.starts)) == (tail, segs)
+kind, text = ack(24, second - 1)
 print("mid_first=%d" % kind)
 assert j.tail == tail and len(j.starts) == segs  # the first segment still holds unacknowledged bytes
-kind, text = reply(b"25 ack %d" % second)
+kind, text = ack(25, second)
 print("at_second=%d tail=%d" % (kind, j.tail))
 assert j.tail == second and len(j.starts) == segs - 1
 s, n = j.read(second, 4096, memoryview(bytearray(4096)))
@@ -306,7 +315,7 @@ print("errors=%d" % lg.errors)
 
 
 def test_the_board_refuses_undocumented_commands_and_trims_only_what_was_acknowledged():
-    from fwharness import results, run_mp
+    from support.fwharness import results, run_mp
 
     res = results(run_mp(BOARD))
     refusals = [res[f"refused{i}"] for i in range(12)]
@@ -316,3 +325,138 @@ def test_the_board_refuses_undocumented_commands_and_trims_only_what_was_acknowl
     assert res["past_head"].startswith("2 ") and "past the durable head" in res["past_head"]
     assert res["mid_first"] == "1" and res["at_second"].startswith("1 ")
     assert int(res["still_readable"]) > 0 and res["errors"] == "0"
+
+
+# -- the house: one direction of use between rooms, SQL only in the store, no cycle -----------------------------------
+
+# What each room of host/nightcell may import besides itself (DEVELOPERS.md, "How the rooms fit"). ``errors`` and the
+# package root (its version, and the public API that loads rooms only when a name is asked for) are open to all;
+# the root may load any room but ``cli``.
+ROOM_USES = {
+    "errors": set(),
+    "wire": set(),
+    "science": set(),
+    "store": {"wire", "science"},
+    "sim": {"wire"},
+    "render": {"science"},
+    "tasks": {"wire", "science", "store", "sim", "render"},
+    "cli": {"wire", "science", "store", "sim", "render", "tasks"},
+    "": {"wire", "science", "store", "sim", "render", "tasks"},  # nightcell/__init__.py, the public API
+}
+SQL_TEXT = re.compile(r"^\s*(SELECT|INSERT|UPDATE|DELETE|REPLACE|CREATE|DROP|ALTER|PRAGMA|WITH|BEGIN|VACUUM|ATTACH)\s")
+
+
+def _module_name(path: Path, host: Path = HOST) -> str:
+    parts = ("nightcell",) + path.relative_to(host).with_suffix("").parts
+    return ".".join(parts[:-1] if parts[-1] == "__init__" else parts)
+
+
+def _room(module: str) -> str:
+    parts = module.split(".")
+    return parts[1] if len(parts) > 1 else ""
+
+
+def _imports(path: Path, host: Path = HOST) -> list[tuple[int, str]]:
+    """Every nightcell module ``path`` imports (at any depth: lazy imports count), with the line."""
+    here = _module_name(path, host)
+    package = here if path.name == "__init__.py" else here.rpartition(".")[0]
+    known = {_module_name(p, host) for p in host.rglob("*.py")}
+    found = []
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.Import):
+            found += [(node.lineno, a.name) for a in node.names if a.name.split(".")[0] == "nightcell"]
+        elif isinstance(node, ast.ImportFrom):
+            if node.level:
+                base = package.split(".")
+                base = base[:len(base) - (node.level - 1)]
+                target = ".".join(base + ([node.module] if node.module else []))
+            else:
+                target = node.module or ""
+            if target.split(".")[0] != "nightcell":
+                continue
+            # ``from . import x`` / ``from ..room import x``: x may be a module of that package
+            found += [(node.lineno, f"{target}.{a.name}" if f"{target}.{a.name}" in known else target)
+                      for a in node.names]
+    return found
+
+
+def _check_downward(path: Path, host: Path = HOST) -> None:
+    room = _room(_module_name(path, host))
+    for line, target in _imports(path, host):
+        other = _room(target)
+        if other in (room, "", "errors"):
+            continue
+        assert other in ROOM_USES[room], (
+            f"{path.relative_to(host)}:{line} imports {target}: the {room or 'root'} room may use only "
+            f"{sorted(ROOM_USES[room]) or 'errors'} (DEVELOPERS.md, How the rooms fit)")
+
+
+def _check_no_sql(path: Path, host: Path = HOST) -> None:
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.Constant) and isinstance(node.value, str):
+            assert not SQL_TEXT.match(node.value), \
+                f"{path.relative_to(host)}:{node.lineno} holds SQL text {node.value[:40]!r}: ask a Store method"
+        if isinstance(node, ast.Attribute):
+            assert node.attr != "conn", \
+                f"{path.relative_to(host)}:{node.lineno} reaches for a database connection: ask a Store method"
+
+
+def _check_no_cycle(paths: list[Path], host: Path = HOST) -> None:
+    graph = {_module_name(p, host): {t for _, t in _imports(p, host) if t != "nightcell"} for p in paths}
+    state: dict[str, int] = {}  # 1 on the current path, 2 done
+
+    def visit(module: str, trail: list[str]) -> None:
+        state[module] = 1
+        for nxt in sorted(graph.get(module, ())):
+            if nxt not in graph:
+                continue
+            assert state.get(nxt) != 1, "import cycle: " + " → ".join(trail + [module, nxt])
+            if nxt not in state:
+                visit(nxt, trail + [module])
+        state[module] = 2
+
+    for module in sorted(graph):
+        if module not in state:
+            visit(module, [])
+
+
+HOST_SOURCES = sorted(HOST.rglob("*.py"))
+
+
+@pytest.mark.parametrize("path", HOST_SOURCES, ids=lambda p: str(p.relative_to(HOST)))
+def test_rooms_import_only_downward(path):
+    _check_downward(path)
+
+
+@pytest.mark.parametrize("path", [p for p in HOST_SOURCES if _room(_module_name(p)) != "store"],
+                         ids=lambda p: str(p.relative_to(HOST)))
+def test_sql_and_connections_live_only_in_the_store(path):
+    _check_no_sql(path)
+
+
+def test_no_import_cycle_between_host_modules():
+    _check_no_cycle(HOST_SOURCES)
+
+
+def test_the_room_rules_can_fail(tmp_path):
+    # The same checks on a small package written to break them: an upward import, SQL text, a connection, a cycle.
+    host = tmp_path / "nightcell"
+    for room in ("", "science", "store"):
+        (host / room).mkdir(parents=True, exist_ok=True)
+        (host / room / "__init__.py").write_text("", encoding="utf-8")
+    (host / "store" / "database.py").write_text("X = 1\n", encoding="utf-8")
+    probe = host / "science" / "probe.py"
+    probe.write_text("from ..store.database import X\nQ = 'SELECT 1 FROM samples'\n", encoding="utf-8")
+    with pytest.raises(AssertionError, match="may use only"):
+        _check_downward(probe, host)
+    with pytest.raises(AssertionError, match="holds SQL text"):
+        _check_no_sql(probe, host)
+    probe.write_text("def f(store):\n    return store.conn\n", encoding="utf-8")
+    with pytest.raises(AssertionError, match="database connection"):
+        _check_no_sql(probe, host)
+    probe.write_text("from . import other\n", encoding="utf-8")
+    (host / "science" / "other.py").write_text("from .probe import f\n", encoding="utf-8")
+    with pytest.raises(AssertionError, match="import cycle"):
+        _check_no_cycle(sorted(host.rglob("*.py")), host)
+    (host / "science" / "other.py").write_text("import math\n", encoding="utf-8")
+    _check_no_cycle(sorted(host.rglob("*.py")), host)  # and passes once the cycle is gone

@@ -7,7 +7,7 @@ import pytest
 from nightcell.wire import frames as F
 from nightcell.errors import InputError, SchemaTooNew, StoreError
 from nightcell.store.database import Store, migration_files
-from nightcell.science.timeline import rebuild_clocks
+from nightcell.store.clocks import rebuild_clocks
 
 
 def _records(vectors):

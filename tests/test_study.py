@@ -145,3 +145,25 @@ def test_bad_input_says_what_to_do():
         study.orders(rates, bad)
     with pytest.raises(TooFewPoints, match="add runs"):
         study.orders(rates[:3], {n: c[:3] for n, c in conc.items()})
+
+
+def test_arrhenius_eyring_and_order_fits_evaluate_their_lines_and_bands():
+    sm = pytest.importorskip("statsmodels.api")
+    grid = np.array([280.0, 300.0, 330.0])
+    for fit, y in ((study.arrhenius(N2O5_T, N2O5_K), np.log(N2O5_K)),
+                   (study.eyring(N2O5_T, N2O5_K), np.log(N2O5_K / N2O5_T) - math.log(study.BOLTZMANN / study.PLANCK))):
+        assert_allclose(fit.curve(fit.x), fit.y - fit.residuals, rtol=1e-10)
+        # statsmodels OLS of the same line in 1/T: mean and 90 % confidence band at new temperatures (reference
+        # library)
+        ref = sm.OLS(y, sm.add_constant(1.0 / N2O5_T)).fit()
+        frame = ref.get_prediction(sm.add_constant(1.0 / grid)).summary_frame(alpha=0.10)
+        assert_allclose(fit.curve(grid), frame["mean"], rtol=1e-9)
+        low, high = fit.band(grid, 0.90)
+        assert_allclose(low, frame["mean_ci_lower"], rtol=1e-7)
+        assert_allclose(high, frame["mean_ci_upper"], rtol=1e-7)
+    rates, conc = _order_design()
+    per = study.orders(rates, conc).per_reactant["ketone"]
+    # the per-reactant line is ln rate = ln_rate_at_1 + order·ln c (common practice)
+    c = np.array([0.1, 0.5])
+    assert_allclose(per.curve(c), per.param("ln_rate_at_1") + per.param("order") * np.log(c), rtol=1e-12)
+    assert_allclose(per.curve(per.x), per.y - per.residuals, rtol=1e-10, atol=1e-12)

@@ -12,15 +12,16 @@ import subprocess
 import sys
 import threading
 import time
+from pathlib import Path
 
 import pytest
 
 from nightcell.errors import DeviceTimeout, NightcellError
 from nightcell.wire.link import Board
-from nightcell.sim.board import (Fault, SimulatedBoard, random_faults, raw_rows, reference_journal,
-                                run_fault_schedule)
+from nightcell.sim.board import Fault, SimulatedBoard
 from nightcell.store.database import Store
 from nightcell.store.sync import sync_board, sync_ports
+from support.campaigns import random_faults, raw_rows, reference_journal, run_fault_schedule
 
 SETTINGS = {"interval_ms": 1000, "durability_ms": 2000, "segment_bytes": 4096,
             "channels": [{"name": "red", "led": 15, "adc": 26}, {"name": "green", "led": 14, "adc": 27}]}
@@ -137,13 +138,78 @@ def test_a_flipped_digit_in_an_ack_is_refused_and_nothing_unacknowledged_is_trim
     assert int(final["tail"]) <= acked_to == stored_to
 
 
+def test_a_read_flipped_to_a_later_position_is_asked_again_never_taken_as_a_trim(journal, board_sim, tmp_path):
+    """The fault behind campaign schedule 489 (seed 2024), made deterministic: one bit of the second ``read``
+    request's position flipped, on the way to the board, to a later position. The board answers from the next
+    record boundary after the damaged position; the host once took that as a stretch another host had trimmed,
+    stored past the hole, acknowledged it, and the board deleted rows nobody had stored. Now the reply is not what
+    was asked, so it is asked again, and the sync ends equal to a fault-free one with nothing trimmed unstored."""
+    board_sim.restore_flash(journal["image"])
+    flipped: list[tuple[bytes, bytes]] = []
+    reads = []
+
+    def flip_second_read(direction: str, data: bytes) -> bytes:
+        if direction != "to_board" or flipped:
+            return data
+        m = re.search(rb" read (\d+) ", data)
+        if m is None:
+            return data
+        reads.append(m.group(1))
+        if m.group(1) == b"0":
+            return data
+        noisy = _one_bit_larger(m.group(1))
+        flipped.append((m.group(1), noisy))
+        return data[:m.start(1)] + noisy + data[m.end(1):]
+
+    db = tmp_path / "read-flip.db"
+    with Store.open(db) as store, Board.open(board_sim.url, timeout=0.5) as board:
+        info = board.hello(timeout=5.0)
+        board_sim.relay.fault = flip_second_read
+        summary = sync_board(board, store, batch_bytes=4096)
+        board_sim.relay.fault = None
+        final = board.hello()
+        stored_to, acked_to = store.journal_state(board_sim.device, int(info["journal"]))
+    assert flipped and int(flipped[0][1]) > int(flipped[0][0]), f"no read flipped to a later position: {reads}"
+    assert summary.resends >= 1 and summary.warnings == []
+    assert raw_rows(db, before_boot=int(info["boot"])) == journal["rows"]
+    assert int(final["tail"]) <= acked_to == stored_to == summary.end
+
+
+def test_an_ack_is_never_sent_past_what_the_database_has_committed(store):
+    """The check in the sync path itself (not an ``assert``, so ``python -O`` keeps it): acknowledging a position
+    past the committed stored position, or while a write is still open, is refused before anything is sent."""
+    from nightcell.errors import StoreError
+    from nightcell.store.sync import _check_committed
+
+    with store.write():
+        store.touch_device("5e1f0000000000aa")
+        store.set_journal_state("5e1f0000000000aa", 7, stored_to=4096)
+    _check_committed(store, "5e1f0000000000aa", 7, 4096)  # committed: allowed
+    with pytest.raises(StoreError, match="refusing to acknowledge position 4097"):
+        _check_committed(store, "5e1f0000000000aa", 7, 4097)
+    with pytest.raises(StoreError, match="stored only to None"):
+        _check_committed(store, "5e1f0000000000aa", 8, 1)  # another journal of the device: nothing stored
+    with store.write():
+        store.set_journal_state("5e1f0000000000aa", 7, stored_to=8192)
+        with pytest.raises(StoreError, match="uncommitted"):
+            _check_committed(store, "5e1f0000000000aa", 7, 8192)
+
+
 @pytest.mark.slow
 def test_fault_campaign_slice(journal, board_sim, tmp_path):
-    """A slice of the campaign in tests/bench/bench_sync_faults.py: random schedules, same result as no fault."""
+    """A slice of the campaign in tests/bench/bench_sync_faults.py: the schedules that once failed there (kept in its
+    ``REGRESSION``), then random schedules, each ending equal to a fault-free sync."""
+    sys.path.insert(0, str(Path(__file__).resolve().parent / "bench"))
+    try:
+        from bench_sync_faults import REGRESSION
+    finally:
+        sys.path.pop(0)
     rng = random.Random(20240604)
+    schedules = list(REGRESSION.values())
     for i in range(8):
-        faults = random_faults(rng, to_host_bytes=16_000, to_board_bytes=600, count=rng.randint(1, 4),
-                               max_seconds=0.4)
+        schedules.append(random_faults(rng, to_host_bytes=16_000, to_board_bytes=600, count=rng.randint(1, 4),
+                                       max_seconds=0.4))
+    for i, faults in enumerate(schedules):
         db = tmp_path / f"campaign{i}.db"
         out = run_fault_schedule(board_sim, journal["image"], faults, db, timeout=0.3)
         assert raw_rows(db, before_boot=out["before_boot"]) == journal["rows"], out

@@ -13,7 +13,8 @@ from numpy.testing import assert_allclose
 
 from nightcell.wire import frames as F
 from nightcell.store.database import Store
-from nightcell.science.timeline import UPTIME_WRAP_MS, fit_boot_clock, rebuild_clocks, unwrap_uptimes
+from nightcell.science.timeline import UPTIME_WRAP_MS, fit_boot_clock, unwrap_uptimes
+from nightcell.store.clocks import rebuild_clocks
 
 WEEK_MS = 7 * 86400 * 1000
 

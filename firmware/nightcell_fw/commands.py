@@ -29,11 +29,12 @@ def _nargs(args, lo, hi, usage):
         raise ValueError("usage: %s" % usage)
 
 
-def _checked(verb, args, usage):
-    """The value of a request that must not be misread (``ack`` may delete, ``anchor`` sets the clock). Its optional
-    last argument is the CRC-32 of ``"<verb> <value>"`` in 8 lower-case hex digits; when given, a damaged digit is
-    refused. (A line cut short can only lose digits, which asks for less, never more.)"""
-    _nargs(args, 1, 2, usage)
+def _checked(verb, args, usage, required=False):
+    """The value of a request that must not be misread (``ack`` may delete, ``anchor`` sets the clock). Its last
+    argument is the CRC-32 of ``"<verb> <value>"`` in 8 lower-case hex digits; a damaged digit is refused. ``ack``
+    must carry it: the board trims only up to a position it has verified (noise that damaged a digit and also
+    dropped the check would otherwise pass)."""
+    _nargs(args, 2 if required else 1, 2, usage)
     if len(args) == 2 and args[1] != "%08x" % crc32(("%s %s" % (verb, args[0])).encode()):
         raise ValueError("check field does not match: the request was damaged on the way; send it again")
     return args[0]
@@ -120,7 +121,7 @@ def _read(lg, tag, args):
 
 
 def _ack(lg, tag, args):
-    pos = _int(_checked("ack", args, "ack <position> [check]"), "position", 0, 0xFFFFFFFF)
+    pos = _int(_checked("ack", args, "ack <position> <check>", True), "position", 0, 0xFFFFFFFF)
     j = lg.journal
     if j.trim(pos):
         lg.event(R.EVENT_TRIMMED, "tail %d" % j.tail)

@@ -17,7 +17,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from fwharness import results, run_mp  # noqa: E402
+from support.fwharness import results, run_mp  # noqa: E402
 
 SCRIPT = r"""
 import sys

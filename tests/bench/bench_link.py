@@ -19,7 +19,9 @@ import time
 from pathlib import Path
 
 from nightcell.wire.link import Board
-from nightcell.sim.board import SimulatedBoard, fill_journal
+from nightcell.sim.board import SimulatedBoard
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the shared support package
+from support.campaigns import fill_journal
 from nightcell.store.database import Store
 from nightcell.store.sync import sync_board
 

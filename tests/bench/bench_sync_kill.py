@@ -22,7 +22,9 @@ from collections import Counter
 from pathlib import Path
 
 from nightcell.wire.link import Board
-from nightcell.sim.board import SimulatedBoard, raw_rows, reference_journal
+from nightcell.sim.board import SimulatedBoard
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the shared support package
+from support.campaigns import raw_rows, reference_journal
 from nightcell.store.database import Store
 from nightcell.store.sync import sync_board
 

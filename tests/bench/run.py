@@ -51,7 +51,9 @@ FIGURES: dict[str, str] = {
     "NIST digits": r"nist",
     "interval coverage": r"coverage",
     "demo time": r"demo.*(time|seconds)",
+    "start-up": r"start-?up: nightcell --help",
     "CSV reader ratio": r"csv_reader_over_loadtxt",
+    "page update latency": r"update latency (median|worst)",
 }
 
 

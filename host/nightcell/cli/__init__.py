@@ -599,18 +599,12 @@ def list_devices(store: Any) -> tuple:
     data = []
     for d in store.devices():
         n_runs = len(store.runs(d["device"]))
-        n_samples = store.query("SELECT count(*) AS n FROM samples WHERE device = ? AND channel = 0",
-                                (d["device"],))[0]["n"]
+        n_samples = store.sample_count(d["device"], channel=0)
         data.append(dict(d, runs=n_runs, samples=n_samples))
     rows = [(d["device"], d["label"] or "", d["board"], d["firmware"], d["runs"], d["samples"],
              _utc(d["last_seen_unix"])) for d in data]
     return ("devices", ("device", "label", "board", "firmware", "runs", "samples", "last synced"), rows, data,
             "no devices yet: sync a board with `nightcell sync --port PORT --db DB`")
-
-
-def _mark_times(store: Any, mark: str) -> dict[tuple[str, int, int], str]:
-    rows = store.query("SELECT DISTINCT device, boot, seq, wall_clock_utc FROM mark_readings WHERE mark = ?", (mark,))
-    return {(r["device"], r["boot"], r["seq"]): r["wall_clock_utc"] or "" for r in rows}
 
 
 @_list_command("runs")
@@ -619,7 +613,7 @@ def list_runs(store: Any) -> tuple:
 
     Example: nightcell list runs --db class.db
     """
-    starts = _mark_times(store, "run_start")
+    starts = store.mark_times("run_start")
     data = []
     for run in store.runs():
         d = run.to_dict()
@@ -639,7 +633,7 @@ def list_blanks(store: Any) -> tuple:
 
     Example: nightcell list blanks --db class.db
     """
-    times = _mark_times(store, "blank")
+    times = store.mark_times("blank")
     data = []
     for m in store.marks(mark="blank"):
         reads = max(1, m["reads"])
@@ -654,21 +648,13 @@ def list_blanks(store: Any) -> tuple:
             "no blanks yet: take one with `nightcell blank`, then `nightcell sync`")
 
 
-def _results(store: Any, kind: str | None) -> list[dict[str, Any]]:
-    sql = "SELECT * FROM results" + (" WHERE kind = ?" if kind else "") + " ORDER BY id"
-    out = []
-    for r in store.query(sql, (kind,) if kind else ()):
-        out.append(dict(r, inputs=json.loads(r.pop("inputs_json")), result=json.loads(r.pop("result_json"))))
-    return out
-
-
 @_list_command("calibrations")
 def list_calibrations(store: Any) -> tuple:
     """Calibrations saved in the database (by `nightcell calibrate --db`), with slope and its standard error.
 
     Example: nightcell list calibrations --db class.db
     """
-    data = _results(store, "calibration")
+    data = store.results("calibration")
     rows = []
     for r in data:
         res = r["result"]
@@ -686,7 +672,7 @@ def list_results(store: Any) -> tuple:
 
     Example: nightcell list results --db class.db
     """
-    data = _results(store, None)
+    data = store.results()
     rows = [(r["id"], r["kind"], r["label"], r["inputs"].get("run") or r["inputs"].get("device") or "",
              r["nightcell_version"], _utc(r["created_unix"])) for r in data]
     return ("results", ("id", "kind", "label", "input", "version", "saved"), rows, data,
@@ -768,9 +754,11 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the HTML pages and figures.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
+@click.option("--level", type=float, default=0.95, show_default=True,
+              help="Confidence level of the calibration's intervals and prediction band.")
 @json_option
 @friendly
-def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int,
+def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int, level: float,
            as_json: bool) -> None:
     """Write self-contained HTML reports (figures embedded; each figure also as PNG and SVG): one per run, or a
     study over several runs with their recorded conditions (see `nightcell condition`).
@@ -788,7 +776,7 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
     done = Written()
     if study:
         with open_reading(db) as store, all_or_nothing():
-            done = study_report(store, out, channel)
+            done = study_report(store, out, channel, level=level)
         lines = [f"wrote {f}" for f in done.files] + [f"skipped {s}" for s in done.skipped]
         _emit(done.to_dict(), as_json, "\n".join(lines))
         return
@@ -798,7 +786,7 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
             raise InputError(f"{db} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
         for run in runs:
             try:
-                one = run_report(store, run, out, channel)
+                one = run_report(store, run, out, channel, level=level)
             except AnalysisError as exc:
                 if not all_runs:
                     raise
@@ -837,9 +825,11 @@ def export(db: Path, run_text: str | None, out: Path, channel: int, as_json: boo
 
 from . import analysis as _analysis  # noqa: E402  (the group above must exist before they register)
 from . import board as _board  # noqa: E402
+from . import dashboard as _dashboard  # noqa: E402
 
 _analysis.register(cli)
 _board.register(cli)
+_dashboard.register(cli)
 
 
 def main(argv: list[str] | None = None) -> None:

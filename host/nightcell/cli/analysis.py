@@ -25,16 +25,16 @@ from __future__ import annotations
 import contextlib
 import json
 from pathlib import Path
-from typing import Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import click
-import numpy as np
 
-from ..science import calibration as _calibration
-from ..science import kinetics as _kinetics
-from ..science import study as _study
-from .options import FINITE, Finite, friendly, inert, json_option, open_writing
 from ..errors import InputError
+from ..science.laws import MODELS
+from .options import FINITE, Finite, friendly, inert, json_option, open_writing
+
+if TYPE_CHECKING:
+    import numpy as np
 
 __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_command", "read_columns", "register"]
 
@@ -63,6 +63,8 @@ _LIMITS = {"absorbance": 50.0, "k": 1e50, "k_se": 1e50, "initial_rate": 1e50, "r
 
 
 def _plausible(table: Any) -> None:
+    import numpy as np
+
     for name, values in table.columns.items():
         limit = _LIMITS.get(name, 1e50 if name.startswith("conc_") else None)
         if limit is None or values.dtype == object or values.size == 0:
@@ -230,8 +232,10 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
     else:
         assert csv_file is not None
         cols = read_columns(csv_file, ["concentration", "absorbance"], ["weight"], min_rows=3)
-        cal = _calibration.fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
-                                           inputs={"file": csv_file.name}, **options)
+        from ..science.calibration import fit_calibration
+
+        cal = fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
+                                inputs={"file": csv_file.name}, **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
     text = cal.report()
     for line in cal.inputs.get("skipped", []):
@@ -254,6 +258,8 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
 
 
 def _run_text(analysis: Any) -> str:
+    import numpy as np
+
     run = analysis.run
     lines = [f"run {run.key} {run.label!r}: {len(analysis.time_s)} readings, "
              f"{int(np.count_nonzero(analysis.flags))} flagged and left out",
@@ -266,23 +272,13 @@ def _run_text(analysis: Any) -> str:
     return "\n".join(lines)
 
 
-def _initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None) -> Any:
-    from ..tasks.analyse import run_series
-
-    s = run_series(store, run, channel)
-    inputs = {"run": run.key, "device": run.device, "channel": channel,
-              "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
-              "time_basis": s["time_basis"], "left_out": "flagged readings"}
-    return _kinetics.initial_rate(s["time_s"], s["absorbance"], window, mask=s["flags"] != 0, inputs=inputs)
-
-
 @click.command("rate")
 @_csv_argument
 @_table_options
 @_db_option
 @click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
 @_channel_option
-@click.option("--model", type=click.Choice(("all", "initial_rate") + _kinetics.MODELS), default="all",
+@click.option("--model", type=click.Choice(("all", "initial_rate") + MODELS), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
 @click.option("--window", type=(FINITE, FINITE), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
@@ -306,7 +302,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
     """
     _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
     if db is not None:
-        from ..tasks.analyse import analyse_run
+        from ..tasks.analyse import analyse_run, initial_rate_of
         from ..tasks.export import resolve_run
 
         if t_start is not None or a_end != 0.0:
@@ -315,7 +311,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
         with _open(db) as store:
             run = resolve_run(store, run_text)
             if model == "initial_rate":
-                fit = _initial_rate_of(store, run, channel, window)
+                fit = initial_rate_of(store, run, channel, window)
                 data, text = fit.to_dict(), f"run {run.key} {run.label!r}\n" + fit.report()
                 inputs = fit.inputs
             else:
@@ -327,6 +323,8 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                 inputs = analysis.fits[analysis.best].inputs
             _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out)
         return
+    from ..science import kinetics as _kinetics
+
     assert csv_file is not None
     cols = read_columns(csv_file, ["time_s", "absorbance"], min_rows=4)
     inputs = {"file": csv_file.name}
@@ -372,6 +370,11 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
 
     Example: nightcell orders --db class.db runs_and_concentrations.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import initial_rate_of
+
     _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -386,7 +389,7 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            fits = [_initial_rate_of(store, run, channel, None) for run in runs]
+            fits = [initial_rate_of(store, run, channel, None) for run in runs]
             cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
             cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
             inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
@@ -402,21 +405,12 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
 
 def _kelvin(path: Path, temperature_k: np.ndarray) -> None:
     """Refuse temperatures that are plainly °C written as kelvin (no solution is studied below 200 K)."""
+    import numpy as np
+
     t = np.asarray(temperature_k, dtype=float)
     if t.size and float(np.max(t)) < 200.0:
         raise InputError(f"{path}: temperatures {float(np.min(t)):g} to {float(np.max(t)):g} K look like °C — add "
                          "273.15 to each (or name the column 'temperature (°C)', which is converted)")
-
-
-def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
-    """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
-    from ..tasks.analyse import analyse_run
-
-    analysis = analyse_run(store, run, channel=channel, models=(model,))
-    fit = analysis.fits[model]
-    temps = [r["temp_centi"] for r in store.run_samples(run, channel) if r["temp_centi"] is not None]
-    t_k = float(np.mean(temps)) / 100.0 + 273.15 if temps else None
-    return float(fit.values["k"]), float(fit.stderr["k"]), t_k
 
 
 @click.command("arrhenius")
@@ -424,7 +418,7 @@ def _k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[
 @_table_options
 @_db_option
 @_channel_option
-@click.option("--model", type=click.Choice([m for m in _kinetics.MODELS if m != "zero_order"]),
+@click.option("--model", type=click.Choice([m for m in MODELS if m != "zero_order"]),
               default="first_order_plateau", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
@@ -442,6 +436,11 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
 
     Example: nightcell arrhenius --db class.db runs_and_temperatures.csv
     """
+    import numpy as np
+
+    from ..science import study as _study
+    from ..tasks.analyse import k_and_temperature
+
     _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
@@ -453,7 +452,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
-            got = [_k_and_temperature(store, run, channel, model) for run in runs]
+            got = [k_and_temperature(store, run, channel, model) for run in runs]
             if "temperature_K" not in cols:
                 missing = [r.key for r, g in zip(runs, got) if g[2] is None]
                 if missing:

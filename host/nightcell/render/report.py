@@ -1,6 +1,8 @@
 """Figures, self-contained HTML reports (one per run, one per study) and CSV exports from analysis results.
 
-Plot functions take ``ax=`` and return it; nothing calls ``plt.show()``. The HTML embeds its figures (PNG, base64)
+Plot functions take ``ax=`` and return it; nothing calls ``plt.show()``. Without ``ax=`` they draw on a new pyplot
+figure (so a notebook shows it with its own backend); the reports draw on ``matplotlib.figure.Figure`` objects made
+here, which need no pyplot and no backend switch (importing this module never changes the user's backend). The HTML embeds its figures (PNG, base64)
 so the one file can be mailed or opened anywhere and fetches nothing; each figure is also written beside it as PNG
 and SVG. Every label that came from a board or a user is escaped (HTML) or made literal (matplotlib's ``$…$``
 maths), so a label that is HTML or SQL stays inert text. Files are written to a temporary name and renamed: never
@@ -30,7 +32,6 @@ from pathlib import Path
 from typing import Any, Iterable, Iterator, Sequence
 
 
-
 def _matplotlib_config_folder() -> None:
     """Give matplotlib a temporary config folder where the home folder cannot hold one (a read-only home, a locked
     school account), instead of letting it print a warning on every command."""
@@ -54,10 +55,8 @@ def _matplotlib_config_folder() -> None:
 _matplotlib_config_folder()
 
 import matplotlib  # noqa: E402
-
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
 
 from .. import __version__  # noqa: E402
 
@@ -72,19 +71,18 @@ def plain_text(label: Any) -> str:
 
 
 def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str = "") -> Any:
-    """Standards, the fitted line and its 95 % prediction band for one new reading; residuals on ``resid_ax``."""
+    """Standards, the fitted curve and its prediction band for one new reading at the calibration's own level
+    (``cal.level``, 95 % unless fitted otherwise); residuals on ``resid_ax``."""
     if ax is None:
-        _, ax = plt.subplots()
+        ax = _new_axes()
     x = np.asarray(cal.x, dtype=float)
     y = np.asarray(cal.y, dtype=float)
     ax.plot(x, y, "o", color="#1f5f8b", label="standards")
     grid = np.linspace(min(0.0, x.min()), x.max() * 1.05, 200)
-    fitted = cal.values.get("intercept", 0.0) + cal.values["slope"] * grid + cal.values.get("curvature", 0.0) * grid**2
+    fitted = cal.curve(grid)
     ax.plot(grid, fitted, "-", color="#333333", label="fit")
-    band = _prediction_band(cal, grid)
-    if band is not None:
-        ax.fill_between(grid, fitted - band, fitted + band, color="#1f5f8b", alpha=0.15,
-                        label="95 % prediction band")
+    low, high = cal.band(grid, cal.level, kind="prediction")
+    ax.fill_between(grid, low, high, color="#1f5f8b", alpha=0.15, label=f"{100 * cal.level:g} % prediction band")
     ax.set_xlabel(f"concentration {unit}".strip())
     ax.set_ylabel("absorbance")
     ax.legend(loc="upper left", fontsize="small")
@@ -96,26 +94,11 @@ def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str =
     return ax
 
 
-def _prediction_band(cal: Any, grid: np.ndarray) -> np.ndarray | None:
-    """Half-width of the 95 % band for one new reading at each concentration (line or quadratic)."""
-    from scipy import stats
-
-    names = list(cal.names)
-    cov = np.asarray(cal.cov, dtype=float)
-    cols = {"intercept": np.ones_like(grid), "slope": grid, "curvature": grid**2}
-    try:
-        design = np.column_stack([cols[n] for n in names])
-    except KeyError:
-        return None
-    var = np.einsum("ij,jk,ik->i", design, cov, design) + cal.residual_sd**2
-    return stats.t.ppf(0.975, max(cal.dof, 1)) * np.sqrt(var)
-
-
 def plot_run(time_s: Sequence[float], absorbance: Sequence[float], fit: Any = None, ax: Any = None,
              resid_ax: Any = None, flags: Sequence[int] | None = None, title: str = "") -> Any:
     """Absorbance against time with the fitted curve; flagged points hollow; residuals on ``resid_ax``."""
     if ax is None:
-        _, ax = plt.subplots()
+        ax = _new_axes()
     t = np.asarray(time_s, dtype=float)
     a = np.asarray(absorbance, dtype=float)
     bad = np.zeros(len(t), bool) if flags is None else np.asarray(flags) != 0
@@ -270,16 +253,15 @@ def plot_orders(fit: Any, ax: Any = None, rate_se: Sequence[float] | None = None
     concentrations, ``y`` ln rate) or the ``OrderStudy`` itself. ``rate_se`` draws ±1 SE bars.
     """
     if ax is None:
-        _, ax = plt.subplots()
+        ax = _new_axes()
     f = _order_fit(fit)
     c = np.asarray(f.x, dtype=float)
     r = np.exp(np.asarray(f.y, dtype=float))
     yerr = None if rate_se is None else np.abs(np.asarray(rate_se, dtype=float))
     ax.errorbar(c, r, yerr=yerr, fmt="s", color="#2d6a4f", ms=5, capsize=3, label="runs (±1 SE)")
     grid = np.geomspace(c.min() / 1.15, c.max() * 1.15, 50)
-    n, ln1 = f.values["order"], f.values["ln_rate_at_1"]
-    ax.plot(grid, np.exp(ln1) * grid**n, "-", color="#333333",
-            label=f"order {n:.3f} ± {f.stderr['order']:.2g}")
+    n = f.values["order"]
+    ax.plot(grid, np.exp(f.curve(grid)), "-", color="#333333", label=f"order {n:.3f} ± {f.stderr['order']:.2g}")
     ax.set_xscale("log")
     ax.set_yscale("log")
     ax.set_xlabel(plain_text(f"[{reactant}] (mol/L)" if reactant else "concentration (mol/L)"))
@@ -290,10 +272,10 @@ def plot_orders(fit: Any, ax: Any = None, rate_se: Sequence[float] | None = None
 
 def plot_arrhenius(fit: Any, ax: Any = None, k_se: Sequence[float] | None = None, resid_ax: Any = None) -> Any:
     """ln k (Arrhenius) or ln(k/T) (Eyring) against 1000/T with the fitted line; residuals on ``resid_ax``."""
-    from ..science.study import BOLTZMANN, GAS_CONSTANT, PLANCK
+    from ..science.study import BOLTZMANN, PLANCK
 
     if ax is None:
-        _, ax = plt.subplots()
+        ax = _new_axes()
     T = np.asarray(fit.x, dtype=float)
     y = np.asarray(fit.y, dtype=float)
     eyring = fit.model == "eyring"
@@ -310,13 +292,12 @@ def plot_arrhenius(fit: Any, ax: Any = None, k_se: Sequence[float] | None = None
         yerr = np.abs(np.asarray(k_se, dtype=float)) / k
     ax.errorbar(x, y, yerr=yerr, fmt="o", color="#9c2f2f", ms=5, capsize=3, label="runs (±1 SE)")
     grid = np.linspace(T.min() - 3.0, T.max() + 3.0, 50)
+    line = fit.curve(grid) + (math.log(BOLTZMANN / PLANCK) if eyring else 0.0)
     if eyring:
-        dh, ds = fit.values["dH_J_per_mol"], fit.values["dS_J_per_mol_K"]
-        line = math.log(BOLTZMANN / PLANCK) + ds / GAS_CONSTANT - dh / (GAS_CONSTANT * grid)
+        dh = fit.values["dH_J_per_mol"]
         lab = f"ΔH‡ {dh / 1000:.1f} ± {fit.stderr['dH_J_per_mol'] / 1000:.1f} kJ/mol"
     else:
-        ea, lna = fit.values["Ea_J_per_mol"], fit.values["ln_A"]
-        line = lna - ea / (GAS_CONSTANT * grid)
+        ea = fit.values["Ea_J_per_mol"]
         lab = f"Ea {ea / 1000:.1f} ± {fit.stderr['Ea_J_per_mol'] / 1000:.1f} kJ/mol"
     ax.plot(1000.0 / grid, line, "-", color="#333333", label=lab)
     ax.set_xlabel("1000 / T (K⁻¹)")
@@ -449,8 +430,17 @@ def _figure_files(fig: Any, stem: Path, done: list[Path]) -> bytes:
     return png
 
 
-def _figure(**kw: Any) -> tuple[Any, Any]:
-    return plt.subplots(layout="constrained", **kw)
+def _new_axes() -> Any:
+    """Axes on a new pyplot figure, for a caller who gave no ``ax=`` (pyplot picks the caller's own backend)."""
+    import matplotlib.pyplot as plt
+
+    return plt.subplots()[1]
+
+
+def _figure(figsize: tuple[float, float] | None = None, **kw: Any) -> tuple[Any, Any]:
+    """A report figure: a bare ``Figure`` (no pyplot, no backend) laid out by constrained layout."""
+    fig = Figure(figsize=figsize, layout="constrained")
+    return fig, fig.subplots(**kw)
 
 
 def _two_panel() -> tuple[Any, Any, Any]:
@@ -539,7 +529,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
         _shade_restarts(analysis, (ax, rax))
         run_png = _figure_files(fig, out / f"{name}-absorbance", figs)
     finally:
-        plt.close(fig)
+        fig.clear()  # drop the figure's artists now: a report draws many
     flagged = int(np.count_nonzero(analysis.flags))
     sections: list[dict[str, Any]] = [{
         "title": f"Run {run.label or run.key}",
@@ -576,7 +566,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
                 stem = f"calibration-{safe_filename(run.device)}" if cache is not None else f"{name}-calibration"
                 cal_png = _figure_files(fig, out / stem, made)
             finally:
-                plt.close(fig)
+                fig.clear()  # drop the figure's artists now: a report draws many
             figs += made
             if cache is not None:
                 cache[key] = (cal_png, made)
@@ -633,7 +623,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
     if study.runs:
         fig, ax = _figure(figsize=(7.0, 4.4))
         try:
-            cmap = plt.get_cmap("viridis")
+            cmap = matplotlib.colormaps["viridis"]
             for i, it in enumerate(study.runs):
                 a = it.analysis
                 ok = a.flags == 0
@@ -650,7 +640,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             ax.legend(fontsize="x-small", loc="upper right")
             png = _figure_files(fig, out / f"{name}-runs", figs)
         finally:
-            plt.close(fig)
+            fig.clear()  # drop the figure's artists now: a report draws many
         sections.append({"title": "Absorbance of every run", "figures": [png]})
     by_key = {it.run.key: it for it in study.runs}
     for reactant, st in study.orders.items():
@@ -663,7 +653,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             ax.set_title(plain_text(f"Order in {reactant} from rate constants"))
             png = _figure_files(fig, out / f"{name}-order-{safe_filename(reactant)}", figs)
         finally:
-            plt.close(fig)
+            fig.clear()  # drop the figure's artists now: a report draws many
         html_parts = fit_table(f)
         text = (f"ln k against ln [{reactant}] over runs {', '.join(keys)}. "
                 f"Order {plus_minus(f.values['order'], f.stderr['order'])}; "
@@ -686,7 +676,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             ax.set_title("Arrhenius plot")
             png = _figure_files(fig, out / f"{name}-arrhenius", figs)
         finally:
-            plt.close(fig)
+            fig.clear()  # drop the figure's artists now: a report draws many
         ex = fa.extra
         text = (f"Runs {', '.join(keys)}. Ea = {plus_minus(ex.get('Ea_kJ_per_mol'), ex.get('Ea_se_kJ_per_mol'))} "
                 f"kJ/mol; A = {plus_minus(ex.get('A'), ex.get('A_se'))} s⁻¹; "
@@ -709,7 +699,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             ax.set_title(plain_text(f"Calibration of {device}"))
             png = _figure_files(fig, out / f"{name}-calibration-{safe_filename(device)}", figs)
         finally:
-            plt.close(fig)
+            fig.clear()  # drop the figure's artists now: a report draws many
         sections.append({"title": f"Calibration of {device}", "html": fit_table(cal),
                          "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; LOD "
                                  f"{cal.extra.get('lod', float('nan')):.3g}, "

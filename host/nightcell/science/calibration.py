@@ -377,7 +377,8 @@ def fit_calibration(
     if w is not None:
         w = w / w.mean()
     X, names = _design(x, degree, through_origin)
-    base = linear_lstsq(X, y, names, model=model, weights=w, x=x, inputs=inputs)
+    base = linear_lstsq(X, y, names, model=model, weights=w, x=x, inputs=inputs,
+                        curve=lambda c, beta: _design(c, degree, through_origin)[0] @ beta)
     extra: dict[str, Any] = dict(base.extra)
     extra["r"] = float(np.corrcoef(x, y)[0, 1]) if np.ptp(y) > 0 else 0.0
     extra["level"] = level

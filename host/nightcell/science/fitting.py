@@ -166,6 +166,9 @@ class FitResult:
     inputs : plain-JSON record of what the fit came from (ids, windows, choices).
     extra : model-specific derived values (half-life, runs test, LOD...), plain JSON.
     x, y, residuals : the points actually used and their residuals (numpy; not exported).
+    curve_fn : ``curve_fn(x, beta)`` — the fitted model at ``x`` (the units of ``x`` above) for parameters ``beta``
+        in ``names`` order; set by the function that fitted it (None when the model has no curve over ``x``).
+        ``curve`` and ``band`` use it, so a plot asks the result instead of re-deriving the model.
     """
 
     model: str
@@ -185,6 +188,41 @@ class FitResult:
     x: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
     y: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
     residuals: np.ndarray = field(default_factory=lambda: np.empty(0), repr=False)
+    curve_fn: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = field(default=None, repr=False, compare=False)
+
+    def curve(self, x: Any) -> np.ndarray:
+        """The fitted model at ``x`` (same units as ``self.x``)."""
+        if self.curve_fn is None:
+            raise InputError(f"{self.model} has no curve over x to evaluate")
+        beta = np.array([self.values[n] for n in self.names], dtype=float)
+        return np.asarray(self.curve_fn(np.asarray(x, dtype=float), beta), dtype=float)
+
+    def band(self, x: Any, level: float = 0.95, *, kind: str = "confidence") -> tuple[np.ndarray, np.ndarray]:
+        """Lower and upper edges at ``x`` of the two-sided ``level`` band of the fitted curve.
+
+        ``kind="confidence"``: where the true curve lies; ``kind="prediction"``: where one new observation falls
+        (adds the residual variance; for a weighted fit, an observation of unit relative weight). Half-width
+        ``t(level, dof)·sqrt(g·cov·gᵀ [+ s²])`` with ``g`` the gradient of the curve in the parameters (central
+        differences; exact for models linear in their parameters, the delta method otherwise).
+        """
+        if kind not in ("confidence", "prediction"):
+            raise InputError(f"band kind {kind!r} must be 'confidence' or 'prediction'")
+        xv = np.asarray(x, dtype=float)
+        centre = self.curve(xv)
+        assert self.curve_fn is not None
+        beta = np.array([self.values[n] for n in self.names], dtype=float)
+        grad = np.empty((len(beta),) + centre.shape)
+        for i, (b, se) in enumerate(zip(beta, (self.stderr[n] for n in self.names))):
+            h = 1e-6 * max(abs(b), se if math.isfinite(se) else 0.0) or 1e-9
+            up, down = beta.copy(), beta.copy()
+            up[i] += h
+            down[i] -= h
+            grad[i] = (self.curve_fn(xv, up) - self.curve_fn(xv, down)) / (2.0 * h)
+        var = np.einsum("i...,ij,j...->...", grad, self.cov_matrix, grad)
+        if kind == "prediction":
+            var = var + self.residual_sd**2
+        half = t_quantile(level, self.dof) * np.sqrt(np.clip(var, 0.0, None))
+        return centre - half, centre + half
 
     def param(self, name: str) -> float:
         """Value of parameter ``name``."""
@@ -283,6 +321,7 @@ def _package(
     message: str = "",
     inputs: Mapping[str, Any] | None = None,
     extra: Mapping[str, Any] | None = None,
+    curve: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
 ) -> FitResult:
     n, k = int(y.size), len(names)
     dof = n - k
@@ -309,6 +348,7 @@ def _package(
         x=x,
         y=y,
         residuals=resid,
+        curve_fn=curve,
     )
 
 
@@ -322,8 +362,10 @@ def linear_lstsq(
     x: np.ndarray | None = None,
     inputs: Mapping[str, Any] | None = None,
     extra: Mapping[str, Any] | None = None,
+    curve: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = None,
 ) -> FitResult:
-    """Ordinary or weighted least squares ``y ≈ design @ beta``.
+    """Ordinary or weighted least squares ``y ≈ design @ beta`` (``curve(x, beta)``, optional: the model over ``x``,
+    kept on the result for ``FitResult.curve``/``band``).
 
     The rows are scaled by sqrt(weight), the columns equilibrated to unit norm, and the system solved by a QR
     factorisation; ``cov = s²·(XᵀWX)⁻¹`` with ``s² = Σw·r²/(n−k)`` (scale estimated from the residuals, the
@@ -369,7 +411,7 @@ def linear_lstsq(
     Rinv = np.linalg.inv(R)
     cov = s2 * (Rinv @ Rinv.T) / np.outer(scale, scale)
     xv = np.asarray(x, dtype=float) if x is not None else X[:, min(1, k - 1)]
-    return _package(model, names, beta, cov, xv, yv, resid, rss, inputs=inputs, extra=extra)
+    return _package(model, names, beta, cov, xv, yv, resid, rss, inputs=inputs, extra=extra, curve=curve)
 
 
 def nonlinear_lstsq(

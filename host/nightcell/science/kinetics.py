@@ -46,6 +46,7 @@ import numpy as np
 from scipy import stats as _stats
 
 from ..errors import AnalysisError, FitFailed, InputError, NonFiniteInput, TimeOrderError, TooFewPoints
+from .laws import MODELS
 from .fitting import FitResult, _package, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq, runs_test
 
 __all__ = [
@@ -57,7 +58,6 @@ __all__ = [
     "initial_rate",
 ]
 
-MODELS: tuple[str, ...] = ("zero_order", "first_order", "second_order", "first_order_plateau")
 _LN2 = math.log(2.0)
 _TOL = 1.49012e-08  # curve_fit's default: parameters settle far below any standard error
 _MIN_WINDOW = 6
@@ -531,11 +531,26 @@ def _fit_one(
     tau: np.ndarray, a: np.ndarray, model: str, a_end: float, inputs: Mapping[str, Any], w: np.ndarray | None,
     moments: _Moments | None = None,
 ) -> FitResult:
+    fit = None
     if model in MODELS:
-        fast = _fast_fit(moments if moments is not None else _Moments(tau, a, w), model, a_end, inputs)
-        if fast is not None:
-            return fast
-    return _fit_reference(tau, a, model, a_end, inputs, w)
+        fit = _fast_fit(moments if moments is not None else _Moments(tau, a, w), model, a_end, inputs)
+    if fit is None:
+        fit = _fit_reference(tau, a, model, a_end, inputs, w)
+    fit.curve_fn = _law_curve(model, a_end, _second_sign(a - a_end) if model == "second_order" else 1.0)
+    return fit
+
+
+def _law_curve(model: str, a_end: float, sign: float) -> Any:
+    """The rate law ``model`` as ``curve(tau, beta)`` (beta in the fit's parameter order), for ``FitResult.curve``."""
+    if model == "zero_order":
+        return lambda x, b: b[0] + b[1] * x
+    if model == "first_order":
+        return lambda x, b: _first(x, b[0], b[1], a_end=a_end)
+    if model == "second_order":
+        return lambda x, b: a_end + (b[0] - a_end) / (1.0 + b[1] * sign * (b[0] - a_end) * x)
+    if model == "first_order_plateau":
+        return lambda x, b: _plateau(x, *b)
+    return None
 
 
 def _fit_reference(

@@ -68,19 +68,25 @@ def _temperature_fit(
     if T.size < 3:
         raise TooFewPoints(f"{model}: {T.size} runs; need at least 3 temperatures to give standard errors")
     w = _log_weights(kv, k_se, "k")
-    x = -1.0 / (GAS_CONSTANT * T)
     if model == "arrhenius":
         y = np.log(kv)
-        X = np.column_stack([x, np.ones_like(x)])
     else:
         y = np.log(kv / T) - math.log(BOLTZMANN / PLANCK)
-        X = np.column_stack([x, np.full_like(x, 1.0 / GAS_CONSTANT)])
     rec = dict(inputs or {})
     rec.update(model=model, weighted=w is not None, absolute_sigma=absolute_sigma)
-    fit = linear_lstsq(X, y, names, model=model, weights=w, x=T, inputs=rec)
+    fit = linear_lstsq(_temperature_design(T, model), y, names, model=model, weights=w, x=T, inputs=rec,
+                       curve=lambda temps, beta: _temperature_design(temps, model) @ beta)
     if absolute_sigma and w is not None:
         _absolute(fit)
     return fit, T, kv
+
+
+def _temperature_design(T: np.ndarray, model: str) -> np.ndarray:
+    """Columns of the straight line in 1/T: ln k (Arrhenius) or ln(k/T) − ln(k_B/h) (Eyring) at temperatures T."""
+    x = -1.0 / (GAS_CONSTANT * T)
+    if model == "arrhenius":
+        return np.column_stack([x, np.ones_like(x)])
+    return np.column_stack([x, np.full_like(x, 1.0 / GAS_CONSTANT)])
 
 
 def arrhenius(
@@ -240,6 +246,7 @@ def orders(
             Xi, np.log(mag[idx]), ("ln_rate_at_1", "order"), model=f"order_{name}",
             weights=None if w is None else w[idx], x=conc[name][idx],
             inputs={"reactant": name, "runs": idx.tolist()},
+            curve=lambda c, beta: beta[0] + beta[1] * np.log(c),
         )
 
     study = OrderStudy(joint=joint, per_reactant=per, skipped=skipped)

@@ -16,13 +16,12 @@ Example::
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field
 from typing import Iterable, Sequence
 
 import numpy as np
 
-__all__ = ["BootClock", "fit_boot_clock", "rebuild_clocks", "unwrap_uptimes", "UPTIME_WRAP_MS"]
+__all__ = ["BootClock", "fit_boot_clock", "fit_clocks", "unwrap_uptimes", "UPTIME_WRAP_MS"]
 
 UPTIME_WRAP_MS = 1 << 32
 """Record uptimes are u32 milliseconds (schema/records.md): they wrap after 49.7 days."""
@@ -102,24 +101,16 @@ def unwrap_uptimes(values: Iterable[int], last: int | None = None) -> list[int]:
     return out
 
 
-def rebuild_clocks(store, device: str | None = None) -> int:
-    """Recompute ``boot_clocks`` from the stored anchors (inside the caller's transaction). Returns boots with a clock.
+def fit_clocks(anchors: dict[tuple[str, int], list[tuple[int, int, int]]]) -> dict[tuple[str, int], BootClock]:
+    """Clocks of every boot with an anchor, from ``{(device, boot): [(seq, uptime_ms, host_unix_ms), ...]}``.
 
-    Anchor uptimes are stored unwrapped by the store, so they are used as they are.
+    A one-anchor boot borrows the drift of the same board's longest fitted boot (quality ``borrowed``).
     """
-    where = "WHERE device = ?" if device else ""
-    params = (device,) if device else ()
-    rows = store.conn.execute(
-        f"SELECT device, boot, seq, uptime_ms, host_unix_ms FROM anchors {where} ORDER BY device, boot, seq", params
-    ).fetchall()
-    by_boot: dict[tuple[str, int], list[tuple[int, int, int]]] = {}
-    for dev, boot, seq, up, host in rows:
-        by_boot.setdefault((dev, boot), []).append((seq, up, host))
     clocks: dict[tuple[str, int], BootClock] = {}
-    for key, anchors in by_boot.items():
-        clock = fit_boot_clock([(a[1], a[2]) for a in anchors])
+    for key, rows in anchors.items():
+        clock = fit_boot_clock([(a[1], a[2]) for a in rows])
         if clock is not None:
-            clock.anchor_seqs = [a[0] for a in anchors]
+            clock.anchor_seqs = [a[0] for a in rows]
             clocks[key] = clock
     # One-anchor boots borrow the drift of the same board's longest fitted boot.
     best: dict[str, BootClock] = {}
@@ -128,16 +119,9 @@ def rebuild_clocks(store, device: str | None = None) -> int:
             best[dev] = clock
     for (dev, boot), clock in list(clocks.items()):
         if clock.quality == "one-anchor" and dev in best:
-            anchors = by_boot[(dev, boot)]
-            again = fit_boot_clock([(a[1], a[2]) for a in anchors], borrowed_rate=best[dev].rate)
+            rows = anchors[(dev, boot)]
+            again = fit_boot_clock([(a[1], a[2]) for a in rows], borrowed_rate=best[dev].rate)
             assert again is not None
             again.anchor_seqs = clock.anchor_seqs
             clocks[(dev, boot)] = again
-    store.conn.execute(f"DELETE FROM boot_clocks {where}", params)
-    store.conn.executemany(
-        "INSERT INTO boot_clocks(device, boot, unix_at_zero, rate, anchors, quality, residual_ms, anchor_seqs_json) "
-        "VALUES (?,?,?,?,?,?,?,?)",
-        [(dev, boot, c.unix_at_zero, c.rate, c.anchors, c.quality, c.residual_ms, json.dumps(c.anchor_seqs))
-         for (dev, boot), c in clocks.items()],
-    )
-    return len(clocks)
+    return clocks

@@ -23,7 +23,7 @@ from pathlib import Path
 from typing import Any, Iterable, Iterator
 
 import numpy as np
-import sqlite_utils
+from ._sqlite import sqlite_utils
 
 from .. import __version__
 from ..errors import InputError, SchemaTooNew, StoreError
@@ -41,6 +41,8 @@ from ..wire.frames import (
     sample_columns,
 )
 from ..science.timeline import unwrap_uptimes
+from .queries import StoreQueries
+from .tables import TIMED_RAW_TABLES
 
 __all__ = ["Store", "migration_files", "Run", "damage_report", "damaged"]
 
@@ -175,7 +177,7 @@ def _int_columns(names: tuple[str, ...], texts: tuple, n: int, run: Run) -> dict
     return dict(zip(names, values.reshape(len(names), n)))
 
 
-class Store:
+class Store(StoreQueries):
     """One nightcell database file."""
 
     def __init__(self, conn: sqlite3.Connection, path: str):
@@ -381,17 +383,30 @@ class Store:
             # error, said as such, not a traceback
             if self.conn.in_transaction:
                 self.conn.execute("ROLLBACK")
+            if exc.sqlite_errorcode == sqlite3.SQLITE_FULL if hasattr(exc, "sqlite_errorcode") else "full" in str(exc):
+                raise StoreError(f"cannot write {self.path} ({exc}): free some space and run it again — nothing of "
+                                 "this transaction was stored, and nothing unstored was acknowledged") from exc
             raise StoreError(f"cannot write {self.path} ({exc}): is the file or its folder read-only, or the disk "
                              "full?") from exc
+        except sqlite3.DatabaseError as exc:
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
+            raise StoreError(f"cannot write {self.path} ({exc}): check it with `sqlite3 {self.path} 'PRAGMA "
+                             "integrity_check'`") from exc
         except BaseException:
-            self.conn.execute("ROLLBACK")
+            # SQLite may have rolled back by itself already (a full disk does that): a second ROLLBACK would fail
+            # and hide the error that matters
+            if self.conn.in_transaction:
+                self.conn.execute("ROLLBACK")
             raise
         else:
             try:
                 self.conn.execute("COMMIT")
-            except sqlite3.OperationalError as exc:
-                self.conn.execute("ROLLBACK")
-                raise StoreError(f"cannot commit to {self.path} ({exc})") from exc
+            except sqlite3.DatabaseError as exc:
+                if self.conn.in_transaction:
+                    self.conn.execute("ROLLBACK")
+                raise StoreError(f"cannot commit to {self.path} ({exc}): is the disk full? Nothing of this "
+                                 "batch was stored") from exc
 
     # -- ingest -------------------------------------------------------------------------------------------------
 
@@ -468,7 +483,7 @@ class Store:
                                cols.dark[:, c].tolist(), cols.light[:, c].tolist(), temp))
         return out
 
-    _RAW_TABLES = ("boots", "samples", "marks", "anchors", "events", "settings_records", "health")
+    _RAW_TABLES = TIMED_RAW_TABLES
 
     def _unwrapped_uptimes(self, device: str, records: list[Record]) -> list[int]:
         """Each record's uptime with the u32 wrap undone, continuing from the last stored row of its boot."""

@@ -29,21 +29,11 @@ from typing import Any
 
 from ..errors import InputError
 from .database import Store
-from ..science.timeline import rebuild_clocks
+from .tables import RAW_IDENTITY
+from .clocks import rebuild_clocks
 
 __all__ = ["MergeReport", "merge_database", "RAW_IDENTITY"]
 
-RAW_IDENTITY: dict[str, tuple[str, ...]] = {
-    "boots": ("device", "boot"),
-    "samples": ("device", "boot", "seq", "channel"),
-    "marks": ("device", "boot", "seq"),
-    "mark_counts": ("device", "boot", "seq", "channel"),
-    "anchors": ("device", "boot", "seq"),
-    "events": ("device", "boot", "seq"),
-    "settings_records": ("device", "boot", "seq"),
-    "health": ("device", "boot", "seq"),
-}
-"""Raw tables and the columns that identify a row."""
 
 # Where a row was read from is provenance, not content: two hosts may have read it at different journal positions.
 _PROVENANCE = {"boots": {"journal", "position"}}

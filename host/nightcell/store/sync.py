@@ -21,11 +21,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
-from ..errors import DeviceError, NightcellError, ProtocolError
+from ..errors import DeviceError, NightcellError, ProtocolError, StoreError
 from ..wire.frames import KIND_ANCHOR, iter_records
 from ..wire.link import READ_CHUNK, Board, JournalPull
 from .database import Store
-from ..science.timeline import rebuild_clocks
+from .clocks import rebuild_clocks
 
 __all__ = ["SyncSummary", "sync_board", "sync_ports", "BATCH_BYTES", "ProgressCallback"]
 
@@ -102,17 +102,14 @@ def sync_board(
         host_ms = int(round((clock() + rtt / 2) * 1000))
         reply = board.anchor(host_ms)
         sent_anchor = (reply.get("boot"), reply.get("seq"), host_ms)
-    info = board.hello()
+    info = board.hello()  # its fields checked by Board.hello: a device id, whole-number positions
     device = str(info["device"])
     journal = int(info["journal"])
     head = int(info["head"])
     tail = int(info["tail"])
-    with store.write():
-        store.touch_device(device, board=info.get("board"), firmware=info.get("firmware"),
-                           label=info.get("label") or None)
-        state = store.journal_state(device, journal)
-        if state is None:
-            store.set_journal_state(device, journal, stored_to=tail, acked_to=0)
+    # Nothing is written before the first batch commits (the device row and the journal's first position go in
+    # with it): a sync that fails before then leaves the database exactly as it was.
+    state = store.journal_state(device, journal)
     stored_to = tail if state is None else state[0]
     acked_to = 0 if state is None else state[1]
     summary = SyncSummary(device, journal, stored_to, stored_to, head, port=board.transport.url,
@@ -132,20 +129,29 @@ def sync_board(
     pos = stored_to
     total = max(0, head - stored_to)
 
+    first_commit = True
+
     def commit(upto: int) -> None:
-        nonlocal pending, pending_bytes
+        nonlocal pending, pending_bytes, first_commit
         with store.write():
+            if first_commit:
+                store.touch_device(device, board=info.get("board"), firmware=info.get("firmware"),
+                                   label=info.get("label") or None)
+                if state is None:
+                    store.set_journal_state(device, journal, stored_to=summary.start, acked_to=0)
             counts = store.ingest(device, pending, journal=journal)
             store.set_journal_state(device, journal, stored_to=upto)
             if any(r.kind == KIND_ANCHOR for r in pending):
                 rebuild_clocks(store, device)
         for k, v in counts.items():
             summary.new_rows[k] = summary.new_rows.get(k, 0) + v
+        first_commit = False
         summary.records += len(pending)
         pending = []
         pending_bytes = 0
 
     def acknowledge_to(upto: int) -> None:
+        _check_committed(store, device, journal, upto)
         pull.quiesce()
         reply = board.ack(upto)
         with store.write():
@@ -160,6 +166,12 @@ def sync_board(
             )
 
     for chunk_pos, data in pull:
+        if chunk_pos != pos:
+            # Every chunk continues exactly where the store ends; anything else is a hole, never progress.
+            raise ProtocolError(
+                f"the board's journal jumped from {pos} to {chunk_pos}: a board fault; nothing was acknowledged "
+                f"past {summary.acked_to}; keep the database and report this"
+            )
         consumed = 0
         for rec in iter_records(data, chunk_pos, lazy_samples=True):
             pending.append(rec)
@@ -177,8 +189,6 @@ def sync_board(
             commit(pos)
             if acknowledge:
                 acknowledge_to(pos)
-    for lo, hi in pull.skipped_ranges:
-        summary.warnings.append(_gap_warning(journal, lo, hi))
     commit(pos)
     with store.write():
         rebuild_clocks(store, device)
@@ -194,6 +204,22 @@ def sync_board(
     with store.write():
         store.log_sync(summary, host=socket.gethostname(), started_unix=time.time() - summary.seconds)
     return summary
+
+
+def _check_committed(store: Store, device: str, journal: int, upto: int) -> None:
+    """Refuse to acknowledge ``upto`` unless the database holds, committed, every record before it.
+
+    The invariant the board's trim rests on, checked where the ack is sent rather than trusted to the code before
+    it: no write transaction may be open (its rows could still roll back), and the stored position committed for
+    this very journal must reach ``upto``. Not an ``assert``: it must hold under ``python -O`` too.
+    """
+    state = store.journal_state(device, journal)
+    if store.conn.in_transaction or state is None or state[0] < upto:
+        raise StoreError(
+            f"refusing to acknowledge position {upto} of journal {journal} of {device}: the database has it stored "
+            f"only to {None if state is None else state[0]}{' (uncommitted)' if store.conn.in_transaction else ''} "
+            "— nothing was trimmed; this is a bug in nightcell, please report it"
+        )
 
 
 def _gap_warning(journal: int, lo: int, hi: int) -> str:

@@ -42,7 +42,8 @@ from ..store.database import Run, Store
 
 __all__ = ["BlankChoice", "RunAnalysis", "choose_blank", "standards_from_store", "calibrate_from_store",
            "run_series", "analyse_run", "run_bounds", "set_run_condition", "run_conditions", "run_provenance",
-           "RunSummary", "StudyAnalysis", "analyse_study", "CONDITION_PATTERN", "RESUME_SOURCE"]
+           "RunSummary", "StudyAnalysis", "analyse_study", "CONDITION_PATTERN", "RESUME_SOURCE", "initial_rate_of",
+           "k_and_temperature"]
 
 RESUME_SOURCE = 2
 """MARK source of a run_start the board journals by itself when it resumes a run after a restart."""
@@ -123,8 +124,7 @@ def _mark_before(store: Store, device: str, kind: str, before: tuple[int, int] |
     if i == 0:
         return None
     boot, seq = keys[i - 1]
-    rows = store.query("SELECT * FROM marks WHERE device = ? AND boot = ? AND seq = ?", (device, boot, seq))
-    return _with_counts(store, rows[0] if rows else None)
+    return _with_counts(store, store.mark(device, boot, seq))
 
 
 def _mark_means(mark: dict[str, Any], channel: int) -> tuple[float, float]:
@@ -138,11 +138,10 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
     """The blank for readings of ``device`` taken at (boot, seq) ``before``: the nearest preceding blank mark,
     or the one named by ``blank`` = (boot, seq). ``AnalysisError`` when there is none."""
     if blank is not None:
-        chosen = store.query("SELECT * FROM marks WHERE device = ? AND mark = 'blank' AND boot = ? AND seq = ?",
-                             (device, blank[0], blank[1]))
-        if not chosen:
+        chosen = store.mark(device, blank[0], blank[1], kind="blank")
+        if chosen is None:
             raise InputError(f"no blank {blank[0]}:{blank[1]} on device {device}: list blanks with `nightcell list`")
-        m = _with_counts(store, chosen[0])
+        m = _with_counts(store, chosen)
         rule = "named by the user"
     else:
         m = _mark_before(store, device, "blank", before)
@@ -249,9 +248,7 @@ def run_bounds(store: Store, run: Run) -> dict[str, Any]:
     rule = "the run's stop mark"
     resumed: list[tuple[int, int]] = []
     # run_start marks after the start, in order (one range scan, not every mark of the device)
-    for boot, seq, source in store.conn.execute(
-            "SELECT boot, seq, source FROM marks WHERE device = ? AND mark = 'run_start' AND (boot, seq) > (?, ?) "
-            "ORDER BY boot, seq", (run.device, run.start_boot, run.start_seq)):
+    for boot, seq, source in store.run_starts_after(run.device, run.start_boot, run.start_seq):
         key = (boot, seq)
         if end is not None and key >= end:
             break
@@ -411,29 +408,20 @@ def set_run_condition(store: Store, run: Run | str, quantity: str, value: float,
     if not isinstance(source, str) or not source.strip():
         raise InputError("say where the condition comes from (e.g. 'bench sheet', 'probe mean')")
     r = _run_of(store, run)
-    found = store.conn.execute("SELECT count(*) FROM marks WHERE device=? AND boot=? AND seq=? AND mark='run_start'",
-                               (r.device, r.start_boot, r.start_seq)).fetchone()[0]
-    if not found:
+    if store.mark(r.device, r.start_boot, r.start_seq, kind="run_start") is None:
         raise InputError(f"no run starts at {r.key} in {store.path}: sync the board first, or check the run key")
-    with store.write():
-        store.conn.execute(
-            "INSERT INTO run_conditions(device, start_boot, start_seq, quantity, value, source, recorded_unix) "
-            "VALUES (?,?,?,?,?,?,?) ON CONFLICT(device, start_boot, start_seq, quantity) DO UPDATE SET "
-            "value = excluded.value, source = excluded.source, recorded_unix = excluded.recorded_unix",
-            (r.device, r.start_boot, r.start_seq, quantity, v, source.strip(), time.time() if now is None else now))
+    store.record_run_condition(r.device, r.start_boot, r.start_seq, quantity, v, source.strip(),
+                               time.time() if now is None else now)
 
 
 def run_conditions(store: Store, run: Run | str | None = None) -> dict[str, dict[str, dict[str, Any]]]:
     """Recorded conditions by run key: ``{key: {quantity: {"value": v, "source": text}}}``."""
-    sql = "SELECT device, start_boot, start_seq, quantity, value, source FROM run_conditions"
-    params: tuple = ()
+    key: tuple = ()
     if run is not None:
         r = _run_of(store, run)
-        sql += " WHERE device = ? AND start_boot = ? AND start_seq = ?"
-        params = (r.device, r.start_boot, r.start_seq)
+        key = (r.device, r.start_boot, r.start_seq)
     out: dict[str, dict[str, dict[str, Any]]] = {}
-    for dev, boot, seq, q, v, src in store.conn.execute(sql + " ORDER BY device, start_boot, start_seq, quantity",
-                                                        params):
+    for dev, boot, seq, q, v, src in store.run_condition_rows(*key):
         out.setdefault(f"{dev}:{boot}:{seq}", {})[q] = {"value": float(v), "source": src}
     return out
 
@@ -447,20 +435,19 @@ def run_provenance(store: Store, analysis: RunAnalysis, calibration: Any = None)
     Plain types only (strings and numbers), ready for a provenance table or JSON.
     """
     run = analysis.run
-    dev = store.conn.execute("SELECT board, firmware, label FROM devices WHERE device = ?", (run.device,)).fetchone()
+    dev = store.device(run.device)
     prov: dict[str, Any] = {"device": run.device, "run": run.key, "run label": run.label, "channel": analysis.channel}
     if dev is not None:
-        prov["device label"] = dev[2] or ""
+        prov["device label"] = dev["label"] or ""
     boots = analysis.boots or [run.start_boot]
     for b in boots:
-        row = store.conn.execute("SELECT firmware, board, reset_cause FROM boots WHERE device=? AND boot=?",
-                                 (run.device, b)).fetchone()
-        clock = store.conn.execute("SELECT quality, anchors FROM boot_clocks WHERE device=? AND boot=?",
-                                   (run.device, b)).fetchone()
+        row = store.boot(run.device, b)
+        clock = store.boot_clock(run.device, b)
         if row is not None:
-            prov[f"boot {b}"] = (f"firmware {row[0]} on board profile {row[1]}; started by "
-                                 f"{_RESET_CAUSES.get(row[2], 'cause %d' % row[2])}")
-        prov[f"boot {b} clock"] = "no clock" if clock is None else f"{clock[0]} ({clock[1]} anchors)"
+            cause = row["reset_cause"]
+            prov[f"boot {b}"] = (f"firmware {row['firmware']} on board profile {row['board']}; started by "
+                                 f"{_RESET_CAUSES.get(cause, 'cause %d' % cause)}")
+        prov[f"boot {b} clock"] = "no clock" if clock is None else f"{clock['quality']} ({clock['anchors']} anchors)"
     if analysis.resumed_at:
         prov["resumed by the board at"] = ", ".join("%d:%d" % k for k in analysis.resumed_at)
     prov["end of run"] = analysis.end_rule
@@ -475,12 +462,9 @@ def run_provenance(store: Store, analysis: RunAnalysis, calibration: Any = None)
         prov["calibration"] = (f"slope {calibration.slope:.6g} ± {calibration.slope_se:.2g} A per unit from standards "
                                f"{', '.join(calibration.inputs.get('standards', []))} "
                                f"(blanks {', '.join(calibration.inputs.get('blanks', []))})")
-    settings = store.conn.execute(
-        "SELECT boot, seq, json FROM settings_records WHERE device = ? AND (boot < ? OR (boot = ? AND seq < ?)) "
-        "ORDER BY boot DESC, seq DESC LIMIT 1",
-        (run.device, run.start_boot, run.start_boot, run.start_seq)).fetchone()
+    settings = store.settings_before(run.device, run.start_boot, run.start_seq)
     if settings is not None:
-        prov["settings"] = f"record {settings[0]}:{settings[1]}: {settings[2]}"
+        prov["settings"] = f"record {settings['boot']}:{settings['seq']}: {settings['json']}"
     for q, c in run_conditions(store, run).get(run.key, {}).items():
         prov[f"condition {q}"] = f"{c['value']:g} ({c['source']})"
     return prov
@@ -599,7 +583,7 @@ def _pick_group(items: list[RunSummary], key: Any, level: Any) -> list[RunSummar
 
 
 def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str = "first_order_plateau",
-                  channel: int = 0) -> StudyAnalysis:
+                  channel: int = 0, level: float = 0.95) -> StudyAnalysis:
     """Every run with its recorded conditions → per-run k (``model``) → orders and Arrhenius/Eyring (study.py).
 
     Orders: for each reactant, the largest set of runs at one temperature and one level of every other reactant
@@ -620,7 +604,7 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
             continue
         if run.device not in cals:
             try:
-                cals[run.device] = calibrate_from_store(store, run.device, channel)
+                cals[run.device] = calibrate_from_store(store, run.device, channel, level=level)
             except AnalysisError:
                 cals[run.device] = None
         try:
@@ -703,3 +687,21 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
         except AnalysisError as exc:
             out.skipped["arrhenius"] = str(exc)
     return out
+
+
+def initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None) -> Any:
+    """The run's initial rate (``window`` in s, or chosen automatically), flagged readings left out, with its inputs."""
+    s = run_series(store, run, channel)
+    inputs = {"run": run.key, "device": run.device, "channel": channel,
+              "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
+              "time_basis": s["time_basis"], "left_out": "flagged readings"}
+    return _kinetics.initial_rate(s["time_s"], s["absorbance"], window, mask=s["flags"] != 0, inputs=inputs)
+
+
+def k_and_temperature(store: Any, run: Any, channel: int, model: str) -> tuple[float, float, float | None]:
+    """k and its SE from the run's fit of ``model``, and the run's mean solution temperature (K) if it has one."""
+    analysis = analyse_run(store, run, channel=channel, models=(model,))
+    fit = analysis.fits[model]
+    temps = [r["temp_centi"] for r in store.run_samples(run, channel) if r["temp_centi"] is not None]
+    t_k = float(np.mean(temps)) / 100.0 + 273.15 if temps else None
+    return float(fit.values["k"]), float(fit.stderr["k"]), t_k

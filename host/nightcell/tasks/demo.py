@@ -23,7 +23,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 from ..render import report as _report
-from .analyse import analyse_study, run_conditions, run_provenance, set_run_condition
+from .analyse import RESUME_SOURCE, analyse_study, run_conditions, run_provenance, set_run_condition
 from ..errors import DeviceNotFound, InputError, NightcellError
 from ..wire.link import Board
 from ..sim.board import SimulatedBoard, micropython_command
@@ -246,15 +246,12 @@ def _power_cut_facts(store: Store, device: str, before: dict[str, Any]) -> dict[
     boot = before.get("boot_after")
     if boot is None:
         return facts
-    row = store.conn.execute("SELECT reset_cause FROM boots WHERE device=? AND boot=?", (device, boot)).fetchone()
-    facts["reset_cause"] = None if row is None else int(row[0])
-    resumed = store.conn.execute("SELECT seq, label FROM marks WHERE device=? AND boot=? AND mark='run_start' "
-                                 "AND source=2", (device, boot)).fetchall()
-    facts["resume_marks"] = [f"{boot}:{seq}" for seq, _ in resumed]
-    facts["events"] = [t for (t,) in store.conn.execute("SELECT text FROM events WHERE device=? AND boot=? "
-                                                        "ORDER BY seq", (device, boot))]
-    facts["samples_after_restart"] = store.conn.execute(
-        "SELECT count(*) FROM samples WHERE device=? AND boot=? AND channel=0", (device, boot)).fetchone()[0]
+    row = store.boot(device, boot)
+    facts["reset_cause"] = None if row is None else int(row["reset_cause"])
+    resumed = store.resume_marks(device, boot, RESUME_SOURCE)
+    facts["resume_marks"] = [f"{boot}:{seq}" for seq in resumed]
+    facts["events"] = store.event_texts(device, boot)
+    facts["samples_after_restart"] = store.sample_count(device, boot, channel=0)
     if resumed:
         facts["what_happened"] = ("the board restarted, journaled a run_start mark of its own (source 2) and went on "
                                   f"logging the run: {facts['samples_after_restart']} readings after the restart")
@@ -338,14 +335,14 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
             store.save_result("arrhenius", "k against temperature", study.arrhenius.inputs, study.arrhenius.to_dict())
         if study.eyring is not None:
             store.save_result("eyring", "k against temperature", study.eyring.inputs, study.eyring.to_dict())
-        n_samples = store.conn.execute("SELECT count(*) FROM samples WHERE channel = 0").fetchone()[0]
+        n_samples = store.sample_count(channel=0)
         study_prov = {"database": str(db_path), "devices": ", ".join(sc.devices),
                       "firmware interpreter": benches[0].sim.interpreter, "readings (channel 0)": n_samples,
                       "condition source": source,
                       **{f"sync of {b.name}": f"{b.sync['records']} records, {b.sync['bytes']} bytes, acknowledged to "
                                              f"{b.sync['acked_to']}" for b in benches},
-                      **{f"device {d}": f"{label or ''}, board profile {board}, firmware {fw}" for d, board, fw, label
-                         in store.conn.execute("SELECT device, board, firmware, label FROM devices ORDER BY device")}}
+                      **{f"device {d['device']}": f"{d['label'] or ''}, board profile {d['board']}, firmware "
+                                                   f"{d['firmware']}" for d in store.devices()}}
     pm = _report.plus_minus
     truth_rows = [(r["label"], r["bench"], pm(r["k_per_s"], r["k_se_per_s"]), f"{r['k_true_per_s']:.5g}",
                    f"{(r['k_per_s'] - r['k_true_per_s']) / r['k_se_per_s']:+.2f}") for r in rows]

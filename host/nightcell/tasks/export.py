@@ -122,18 +122,20 @@ def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None,
     return done
 
 
-def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cache: dict | None = None) -> Written:
+def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cache: dict | None = None,
+               level: float = 0.95) -> Written:
     """One self-contained HTML page for a run (figures embedded), and its figures as PNG and SVG beside it.
 
     The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AIC). When its
     device recorded standards the calibration is fitted, shown, and used to give concentrations. The page itself is
-    drawn by ``report.run_report``; this function gathers what it shows from the store.
+    drawn by ``report.run_report``; this function gathers what it shows from the store. ``level``: the
+    calibration's intervals and prediction band.
     """
     out = out_folder(out)
     done = Written()
     cal = None
     try:
-        cal = calibrate_from_store(store, run.device, channel)
+        cal = calibrate_from_store(store, run.device, channel, level=level)
     except AnalysisError:
         cal = None  # no standards (or none usable) on this device: the page shows absorbance only
     analysis = analyse_run(store, run, channel=channel, calibration=cal)
@@ -145,7 +147,7 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
     return done
 
 
-def study_report(store: Store, out: str | Path, channel: int = 0) -> Written:
+def study_report(store: Store, out: str | Path, channel: int = 0, *, level: float = 0.95) -> Written:
     """A study page (``study.html``) over every run with recorded conditions, linking one page per run (``runs/``).
 
     Orders and Arrhenius/Eyring come from ``analyse.analyse_study``; runs without a recorded temperature and starting
@@ -155,7 +157,7 @@ def study_report(store: Store, out: str | Path, channel: int = 0) -> Written:
 
     out = out_folder(out)
     done = Written()
-    study = analyse_study(store, channel=channel)
+    study = analyse_study(store, channel=channel, level=level)
     if not study.runs:
         raise AnalysisError("no run has both a temperature_K and a conc_<reactant>_M recorded: record them with "
                             "`nightcell condition` first")

@@ -14,7 +14,6 @@ Example::
 from __future__ import annotations
 
 import json
-import re
 import struct
 import time
 from typing import Any, Callable, Iterator
@@ -87,28 +86,6 @@ def discover(*, timeout: float = 1.0, ports: list[dict[str, Any]] | None = None)
             entry["error"] = str(exc)
         found.append(entry)
     return found
-
-
-def _check_hello(info: dict[str, Any], url: str) -> None:
-    """A ``hello`` whose journal positions and ids a host can act on; anything else is refused before anything is
-    stored (a board that claims its journal ends before it starts would make a sync skip or store nonsense)."""
-    def whole(key: str) -> int:
-        v = info.get(key)
-        if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v < 1 << 53:
-            raise ProtocolError(f"the board on {url} sent a hello with {key} = {v!r}, not a position or count: "
-                                "restart it (unplug it and plug it in) and try again; nothing was stored")
-        return v
-
-    head, tail = whole("head"), whole("tail")
-    whole("journal")
-    whole("boot")
-    if head < tail:
-        raise ProtocolError(f"the board on {url} says its journal runs from {tail} to {head}, which ends before it "
-                            "starts: restart it (unplug it and plug it in) and try again; nothing was stored")
-    device = info.get("device")
-    if not isinstance(device, str) or not re.fullmatch(r"[0-9a-f]{16}", device):
-        raise ProtocolError(f"the board on {url} sent a hello with device id {device!r}, not 16 hex digits: is it "
-                            "running nightcell firmware?")
 
 
 class Transport:
@@ -246,9 +223,15 @@ class Board:
         if frame.kind != REPLY_OK:
             raise ProtocolError(f"'{verb}' expected an OK reply, got kind {frame.kind}")
         try:
-            return frame.json()
-        except (ValueError, UnicodeDecodeError) as exc:
-            raise ProtocolError(f"the board's reply to '{verb}' is not JSON") from exc
+            obj = frame.json()
+        except (ValueError, UnicodeDecodeError, RecursionError) as exc:
+            # RecursionError: JSON nested too deep to read (a 4 KB payload can nest 2000 levels)
+            raise ProtocolError(f"the board's reply to '{verb}' is not JSON this host can read: is it running "
+                                "nightcell firmware? Nothing was stored") from exc
+        if not isinstance(obj, dict):
+            raise ProtocolError(f"the board's reply to '{verb}' is not a JSON object (got {str(obj)[:40]!r}): is it "
+                                "running nightcell firmware? Nothing was stored")
+        return obj
 
     # -- commands -----------------------------------------------------------------------------------------------
 
@@ -261,7 +244,7 @@ class Board:
                 f"no board answered on {self.transport.url} — is it plugged in and running nightcell firmware?"
             ) from exc
         if not isinstance(info, dict) or info.get("protocol") != 1:
-            raise ProtocolError(f"the device on {self.transport.url} speaks an unknown protocol: {info!r}")
+            raise ProtocolError(f"the device on {self.transport.url} speaks an unknown protocol: {info!r:.200}")
         _check_hello(info, self.transport.url)
         return info
 
@@ -300,7 +283,11 @@ class Board:
 
     def ack(self, position: int) -> dict[str, Any]:
         value = int(position)
-        return self._json("ack", value, check_field("ack", value))
+        reply = self._json("ack", value, check_field("ack", value))
+        tail = reply.get("tail", 0)
+        if not isinstance(tail, int) or isinstance(tail, bool) or tail < 0:
+            raise ProtocolError(f"the board answered 'ack {value}' with a tail that is not a position ({tail!r:.40})")
+        return reply
 
     def read(self, position: int, max_bytes: int = READ_CHUNK) -> tuple[int, bytes]:
         """Journal bytes from ``position`` (whole records)."""
@@ -318,6 +305,46 @@ class Board:
 
     def reset(self) -> dict[str, Any]:
         return self._json("reset", retry=False)
+
+
+_DEVICE_ID_CHARS = frozenset("0123456789abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ-_.:")
+_U32 = (1 << 32) - 1
+# hello fields (schema/protocol.md) the host acts on, with the range each must be in; None: any size
+_HELLO_INTEGERS = {"journal": _U32, "head": _U32, "tail": _U32, "boot": _U32, "interval_ms": None,
+                   "uptime_ms": None, "free_bytes": None, "settings_crc": None}
+_HELLO_REQUIRED = ("device", "journal", "head", "tail", "boot")
+
+
+def _check_hello(info: dict[str, Any], url: str) -> None:
+    """Refuse a ``hello`` whose fields the host would misuse (text where a number goes, a dict as a device id)."""
+
+    def bad(name: str, why: str) -> ProtocolError:
+        value = repr(info[name]) if name in info else ""
+        if len(value) > 60:
+            value = value[:57] + "..."
+        got = f" (got {value})" if value else ""
+        return ProtocolError(f"the board on {url} sent a hello this host cannot use: '{name}' {why}{got} "
+                             "— is it running nightcell firmware? Nothing was stored or acknowledged")
+
+    for name in _HELLO_REQUIRED:
+        if name not in info:
+            raise bad(name, "is missing")
+    device = info["device"]
+    if not isinstance(device, str) or not 1 <= len(device) <= 64 or not set(device) <= _DEVICE_ID_CHARS:
+        raise bad("device", "must be a device id (1 to 64 letters, digits or - _ . :)")
+    for name, top in _HELLO_INTEGERS.items():
+        if name not in info:
+            continue
+        value = info[name]
+        if not isinstance(value, int) or isinstance(value, bool) or value < 0 or (top is not None and value > top):
+            raise bad(name, "must be a whole number" + (f" from 0 to {top}" if top is not None else " ≥ 0"))
+    if info["tail"] > info["head"]:
+        raise bad("tail", f"lies past the head {info['head']}")
+    for name in ("board", "firmware", "label"):
+        if info.get(name) is not None and not isinstance(info[name], str):
+            raise bad(name, "must be text")
+    if "running" in info and not isinstance(info["running"], bool):
+        raise bad("running", "must be true or false")
 
 
 class JournalPull:
@@ -343,7 +370,6 @@ class JournalPull:
         self.max_bytes = max_bytes
         self.timeout = board.timeout if timeout is None else timeout
         self.retries = board.retries if retries is None else retries
-        self.skipped_ranges: list[tuple[int, int]] = []
         self.requests = 0
         self.resends = 0
         self._inflight: list[tuple[int, int]] = []  # (tag, position) in the order sent
@@ -351,6 +377,7 @@ class JournalPull:
         self._parked: dict[int, bytes] = {}  # verified chunks that arrived before the one at the cursor
         self._finished = False
         self._refusals = 0
+        self._misplaced = 0  # replies in a row to a read at the cursor that started somewhere else
 
     def _send(self, position: int) -> None:
         tag = self.board._next_tag()
@@ -410,15 +437,32 @@ class JournalPull:
         if frame.kind != REPLY_DATA:
             raise ProtocolError(f"'read' expected a DATA reply, got kind {frame.kind}")
         pos, data = frame.data()
+        if pos != asked:
+            # Never taken as it came: a read whose position was damaged on the way is answered from wherever the
+            # damaged digits point (the board walks to the next record boundary), and a chunk past the cursor
+            # taken as a trim would let the host store, and acknowledge, across a stretch it never stored.
+            # Asked again; a board that keeps answering a read at the cursor from elsewhere is at fault.
+            if asked == self.cursor:
+                self._misplaced += 1
+                self.resends += 1
+                if self._misplaced >= self.retries:
+                    raise ProtocolError(_misplaced_message(self.board.transport.url, asked, pos))
+            return None
         if not data:
-            if asked <= self.cursor:
+            if asked == self.cursor and self.until is not None and asked < self.until:
+                # the board said (hello) that its journal is durable up to ``until``: nothing here contradicts it
+                self._misplaced += 1
+                self.resends += 1
+                if self._misplaced >= self.retries:
+                    raise ProtocolError(
+                        f"the board on {self.board.transport.url} sent nothing at {asked} although it gave its "
+                        f"journal's end as {self.until} — a board fault; nothing was acknowledged past {asked}; keep "
+                        "the database and report this")
+            elif asked == self.cursor:
                 self._finished = True  # nothing durable at or after the cursor
             return None
-        if asked == self.cursor and pos > self.cursor:
-            # The board no longer holds [cursor, pos): trimmed after another host acknowledged it.
-            self.skipped_ranges.append((self.cursor, pos))
-            self.cursor = pos
         if pos == self.cursor:
+            self._misplaced = 0
             return pos, data
         if pos > self.cursor and len(self._parked) < 8:
             self._parked[pos] = data
@@ -431,6 +475,7 @@ class JournalPull:
             if self.cursor in self._parked:
                 data = self._parked.pop(self.cursor)
                 self.cursor += len(data)
+                self._misplaced = 0
                 yield self.cursor - len(data), data
                 continue
             self._top_up()
@@ -467,6 +512,16 @@ class JournalPull:
             else:
                 self._top_up()
                 self.board.transport.receive()
+
+
+def _misplaced_message(url: str, asked: int, pos: int) -> str:
+    if pos > asked:
+        what = (f"records from {pos}, {pos - asked} bytes past it: a gap in its journal that this host cannot "
+                "account for")
+    else:
+        what = f"records from {pos}, before it"
+    return (f"the board on {url} was asked for its journal at {asked} and sent {what} — a board fault; nothing "
+            f"was acknowledged past {asked}; keep the database and report this")
 
 
 def progress_none(**_: Any) -> None:

@@ -6,7 +6,7 @@ output. Scripts print ``key=value`` lines that ``results`` collects for checks o
 
 Usage::
 
-    from fwharness import run_mp, results
+    from support.fwharness import run_mp, results
     out = run_mp("import nightcell_fw; print('version=' + nightcell_fw.VERSION)")
     assert results(out)["version"] == "0.1.0"
 """
@@ -22,7 +22,7 @@ from pathlib import Path
 
 import pytest
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 FIRMWARE = ROOT / "firmware"
 SCHEMA = ROOT / "schema"
 
