@@ -586,8 +586,11 @@ CASES = [
     # -- the serial side -------------------------------------------------------------------------------------------
     Case("port that does not exist", ["hello", "--port", "/dev/nightcell-no-such-port"], 3, "no board at", port=None),
     Case("port URL of an unknown kind", ["hello", "--port", "bogus://x"], 3, "no board at", port=None),
-    Case("nothing answers on the port", ["hello"], 3, "no board answered", port="silent"),
-    Case("another device on the port", ["stop"], 3, "no board answered", port=echo_other_device),
+    Case("nothing answers on the port", ["hello"], 3, "(nothing came back)", port="silent"),
+    Case("--timeout NaN for a board command", ["hello", "--timeout", "nan"], 2, "'nan' is not a finite number",
+         port="missing"),
+    Case("--baud of 10", ["sync", "--db", "{db}", "--baud", "10"], 2, "Invalid value for '--baud'", port="missing"),
+    Case("another device on the port", ["stop"], 3, "none of them a nightcell reply", port=echo_other_device),
     Case("garbage from the port", ["sync", "--db", "{db}"], 3, "", port=garbage),
     Case("frames with a bad CRC", ["hello"], 3, "no board answered", port=frame_with_bad_crc),
     Case("benches with no board anywhere", ["benches", "--db", "{db}", "--no-browser"], 3,
@@ -1115,3 +1118,28 @@ def test_a_gap_after_some_progress_stops_the_sync_and_nothing_past_it_is_acknowl
     with Store.open(db) as store:
         stored_to, acked_to = store.journal_state(device, 0x5C0FF1ED)
     assert board.acks and max(board.acks) <= board.gap_from and stored_to <= board.gap_from
+
+
+# -- a slow board: timeouts follow --timeout and the link's baud rate -------------------------------------------------
+
+def test_a_board_answering_in_3_s_is_found_with_a_longer_timeout():
+    def slow(line: bytes) -> bytes:
+        time.sleep(3.0)
+        return F.encode_reply(F.REPLY_OK, int(line.split(b" ")[0]), json.dumps(HELLO).encode())
+
+    fake = FakePort(slow)
+    try:
+        result = CliRunner().invoke(cli, ["hello", "--port", fake.path, "--timeout", "6"])
+    finally:
+        fake.close()
+    assert result.exit_code == 0, result.output
+    assert f"device: {DEVICE}" in result.output
+
+
+def test_a_journal_read_waits_as_long_as_the_baud_rate_needs():
+    from nightcell.wire.link import Board, JournalPull
+
+    with Board.open("loop://", timeout=5.0, baudrate=2400) as slow, Board.open("loop://", timeout=5.0) as fast:
+        # 4 KB at 2400 baud (10 bits a byte) take 17 s: a chunk and the one queued behind it get that long each
+        assert JournalPull(slow, 0, 1).timeout >= 5.0 + 2 * 17.0
+        assert JournalPull(fast, 0, 1).timeout < 5.0 + 3.0

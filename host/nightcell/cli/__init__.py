@@ -26,7 +26,7 @@ import click
 
 from .. import __version__
 from ..errors import DeviceError, InputError
-from .options import EXIT_CODES, FINITE, Finite, db_option, inert, friendly, json_option, open_reading, open_writing, port_option
+from .options import EXIT_CODES, FINITE, Finite, db_option, inert, link_settings, friendly, json_option, open_reading, open_writing, port_option
 from .options import emit as _emit
 
 __all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES", "open_reading",
@@ -39,7 +39,7 @@ def _connected(port: str) -> Iterator[tuple[Any, dict[str, Any]]]:
     """The board on ``port`` and its ``hello``: a clear error at once when nothing there speaks nightcell."""
     from ..wire.link import Board
 
-    with Board.open(port) as board:
+    with Board.open(port, **link_settings()) as board:
         yield board, board.hello()
 
 
@@ -534,7 +534,7 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
     from ..store.database import Store
     from ..store.sync import sync_board
 
-    with Board.open(port) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
+    with Board.open(port, **link_settings()) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
         summary = sync_board(board, store, acknowledge=not no_ack,
                              progress=lambda done, total, records: update(port, done, total, records))
     new = sum(summary.new_rows.values())

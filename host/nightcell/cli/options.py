@@ -14,7 +14,7 @@ import click
 
 from ..errors import NightcellError
 
-__all__ = ["EXIT_CODES", "Finite", "FINITE", "friendly", "db_option", "port_option", "json_option", "emit", "inert", "open_reading", "open_writing"]
+__all__ = ["EXIT_CODES", "Finite", "FINITE", "friendly", "db_option", "port_option", "json_option", "emit", "inert", "link_settings", "open_reading", "open_writing"]
 
 EXIT_CODES = {
     0: "success",
@@ -142,8 +142,28 @@ def db_option(fn: Callable[..., Any]) -> Callable[..., Any]:
 
 
 def port_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """``--port``, with ``--timeout`` and ``--baud`` for slow links (kept in the click context; ``link_settings``
+    reads them back, so every board command waits as long as it was told)."""
+    fn = click.option("--baud", type=click.IntRange(300, 4_000_000), default=115200, show_default=True,
+                      expose_value=False, callback=_link_setting,
+                      help="Baud rate of a USB-serial bridge (a board's own USB ignores it).")(fn)
+    fn = click.option("--timeout", type=Finite(0.05, 3600.0, unit="s"), default=5.0, show_default=True,
+                      expose_value=False, callback=_link_setting,
+                      help="Seconds to wait for each reply of the board (longer for a slow link).")(fn)
     return click.option("--port", "port", required=True, envvar="NIGHTCELL_PORT", show_envvar=True,
                         help="The board's serial port or any pyserial URL (find boards with `nightcell boards`).")(fn)
+
+
+def _link_setting(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
+    ctx.meta.setdefault("nightcell.link", {})[param.name] = value
+    return value
+
+
+def link_settings() -> dict[str, Any]:
+    """``timeout`` and ``baudrate`` for ``Board.open`` as the running command was given them."""
+    ctx = click.get_current_context(silent=True)
+    got = ctx.meta.get("nightcell.link", {}) if ctx is not None else {}
+    return {"timeout": float(got.get("timeout", 5.0)), "baudrate": int(got.get("baud", 115200))}
 
 
 def json_option(fn: Callable[..., Any]) -> Callable[..., Any]:
