@@ -114,23 +114,45 @@ def _sim_folder(path: Path) -> Path:
               help="Stop by itself after this many real seconds (default: run until Ctrl-C).")
 @click.option("--interpreter", type=click.Choice(["auto", "micropython", "cpython"]), default="auto",
               show_default=True, help="Run the firmware in MicroPython's unix port or in CPython.")
+@click.option("--link", type=click.Choice(["auto", "pty", "socket"]), default="auto", show_default=True,
+              help="How the host reaches it: a pseudo-terminal (Linux, macOS) or a local TCP port as a "
+                   "socket:// URL (any system; 'auto' takes the pty where there is one).")
+@click.option("--tcp-port", type=click.IntRange(0, 65535), default=None,
+              help="The TCP port for --link socket (default: the one it had last time in --dir, else any free one).")
 @friendly
-def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: str) -> None:
+def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: str, link: str,
+              tcp_port: int | None) -> None:
     """Run the real firmware on a simulated board and print its port, to try every board command without hardware.
 
     Leave it running; in another terminal give its port to the other commands and change its cuvette with
     `nightcell sim-cuvette`. Ctrl-C switches it off (its flash is kept in --dir, so it starts again where it was).
+    `nightcell boards` lists it while it runs.
 
     Example: nightcell sim-board --dir my-sim
     """
     import time
 
-    from ..sim.board import SimulatedBoard
+    from ..sim.board import SimulatedBoard, announce, remember_port, remembered_port, withdraw
 
-    sim = SimulatedBoard(_sim_folder(folder), device=SIM_DEVICE, speed=speed, interpreter=interpreter)
-    sim.start()
+    last = remembered_port(folder) if folder.is_dir() else {}
+    wanted = tcp_port if tcp_port is not None else int(last.get("tcp_port") or 0)
+    try:
+        sim = SimulatedBoard(_sim_folder(folder), device=SIM_DEVICE, speed=speed, interpreter=interpreter,
+                             link=link, tcp_port=wanted)
+        sim.start()
+    except OSError as exc:
+        if tcp_port is not None or not wanted:
+            raise InputError(f"cannot serve the simulated board on TCP port {wanted} ({exc.strerror or exc}): "
+                             "give another --tcp-port, or 0 for any free one") from None
+        sim = SimulatedBoard(folder, device=SIM_DEVICE, speed=speed, interpreter=interpreter, link=link)
+        sim.start()  # last time's port is taken now: any free one, and say so below
+    remember_port(sim)
+    announce(sim)
     try:
         click.echo(f"port: {sim.url}")
+        if last.get("url") and last["url"] != sim.url:
+            click.echo(f"the port changed since the last run in {folder} (it was {last['url']}): set NIGHTCELL_PORT "
+                       "again, or find it with `nightcell boards`")
         click.echo(f"simulated board {SIM_DEVICE} running the firmware in {sim.interpreter}, clock x{speed:g}; "
                    f"its cuvette holds {sim.cell_path.name} in {sim.workdir}")
         click.echo(f"try: NIGHTCELL_PORT={sim.url} nightcell hello   — Ctrl-C switches the board off")
@@ -139,10 +161,12 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
         while end is None or time.monotonic() < end:
             time.sleep(0.2)
             if not sim.alive():
-                raise DeviceError("the simulated board stopped by itself:\n" + sim.stderr_text()[-2000:])
+                tail = sim.stderr_text().strip().splitlines()[-1:] or ["(it wrote nothing)"]
+                raise DeviceError(f"the simulated board stopped by itself: {tail[0]} — see {sim.log_path}")
     except KeyboardInterrupt:
         pass
     finally:
+        withdraw(sim)
         sim.stop()
     click.echo("simulated board switched off (its flash is kept)")
 
@@ -197,10 +221,12 @@ def boards(as_json: bool) -> None:
 
     Example: nightcell boards
     """
+    from ..sim.board import running_boards
     from ..wire.link import candidate_ports
 
-    found = candidate_ports()
-    lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" for p in found] or \
+    found = candidate_ports() + running_boards()
+    lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" if p["vid"] else f"{p['port']}  {p['kind']}"
+             for p in found] or \
         ["no candidate boards found: plug one in (see hardware_notes/linux.md for permissions)"]
     _emit(found, as_json, "\n".join(lines))
 

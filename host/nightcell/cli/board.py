@@ -61,7 +61,10 @@ def roll_call(timeout: float, as_json: bool) -> None:
     """
     from ..wire.link import discover
 
-    found = discover(timeout=timeout)
+    from ..sim.board import running_boards
+    from ..wire.link import candidate_ports
+
+    found = discover(timeout=timeout, ports=candidate_ports() + running_boards())
     lines = []
     for e in found:
         if "hello" in e:
@@ -170,6 +173,19 @@ def deploy_cmd(port: str, no_compile: bool, wait: float, as_json: bool) -> None:
 
     Example: nightcell deploy --port /dev/ttyACM0
     """
+    from ..errors import NightcellError
+    from ..wire.link import Board
+
+    try:
+        with Board.open(port, timeout=2.0) as board:
+            board.retries = 1
+            info = board.hello()
+    except NightcellError:
+        info = {}  # no nightcell firmware answering yet (a fresh board in its REPL): deploy finds out itself
+    if info.get("board") == "sim":
+        raise InputError(f"{port} is a simulated board (`nightcell sim-board`): it runs this nightcell's own "
+                         "firmware files at every start, so there is nothing to copy — restart sim-board to run a "
+                         "new version; deploy copies firmware onto a real board over USB")
     from ..tasks.deploy import deploy
 
     report = deploy(port, compile=not no_compile, wait=wait)
