@@ -227,7 +227,7 @@ def boards(as_json: bool) -> None:
     found = candidate_ports() + running_boards()
     lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" if p["vid"] else f"{p['port']}  {p['kind']}"
              for p in found] or \
-        ["no candidate boards found: plug one in (see hardware_notes/linux.md for permissions)"]
+        ["no candidate boards found: plug one in (see hardware_notes/linux.md or windows_macos.md)"]
     _emit(found, as_json, "\n".join(lines))
 
 

@@ -75,7 +75,7 @@ def roll_call(timeout: float, as_json: bool) -> None:
         else:
             lines.append(f"{e['port']}  no nightcell board: {e['error']}")
     _emit(found, as_json, "\n".join(lines) or "no candidate boards found: plug one in (see hardware_notes/linux.md "
-                                               "for permissions)")
+                                               "or windows_macos.md)")
 
 
 @click.command("sync-all")
