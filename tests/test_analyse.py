@@ -156,8 +156,17 @@ def test_a_named_blank_overrides_the_rule_and_a_missing_one_is_a_clear_error(two
     assert (b.boot, b.seq, b.rule) == (1, 3, "named by the user")
     with pytest.raises(InputError, match=r"no blank 1:99 on device .* list blanks with `nightcell list`"):
         choose_blank(store, DEV, (1, 6), blank=(1, 99))
+    # no blank before: the first blank after, with a warning that says so (issue 12 §5: a run can be rescued)
+    after = choose_blank(store, DEV, (1, 2))
+    assert (after.boot, after.seq) == (1, 3) and "no blank before the run" in after.rule
+    assert any("taken after" in w for w in after.warnings)
+    # named by its key text or its label
+    assert (choose_blank(store, DEV, (1, 6), blank="1:3").seq, choose_blank(store, DEV, (1, 6), blank="1:5").seq) \
+        == (3, 5)
+    with pytest.raises(InputError, match="no blank labelled 'tap water'"):
+        choose_blank(store, DEV, (1, 6), blank="tap water")
     with pytest.raises(AnalysisError, match="take a blank first"):
-        choose_blank(store, DEV, (1, 2))
+        choose_blank(store, "ffff000000000000", (1, 2))
 
 
 # -- a run that continues across a power-cut boot -------------------------------------------------------------

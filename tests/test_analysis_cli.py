@@ -45,11 +45,14 @@ def test_register_adds_four_commands_with_help(group):
 
 def test_calibrate_text_json_and_out(group, tmp_path):
     csv_file = _write(tmp_path / "std.csv", "concentration,absorbance,replicate", [(x, y, 1) for x, y in MM])
-    text = _invoke(group, "calibrate", csv_file, "--reading", 2.9)
+    # the textbook's signals (up to 24.7) are not absorbances, so the %T guard asks for --accept-suspect
+    refused = _invoke(group, "calibrate", csv_file, "--reading", 2.9)
+    assert refused.exit_code == 2 and "look like percent transmittance" in refused.output, refused.output
+    text = _invoke(group, "calibrate", csv_file, "--reading", 2.9, "--accept-suspect")
     assert text.exit_code == 0, text.output
     assert "slope" in text.output and "unknown" in text.output
     out = tmp_path / "cal.json"
-    res = _invoke(group, "calibrate", csv_file, "--reading", 2.9, "--json", "--out", out)
+    res = _invoke(group, "calibrate", csv_file, "--reading", 2.9, "--json", "--out", out, "--accept-suspect")
     assert res.exit_code == 0, res.output
     data = json.loads(res.output)
     # worked example numbers pass through the command unchanged (Miller & Miller, ch. 5 [memory for the attribution])

@@ -49,8 +49,15 @@ RUN_LABEL = "fading 25 C"
 # -- a database built from journal records ---------------------------------------------------------------------------
 
 def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_label: str = "water",
-                    n_samples: int = 40) -> list[bytes]:
-    """Encoded records of one boot: anchors, dark, blank, five standards, a run of ``n_samples`` and its stop."""
+                    n_samples: int = 40, *, blanks: tuple[float | None, ...] = (0.0,),
+                    standards: tuple[tuple[str, float], ...] | None = None, curve: Callable[[int], float] | None = None,
+                    opaque: float | None = None, blank_light: float | None = None) -> list[bytes]:
+    """Encoded records of one boot: anchors, dark, blank, five standards, a run of ``n_samples`` and its stop.
+
+    Variants for the guards' rows: ``blanks`` (absorbance of each blank against the LED, in order; the last is the
+    run's), ``blank_light`` (the last blank's light in counts per read, e.g. a blocked path), ``standards``
+    ((value as typed, absorbance) each), ``curve`` (absorbance of sample i) and ``opaque`` (an opaque mark's
+    absorbance, read before the run)."""
     recs: list[bytes] = []
     seq = 0
     up = 0
@@ -71,14 +78,22 @@ def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_labe
                           "light": [int(round(light * reads))], "label": label, "value": value})
 
     mark(1, None, "lid on")
-    mark(2, 0.0, blank_label)
-    for conc in (2, 4, 6, 8, 10):
-        mark(3, 0.075 * conc, f"dye {conc}", str(conc))
+    for i, blank_a in enumerate(blanks):
+        if i == len(blanks) - 1 and blank_light is not None:
+            add(F.KIND_MARK, {"mark": 2, "source": 0, "reads": reads, "dark": [dark * reads],
+                              "light": [int(round(blank_light * reads))], "label": blank_label, "value": ""})
+        else:
+            mark(2, blank_a, blank_label)
+    for value, absorbance in (standards if standards is not None
+                              else tuple((str(c), 0.075 * c) for c in (2, 4, 6, 8, 10))):
+        mark(3, absorbance, f"dye {value}", value)
+    if opaque is not None:
+        mark(7, opaque, "black card")
     add(F.KIND_MARK, {"mark": 4, "source": 0, "reads": 0, "dark": [], "light": [], "label": run_label,
                       "value": ""})
     samples = []
     for i in range(n_samples):
-        a = 0.05 + 0.6 * math.exp(-0.02 * 2.0 * i)
+        a = 0.05 + 0.6 * math.exp(-0.02 * 2.0 * i) if curve is None else curve(i)
         samples.append({"late_ms": 0, "flags": 0, "dark": [dark * reads],
                         "light": [int(round((dark + led * 10 ** (-a)) * reads))]})
     add(F.KIND_SAMPLES, {"interval_ms": 2000, "reads": reads, "channels": 1, "options": 0, "samples": samples},
@@ -328,6 +343,31 @@ def frame_with_bad_crc(line: bytes) -> bytes:
     return good[:-1] + bytes([good[-1] ^ 0xFF])
 
 
+def _variant(**kwargs: Any) -> Callable[[Path, Path], Path]:
+    """A database of ``journal_records(**kwargs)`` instead of the template (a guard's row)."""
+    def make(template: Path, d: Path) -> Path:
+        return make_db(d / "variant.db", **kwargs)
+    return make
+
+
+def blocked_blank_board(line: bytes) -> bytes:
+    """A board whose blank comes back with the light path blocked: light 105.9 vs dark 100.3 counts per read."""
+    tag, verb = line.decode("ascii", "replace").split(" ")[:2]
+    if verb == "hello":
+        return F.encode_reply(F.REPLY_OK, int(tag), json.dumps(dict(HELLO, running=False)).encode())
+    reply = {"boot": 1, "seq": 9, "reads": 16, "dark": [int(100.3 * 16)], "light": [int(105.9 * 16)]}
+    return F.encode_reply(F.REPLY_OK, int(tag), json.dumps(reply).encode())
+
+
+def _rising(i: int) -> float:
+    return 0.05 + 0.6 * (1.0 - math.exp(-0.04 * i))
+
+
+FLAT_CAL = "concentration,absorbance\n0,0.301\n2,0.298\n4,0.303\n6,0.299\n8,0.302\n10,0.300\n"
+RISING_RUN = "time_s,absorbance\n" + "".join(f"{2 * i},{_rising(i):.5f}\n" for i in range(40))
+PERCENT_T_RUN = "time_s,absorbance\n" + "".join(f"{10 * i},{95 - 1.2 * i:.1f}\n" for i in range(30))
+
+
 class ScriptedBoard:
     """A board that speaks protocol v1 (schema/protocol.md) from a script: its journal is ``records`` (encoded
     records laid end to end from position 0), and it may misbehave on purpose.
@@ -446,8 +486,8 @@ CASES = [
     Case("calibrate with both CSV and --db", ["calibrate", "{csv}", "--db", "{db}"], 2, "not both", csv=_csv(GOOD_CAL)),
     Case("report --run and --all together", ["report", "--db", "{db}", "--run", RUN_LABEL, "--all", "--out", "{dir}/r"],
          2, "give one of --run, --all or --study"),
-    Case("rate --t-start with --db", ["rate", "--db", "{db}", "--t-start", "10"], 2,
-         "--t-start and --a-end apply to CSV files"),
+    Case("rate --a-end with --db", ["rate", "--db", "{db}", "--a-end", "0.1"], 2,
+         "--a-end applies to CSV files"),
     Case("rate --window without initial_rate", ["rate", "--db", "{db}", "--window", "0", "10"], 2,
          "--window applies to --model initial_rate"),
     Case("unknown rate model", ["rate", "--db", "{db}", "--model", "third_order"], 2, "Invalid value for '--model'"),
@@ -469,7 +509,6 @@ CASES = [
     Case("setup path length NaN", ["setup", "--path-cm", "nan"], 2, "'nan' is not a finite number", port="missing"),
     Case("standard value beyond a double", ["standard", "1e999"], 2, "'1e999' is not a usable concentration",
          port="missing"),
-    Case("standard value negative", ["standard", "--", "-2"], 2, "'-2' is not a usable concentration", port="missing"),
     Case("watch every NaN seconds", ["watch", "--every", "nan"], 2, "'nan' is not a finite number", port="missing"),
     Case("condition temperature NaN", ["condition", "--db", "{db}", "--temperature-c", "nan"], 2,
          "'nan' is not a finite number"),
@@ -623,6 +662,9 @@ CASES = [
     Case("hello whose interval is text, before start", ["start", "--label", "x"], 3,
          "'interval_ms' must be a whole number", port=lambda: ScriptedBoard(hello={"interval_ms": "2 s"}),
          never_sent=("start",)),
+    Case("board replaying another journal's keys with other content", ["sync", "--db", "{db}"], 3,
+         "would change rows already stored here",
+         port=lambda: ScriptedBoard(journal_records(run_label="forged run"), device=DEVICE), never_sent=("ack",)),
     Case("disk full in the middle of a sync", ["sync", "--db", "{db}"], 4, "database or disk is full",
          port=lambda: ScriptedBoard(journal_records(device="5eba0000000000ab", n_samples=250)), never_sent=("ack",),
          disk_pages=0),
@@ -634,6 +676,62 @@ CASES = [
          port="missing"),
     Case("run label too long for one request", ["start", "--label", "<b> µ" * 30], 2, "too long", port="missing"),
     Case("note too long for one request", ["note", "%" * 120], 2, "too long", port="missing"),
+    # -- issue 12 §2: data that look wrong. Where a result would be saved it is refused (exit 5, nothing saved)
+    # unless --accept-suspect confirms; the raw marks stay as they were.
+    Case("blocked blank, rate --db refuses", ["rate", "--db", "{db}"], 5,
+         "blank 1:3 looks wrong: light 105.9 vs dark 100.0 counts per read: within 5 dark-noise SDs (4.2 counts) of "
+         "its dark, as if the light path were blocked — clear the light path and take a new blank, name another "
+         "with --blank, or pass --accept-suspect to use it anyway", db=_variant(blank_light=105.9)),
+    Case("blocked blank, calibrate --db refuses", ["calibrate", "--db", "{db}"], 5,
+         "blank 1:3 looks wrong: light 105.9 vs dark 100.0", db=_variant(blank_light=105.9)),
+    Case("blank far below the board's earlier blanks", ["rate", "--db", "{db}"], 5,
+         "blank 1:4 looks wrong: signal 189.3 counts per read, far below the 3000.0 of this board's 1 earlier "
+         "blank(s) (less than 0.1 of them)", db=_variant(blanks=(0.0, 1.2))),
+    Case("blocked blank at capture", ["blank", "--label", "water"], 5,
+         "5eba000000000007: blank 1:9 looks wrong — channel 0: light 105.9 vs dark 100.2 counts per read: within 5 "
+         "dark-noise SDs (4.2 counts) of its dark, as if the light path were blocked. It is journaled as taken (raw "
+         "data is kept) but analyses will refuse it", port=blocked_blank_board),
+    Case("standards that do not rise (CSV)", ["calibrate", "{csv}"], 5,
+         "the standards do not rise with concentration: slope 4.29e-05 ± 0.00025 A per unit (t = 0.172, needs > "
+         "2.13 for one-sided 95 %), r = 0.0857 — check the standards' values, their order and the blank, or pass "
+         "--accept-suspect", csv=_csv(FLAT_CAL)),
+    Case("standards all equal, calibrate --db refuses", ["calibrate", "--db", "{db}"], 5,
+         "the standards all read the same absorbance (0.3", db=_variant(standards=tuple((v, 0.3) for v in "12345"))),
+    Case("negative standard at capture", ["standard", "--", "-1"], 2,
+         "the standard's VALUE -1 is a negative concentration: a standard holds zero or more of the analyte — type "
+         "its concentration (nothing was measured or journaled)", port="missing"),
+    Case("negative concentration in a calibration CSV", ["calibrate", "{csv}"], 2,
+         "standard 1 has a negative concentration (-1); a standard holds zero or more of the analyte",
+         csv=_csv("concentration,absorbance\n-1,0.01\n2,0.16\n4,0.31\n6,0.46\n")),
+    Case("run condition at 250 °C", ["condition", "--db", "{db}", "--run", RUN_LABEL, "--temperature-c", "250"], 2,
+         "a run at 250.0 °C (523.15 K) is outside what a cuvette of solution can be (-30 to 110 °C): check the value "
+         "(°C or K?), or pass --accept-suspect to record it anyway"),
+    Case("run condition of 30 mol/L", ["condition", "--db", "{db}", "--run", RUN_LABEL, "--temperature-c", "25",
+                                       "--conc", "hydroxide=30"], 2,
+         "conc_hydroxide_M 30 mol/L is more than any solution holds (20 mol/L)"),
+    Case("CSV absorbance column holding %T (rate)", ["rate", "{csv}"], 2,
+         "column absorbance holds values up to 95, which look like percent transmittance (0–100), not absorbance "
+         "(rarely above 3): if they are %T, name the column %T and nightcell converts them", csv=_csv(PERCENT_T_RUN)),
+    Case("CSV absorbance column holding %T (calibrate)", ["calibrate", "{csv}"], 2,
+         "look like percent transmittance",
+         csv=_csv("concentration,absorbance\n0,100\n2,69.2\n4,47.9\n6,33.1\n")),
+    Case("negative rate constant (CSV, first_order on a rising curve)", ["rate", "{csv}", "--model", "first_order"],
+         5, "first_order: the fitted rate constant k = -0.0", csv=_csv(RISING_RUN)),
+    Case("negative rate constant with --db saves nothing", ["rate", "--db", "{db}", "--model", "second_order"], 5,
+         "second_order: the fitted rate constant k = -", db=_variant(curve=_rising)),
+    # -- a run that cannot be done on this board -------------------------------------------------------------------
+    Case("start --for that is not a duration", ["start", "--for", "a week"], 2, "--for 'a week' is not a duration",
+         port="missing"),
+    # 10^6 B free at 3.26 B a sample every 1 s: 3.6 days; 7 days needs 1.972 s (tasks/room.py)
+    Case("start --for a run the journal cannot hold", ["start", "--for", "7d"], 2,
+         "a run of 7.0 days does not fit on 5eba000000000007: 1.00 MB free at measured 3.26 B a sample every 1 s holds "
+         "3.6 days (the longest run that fits); an interval of 1.972 s or more would fit 7.0 days",
+         port=board_then_vanish("start", dict(HELLO, running=False, interval_ms=1000, bytes_per_sample=3.26,
+                                               channels=1))),
+    Case("setup interval shorter than the board's measurement", ["setup", "--interval", "1"], 2,
+         "--interval 1 s is shorter than one measurement on 5eba000000000007 (3858 ms with its reads, settle and "
+         "window) plus 50 ms: choose at least 3.908 s",
+         port=board_then_vanish("set", dict(HELLO, measure_ms=3858))),
 ]
 
 
@@ -795,6 +893,41 @@ def test_bad_input_on_a_read_only_or_full_medium(case: Case, kind: str, template
         assert not list(work.rglob("*.part")), list(work.rglob("*.part"))
 
 
+def test_flagged_readings_are_counted_by_kind(tmp_path: Path):
+    # issue 12 §2: readings beyond the stray-light ceiling (an opaque mark gives 1 % stray light: readings at
+    # A ≥ ceiling − log10 2 ≈ 1.70 are flagged, standard spectrophotometry [memory], shared/REFERENCES.md) and
+    # readings below the blank beyond noise are flagged per point, counted, and left out of the fit
+    def curve(i: int) -> float:
+        if i < 3:
+            return 1.9           # beyond the stray-light ceiling
+        if i >= 37:
+            return -0.03         # more light than the blank
+        return 0.05 + 0.6 * math.exp(-0.04 * i)
+
+    db = make_db(tmp_path / "flags.db", curve=curve, opaque=2.0)
+    result = CliRunner().invoke(cli, ["rate", "--db", str(db), "--model", "first_order_plateau"],
+                                env={"COLUMNS": "200"})
+    assert result.exit_code == 0, result.output
+    assert "40 readings, 6 flagged and left out (beyond_stray: 3, below_blank: 3)" in result.output, result.output
+    data = json.loads(CliRunner().invoke(cli, ["rate", "--db", str(db), "--model", "first_order_plateau",
+                                               "--json"]).output)
+    assert data["flag_counts"] == {"beyond_stray": 3, "below_blank": 3} and data["flagged"] == 6
+
+
+def test_suspect_data_confirmed_with_accept_suspect_is_kept_and_flagged(tmp_path: Path):
+    # the one option that confirms: the blocked blank is used, the result is saved, and the flag travels with it
+    # a blank of 20 counts of signal (within 5 dark-noise SDs: blocked) and a run dimmer still, so it can be fitted
+    db = make_db(tmp_path / "blocked.db", blank_light=120.0, curve=lambda i: 2.3 + 0.5 * math.exp(-0.04 * i))
+    refused = CliRunner().invoke(cli, ["rate", "--db", str(db)])
+    assert refused.exit_code == 5 and "--accept-suspect" in refused.output, refused.output
+    ok = CliRunner().invoke(cli, ["rate", "--db", str(db), "--accept-suspect", "--json"])
+    assert ok.exit_code == 0, ok.output
+    data = json.loads(ok.output)
+    assert any("suspect blank 1:3 used as confirmed (--accept-suspect)" in w for w in data["warnings"])
+    saved = sqlite3.connect(db).execute("SELECT inputs_json FROM results WHERE id = ?", (data["result_id"],))
+    assert "suspect_blank" in json.loads(saved.fetchone()[0])
+
+
 def test_the_table_has_at_least_forty_rows_across_every_kind():
     assert len(CASES) >= 40
     assert len({c.name for c in CASES}) == len(CASES)
@@ -944,10 +1077,9 @@ def test_a_journaled_standard_of_1e999_is_left_out_and_named(tmp_path):
     out = CliRunner().invoke(cli, ["calibrate", "--db", str(db), "--json"])
     cal = json.loads(out.stdout)["calibration"]
     assert cal["n"] == 4
-    assert cal["inputs"]["skipped"] == ["standard 'dye 6' (1:6) left out: its value '1e999' is not a usable "
-                                        "concentration"]
+    assert cal["inputs"]["left_out"] == ["standard 1:6 has a concentration of 1e999 (not a physical amount): left out"]
     text = CliRunner().invoke(cli, ["calibrate", "--db", str(db)]).output
-    assert "warning: standard 'dye 6' (1:6) left out" in text
+    assert "note: standard 1:6 has a concentration of 1e999 (not a physical amount): left out" in text
 
 
 # -- file names: one page per run, whatever the labels ---------------------------------------------------------------
@@ -1143,3 +1275,19 @@ def test_a_journal_read_waits_as_long_as_the_baud_rate_needs():
         # 4 KB at 2400 baud (10 bits a byte) take 17 s: a chunk and the one queued behind it get that long each
         assert JournalPull(slow, 0, 1).timeout >= 5.0 + 2 * 17.0
         assert JournalPull(fast, 0, 1).timeout < 5.0 + 3.0
+
+
+def test_a_forged_board_with_the_stored_journal_id_and_other_content_is_refused_with_nothing_changed(tmp_path, template):
+    """A board that gives the very journal id and keys of stored rows but other content (another run label, other
+    counts): refused, exit 3, no ack, the database exactly as it was."""
+    from nightcell.errors import RecordConflict
+
+    db = tmp_path / "class.db"
+    shutil.copy(template, db)
+    before = snapshot(db)
+    forged = journal_records(run_label="forged run", blank_label="not water")
+    board = ScriptedBoard(forged, device=DEVICE, hello={"journal": 1})
+    with pytest.raises(RecordConflict, match="its marks row of boot 1, seq 3 differs") as err:
+        _sync_scripted(board, db)
+    assert err.value.exit_code == 3 and board.acks == []
+    assert snapshot(db) == before

@@ -185,3 +185,27 @@ def test_a_port_with_no_board_is_exit_3():
     r = CliRunner().invoke(cli, ["blank", "--port", "/dev/nightcell-no-such-port"])
     assert r.exit_code == 3 and "no board at /dev/nightcell-no-such-port" in r.output
     assert "Traceback" not in r.output
+
+
+def test_start_for_checks_the_journal_room_and_hello_tells_time_until_full(sim):
+    info = _hello(sim)
+    assert info["measure_ms"] == 20 and info["full_in_s"] is None  # the default pulses: 2 pairs of 5 + 5 ms
+    r = _run(sim, "start", "--for", "100000d")
+    assert r.exit_code == 2 and "does not fit" in r.output and "the design figure of 4.00 B a sample" in r.output
+    assert _hello(sim)["running"] is False  # refused: nothing started
+    r = _run(sim, "start", "--for", "100000d", "--even-if-short", "--json")
+    assert r.exit_code == 0, r.output
+    room = json.loads(r.output)["room"]
+    assert room["fits"] is False and room["design"] is True
+    deadline = time.monotonic() + 30
+    while _hello(sim).get("bytes_per_sample") is None and time.monotonic() < deadline:
+        time.sleep(0.5)  # 20 samples at 1 s of a board running 20 times faster
+    info = _hello(sim)
+    assert 2.0 <= info["bytes_per_sample"] <= 6.0
+    r = _run(sim, "hello")
+    assert r.exit_code == 0 and "journal full in: " in r.output
+    assert _run(sim, "stop").exit_code == 0
+    r = _run(sim, "start", "--for", "1h", "--json")  # fits: started, with the room it has
+    assert r.exit_code == 0, r.output
+    assert json.loads(r.output)["room"]["design"] is False
+    assert _run(sim, "stop").exit_code == 0

@@ -156,3 +156,39 @@ def test_a_restarted_pty_sim_board_says_its_port_changed(tmp_path):
         assert second in [b["port"] for b in listed]
     finally:
         _stop(proc)
+
+
+def test_two_sim_boards_have_their_own_device_ids_and_a_restarted_one_keeps_its_own(tmp_path):
+    """Two `sim-board`s (two folders) at once: two device ids, so their rows never share a key in one database;
+    the same folder started again is the same board and says the same id (its hello too)."""
+    procs = []
+    ids = []
+    try:
+        for name in ("a", "b", "a"):
+            proc = subprocess.Popen([sys.executable, "-m", "nightcell.cli", "sim-board", "--dir",
+                                     str(tmp_path / name), "--seconds", "60"], stdout=subprocess.PIPE,
+                                    stderr=subprocess.STDOUT, text=True)
+            procs.append(proc)
+            port = proc.stdout.readline().split(": ", 1)[1].strip()
+            said = proc.stdout.readline().split()[2]  # "simulated board <id> running ..."
+            deadline = time.monotonic() + 20
+            while True:
+                r = _cli("hello", "--port", port, "--json")
+                if r.exit_code == 0 or time.monotonic() > deadline:
+                    break
+            assert r.exit_code == 0, r.output
+            assert json.loads(r.output)["device"] == said
+            ids.append(said)
+            if name == "a" and len(ids) == 1:
+                continue  # the first "a" stays on while "b" runs: two boards at once
+            if len(ids) == 2:
+                procs[0].send_signal(signal.SIGINT)  # then "a" is switched off and started again
+                procs[0].communicate(timeout=20)
+    finally:
+        for proc in procs:
+            if proc.poll() is None:
+                proc.send_signal(signal.SIGINT)
+                proc.communicate(timeout=20)
+    assert ids[0] != ids[1], ids
+    assert ids[2] == ids[0], ids
+    assert len(ids[0]) == 16 and int(ids[0], 16) >= 0

@@ -20,7 +20,7 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from dashboard_harness import boards, browser, browser_missing, page_server, tile_absorbance_js
+from support.dashboard import boards, browser, browser_missing, page_server, tile_absorbance_js
 from nightcell.cli import SIM_DEVICE, cli
 
 pytestmark = pytest.mark.skipif(browser_missing() is not None, reason=browser_missing() or "")
@@ -80,7 +80,8 @@ def test_a_tile_follows_a_cuvette_change_within_two_seconds(room):
                                polling=20)
         assert time.monotonic() - t0 < 2.0
         shown = page.text_content(f"{_tile(SIM_DEVICE)} .value")
-        assert abs(float(shown) - target) < 0.02 and len(shown.split(".")[1]) == 3
+        decimals = int(page.get_attribute(f"{_tile(SIM_DEVICE)} .value", "data-decimals"))
+        assert abs(float(shown) - target) < 0.02 and len(shown.split(".")[1]) == decimals and 1 <= decimals <= 4
 
 
 def _widest(page) -> dict:

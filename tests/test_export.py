@@ -98,20 +98,22 @@ def test_report_escapes_the_label_and_names_files_safely(db, tmp_path):
     assert "<script" not in svg.lower()
 
 
-def test_report_all_skips_a_run_without_blank_and_says_why(db, tmp_path):
+def test_report_all_rescues_a_run_without_blank_before_it_and_says_so(db, tmp_path):
+    # issue 12 §5: a run with no blank before it is read against the first blank after it, with a warning
     r = _cli("report", "--db", db, "--all", "--out", tmp_path, "--json")
     assert r.exit_code == 0, r.output
     data = json.loads(r.output)
-    assert len([f for f in data["files"] if f.endswith(".html")]) == 1
-    assert len(data["skipped"]) == 1 and "before any blank" in data["skipped"][0]
-    assert "take a blank first" in data["skipped"][0]
+    assert len([f for f in data["files"] if f.endswith(".html")]) == 2
+    page = next(f for f in data["files"] if "before_any_blank" in f and f.endswith(".html"))
+    assert "taken after" in Path(page).read_text(encoding="utf-8")
 
 
-def test_rate_on_a_run_without_blank_is_exit_5_and_saves_nothing(db):
-    before = sqlite3.connect(db).execute("SELECT count(*) FROM results").fetchone()[0]
+def test_rate_on_a_run_without_blank_before_it_uses_the_next_blank_with_a_warning(db):
     r = _cli("rate", "--db", db, "--run", "before any blank")
-    assert r.exit_code == 5 and "has no blank before" in r.output and "nightcell blank" in r.output
-    assert sqlite3.connect(db).execute("SELECT count(*) FROM results").fetchone()[0] == before
+    assert r.exit_code == 0, r.output
+    assert "no blank before" in r.output and "taken after" in r.output
+    data = json.loads(_cli("rate", "--db", db, "--run", "before any blank", "--json").output)
+    assert "no blank before the run" in data["blank"]["rule"]
 
 
 def test_rate_by_key_saves_a_result_naming_its_inputs(db):
@@ -132,8 +134,8 @@ def test_export_writes_raw_and_derived_csv(db, tmp_path):
     assert r.exit_code == 0, r.output
     data = json.loads(r.output)
     names = sorted(Path(f).name for f in data["files"])
-    assert "marks.csv" in names and len(names) == 4  # marks, two sample files, one absorbance file
-    assert any("before any blank" in s and "absorbance" in s for s in data["skipped"])
+    # marks, two sample files, two absorbance files (the run before any blank is read against the next blank)
+    assert "marks.csv" in names and len(names) == 5
     with open(tmp_path / "marks.csv", newline="", encoding="utf-8") as fh:
         marks = list(csv.DictReader(fh))
     assert HOSTILE in {m["label"] for m in marks}  # CSV quoting keeps the label whole
@@ -146,7 +148,7 @@ def test_export_writes_raw_and_derived_csv(db, tmp_path):
                          "ORDER BY seq", (key[0], int(key[1]), int(key[2]))).fetchall()
     # raw counts leave the database unchanged (up to the run's stop mark)
     assert [(int(r["seq"]), int(r["dark"]), int(r["light"])) for r in rows] == stored[:len(rows)]
-    absorbance = next(tmp_path.glob("*-absorbance.csv"))
+    absorbance = next(tmp_path.glob("script_alert_1_script_DROP_TABLE_samples-*-absorbance.csv"))
     with open(absorbance, newline="", encoding="utf-8") as fh:
         derived = list(csv.DictReader(fh))
     assert len(derived) == len(rows) and float(derived[0]["time_s"]) == 0.0
@@ -175,7 +177,7 @@ def test_write_atomic_leaves_nothing_when_the_rename_fails(tmp_path, monkeypatch
     (["report", "--db", "DB", "--out", "OUT"], 2, "holds 2 runs: name one with --run KEY"),
     (["calibrate", "--db", "DB"], 5, "has no standards: record some with `nightcell standard`"),
     (["calibrate", "--db", "DB", "--device", "nope"], 2, "no device 'nope'"),
-    (["rate", "--db", "DB", "--run", "x", "--t-start", "3"], 2, "--t-start and --a-end apply to CSV files"),
+    (["rate", "--db", "DB", "--run", "x", "--a-end", "0.1"], 2, "--a-end applies to CSV files"),
     (["rate"], 2, "give a CSV file (time_s,absorbance) or --db DATABASE"),
 ])
 def test_database_command_errors(db, tmp_path, args, code, message):

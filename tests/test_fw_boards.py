@@ -315,3 +315,87 @@ def test_probe_temperature_second_led_and_reference_channel_are_journaled():
         assert smp.light[0] == 16 * 3000 and smp.light[1] == 16 * 200 and smp.light[2] == 16 * 3000
         assert smp.dark == [16 * 200] * 3
     assert json.loads(res["adcs"]) == [26, 26, 27, 4]
+
+
+def test_a_board_without_settings_runs_the_profile_of_its_chip():
+    # sys.implementation._machine names the chip on the rp2 port, e.g. "Raspberry Pi Pico2 with RP2350" [memory]
+    out = run_mp(r"""
+from boards.choose import board_name
+for raw, platform, machine in (({}, "rp2", "Raspberry Pi Pico2 with RP2350"), ({}, "rp2", "Raspberry Pi Pico with RP2040"),
+                               (None, "esp32", "Generic ESP32 module with ESP32"), ({"board": "sim"}, "rp2", "RP2350"),
+                               ({"board": "uno"}, "rp2", "Raspberry Pi Pico W with RP2040")):
+    print("name=" + board_name(raw, platform, machine))
+""")
+    names = [line[5:] for line in out.splitlines() if line.startswith("name=")]
+    assert names == ["pico2", "pico", "esp32", "sim", "pico"]
+
+
+BUTTON = FAKES + r"""
+from boards.pico import PicoBoard
+from nightcell_fw import settings as S
+from nightcell_fw.logger import Logger
+s = S.validate({"interval_ms": 1000, "warmup_ms": 0})
+b = PicoBoard(Machine(), Port(), Clock, OS())
+b.configure(s)
+lg = Logger(b, s, None, "/flash")
+lg.boot()
+def press(ms, then=600):
+    Pin.level[16] = 0
+    t = Clock.t
+    while Clock.t - t < ms:
+        lg.run(1)
+    Pin.level[16] = 1
+    t = Clock.t
+    while Clock.t - t < then:
+        lg.run(1)
+press(2000)
+print("started=%d" % lg.running)
+press(2000, 8000)                 # one long press during a run (a leaning box): the run goes on
+print("after_one=%d" % lg.running)
+press(2000, 1000); press(2000)    # two long presses within 5 s: the distinct gesture that stops it
+print("after_two=%d" % lg.running)
+"""
+
+
+def test_one_long_press_never_stops_a_run_two_within_five_seconds_do():
+    res = results(run_mp(BUTTON))
+    assert res == {**res, "started": "1", "after_one": "1", "after_two": "0"}
+
+
+ESP_FITS = FAKES + r"""
+from boards.esp32 import Esp32Board, DEFAULTS
+from nightcell_fw import settings as S
+from nightcell_fw.logger import Logger
+s = S.validate(dict(DEFAULTS, interval_ms=1000))
+b = Esp32Board(Machine(), Port(), Clock, OS())
+b.configure(s)
+lg = Logger(b, s, None, "/flash")
+lg.boot()
+print("measure_ms=%d" % lg.measure_ms())
+t0 = Clock.t
+lg.sampler.measure()
+print("took_ms=%d" % (Clock.t - t0))
+for key, value in (("reads", 16), ("interval_ms", 200)):
+    try:
+        lg.change(key, value)
+        print("accepted=" + key)
+    except ValueError as e:
+        print("refused_%s=%s" % (key, e))
+print("interval=%d" % lg.settings["interval_ms"])
+# a settings file written for a Pico (16 reads, 1 s) on this board: journaled, and the interval made to fit
+lg2 = Logger(b, S.validate(dict(DEFAULTS, reads=16, interval_ms=1000)), None, "/flash")
+print("problem=" + lg2.problem)
+print("interval2=%d" % lg2.settings["interval_ms"])
+"""
+
+
+def test_the_board_refuses_an_interval_shorter_than_its_measurement():
+    res = results(run_mp(ESP_FITS))
+    # ESP32 defaults: one dark and one light TSL2591 conversion of 100 ms + 20 ms margin each (tsl2591.py)
+    assert res["measure_ms"] == "240" and res["took_ms"] == "240"
+    # 16 pairs of two conversions, 20 ms window: 16 × 240 ms + 15 rests of 1.25 ms
+    assert res["refused_reads"].startswith("interval_ms 1000 is shorter than one measurement on this board (3858 ms")
+    assert "choose at least 3908" in res["refused_reads"]
+    assert res["refused_interval_ms"].startswith("interval_ms 200 is shorter than one measurement")
+    assert res["interval"] == "1000"
+    assert "interval_ms 3908 used" in res["problem"] and res["interval2"] == "3908"

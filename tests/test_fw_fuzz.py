@@ -88,7 +88,7 @@ for k in range(N):
         errs += 1
     elif got[0][0] != 2:
         oks += 1
-    assert lg.errors == 0, "the main loop caught an exception"
+    assert lg.faults.total == 0, "the main loop caught an exception"
     if k % 500 == 0:
         kit.run_ms(5000)
 

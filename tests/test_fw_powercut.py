@@ -26,6 +26,7 @@ SEED = int(sys.argv[2])
 DUMP = sys.argv[3] if len(sys.argv) > 3 and sys.argv[3] != "-" else None
 INTERVAL = int(sys.argv[4]) if len(sys.argv) > 4 else 1000
 WINDOW = int(sys.argv[5]) if len(sys.argv) > 5 else 3000
+IMAGE = sys.argv[6] if len(sys.argv) > 6 else None  # where to write the raw flash at the end
 MARGIN = 200        # board ms a mark or a reply may delay the schedule
 random.seed(SEED)
 
@@ -215,6 +216,11 @@ print("interval_ms=%d" % INTERVAL)
 print("segments=%d" % len(segments))
 print("tail=%d" % kit.lg.journal.tail)
 print("head=%d" % kit.lg.journal.head)
+print("blocks=%d" % (len(kit.dev.data) // 4096))
+if IMAGE:
+    f = open(IMAGE, "wb")  # the flash as the board leaves it: no unmount, files still open, as at a power cut
+    f.write(kit.dev.data)
+    f.close()
 if DUMP:
     f = open(DUMP, "wb")
     for pos, kind, b, s, rec in recs:
@@ -229,8 +235,8 @@ if DUMP:
 
 
 def run_campaign(cuts: int, seed: int, dump: str | None = None, interval_ms: int = 1000,
-                 window_ms: int = 3000) -> dict[str, str]:
-    args = [str(cuts), str(seed), dump or "-", str(interval_ms), str(window_ms)]
+                 window_ms: int = 3000, image: str | None = None) -> dict[str, str]:
+    args = [str(cuts), str(seed), dump or "-", str(interval_ms), str(window_ms), *([image] if image else [])]
     return results(run_mp(CAMPAIGN, *args, timeout=1800))
 
 

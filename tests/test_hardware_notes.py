@@ -94,6 +94,10 @@ PIN_TABLE = {
     "DS18B20": (["GP22"], ["GPIO4"], ["4.7 kΩ"]),
     "Push button": (["GP16"], ["GPIO0"], []),
     "Status LED": (["GP25"], ["GPIO2"], ['"LED"']),
+    # the dither resistors of the RP2040's non-linear codes ("dither_pins": [17, 18, 19])
+    "ADC dither resistors": (["GP17", "GP18", "GP19"], [], ["100 kΩ"]),
+    # firmware/boards/choose.py: PICO_SAFE_PIN, ESP32_SAFE_PIN
+    "Safe-mode jumper": (["GP20"], ["GPIO32"], ["pin 26", "GND"]),
 }
 PICO_PIN = re.compile(r"\bGP\d+\b")
 ESP_PIN = re.compile(r"\bGPIO\d+\b")
@@ -118,11 +122,12 @@ def test_wiring_pin_table_matches_board_defaults():
 
 def test_wiring_mentions_no_pin_outside_the_defaults():
     # Catches a typo'd pin anywhere in the prose or diagrams. GP23 is allowed: it is discussed as the Pico's
-    # regulator-mode pin, not used by the cell.
+    # regulator-mode pin, not used by the cell. GP20 and GPIO32 are the safe-mode jumper's (boards/choose.py), GP17-19 the dither resistors'.
     text = read("wiring.md")
-    assert set(PICO_PIN.findall(text)) <= {"GP14", "GP15", "GP16", "GP22", "GP23", "GP25", "GP26", "GP27"}
+    assert set(PICO_PIN.findall(text)) <= {"GP14", "GP15", "GP16", "GP17", "GP18", "GP19", "GP20", "GP22", "GP23",
+                                             "GP25", "GP26", "GP27"}
     esp = {int(p[4:]) for p in ESP_PIN.findall(text)}
-    assert esp <= {0, 2, 4, 21, 22, 25, 26}, f"unexpected ESP32 pins: {sorted(esp)}"
+    assert esp <= {0, 2, 4, 21, 22, 25, 26, 32}, f"unexpected ESP32 pins: {sorted(esp)}"
     assert "0x29" in section(text, "ESP32 variant (TSL2591 light sensor)")
 
 

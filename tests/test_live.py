@@ -124,3 +124,11 @@ def test_watch_loop_stops_after_polls():
     history = watch(board, BLANK, every=2.5, polls=3, console=Console(file=io.StringIO()),
                     sleep=sleeps.append)
     assert len(history) == 3 and sleeps == [2.5, 2.5]
+
+
+def test_a_board_that_measures_its_bytes_per_sample_gives_the_time_until_full_from_one_status():
+    # 99 000 B free at 3.3 B a sample every 1 s: 30 000 s, as the board says (schema/protocol.md, full_in_s)
+    st = dict(_status(3, 1000), bytes_per_sample=3.3, full_in_s=30000)
+    fill = journal_fill([st])
+    assert fill["seconds_left"] == 30000 and fill["bytes_per_s"] == pytest.approx(3.3)
+    assert journal_fill([dict(st, running=False)])["seconds_left"] is None  # not logging: not filling

@@ -78,7 +78,7 @@ def test_bad_points_are_flagged_never_raised():
     assert res.flags.tolist() == [
         0,
         optics.FLAG_NONPOSITIVE,
-        optics.FLAG_SATURATED,
+        optics.FLAG_SATURATED | optics.FLAG_BELOW_BLANK,  # 4093 counts is also far more light than the blank
         optics.FLAG_MISSING,
         optics.FLAG_DARK_DRIFT,
     ]
@@ -137,3 +137,14 @@ def test_noise_propagation_matches_uncertainties_and_simulation():
         np.full(reads, BLANK_LIGHT) + rng.normal(0, 1e-9, reads), np.full(reads, BLANK_DARK) + rng.normal(0, 1e-9, reads),
     )
     assert_allclose(np.median(one.sd_reading), sim.std(ddof=1), rtol=0.10)
+
+
+def test_readings_below_the_blank_beyond_noise_are_flagged_and_named():
+    # more light than the blank by more than 5 SDs of A (3 counts of noise on 3480 counts: 5 SD ≈ 0.0037, so the
+    # 0.005 floor rules) is flagged; a reading just below zero within the noise is not (common practice: a reading
+    # of the blank itself scatters around A = 0)
+    reference = BLANK_LIGHT - BLANK_DARK
+    a = np.array([0.0, -0.002, -0.004, -0.02, 0.5])
+    res = optics.absorbance(BLANK_DARK + reference * 10 ** -a, np.full(5, BLANK_DARK), BLANK_LIGHT, BLANK_DARK)
+    assert res.flags.tolist() == [0, 0, 0, optics.FLAG_BELOW_BLANK, 0]
+    assert optics.flag_names(res.flags[3]) == ["below_blank"]

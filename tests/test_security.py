@@ -310,7 +310,7 @@ print("at_second=%d tail=%d" % (kind, j.tail))
 assert j.tail == second and len(j.starts) == segs - 1
 s, n = j.read(second, 4096, memoryview(bytearray(4096)))
 print("still_readable=%d" % n)
-print("errors=%d" % lg.errors)
+print("errors=%d" % lg.faults.total)
 """
 
 

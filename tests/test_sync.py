@@ -254,6 +254,53 @@ def test_host_killed_mid_sync_then_sync_completes(journal, board_sim, tmp_path):
         assert tail <= summary.acked_to
 
 
+def _snapshot_rows(db) -> dict:
+    """Every row of every table of a database (sorted), to show that nothing changed."""
+    import sqlite3
+
+    con = sqlite3.connect(f"file:{db}?mode=ro", uri=True)
+    try:
+        names = [r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table'")]
+        return {n: sorted(con.execute(f'SELECT * FROM "{n}"').fetchall(), key=repr) for n in names}
+    finally:
+        con.close()
+
+
+def test_a_wiped_board_whose_new_journal_reuses_the_keys_is_refused_and_nothing_changes(tmp_path):
+    """Sync a board, wipe its flash (a new journal: boots and seqs count from 1 again), log again, sync into the same
+    database: the records' keys are those of rows already stored with other content, so the sync refuses (exit 3,
+    RecordConflict), nothing is written or acknowledged, and the first journal's rows and times stay as they were."""
+    from nightcell.errors import RecordConflict
+    from support.campaigns import fill_journal
+
+    sim = SimulatedBoard(tmp_path / "sim", device="5e1f0000000000e1", speed=200.0, seed=7, settings=SETTINGS)
+    db = tmp_path / "class.db"
+    sim.start()
+    try:
+        fill_journal(sim, 3000, label="first journal")
+        sim.start()
+        with Board.open(sim.url) as board, Store.open(db) as store:
+            first = sync_board(board, store)
+            runs_before = [r.to_dict() for r in store.runs()]
+        rows_before = _snapshot_rows(db)
+        sim.power_cut()
+        sim.flash_path.unlink()  # the flash wiped: the firmware makes a new filesystem and a new journal
+        sim.start()
+        fill_journal(sim, 3000, label="second journal")
+        sim.start()
+        with Board.open(sim.url) as board, Store.open(db) as store:
+            info = board.hello(timeout=10.0)
+            assert int(info["journal"]) != first.journal and int(info["tail"]) == 0
+            with pytest.raises(RecordConflict, match="would change rows already stored here") as err:
+                sync_board(board, store)
+            assert err.value.exit_code == 3
+            assert int(board.hello()["tail"]) == 0  # nothing acknowledged: the board keeps all of it
+            assert [r.to_dict() for r in store.runs()] == runs_before
+        assert _snapshot_rows(db) == rows_before
+    finally:
+        sim.stop()
+
+
 def test_two_boards_at_once_and_a_reader_into_one_database(tmp_path):
     sims = [SimulatedBoard(tmp_path / f"s{i}", device=f"5e1f00000000b00{i}", speed=200.0, seed=i,
                            settings={"interval_ms": 1000, "durability_ms": 2000}) for i in range(2)]

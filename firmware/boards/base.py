@@ -18,6 +18,8 @@ class Board:
     has_probe = False
     has_button = False
     has_status_led = False
+    dither_levels = 1  # offsets the ADC dither resistors give (2 ** pins); 1 when none are fitted
+    fault = None  # type: str | None  # text of a part that failed while configuring (journaled, retried with back-off)
 
     def __init__(self, port):
         self.port = port
@@ -77,6 +79,20 @@ class Board:
 
     def before_measure(self, now_ms):
         pass
+
+    def dither(self, level):
+        """Set the ADC dither offset to ``level`` (0 … dither_levels − 1); nothing to do without dither pins."""
+        pass
+
+    def conversion_ms(self):
+        """Board ms one read takes beyond the settle waits (0 for an ADC; a sensor's integration time)."""
+        return 0
+
+    def sleep_ms(self, ms):
+        raise NotImplementedError("a board profile sleeps its own way (feeding the watchdog)")
+
+    def sleep_us(self, us):
+        self.sleep_ms((us + 999) // 1000)
 
     def feed(self):
         pass

@@ -45,6 +45,7 @@ class PicoBoard(Board):
         self._button = None
         self._status = None
         self._chip = None
+        self._dither = []
 
     def configure(self, settings):
         Board.configure(self, settings)
@@ -63,6 +64,8 @@ class PicoBoard(Board):
             self._status = Pin(settings["status_led"], Pin.OUT, value=0)
         self.has_status_led = self._status is not None
         self.fast_poll = self.has_button or self.has_status_led
+        self._dither = [Pin(p, Pin.OUT, value=0) for p in settings["dither_pins"]]
+        self.dither_levels = 1 << len(self._dither)
 
     def _inputs(self, settings):
         m = self.machine
@@ -79,6 +82,12 @@ class PicoBoard(Board):
     def read(self, ch):
         return self._adc[ch].read_u16() >> 4
 
+    def dither(self, level):
+        i = 0
+        for p in self._dither:
+            p.value((level >> i) & 1)
+            i += 1
+
     def full_scale(self, ch):
         return 4095
 
@@ -87,6 +96,8 @@ class PicoBoard(Board):
 
     def chip_temp_centi(self):
         # RP2040 datasheet formula [memory]: T = 27 − (V − 0.706 V) / 0.001721 V/°C, V = counts · 3.3 / 4096
+        if self._chip is None:
+            return -32768
         v = (self._chip.read_u16() >> 4) * 3.3 / 4096
         return int((27 - (v - 0.706) / 0.001721) * 100)
 
@@ -114,6 +125,9 @@ class PicoBoard(Board):
             self.time.sleep_ms(step)
             self.feed()
             ms -= step
+
+    def sleep_us(self, us):
+        self.time.sleep_us(us)  # the rest between read pairs of one measurement: always well under a millisecond or so
 
     def wait_input(self, ms):
         self.port.wait(ms)

@@ -40,8 +40,13 @@ class TSL2591:
         self.one = bytearray(1)
         self.integration = 0
         self.values = [0, 0]
-        if self._get(_ID) != DEVICE_ID:
-            raise OSError("no TSL2591 answers at I2C address 0x%02x: check SDA/SCL wiring and the address" % address)
+        try:
+            found = self._get(_ID)
+        except OSError as e:  # nothing acknowledges the address (ENODEV, ETIMEDOUT): say what to check
+            found = "no answer, %s" % e
+        if found != DEVICE_ID:
+            raise OSError("no TSL2591 answers at I2C address 0x%02x (%s): check SDA/SCL wiring and the address"
+                          % (address, found))
 
     def _get(self, reg):
         self.i2c.readfrom_mem_into(self.address, _CMD | reg, self.one)

@@ -54,13 +54,23 @@ def _mark_reply(lg, res):
     return {"boot": lg.boot_id, "seq": seq, "reads": reads, "dark": s.avg_dark[:n], "light": s.avg_light[:n]}
 
 
+def _room(lg, d):
+    """What the host needs to plan a run: free bytes, bytes per sample measured, time until full, measurement time."""
+    bps, full_in = lg.growth()
+    d["bytes_per_sample"] = bps
+    d["full_in_s"] = full_in
+    d["measure_ms"] = lg.measure_ms()
+    d["channels"] = lg.board.channels
+    return d
+
+
 def _hello(lg, tag, args):
     _nargs(args, 0, 0, "hello")
     j = lg.journal
-    return {"protocol": 1, "device": lg.board.device_id(), "board": lg.board.name, "firmware": VERSION,
+    return _room(lg, {"protocol": 1, "device": lg.board.device_id(), "board": lg.board.name, "firmware": VERSION,
             "boot": lg.boot_id, "uptime_ms": lg.now(), "journal": j.jid, "head": j.head, "tail": j.tail,
             "running": lg.running, "label": lg.settings["label"], "interval_ms": lg.settings["interval_ms"],
-            "free_bytes": j.free_bytes(), "settings_crc": lg.settings_crc}
+            "free_bytes": j.free_bytes(), "settings_crc": lg.settings_crc})
 
 
 def _anchor(lg, tag, args):
@@ -138,9 +148,9 @@ def _status(lg, tag, args):
         n = lg.board.channels
         s = lg.sampler
         last = {"seq": lg.last_seq, "dark": s.dark[:n], "light": s.light[:n], "reads": lg.settings["reads"]}
-    return {"uptime_ms": lg.now(), "running": lg.running, "samples": lg.samples, "last": last, "head": j.head,
-            "tail": j.tail, "free_bytes": j.free_bytes(), "used_bytes": j.head - j.tail,
-            "interval_ms": lg.settings["interval_ms"], "full": j.full, "missed_full": lg.missed_full}
+    return _room(lg, {"uptime_ms": lg.now(), "running": lg.running, "samples": lg.samples, "last": last,
+                      "head": j.head, "tail": j.tail, "free_bytes": j.free_bytes(), "used_bytes": j.head - j.tail,
+                      "interval_ms": lg.settings["interval_ms"], "full": j.full, "missed_full": lg.missed_full})
 
 
 def _set(lg, tag, args):

@@ -22,10 +22,14 @@ from nightcell_fw.link import LineReader, Frames
 from nightcell_fw.signals import Signals, Button, CODE_SETTINGS, CODE_FULL, CODE_ERROR
 from nightcell_fw import settings as S
 from nightcell_fw import commands
+from nightcell_fw.faults import Faults
 
 HEALTH_MIN_MS = const(600000)  # a HEALTH record rides on a block close at most every 10 min ...
 HEALTH_MAX_MS = const(3600000)  # ... and is forced after an hour
 _MAX_WAIT = const(1000)  # longest sleep between loop turns: the watchdog is fed every turn
+# an interval must leave this much beyond one measurement for the loop itself (schema/settings.json)
+from nightcell_fw.ranges import INTERVAL_MARGIN_MS as MARGIN_MS
+SERVE_MS = const(2000)  # longest time one loop turn answers requests before it feeds, samples and signals again
 HOLD_FILE = "/nc_hold"  # present at boot: stay in the REPL with the watchdog off, once (see main.py)
 
 
@@ -55,9 +59,21 @@ class Logger:
         self.missed_full = 0
         self.stop_mark = None
         self.resume_label = None  # a run that was going when the power went: its start mark is written first
-        self.errors = 0
+        self.faults = Faults()
+        self.unsampled = 0  # slots not measured (late loop or a fault) and not yet journaled as an EVENT 6
+        self.unsampled_at = 0  # uptime of the first of them
+        self.measured = False  # this loop turn took a sample without a fault
+        self.rate_head = -1  # journal bytes (head + open block) at the first sample of this run, for bytes/sample
+        self.rate_samples = 0
         self.settings_crc = 0
         self._apply()
+        try:
+            self._fits(settings)
+        except ValueError as e:  # a file written for a faster board: journaled (EVENT 2), and the interval made to fit
+            need = self.measure_ms() + MARGIN_MS
+            self.problem = "%s%s; interval_ms %d used" % (problem + "; " if problem else "", e, need)
+            self.settings = dict(settings, interval_ms=need)
+            self._apply()
 
     # -- settings ---------------------------------------------------------------------------------------------------
 
@@ -65,13 +81,14 @@ class Logger:
         s = self.settings
         self.text = S.canonical(s)
         self.settings_crc = R.crc32(self.text.encode("utf-8"))
-        self.sampler.configure(s["reads"], s["settle_ms"], self.board.channels, s["dark_limit"])
+        self.sampler.configure(s["reads"], s["settle_ms"], self.board.channels, s["dark_limit"], s["window_ms"])
         self.journal.segment_bytes = s["segment_bytes"]
 
     def change(self, key, value):
         """Validate and save one setting; sampling keys apply from the next sample, hardware keys after a reset."""
         S.check(key, value)
         new = S.validate(dict(self.settings, **{key: value}))
+        self._fits(new)
         self.close_block()
         S.save(self.root + "/settings.json", new)
         self.settings = new
@@ -84,6 +101,25 @@ class Logger:
         self.problem = None
         self.signals.clear(CODE_SETTINGS)
         return later
+
+    def measure_ms(self, s=None):
+        """Board ms one measurement takes with settings ``s`` (default: those in force) on this board."""
+        sm = self.sampler
+        if s is None:
+            return sm.duration_ms()
+        keep = (sm.reads, sm.settle_ms, sm.channels, sm.dark_limit, sm.window_ms)
+        sm.configure(s["reads"], s["settle_ms"], self.board.channels, s["dark_limit"], s["window_ms"])
+        ms = sm.duration_ms()
+        sm.configure(*keep)
+        return ms
+
+    def _fits(self, s):
+        ms = self.measure_ms(s)
+        if s["interval_ms"] < ms + MARGIN_MS:
+            raise ValueError("interval_ms %d is shorter than one measurement on this board (%d ms with reads=%d, "
+                             "settle_ms=%d, window_ms=%d) plus %d ms: choose at least %d, or fewer reads"
+                             % (s["interval_ms"], ms, s["reads"], s["settle_ms"], s["window_ms"], MARGIN_MS,
+                                ms + MARGIN_MS))
 
     # -- records ----------------------------------------------------------------------------------------------------
 
@@ -149,8 +185,6 @@ class Logger:
         if measure:
             self.board.before_measure(self.now())
             s.average(self.settings["marker_samples"], lit)
-            if self.running:
-                self.board.leds_on(True)
         self.close_block()
         seq = self.seq
         self.write(R.mark(self.enc, self.boot_id, seq, self.now(), kind, source, reads,
@@ -181,6 +215,8 @@ class Logger:
                        % (torn, restored), True)
         if j.full:
             self._full()
+        if b.fault:
+            self.on_error(OSError(b.fault))  # e.g. a sensor that did not answer: journaled, retried with back-off
         self.last_health = self.now()
         label = j._get_small("run")
         if label is not None:
@@ -200,11 +236,27 @@ class Logger:
         self._begin()
         return seq
 
+    def growth(self):
+        """(journal bytes per sample measured in this run, or None before 20 samples; seconds until the journal is
+        full at that rate and the interval in force, or None). Everything the run writes counts: blocks, events,
+        health records."""
+        n = self.samples - self.rate_samples
+        if self.rate_head < 0 or n < 20:
+            return None, None
+        bps = (self.journal.head + self.block.size - self.rate_head) / n
+        if bps <= 0:
+            return None, None
+        full_in = None
+        if self.running:
+            full_in = int(self.journal.free_bytes() / bps * self.settings["interval_ms"] / 1000)
+        return round(bps, 3), full_in
+
     def _begin(self):
+        self.rate_head = -1
         self.running = True
         self.signals.running = True
         self.sampler.restart()
-        self.board.leds_on(True)  # warm-up: the LED settles before the first sample
+        self.board.leds_off()  # the LED is lit only in a measurement's pulses (sampler.py): the same for marks
         self.sch.start(self.now() + self.settings["warmup_ms"], self.settings["interval_ms"])
 
     def stop_run(self, source):
@@ -224,18 +276,36 @@ class Logger:
         self.stop_mark = seq
         return seq
 
+    def _missed(self, n, t):
+        if n and not self.unsampled:
+            self.unsampled_at = t
+        self.unsampled += n
+
+    def skip(self, now):
+        """A slot is due inside a fault's back-off: count it as skipped (journaled when sampling works again)."""
+        sch = self.sch
+        t = sch.take(now)
+        self._missed(sch.skipped + 1, t - sch.skipped * sch.interval)
+
     def sample(self, now):
         sch = self.sch
         t = sch.take(now)
-        if sch.skipped:
-            self.event(R.EVENT_LATE, "%d samples skipped: the loop was %d ms late" % (sch.skipped, now - t + sch.skipped * sch.interval))
-            self.sampler.restart()
+        self._missed(sch.skipped, t - sch.skipped * sch.interval)
         b = self.board
-        b.before_measure(now)
+        try:
+            b.before_measure(now)
+            flags = self.sampler.measure()
+            temp = b.temperature()
+        except Exception:  # noqa: BLE001 — counted here, journaled by on_error
+            self._missed(1, t)
+            raise
+        self.measured = True
         late = now - t
-        flags = self.sampler.measure()
-        temp = b.temperature()
-        b.leds_on(True)
+        if self.unsampled:
+            n = self.unsampled
+            self.unsampled = 0
+            self.event(R.EVENT_LATE, "%d samples skipped: the loop was %d ms late" % (n, now - self.unsampled_at))
+            self.sampler.restart()
         if self.journal.full:
             self.missed_full += 1
             return
@@ -245,6 +315,9 @@ class Logger:
             self.resume_label = None
         blk = self.block
         s = self.settings
+        if self.rate_head < 0:
+            self.rate_head = self.journal.head + blk.size
+            self.rate_samples = self.samples
         if not blk.is_open():
             blk.open(self.boot_id, self.seq, t, sch.interval, s["reads"], b.channels, b.has_probe)
         blk.add(late, flags, self.sampler.dark, self.sampler.light, temp)
@@ -261,20 +334,34 @@ class Logger:
 
     # -- the loop ---------------------------------------------------------------------------------------------------
 
+    def serve(self):
+        """Answer what arrived, feeding the watchdog per request (a reply to a port nobody reads can block ~0.5 s),
+        until nothing waits, a sample is due, or ``SERVE_MS`` has passed."""
+        b = self.board
+        start = self.now()
+        while True:
+            line = self.lines.poll()
+            if line is None:
+                return
+            b.feed()
+            commands.handle(self, line)
+            b.feed()
+            now = self.now()
+            if self.running and self.sch.until(now) <= 0 or now - start >= SERVE_MS:
+                return
+
     def step(self):
         """One turn: feed the watchdog, sample if due, answer what arrived, then wait for input or the deadline."""
         b = self.board
         b.feed()
+        self.measured = False
         now = self.now()
         if self.running and self.sch.until(now) <= 0:
-            self.sample(now)
-        while True:
-            line = self.lines.poll()
-            if line is None:
-                break
-            commands.handle(self, line)
-            if self.running and self.sch.until(self.now()) <= 0:
-                break
+            if self.faults.waiting(now):
+                self.skip(now)
+            else:
+                self.sample(now)
+        self.serve()
         now = self.now()
         self.button.poll(self, now)
         self.signals.show(now)
@@ -291,25 +378,38 @@ class Logger:
 
     def run(self, turns=-1):
         """Loop forever (or ``turns`` times in tests); every exception is journaled, never printed."""
+        f = self.faults
         while turns != 0:
             turns -= 1
             try:
                 self.step()
-                self.errors = 0
+                if f.backoff and not f.waiting(self.now()) and (self.measured or not self.running):
+                    n = f.clear()  # a sample (or, idle, a turn) past the back-off without failing: the fault is gone
+                    if n:
+                        self.event(R.EVENT_EXCEPTION, "cleared after %d more failures since the last record" % n)
             except KeyboardInterrupt:
                 raise
             except Exception as e:  # noqa: BLE001 — the link must never see a traceback
                 self.on_error(e)
 
     def on_error(self, e):
-        self.errors += 1
+        """Show the fault (blink code 4), start or lengthen its back-off, and journal it once per back-off interval
+        with the count of repeats it stands for; never raises."""
         self.signals.set(CODE_ERROR)
         try:
-            self.event(R.EVENT_EXCEPTION, "%s: %s" % (type(e).__name__, e))
+            self.board.leds_off()
         except Exception:  # noqa: BLE001
             pass
-        if self.errors > 10:
-            self.board.sleep_ms(1000)  # a fault that repeats every turn: slow down, keep feeding the watchdog
+        f = self.faults
+        now = self.now()
+        if not f.failed(now):
+            return
+        n = f.journaled()
+        try:
+            self.event(R.EVENT_EXCEPTION, "%s: %s (%d more since the last record; retry in %d s)"
+                       % (type(e).__name__, e, n, f.backoff // 1000))
+        except Exception:  # noqa: BLE001 — a journal that cannot be written: still retried, still shown
+            pass
 
     def reset(self, hold=False):
         """Journal the reset (so it is not mistaken for a crash), then reset. With ``hold`` the next boot stays in the

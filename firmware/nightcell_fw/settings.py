@@ -13,41 +13,15 @@ Usage::
 import json
 import os
 from nightcell_fw.records import crc32
+from nightcell_fw import ranges as T
 
-# Must equal schema/settings_default.json (a test checks it).
-DEFAULTS = {
-    "board": "pico",
-    "label": "",
-    "interval_ms": 10000,
-    "reads": 16,
-    "settle_ms": 5,
-    "warmup_ms": 2000,
-    "marker_samples": 8,
-    "durability_ms": 10000,
-    "segment_bytes": 16384,
-    "dark_limit": 200,
-    "path_cm": 1.0,
-    "channels": [{"name": "main", "led": 15, "adc": 26}],
-    "reference_adc": None,
-    "temp_pin": None,
-    "button_pin": 16,
-    "status_led": "LED",
-    "i2c": {"sda": 21, "scl": 22, "sensor": "tsl2591", "address": 41},
-}
-
-BOARDS = ("pico", "pico2", "esp32", "sim")
+# The table of settings (keys, ranges, defaults) is schema/settings.json, copied into ranges.py by
+# schema/write_ranges.py; a test checks the copy is current and that settings_default.json says the same.
+DEFAULTS = T.DEFAULTS
+BOARDS = T.BOARDS
 # keys whose new value takes effect only after a reset (they choose pins and drivers)
-HARDWARE_KEYS = ("board", "channels", "reference_adc", "temp_pin", "button_pin", "status_led", "i2c")
-_RANGES = {
-    "interval_ms": (200, 86400000),
-    "reads": (1, 256),
-    "settle_ms": (0, 1000),
-    "warmup_ms": (0, 600000),
-    "marker_samples": (1, 64),
-    "durability_ms": (0, 3600000),
-    "segment_bytes": (1024, 262144),
-    "dark_limit": (0, 1 << 30),
-}
+HARDWARE_KEYS = T.HARDWARE_KEYS
+_RANGES = T.WHOLE
 
 
 def defaults():
@@ -59,9 +33,14 @@ def _is_int(v):
 
 
 def _pin(key, v, allow_name=False):
-    if v is None or _is_int(v) and 0 <= v < 256 or allow_name and isinstance(v, str) and 0 < len(v) <= 16:
+    lo, hi = T.PINS
+    if v is None or _is_int(v) and lo <= v <= hi or allow_name and isinstance(v, str) and 0 < len(v) <= T.PIN_NAME_MAX_BYTES:
         return
     raise ValueError("%s must be a pin number%s or null, not %s" % (key, " or name" if allow_name else "", _show(v)))
+
+
+def _num(x):
+    return ("%d" % x) if x == int(x) else repr(x)
 
 
 def _show(v):
@@ -79,32 +58,41 @@ def check(key, v):
         if v not in BOARDS:
             raise ValueError("board must be one of %s, not %s" % (", ".join(BOARDS), _show(v)))
     elif key == "label":
-        if not isinstance(v, str) or len(v.encode("utf-8")) > 32:
-            raise ValueError("label must be text of at most 32 bytes")
-    elif key == "path_cm":
-        if not isinstance(v, (int, float)) or isinstance(v, bool) or not 0.01 <= v <= 10:
-            raise ValueError("path_cm must be a number from 0.01 to 10, not %s" % _show(v))
+        if not isinstance(v, str) or len(v.encode("utf-8")) > T.LABEL_MAX_BYTES:
+            raise ValueError("label must be text of at most %d bytes" % T.LABEL_MAX_BYTES)
+    elif key in T.NUMBERS:
+        least, most = T.NUMBERS[key]
+        if not isinstance(v, (int, float)) or isinstance(v, bool) or not least <= v <= most:
+            raise ValueError("%s must be a number from %s to %s, not %s" % (key, _num(least), _num(most), _show(v)))
     elif key == "channels":
-        if not isinstance(v, list) or not 1 <= len(v) <= 4:
-            raise ValueError("channels must be a list of 1 to 4 {name, led, adc} objects")
+        lo, hi = T.CHANNELS
+        if not isinstance(v, list) or not lo <= len(v) <= hi:
+            raise ValueError("channels must be a list of %d to %d {name, led, adc} objects" % (lo, hi))
         for ch in v:
             if not isinstance(ch, dict) or sorted(ch.keys()) != ["adc", "led", "name"]:
                 raise ValueError("each channel must be an object with exactly name, led and adc")
-            if not isinstance(ch["name"], str) or not 0 < len(ch["name"].encode("utf-8")) <= 16:
-                raise ValueError("a channel name must be text of 1 to 16 bytes")
+            if not isinstance(ch["name"], str) or not 0 < len(ch["name"].encode("utf-8")) <= T.NAME_MAX_BYTES:
+                raise ValueError("a channel name must be text of 1 to %d bytes" % T.NAME_MAX_BYTES)
             _pin("channel led", ch["led"])
-            if not _is_int(ch["adc"]) or not 0 <= ch["adc"] < 256:
+            if not _is_int(ch["adc"]) or not T.PINS[0] <= ch["adc"] <= T.PINS[1]:
                 raise ValueError("a channel's adc must be a pin or sensor channel number, not %s" % _show(ch["adc"]))
     elif key in ("reference_adc", "temp_pin", "button_pin"):
         _pin(key, v)
     elif key == "status_led":
         _pin(key, v, True)
+    elif key == "dither_pins":
+        if not isinstance(v, list) or len(v) > T.DITHER_PINS_MAX:
+            raise ValueError("dither_pins must be a list of at most %d pin numbers" % T.DITHER_PINS_MAX)
+        for p in v:
+            if p is None:
+                raise ValueError("dither_pins must be pin numbers, not null")
+            _pin("dither pin", p)
     elif key == "i2c":
         if not isinstance(v, dict) or sorted(v.keys()) != ["address", "scl", "sda", "sensor"]:
             raise ValueError("i2c must be an object with exactly sda, scl, sensor and address")
         _pin("i2c sda", v["sda"])
         _pin("i2c scl", v["scl"])
-        if v["sensor"] != "tsl2591":
+        if v["sensor"] not in T.SENSORS:
             raise ValueError("i2c sensor must be tsl2591 (the one this firmware drives)")
         if not _is_int(v["address"]) or not 0 < v["address"] < 128:
             raise ValueError("i2c address must be a 7-bit number")

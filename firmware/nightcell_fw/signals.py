@@ -5,8 +5,10 @@ Blink codes (ours): the LED flashes N times, then stays dark, every 3 s, for the
 last minute (it is in the journal). With nothing to report the LED gives one short blink every 3 s while a run is
 going, and stays dark when idle.
 
-Button: a short press journals a note mark from the button; a press held for 1.5 s starts or stops a run (acted on
-while still held, so the user sees the LED answer).
+Button: a short press journals a note mark from the button; a press held for 1.5 s starts a run (acted on while
+still held, so the user sees the LED answer). One long press never stops a run (a leaning object must not end a
+week of logging): during a run the first long press arms the stop (journaled as a note "stop armed") and only a
+second long press within 5 s stops it.
 
 Usage::
 
@@ -25,6 +27,7 @@ _STEP = const(400)
 _ERROR_MS = const(60000)
 _LONG_MS = const(1500)
 _DEBOUNCE_MS = const(40)
+_ARMED_MS = const(5000)  # the second long press that stops a run must come within this time of the first
 
 
 class Signals:
@@ -76,6 +79,7 @@ class Button:
         self.done = False
         self._raw = False
         self._since = 0
+        self.armed_at = -1  # uptime of the long press that armed a stop, -1 when none
 
     def poll(self, lg, now):
         if not self.board.has_button:
@@ -93,10 +97,14 @@ class Button:
                 self.done = False
             elif not self.done and now - self.down_at >= _LONG_MS:
                 self.done = True
-                if lg.running:
+                if not lg.running:
+                    lg.start_run(1, "button")
+                elif self.armed_at >= 0 and now - self.armed_at <= _ARMED_MS:
+                    self.armed_at = -1
                     lg.stop_run(1)
                 else:
-                    lg.start_run(1, "button")
+                    self.armed_at = now
+                    lg.mark(6, 1, "stop armed", "", measure=False)
         elif self.down_at >= 0:
             if not self.done:
                 lg.mark(6, 1, "button", "", measure=False)

@@ -13,6 +13,7 @@ __all__ = [
     "DeviceTimeout",
     "DeviceError",
     "ProtocolError",
+    "RecordConflict",
     "StoreError",
     "SchemaTooNew",
     "AnalysisError",
@@ -23,6 +24,7 @@ __all__ = [
     "TooFewPoints",
     "DegenerateData",
     "OutsideCalibration",
+    "SuspectData",
 ]
 
 
@@ -60,6 +62,10 @@ class ProtocolError(NightcellError):
     """Bytes from the board could not be understood even after retries."""
 
     exit_code = 3
+
+
+class RecordConflict(ProtocolError):
+    """A board's records carry the keys of rows already stored, with other content (another journal's keys)."""
 
 
 class StoreError(NightcellError):
@@ -104,3 +110,7 @@ class DegenerateData(AnalysisError):
 
 class OutsideCalibration(AnalysisError):
     """A reading has no concentration on the calibration curve (beyond a quadratic's turning point)."""
+
+
+class SuspectData(AnalysisError):
+    """The data look wrong (a blocked blank, standards that do not rise): refused unless the user confirms."""

@@ -6,10 +6,12 @@ against a blank. The true value is then checked against the 95 % Student-t inter
 Goal: coverage between 93.5 % and 96.5 % (binomial SD at 2000 runs ≈ 0.5 %). All data are synthetic (invented
 numbers, fixed seeds).
 
-Campaigns:
-- k of first_order_plateau, weighted by optics' weights (T²); the unweighted coverage is reported beside it.
+Campaigns (every interval: value ± t·SE with Student t of the fit's own degrees of freedom):
+- k of first_order_plateau, weighted by optics' weights (T²); the unweighted coverage is reported beside it;
+  and k of the law ranked best by AICc among every candidate (``fit_all``), as ``rate`` reports it.
 - concentration predicted from a straight-line calibration (6 levels × 2 replicates; unknown read 3 times).
-- Ea from an Arrhenius design (5 temperatures; each k fitted from a simulated run, weighted by its SE).
+- Ea from an Arrhenius design (5 temperatures; each k fitted from a simulated run, weighted by its SE), and from
+  3 temperatures (1 dof: t = 12.7), with the one SE rule of ``study.SE_RULE``.
 
 Usage: python tests/bench/bench_coverage.py [--quick]
 """
@@ -46,7 +48,8 @@ def _row(name: str, hits: int, runs: int) -> dict:
 def coverage_k(runs: int, seed: int = 11) -> list[dict]:
     rng = np.random.default_rng(seed)
     t = np.arange(0.0, 900.0, 10.0)
-    hits_w = hits_u = 0
+    hits_w = hits_u = hits_aicc = 0
+    chosen: dict[str, int] = {}
     for _ in range(runs):
         k = rng.uniform(0.003, 0.012)
         true_a = 0.1 + 0.8 * np.exp(-k * t)
@@ -57,7 +60,16 @@ def coverage_k(runs: int, seed: int = 11) -> list[dict]:
         fit_u = kinetics.fit_model(t, res.absorbance, "first_order_plateau", mask=res.mask)
         lo, hi = fit_u.confint("k")
         hits_u += lo <= k <= hi
-    rows = [_row("coverage_k_first_order_plateau_weighted", hits_w, runs)]
+        best = kinetics.fit_all(t, res.absorbance, mask=res.mask, weights=res.weights).best
+        chosen[best.model] = chosen.get(best.model, 0) + 1
+        if "k" in best.values:
+            lo, hi = best.confint("k")
+            hits_aicc += lo <= k <= hi
+    rows = [_row("coverage_k_first_order_plateau_weighted", hits_w, runs),
+            _row("coverage_k_best_by_AICc_weighted", hits_aicc, runs),
+            {"name": "models chosen by AICc (k campaign)", "value": ", ".join(f"{m}: {c}" for m, c in
+                                                                                 sorted(chosen.items())),
+             "goal": None, "ok": None}]
     rows.append({"name": "coverage_k_first_order_plateau_unweighted", "value": hits_u / runs,
                  "goal": "report (A noise is not constant, so unweighted SEs are expected to be off)", "ok": True})
     return rows
@@ -76,11 +88,12 @@ def coverage_calibration(runs: int, seed: int = 12) -> list[dict]:
     return [_row("coverage_calibrated_concentration", hits, runs)]
 
 
-def coverage_arrhenius(runs: int, seed: int = 13) -> list[dict]:
+def coverage_arrhenius(runs: int, seed: int = 13, temps: tuple[float, ...] = (288.0, 298.0, 308.0, 318.0, 328.0),
+                       name: str = "coverage_Ea_arrhenius") -> list[dict]:
     rng = np.random.default_rng(seed)
-    temps = np.array([288.0, 298.0, 308.0, 318.0, 328.0])
+    temps_a = np.array(temps)
     ea, ln_a = 60_600.0, math.log(2.0e8)  # Ea of the size reported for crystal violet fading (REFERENCES: Sci. Rep. 2020)
-    ks = np.exp(ln_a - ea / (study.GAS_CONSTANT * temps))
+    ks = np.exp(ln_a - ea / (study.GAS_CONSTANT * temps_a))
     t = np.arange(0.0, 900.0, 10.0)
     hits = 0
     for _ in range(runs):
@@ -90,16 +103,17 @@ def coverage_arrhenius(runs: int, seed: int = 13) -> list[dict]:
             fit = kinetics.fit_model(t, res.absorbance, "first_order_plateau", mask=res.mask, weights=res.weights)
             k_fit.append(fit.param("k"))
             k_se.append(fit.se("k"))
-        arr = study.arrhenius(temps, k_fit, k_se)
+        arr = study.arrhenius(temps_a, k_fit, k_se)
         lo, hi = arr.confint("Ea_J_per_mol")
         hits += lo <= ea <= hi
-    return [_row("coverage_Ea_arrhenius", hits, runs)]
+    return [_row(name, hits, runs)]
 
 
 def run(quick: bool) -> list[dict]:
     """All campaigns; rows {name, value, goal, ok}."""
     runs = 300 if quick else 2000
-    return coverage_k(runs) + coverage_calibration(runs) + coverage_arrhenius(runs)
+    return (coverage_k(runs) + coverage_calibration(runs) + coverage_arrhenius(runs)
+            + coverage_arrhenius(runs, 14, (293.0, 308.0, 323.0), "coverage_Ea_arrhenius_3_temperatures_t12.7"))
 
 
 if __name__ == "__main__":  # the same as: python tests/bench/run.py --only NAME [--quick] [--json]

@@ -23,11 +23,8 @@ import tempfile
 import time
 from pathlib import Path
 
-HERE = Path(__file__).resolve().parent
-if str(HERE.parent) not in sys.path:
-    sys.path.insert(0, str(HERE.parent))
-
-from dashboard_harness import boards, browser, browser_missing, page_server, tile_absorbance_js  # noqa: E402
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the shared support package
+from support.dashboard import boards, browser, browser_missing, page_server, tile_absorbance_js
 
 LEVELS = (0.10, 0.40, 0.70, 0.25, 0.55)  # each differs from the one before by ≥ 0.15
 INTERVAL_MS = 200

@@ -26,10 +26,12 @@ import click
 
 from .. import __version__
 from ..errors import DeviceError, InputError
-from .options import EXIT_CODES, FINITE, Finite, db_option, inert, link_settings, friendly, json_option, open_reading, open_writing, port_option
+from ..wire import settings as _settings
+from .options import (EXIT_CODES, FINITE, Finite, accept_suspect_option, db_option, friendly, inert, json_option,
+                      link_settings, open_reading, open_writing, port_option)
 from .options import emit as _emit
 
-__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "EXIT_CODES", "open_reading",
+__all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "accept_suspect_option", "EXIT_CODES", "open_reading",
            "open_writing"]
 
 
@@ -96,9 +98,6 @@ def demo(out: Path, force: bool, interpreter: str, as_json: bool) -> None:
 
 # -- a simulated board to try every command on -----------------------------------------------------------------------
 
-SIM_DEVICE = "5e1fc0ffee000001"
-
-
 def _sim_folder(path: Path) -> Path:
     if path.exists() and not path.is_dir():
         raise InputError(f"{path} is a file: give --dir a folder for the simulated board's flash and cuvette")
@@ -132,19 +131,20 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
     """
     import time
 
-    from ..sim.board import SimulatedBoard, announce, remember_port, remembered_port, withdraw
+    from ..sim.board import SimulatedBoard, announce, folder_device_id, remember_port, remembered_port, withdraw
 
-    last = remembered_port(folder) if folder.is_dir() else {}
+    device = folder_device_id(_sim_folder(folder), create=True)  # its own id, kept in the folder
+    last = remembered_port(folder)
     wanted = tcp_port if tcp_port is not None else int(last.get("tcp_port") or 0)
     try:
-        sim = SimulatedBoard(_sim_folder(folder), device=SIM_DEVICE, speed=speed, interpreter=interpreter,
+        sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter,
                              link=link, tcp_port=wanted)
         sim.start()
     except OSError as exc:
         if tcp_port is not None or not wanted:
             raise InputError(f"cannot serve the simulated board on TCP port {wanted} ({exc.strerror or exc}): "
                              "give another --tcp-port, or 0 for any free one") from None
-        sim = SimulatedBoard(folder, device=SIM_DEVICE, speed=speed, interpreter=interpreter, link=link)
+        sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter, link=link)
         sim.start()  # last time's port is taken now: any free one, and say so below
     remember_port(sim)
     announce(sim)
@@ -153,7 +153,7 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
         if last.get("url") and last["url"] != sim.url:
             click.echo(f"the port changed since the last run in {folder} (it was {last['url']}): set NIGHTCELL_PORT "
                        "again, or find it with `nightcell boards`")
-        click.echo(f"simulated board {SIM_DEVICE} running the firmware in {sim.interpreter}, clock x{speed:g}; "
+        click.echo(f"simulated board {device} running the firmware in {sim.interpreter}, clock x{speed:g}; "
                    f"its cuvette holds {sim.cell_path.name} in {sim.workdir}")
         click.echo(f"try: NIGHTCELL_PORT={sim.url} nightcell hello   — Ctrl-C switches the board off")
         sys.stdout.flush()
@@ -187,11 +187,12 @@ def sim_cuvette(folder: Path, absorbance: float | None, fading: str | None, bloc
     """
     import math
 
-    from ..sim.board import SimulatedBoard
+    from ..sim.board import SimulatedBoard, folder_device_id
 
     if sum([absorbance is not None, fading is not None, blocked]) != 1:
         raise InputError("give exactly one of --absorbance, --fading A0:A_END:K or --blocked")
-    if not (_sim_folder(folder) / f"{SIM_DEVICE}.cell.json").exists():
+    device = folder_device_id(_sim_folder(folder), create=False)
+    if device is None or not (folder / f"{device}.cell.json").exists():
         raise InputError(f"no simulated board in {folder}: start one with `nightcell sim-board --dir {folder}`")
     if absorbance is not None:
         if not math.isfinite(absorbance) or not -0.1 <= absorbance <= 5.0:
@@ -207,7 +208,7 @@ def sim_cuvette(folder: Path, absorbance: float | None, fading: str | None, bloc
         content = {"reaction": {"a0": a0, "a_inf": a_end, "k_per_s": k}}
     else:
         content = {"opaque": True}
-    SimulatedBoard(folder, device=SIM_DEVICE).set_cell(content)
+    SimulatedBoard(folder, device=device).set_cell(content)
     _emit(content, as_json, f"the simulated cuvette now holds {json.dumps(content)}")
 
 
@@ -240,17 +241,22 @@ def hello(port: str, as_json: bool) -> None:
 
     Example: nightcell hello --port /dev/ttyACM0
     """
+    from ..tasks.room import human_duration
+
     with _connected(port) as (_, info):
         pass
     text = "\n".join(f"{k}: {v}" for k, v in sorted(info.items()))
+    if info.get("full_in_s") is not None:
+        text += f"\njournal full in: {human_duration(float(info['full_in_s']))} at this interval (board's estimate)"
     _emit(info, as_json, text)
 
 
-# Host-side checks of the settings `setup` changes: the ranges of schema/settings.md (a test compares them).
-SETTING_RANGES_MS = {"interval_ms": (200, 86_400_000), "warmup_ms": (0, 600_000), "durability_ms": (0, 3_600_000)}
-SETTING_RANGES = {"reads": (1, 256), "path_cm": (0.01, 10.0)}
-LABEL_MAX_BYTES = 32
-MAX_CHANNELS = 4
+# Host-side checks of the settings `setup` changes, from the one settings table (schema/settings.json).
+SETTING_RANGES_MS = {k: _settings.whole_range(k) for k in ("interval_ms", "warmup_ms", "durability_ms")}
+SETTING_RANGES: dict[str, tuple[float, float]] = {"reads": _settings.whole_range("reads"),
+                                                  "path_cm": _settings.number_range("path_cm")}
+LABEL_MAX_BYTES = _settings.label_max_bytes()
+MAX_CHANNELS = _settings.max_channels()
 
 
 def _seconds_to_ms(key: str, seconds: float | None) -> int | None:
@@ -352,6 +358,14 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
     after_reset: list[str] = []
     reply: dict[str, Any] = {}
     with _connected(port) as (board, info):
+        measure = info.get("measure_ms")
+        if "interval_ms" in changes and measure is not None and "reads" not in changes:
+            need = int(measure) + _settings.interval_margin_ms()
+            if changes["interval_ms"] < need:
+                raise InputError(f"--interval {changes['interval_ms'] / 1000:g} s is shorter than one measurement "
+                                 f"on {info['device']} ({int(measure)} ms with its reads, settle and window) plus "
+                                 f"{_settings.interval_margin_ms()} ms: choose at least {need / 1000:g} s, or fewer "
+                                 "--reads")
         for key, value in changes.items():
             reply = board.set(key, value)
             applied[key] = value
@@ -392,17 +406,40 @@ def _mark_text(device: str, kind: str, reply: dict[str, Any], label: str) -> str
     return f"{device}: {kind}{shown} journaled as {reply['boot']}:{reply['seq']} — {counts} (counts per read)"
 
 
+def _blank_check(device: str, reply: dict[str, Any], accept_suspect: bool) -> list[str]:
+    """Problems of a blank just journaled (``optics.blank_problems``), as text; raises ``SuspectData`` unless
+    ``accept_suspect``. The mark stays on the board as taken: raw data is kept, and analyses flag or refuse it."""
+    from ..errors import SuspectData
+    from ..science.optics import blank_problems
+
+    reads = max(1, int(reply.get("reads") or 1))
+    problems = []
+    for c, (li, d) in enumerate(zip(reply.get("light", []), reply.get("dark", []))):
+        problems += [f"channel {c}: {p}" for p in blank_problems(li / reads, d / reads)]
+    if problems and not accept_suspect:
+        raise SuspectData(f"{device}: blank {reply['boot']}:{reply['seq']} looks wrong — {problems[0]}. It is "
+                          "journaled as taken (raw data is kept) but analyses will refuse it: clear the light path "
+                          "and take the blank again, or pass --accept-suspect to use it anyway")
+    return problems
+
+
 def _measure_command(kind: str, doc: str) -> click.Command:
     @port_option
     @click.option("--label", default="", help="A note kept with this mark, e.g. the cuvette's content.")
     @json_option
     @friendly
-    def command(port: str, label: str, as_json: bool) -> None:
+    def command(port: str, label: str, as_json: bool, accept_suspect: bool = False) -> None:
         _check_text("label", label, kind)
         with _connected(port) as (board, info):
             reply = board.mark(kind, label)
-        _emit(dict(reply, device=info["device"], mark=kind, label=label), as_json,
-              _mark_text(info["device"], kind, reply, label))
+        problems = _blank_check(info["device"], reply, accept_suspect) if kind == "blank" else []
+        text = _mark_text(info["device"], kind, reply, label)
+        if problems:
+            text += "\nsuspect blank kept as confirmed (--accept-suspect): " + "; ".join(problems)
+        _emit(dict(reply, device=info["device"], mark=kind, label=label, suspect=problems), as_json, text)
+
+    if kind == "blank":
+        command = accept_suspect_option(command)
 
     command.__doc__ = doc
     return cli.command(kind)(command)
@@ -425,25 +462,38 @@ _measure_command("opaque", """Measure with the light path blocked and journal an
 @cli.command()
 @port_option
 @click.argument("value")
-@click.option("--label", default="", help="A note kept with this standard, e.g. its name and unit.")
+@click.option("--label", default="", help="A note kept with this standard, e.g. its name.")
+@click.option("--unit", default="", help="The concentration unit, e.g. µM or mg/L (kept in the mark's label as "
+              "unit=…, printed with every result).")
+@click.option("--set", "set_name", default="", metavar="NAME",
+              help="Put this standard in the calibration set NAME (kept in the label as set=…); default: the "
+                   "standards after the latest blank form a set.")
 @json_option
 @friendly
-def standard(port: str, value: str, label: str, as_json: bool) -> None:
-    """Measure a standard of known concentration VALUE (as typed, any unit) and journal a standard mark.
+def standard(port: str, value: str, label: str, unit: str, set_name: str, as_json: bool) -> None:
+    """Measure a standard of known concentration VALUE (as typed) and journal a standard mark.
 
-    Example: nightcell standard --port /dev/ttyACM0 2.0 --label "dye 2 µM"
+    Example: nightcell standard --port /dev/ttyACM0 2.0 --unit µM --label "dye"
     """
     try:
         number = float(value)
         ok = len(value) <= 32 and all(c in "0123456789.+-eE" for c in value)
     except ValueError:
         number, ok = 0.0, False
-    if ok and not (math.isfinite(number) and 0.0 <= number < 1e50):
+    if ok and not (math.isfinite(number) and abs(number) < 1e50):
         raise InputError(f"the standard's VALUE {value!r} is not a usable concentration: give a finite number of "
                          "0 or more, e.g. 0.250")
     if not ok:
         raise InputError(f"the standard's VALUE must be a decimal number as typed, e.g. 0.250, not {value!r} "
-                         "(put the unit in --label)")
+                         "(give the unit with --unit)")
+    if number < 0:
+        raise InputError(f"the standard's VALUE {value} is a negative concentration: a standard holds zero or more "
+                         "of the analyte — type its concentration (nothing was measured or journaled)")
+    for what, text in (("--unit", unit), ("--set", set_name)):
+        if any(ch.isspace() for ch in text):
+            raise InputError(f"{what} {text!r} must be one word without spaces, e.g. µM")
+    label = " ".join(p for p in (label.strip(), f"unit={unit}" if unit else "", f"set={set_name}" if set_name
+                                 else "") if p)
     _check_text("label", label, "standard")
     with _connected(port) as (board, info):
         reply = board.mark("standard", label, value=value)
@@ -454,23 +504,42 @@ def standard(port: str, value: str, label: str, as_json: bool) -> None:
 @cli.command()
 @port_option
 @click.option("--label", default="", help="The run's label, e.g. what is in the cuvette.")
+@click.option("--for", "planned", default=None, metavar="DURATION",
+              help="How long the run is meant to last, e.g. 7d, 36h, 90m: refused unless the journal has room.")
+@click.option("--even-if-short", is_flag=True,
+              help="Start even though the journal fills before --for is over (logging stops when it is full).")
 @json_option
 @friendly
-def start(port: str, label: str, as_json: bool) -> None:
-    """Start a run: the LED warms up, then the board samples at its interval until `stop`, unattended.
+def start(port: str, label: str, planned: str | None, even_if_short: bool, as_json: bool) -> None:
+    """Start a run: after the warm-up wait the board samples at its interval until `stop`, unattended.
 
-    Example: nightcell start --port /dev/ttyACM0 --label "dye fading 25 °C"
+    With --for, the board's free journal space and its measured bytes per sample are checked first, and a run that
+    would not fit is refused with the longest run that fits and the interval that would fit.
+
+    Example: nightcell start --port /dev/ttyACM0 --label "dye fading 25 °C" --for 7d
     """
+    from ..tasks.room import human_duration, parse_duration, plan_run
+
     _check_text("label", label, "start")
+    seconds = parse_duration(planned) if planned is not None else None
     with _connected(port) as (board, info):
         if info.get("running"):
             raise InputError(f"{info['device']} is already logging a run: stop it first with `nightcell stop`, "
                              "or leave it running")
+        room = plan_run(info, seconds) if seconds is not None else None
+        if room is not None and not room.fits and not even_if_short:
+            raise InputError(room.message())
         reply = board.start(label)
     run_key = f"{info['device']}:{reply['boot']}:{reply['seq']}"
     text = (f"{info['device']}: run {run_key} started{' ' + repr(label) if label else ''}, a sample every "
             f"{int(info.get('interval_ms', 0)) / 1000:g} s; you may unplug the host now")
-    _emit(dict(reply, device=info["device"], run=run_key, label=label), as_json, text)
+    if room is not None:
+        text += (f"\nthe journal holds about {human_duration(room.seconds_that_fit)} at this interval"
+                 + ("" if room.fits else f": it fills before the planned {human_duration(room.seconds_wanted)}"))
+    out = dict(reply, device=info["device"], run=run_key, label=label)
+    if room is not None:
+        out["room"] = room.to_dict()
+    _emit(out, as_json, text)
 
 
 @cli.command()
@@ -741,10 +810,11 @@ def _concentration(text: str) -> tuple[str, float]:
               help="A starting concentration in mol/L, e.g. hydroxide=0.02 (repeat for each reactant).")
 @click.option("--source", default="typed in by the user", show_default=True,
               help="Where the values come from, e.g. 'bench sheet' (kept beside each value).")
+@accept_suspect_option
 @json_option
 @friendly
 def condition(db: Path, run_text: str | None, temperature_c: float | None, temperature_k: float | None,
-              concentrations: tuple[str, ...], source: str, as_json: bool) -> None:
+              concentrations: tuple[str, ...], source: str, accept_suspect: bool, as_json: bool) -> None:
     """Record a run's conditions (temperature, starting concentrations) for studies of order and activation energy.
 
     Example: nightcell condition --db class.db --run "fading 1" --temperature-c 25 --conc hydroxide=0.02
@@ -763,8 +833,10 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
         raise InputError("nothing to record: give --temperature-c/--temperature-k and/or --conc REACTANT=MOLAR")
     with open_writing(db) as store:
         run = resolve_run(store, run_text)
+        for quantity, value in values:  # every value checked before any is written
+            set_run_condition(store, run, quantity, value, source, accept_suspect=accept_suspect, check_only=True)
         for quantity, value in values:
-            set_run_condition(store, run, quantity, value, source)
+            set_run_condition(store, run, quantity, value, source, accept_suspect=accept_suspect)
         recorded = run_conditions(store, run).get(run.key, {})
     text = "\n".join(f"{run.key} {q} = {v['value']:g} ({v['source']})" for q, v in sorted(recorded.items()))
     _emit({"run": run.key, "conditions": recorded}, as_json, text)
@@ -780,12 +852,16 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the HTML pages and figures.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
-@click.option("--level", type=float, default=0.95, show_default=True,
+@click.option("--level", type=Finite(0.0, 1.0, open_ends=True), default=0.95, show_default=True,
               help="Confidence level of the calibration's intervals and prediction band.")
+@click.option("--blank", "blank", metavar="KEY|LABEL", default=None,
+              help="With --run: read the run against this blank (its key boot:seq or its label) instead of the "
+                   "nearest one before it.")
+@accept_suspect_option
 @json_option
 @friendly
 def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Path, channel: int, level: float,
-           as_json: bool) -> None:
+           blank: str | None, accept_suspect: bool, as_json: bool) -> None:
     """Write self-contained HTML reports (figures embedded; each figure also as PNG and SVG): one per run, or a
     study over several runs with their recorded conditions (see `nightcell condition`).
 
@@ -799,6 +875,8 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
 
     if sum([all_runs, bool(run_text), study]) > 1:
         raise InputError("give one of --run, --all or --study")
+    if blank is not None and (all_runs or study):
+        raise InputError("--blank names the blank of one run: give it with --run")
     done = Written()
     if study:
         with open_reading(db) as store, all_or_nothing():
@@ -812,7 +890,7 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
             raise InputError(f"{db} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
         for run in runs:
             try:
-                one = run_report(store, run, out, channel, level=level)
+                one = run_report(store, run, out, channel, level=level, blank=blank, accept_suspect=accept_suspect)
             except AnalysisError as exc:
                 if not all_runs:
                     raise

@@ -12,8 +12,13 @@ port, or leave a half-written file.
 CSV layouts (header row required, comma-separated, extra columns ignored):
 
 - calibrate: ``concentration,absorbance`` [``weight``] [``replicate`` — a label; replicates are recognised by
-  equal concentration].
-- rate: ``time_s,absorbance`` (times strictly increasing).
+  equal concentration]; a percent-transmittance column (``%T``) may stand in for ``absorbance`` (read_table
+  converts it).
+- rate: ``time_s,absorbance`` (times strictly increasing) [``weight`` — relative weights, as the run export
+  writes them (T², what ``rate --db`` uses; 0 for flagged readings); without it the fit is unweighted] [``flags``
+  — rows with flags other than 0 are left out, as ``rate --db`` leaves them out].
+- An ``absorbance`` column whose values all lie within 0–100 with some above 4 looks like %T: refused (exit 2)
+  unless ``--accept-suspect``.
 - orders: one row per run: ``initial_rate`` [``rate_se``] and one ``conc_<name>`` column per reactant; with ``--db``,
   ``run`` (key or label) instead of ``initial_rate``: each run's initial rate comes from its readings.
 - arrhenius: ``temperature_K,k`` [``k_se``]; with ``--db``, ``run`` [``temperature_K``] instead: k comes from the
@@ -30,8 +35,8 @@ from typing import TYPE_CHECKING, Any, Callable, Sequence
 import click
 
 from ..errors import InputError
-from ..science.laws import MODELS
-from .options import FINITE, Finite, friendly, inert, json_option, open_writing
+from ..science.laws import ALL_MODELS, MODELS
+from .options import FINITE, Finite, accept_suspect_option, friendly, inert, json_option, open_writing
 
 if TYPE_CHECKING:
     import numpy as np
@@ -58,7 +63,7 @@ def read_columns(
 
 
 # Beyond these no reading of a colorimeter or rate constant lies, and the fits' arithmetic would overflow.
-_LIMITS = {"absorbance": 50.0, "k": 1e50, "k_se": 1e50, "initial_rate": 1e50, "rate_se": 1e50, "weight": 1e50,
+_LIMITS = {"absorbance": 1000.0, "k": 1e50, "k_se": 1e50, "initial_rate": 1e50, "rate_se": 1e50, "weight": 1e50,
            "concentration": 1e50, "time_s": 1e12, "temperature_K": 1e5}
 
 
@@ -93,6 +98,28 @@ def _keep(ctx: click.Context, param: click.Parameter, value: Any) -> Any:
         value = "\t"
     ctx.meta.setdefault("nightcell.table", {})[param.name] = value
     return value
+
+
+def _absorbance_columns(path: Path, first: str, optional: Sequence[str], *, min_rows: int,
+                        accept_suspect: bool) -> tuple[dict[str, np.ndarray], str]:
+    """``first`` and ``absorbance`` of a CSV (a %T column converted by read_table), and how A was obtained.
+
+    Values in an ``absorbance`` column that look like percent transmittance (all within 0–100, some above 4) are
+    refused unless ``accept_suspect``: an LED photometer rarely reads A above 3 (common practice)."""
+    import numpy as np
+
+    notes: list[str] = []
+    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append)
+    for line in notes:
+        click.echo(line, err=True)
+    if any("percent transmittance" in line for line in notes):
+        return cols, "converted from percent transmittance: A = 2 − log10(%T)"
+    a = cols["absorbance"]
+    if a.size and np.all((a >= 0) & (a <= 100)) and a.max() > 4 and not accept_suspect:
+        raise InputError(f"{path}: column absorbance holds values up to {a.max():g}, which look like percent "
+                         "transmittance (0–100), not absorbance (rarely above 3): if they are %T, name the column "
+                         "%T and nightcell converts them (A = 2 − log10 %T); if they are right, pass --accept-suspect")
+    return cols, "column absorbance"
 
 
 def _out_folder_exists(ctx: click.Context, param: click.Parameter, out: Path | None) -> Path | None:
@@ -188,88 +215,170 @@ def _only_device(store: Any, device: str | None) -> str:
 @_db_option
 @click.option("--device", default=None, help="With --db: the device whose standards to fit (default: the only one).")
 @_channel_option
+@click.option("--set", "set_name", default=None, metavar="NAME",
+              help="With --db: the calibration set to fit (its set=NAME label, or the blank key it follows); "
+                   "default: the latest set.")
+@click.option("--unit", default=None, help="Concentration unit of the standards, e.g. µM (with --db: when the "
+              "standards were journaled without one).")
 @click.option("--quadratic", is_flag=True, help="Fit a quadratic instead of a straight line.")
 @click.option("--through-origin", is_flag=True, help="Fit without an intercept.")
 @click.option("--reading", "readings", type=FINITE, multiple=True,
               help="Absorbance of an unknown; repeat for replicate readings. Prints its concentration.")
-@click.option("--path-cm", type=Finite(0.001, 100.0, unit="cm"), default=None, help="Path length (cm) to report the molar absorptivity.")
+@click.option("--path-cm", type=Finite(0.001, 100.0, unit="cm"), default=None,
+              help="Path length (cm) for the molar absorptivity (with --db: default the board's path_cm setting).")
 @click.option("--blank-sd", type=Finite(0.0), default=None,
               help="SD of repeated blank absorbances; LOD/LOQ then use it as σ.")
 @click.option("--level", type=Finite(0.0, 1.0, open_ends=True), default=0.95,
               show_default=True, help="Confidence level of intervals, between 0 and 1 (e.g. 0.95).")
+@accept_suspect_option
 @json_option
 @_out_option
 @friendly
-def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None, channel: int, quadratic: bool,
+def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None, channel: int,
+                      set_name: str | None, unit: str | None, quadratic: bool,
                       through_origin: bool, readings: tuple[float, ...], path_cm: float | None,
-                      blank_sd: float | None, level: float, as_json: bool, out: Path | None) -> None:
+                      blank_sd: float | None, level: float, accept_suspect: bool, as_json: bool,
+                      out: Path | None) -> None:
     """Fit a calibration curve to standards, from a CSV file or from a device's standards in the database.
 
-    CSV columns: concentration,absorbance[,weight][,replicate]. With --db the standards are the device's standard
-    marks, each against its nearest preceding blank, and the calibration is saved in the database.
+    CSV columns: concentration,absorbance[,weight][,replicate] (a %T column instead of absorbance is converted).
+    With --db the standards are one calibration set of the device's standard marks (the standards after one
+    blank with no run between, or those labelled set=NAME; the latest unless --set names one), each against its
+    nearest preceding blank, and the calibration is saved in the database.
 
-    Example: nightcell calibrate standards.csv --reading 0.412 --reading 0.409 --path-cm 1
+    Example: nightcell calibrate standards.csv --unit µM --reading 0.412 --reading 0.409 --path-cm 1
 
-    Example: nightcell calibrate --db class.db --device 5e1f000000000001
+    Example: nightcell calibrate --db class.db --device 5e1f000000000001 --set week2
     """
     _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
+    if set_name is not None and db is None:
+        raise InputError("--set chooses among a device's standards in the database: use it with --db")
     options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
-                   blank_sd=blank_sd)
+                   blank_sd=blank_sd, accept_suspect=accept_suspect)
     with contextlib.ExitStack() as opened:
-        _calibrate(csv_file, db, device, channel, options, readings, path_cm, as_json, out, opened)
+        _calibrate(csv_file, db, device, channel, options, readings, path_cm, as_json, out, opened,
+                   set_name=set_name, unit=unit)
 
 
 def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, channel: int, options: dict[str, Any],
                readings: tuple[float, ...], path_cm: float | None, as_json: bool, out: Path | None,
-               opened: contextlib.ExitStack) -> None:
+               opened: contextlib.ExitStack, *, set_name: str | None = None, unit: str | None = None) -> None:
+    from ..science.calibration import molar_factor
+
     store = None
+    path_note = "given with --path-cm"
     if db is not None:
         from ..tasks.analyse import calibrate_from_store
 
         store = opened.enter_context(_open(db))
         device = _only_device(store, device)
-        cal = calibrate_from_store(store, device, channel, **options)
+        cal = calibrate_from_store(store, device, channel, set_name=set_name, unit=unit, **options)
+        if path_cm is None:
+            path_cm, path_note = _stored_path_cm(store, device)
     else:
         assert csv_file is not None
-        cols = read_columns(csv_file, ["concentration", "absorbance"], ["weight"], min_rows=3)
+        cols, how = _absorbance_columns(csv_file, "concentration", ["weight"], min_rows=3,
+                                        accept_suspect=options["accept_suspect"])
         from ..science.calibration import fit_calibration
 
         cal = fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
-                                inputs={"file": csv_file.name}, **options)
+                              inputs={"file": csv_file.name, "absorbance": how}, unit=unit or "", **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
     text = cal.report()
-    for line in cal.inputs.get("skipped", []):
-        text += f"\nwarning: {line}"
+    u = f" {cal.unit}" if cal.unit else ""
+    if db is not None:
+        used = cal.inputs.get("standards_used", [])
+        text += (f"\ncalibration set: {cal.inputs['set']} ({len(used)} standards; "
+                 + (f"other sets: {'; '.join(cal.inputs['other_sets'])}" if cal.inputs.get("other_sets")
+                    else "no other sets") + ")")
+        text += "\nstandards used: " + ", ".join(
+            f"{d['mark']} {d['label']!r} = {d['value']}{(' ' + d['unit']) if d['unit'] else u}" if d["label"]
+            else f"{d['mark']} = {d['value']}{(' ' + d['unit']) if d['unit'] else u}" for d in used)
+        for note in cal.inputs.get("left_out", []) + cal.inputs.get("warnings", []):
+            text += f"\nnote: {note}"
+    if cal.extra.get("suspect"):
+        text += f"\nSUSPECT: {cal.extra['suspect']}"
     if readings:
         pred = cal.predict(list(readings))
         data["prediction"] = pred.to_dict()
-        text += (f"\nunknown (mean of {pred.m} reading(s) = {pred.reading:.6g}): {pred.value:.6g} ± {pred.stderr:.3g}"
-                 f", {pred.level:.0%} interval {pred.ci_low:.6g} to {pred.ci_high:.6g}"
+        text += (f"\nunknown (mean of {pred.m} reading(s) = {pred.reading:.6g}): {pred.value:.6g}{u} ± "
+                 f"{pred.stderr:.3g}{u} (SE), {pred.level:.0%} interval {pred.ci_low:.6g} to {pred.ci_high:.6g}{u} "
+                 f"(t = {_t(pred.level, pred.dof):.3g}, {pred.dof} dof)"
                  + ("  (outside the standards' range)" if pred.extrapolated else ""))
     if path_cm is not None:
-        eps = cal.molar_absorptivity(path_cm)
-        data["molar_absorptivity"] = eps.to_dict()
-        text += f"\nmolar absorptivity: {eps.value:.6g} ± {eps.stderr:.3g} {eps.unit}"
+        factor = molar_factor(cal.unit) if cal.unit else 1.0
+        if factor is None:
+            text += (f"\nmolar absorptivity not given: the unit {cal.unit} does not convert to mol/L (give the "
+                     "standards in M, mM, µM or nM)")
+        elif not cal.unit and db is not None:
+            text += ("\nmolar absorptivity not given: the standards carry no unit (give --unit, e.g. µM, to have "
+                     "it)")
+        else:
+            eps = cal.molar_absorptivity(path_cm)
+            data["molar_absorptivity"] = dict(eps.to_dict(), path_cm=path_cm, path_source=path_note)
+            text += f"\nmolar absorptivity: {eps.value:.6g} ± {eps.stderr:.3g} {eps.unit}, path {path_cm:g} cm " \
+                    f"({path_note})"
     if store is not None:
         assert db is not None and device is not None
-        _finish_saved(store, db, "calibration", f"{device} standards", cal.inputs, data, text, as_json, out)
+        _finish_saved(store, db, "calibration", f"{device} {cal.inputs['set']}", cal.inputs, data, text, as_json,
+                      out)
         return
     _finish(data, text, as_json, out)
+
+
+def _t(level: float, dof: int) -> float:
+    from ..science.fitting import t_quantile
+
+    return t_quantile(level, dof)
+
+
+def _stored_path_cm(store: Any, device: str) -> tuple[float | None, str]:
+    """The path length in the device's latest settings record, and where it came from."""
+    row = store.conn.execute("SELECT boot, seq, json FROM settings_records WHERE device = ? "
+                             "ORDER BY boot DESC, seq DESC LIMIT 1", (device,)).fetchone()
+    if row is None:
+        return None, "no settings record"
+    try:
+        value = json.loads(row[2]).get("path_cm")
+    except (ValueError, AttributeError):
+        return None, "settings record unreadable"
+    if not isinstance(value, (int, float)) or not value > 0:
+        return None, "no path_cm setting"
+    return float(value), f"the board's path_cm setting, record {row[0]}:{row[1]}"
 
 
 def _run_text(analysis: Any) -> str:
     import numpy as np
 
+    from ..science.kinetics import rank_by_aicc
+
     run = analysis.run
+    counts = analysis.flag_counts()
     lines = [f"run {run.key} {run.label!r}: {len(analysis.time_s)} readings, "
-             f"{int(np.count_nonzero(analysis.flags))} flagged and left out",
+             f"{int(np.count_nonzero(analysis.flags))} flagged and left out"
+             + (f" ({', '.join(f'{n}: {c}' for n, c in counts.items())})" if counts else ""),
              f"blank {analysis.blank.boot}:{analysis.blank.seq} ({analysis.blank.rule}); time: {analysis.time_basis}",
-             f"best rate law by AIC: {analysis.best}"]
-    for name, fit in sorted(analysis.fits.items(), key=lambda kv: kv[1].aic):
-        lines.append(f"  {name:<20} AIC = {fit.aic:10.2f}")
+             f"best rate law by AICc: {analysis.best}"]
+    ranking, delta, _ = rank_by_aicc(analysis.fits)
+    for name in ranking:
+        fit = analysis.fits[name]
+        lines.append(f"  {name:<20} AICc = {fit.aicc:10.2f}  ΔAICc = {delta[name]:8.2f}")
     lines += analysis.warnings
     lines.append(analysis.fits[analysis.best].report())
     return "\n".join(lines)
+
+
+def _starts(texts: Sequence[str]) -> dict[str, float]:
+    out = {}
+    for text in texts:
+        name, sep, value = text.partition("=")
+        try:
+            out[name.strip()] = float(value)
+        except ValueError:
+            sep = ""
+        if not sep or not name.strip():
+            raise InputError(f"--start {text!r}: write NAME=VALUE, e.g. --start k=0.001 (names: A0, A_rise, k)")
+    return out
 
 
 @click.command("rate")
@@ -278,65 +387,111 @@ def _run_text(analysis: Any) -> str:
 @_db_option
 @click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
 @_channel_option
-@click.option("--model", type=click.Choice(("all", "initial_rate") + MODELS), default="all",
-              show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate.")
+@click.option("--model", type=click.Choice(("all", "initial_rate") + ALL_MODELS), default="all",
+              show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate by AICc "
+                                      "(first_order_rise only when named).")
 @click.option("--window", type=(FINITE, FINITE), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
 @click.option("--t-start", type=FINITE, default=None, help="Leave out readings before this time (s), e.g. mixing.")
+@click.option("--t-end", type=FINITE, default=None, help="Leave out readings after this time (s).")
 @click.option("--a-end", type=FINITE, default=0.0, show_default=True,
               help="Absorbance when the followed species is used up (zero/first/second-order laws).")
+@click.option("--a0", type=FINITE, default=None,
+              help="first_order_rise: hold A0 (the absorbance at t = 0) at this value; default: fitted.")
+@click.option("--start", "starts", multiple=True, metavar="NAME=VALUE",
+              help="first_order_rise: a starting value (A0, A_rise, k); a grid start is always tried too.")
+@click.option("--blank", "blank", metavar="KEY|LABEL", default=None,
+              help="With --db: read the run against this blank (key boot:seq or label) instead of the nearest "
+                   "one before it.")
+@accept_suspect_option
 @json_option
 @_out_option
 @friendly
 def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, channel: int, model: str,
-                 window: tuple[float, float] | None, t_start: float | None, a_end: float, as_json: bool,
-                 out: Path | None) -> None:
+                 window: tuple[float, float] | None, t_start: float | None, t_end: float | None, a_end: float,
+                 a0: float | None, starts: tuple[str, ...], blank: str | None, accept_suspect: bool,
+                 as_json: bool, out: Path | None) -> None:
     """Fit rate laws to one run, from a CSV file or from a run in the database.
 
-    CSV columns: time_s,absorbance (times strictly increasing). With --db the run's absorbance is read against its
-    blank, flagged readings are left out, and the result is saved in the database.
+    CSV columns: time_s,absorbance[,weight][,flags] (times strictly increasing; a %T column instead of absorbance
+    is converted; a weight column — as `nightcell export` writes it — weights the fit as --db does, else it is
+    unweighted). With --db the run's absorbance is read against its blank (the nearest before it, else the
+    first after it with a warning, or --blank), flagged readings are left out, readings are weighted by T², and
+    the result is saved in the database.
 
     Example: nightcell rate run.csv --t-start 30 --json
 
-    Example: nightcell rate --db class.db --run "dye fading"
+    Example: nightcell rate --db class.db --run "dye fading" --t-start 20 --t-end 600
+
+    Example: nightcell rate product.csv --model first_order_rise --a0 0 --start A_rise=1 --start k=0.01
     """
     _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
+    start = _starts(starts)
+    if (a0 is not None or start) and model != "first_order_rise":
+        raise InputError("--a0 and --start apply to --model first_order_rise")
+    if t_start is not None and t_end is not None and not t_end > t_start:
+        raise InputError(f"--t-end {t_end:g} must be after --t-start {t_start:g}")
     if db is not None:
         from ..tasks.analyse import analyse_run, initial_rate_of
         from ..tasks.export import resolve_run
 
-        if t_start is not None or a_end != 0.0:
-            raise InputError("--t-start and --a-end apply to CSV files; with --db the whole run is fitted "
-                             "(export it with `nightcell export` to trim it)")
+        if a_end != 0.0:
+            raise InputError("--a-end applies to CSV files; with --db fit first_order_plateau, which fits the end")
         with _open(db) as store:
             run = resolve_run(store, run_text)
             if model == "initial_rate":
-                fit = initial_rate_of(store, run, channel, window)
+                if t_start is not None or t_end is not None:
+                    raise InputError("--t-start/--t-end choose the readings of a fit; for initial_rate give "
+                                     "--window START END")
+                fit = initial_rate_of(store, run, channel, window, blank=blank, accept_suspect=accept_suspect)
                 data, text = fit.to_dict(), f"run {run.key} {run.label!r}\n" + fit.report()
                 inputs = fit.inputs
             else:
                 if window is not None:
                     raise InputError("--window applies to --model initial_rate")
-                analysis = analyse_run(store, run, channel=channel,
-                                       models=None if model == "all" else (model,))
+                if a0 is not None or start:
+                    raise InputError("--a0 and --start with --db: export the run (`nightcell export`) and fit its "
+                                     "absorbance CSV, where they apply (with --db first_order_rise fits A0 and "
+                                     "starts from its grid)")
+                analysis = analyse_run(store, run, channel=channel, models=None if model == "all" else (model,),
+                                       blank=blank, t_start=t_start, t_end=t_end, accept_suspect=accept_suspect)
                 data, text = analysis.to_dict(), _run_text(analysis)
                 inputs = analysis.fits[analysis.best].inputs
             _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out)
         return
+    import numpy as np
+
     from ..science import kinetics as _kinetics
 
     assert csv_file is not None
-    cols = read_columns(csv_file, ["time_s", "absorbance"], min_rows=4)
-    inputs = {"file": csv_file.name}
+    if blank is not None:
+        raise InputError("--blank names a stored blank: use it with --db")
+    cols, how = _absorbance_columns(csv_file, "time_s", ["weight", "flags"], min_rows=4,
+                                    accept_suspect=accept_suspect)
+    mask = (cols["flags"] != 0) if "flags" in cols else np.zeros(cols["time_s"].size, dtype=bool)
+    weights = cols.get("weight")
+    if weights is not None:
+        mask |= weights == 0  # the export's weight for a flagged reading
+    if t_end is not None:
+        mask |= cols["time_s"] > t_end
+    if weights is not None:
+        weights = np.where(mask, 1.0, weights)
+    inputs = {"file": csv_file.name, "absorbance": how,
+              "weights": "the CSV's weight column" if weights is not None else "none (unweighted: no weight column)",
+              "left_out": "rows with flags other than 0 (or weight 0)" if "flags" in cols or weights is not None
+              else "none", "window_s": [t_start, t_end]}
+    rise = {"a0": a0, "start": start} if model == "first_order_rise" else {}
     if model == "all":
         result: Any = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end,
-                                        inputs=inputs)
+                                        inputs=inputs, mask=mask, weights=weights)
     elif model == "initial_rate":
-        result = _kinetics.initial_rate(cols["time_s"], cols["absorbance"], window, t_start=t_start, inputs=inputs)
+        result = _kinetics.initial_rate(cols["time_s"], cols["absorbance"], window, t_start=t_start, inputs=inputs,
+                                        mask=mask)
     else:
         result = _kinetics.fit_model(cols["time_s"], cols["absorbance"], model, t_start=t_start, a_end=a_end,
-                                     inputs=inputs)
-    _finish(result.to_dict(), result.report(), as_json, out)
+                                     inputs=inputs, mask=mask, weights=weights, **rise)
+    text = result.report() + f"\nweights: {inputs['weights']}; absorbance: {how}"
+    _finish(result.to_dict(), text, as_json, out)
 
 
 def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:

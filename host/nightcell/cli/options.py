@@ -14,7 +14,8 @@ import click
 
 from ..errors import NightcellError
 
-__all__ = ["EXIT_CODES", "Finite", "FINITE", "friendly", "db_option", "port_option", "json_option", "emit", "inert", "link_settings", "open_reading", "open_writing"]
+__all__ = ["EXIT_CODES", "Finite", "FINITE", "friendly", "db_option", "port_option", "json_option",
+           "accept_suspect_option", "emit", "inert", "link_settings", "open_reading", "open_writing"]
 
 EXIT_CODES = {
     0: "success",
@@ -164,6 +165,13 @@ def link_settings() -> dict[str, Any]:
     ctx = click.get_current_context(silent=True)
     got = ctx.meta.get("nightcell.link", {}) if ctx is not None else {}
     return {"timeout": float(got.get("timeout", 5.0)), "baudrate": int(got.get("baud", 115200))}
+
+
+def accept_suspect_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """``--accept-suspect``: the one option that confirms data a guard refuses (the flag stays on the result)."""
+    return click.option("--accept-suspect", "accept_suspect", is_flag=True,
+                        help="Use data nightcell's checks flag as suspect (a blocked blank, standards that do not "
+                             "rise, an odd temperature); the flag is kept with the result.")(fn)
 
 
 def json_option(fn: Callable[..., Any]) -> Callable[..., Any]:

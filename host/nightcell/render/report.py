@@ -172,11 +172,14 @@ def _fmt(v: Any) -> str:
 
 def fit_table(fit: Any) -> str:
     """Parameter table of a FitResult as HTML."""
-    rows = [(n, fit.values[n], fit.stderr.get(n, float("nan"))) for n in fit.names]
+    rows = [(n, fit.values[n], fit.stderr.get(n, float("nan")), *fit.confint(n)) for n in fit.names]
+    t = fit.confint(fit.names[0])[1] - fit.values[fit.names[0]]
+    t = t / fit.stderr[fit.names[0]] if fit.stderr.get(fit.names[0]) else float("nan")
     summary = (f"<p class='small'>model {html.escape(fit.model)}; n = {fit.n}, dof = {fit.dof}, "
-               f"residual SD = {_fmt(fit.residual_sd)}, AIC = {_fmt(fit.aic)}; "
+               f"residual SD = {_fmt(fit.residual_sd)}, AIC = {_fmt(fit.aic)}, AICc = {_fmt(fit.aicc)}; "
+               f"95 % interval = value ± t·SE, t = {_fmt(t)} (Student t, {fit.dof} dof); "
                f"{html.escape(fit.message or ('converged' if fit.success else 'failed'))}</p>")
-    return _table(["parameter", "value", "standard error"], rows) + summary
+    return _table(["parameter", "value", "standard error", "95 % low", "95 % high"], rows) + summary
 
 
 _CSS = """
@@ -537,16 +540,18 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
                  f"{len(analysis.time_s)} readings over {float(analysis.time_s[-1]):.0f} s "
                  f"({flagged} flagged and left out of the fits), boot(s) {', '.join(map(str, analysis.boots))}. "
                  f"Time basis: {analysis.time_basis}. Blank: mark {analysis.blank.boot}:{analysis.blank.seq} "
-                 f"({analysis.blank.rule}); {analysis.blank.stray_text}. Best rate law by AIC: {analysis.best}."),
+                 f"({analysis.blank.rule}); {analysis.blank.stray_text}. Best rate law by AICc: {analysis.best}."
+                 + (f" Flagged by kind: {', '.join(f'{n} {c}' for n, c in analysis.flag_counts().items())}."
+                    if flagged else "")),
         "figures": [run_png],
     }]
     rows = []
-    for m, f in sorted(analysis.fits.items(), key=lambda kv: kv[1].aic):
+    for m, f in sorted(analysis.fits.items(), key=lambda kv: (kv[1].aicc, kv[1].aic)):
         key = "k" if "k" in f.values else "rate"
-        rows.append((m, f.aic, f.aic - best.aic, f.residual_sd, plus_minus(f.values.get(key), f.stderr.get(key)),
+        rows.append((m, f.aicc, f.aicc - best.aicc, f.residual_sd, plus_minus(f.values.get(key), f.stderr.get(key)),
                      plus_minus(f.extra.get("half_life_s"), f.extra.get("half_life_se_s"))))
     sections.append({"title": "Rate laws compared",
-                     "html": _table(["rate law", "AIC", "ΔAIC", "residual SD (A)", "k or rate ± SE",
+                     "html": _table(["rate law", "AICc", "ΔAICc", "residual SD (A)", "k or rate ± SE",
                                      "half-life (s) ± SE"], rows)})
     for m in dict.fromkeys([analysis.best, "first_order_plateau"]):
         if m in analysis.fits:
@@ -679,8 +684,8 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             fig.clear()  # drop the figure's artists now: a report draws many
         ex = fa.extra
         text = (f"Runs {', '.join(keys)}. Ea = {plus_minus(ex.get('Ea_kJ_per_mol'), ex.get('Ea_se_kJ_per_mol'))} "
-                f"kJ/mol; A = {plus_minus(ex.get('A'), ex.get('A_se'))} s⁻¹; "
-                f"Birge ratio {ex.get('birge_ratio', float('nan')):.3g}.")
+                f"kJ/mol (SE), 95 % interval {ex['Ea_ci95_kJ_per_mol'][0]:.4g} to {ex['Ea_ci95_kJ_per_mol'][1]:.4g} "
+                f"kJ/mol; A = {plus_minus(ex.get('A'), ex.get('A_se'))} s⁻¹. {ex.get('se_rule', '')}.")
         if fe is not None:
             text += (f"\n\nEyring (transmission coefficient 1): ΔH‡ = "
                      f"{plus_minus(fe.values['dH_J_per_mol'] / 1000, fe.stderr['dH_J_per_mol'] / 1000)} kJ/mol, "

@@ -24,10 +24,20 @@ from typing import Any, Mapping
 import numpy as np
 from scipy import stats as _stats
 
-from ..errors import DegenerateData, InputError, OutsideCalibration, TooFewPoints
+from ..errors import DegenerateData, InputError, OutsideCalibration, SuspectData, TooFewPoints
 from .fitting import FitResult, check_pairs, jsonable, linear_lstsq, t_quantile
 
-__all__ = ["CalibrationResult", "Estimate", "Prediction", "fit_calibration"]
+__all__ = ["CalibrationResult", "Estimate", "Prediction", "fit_calibration", "molar_factor", "LOD_RULE"]
+
+LOD_RULE = "LOD = 3.3σ/S, LOQ = 10σ/S (ICH Q2; S the slope)"
+
+_MOLAR = {"M": 1.0, "mol/L": 1.0, "mol/l": 1.0, "mM": 1e-3, "mmol/L": 1e-3, "mmol/l": 1e-3, "µM": 1e-6, "μM": 1e-6,
+          "uM": 1e-6, "µmol/L": 1e-6, "μmol/L": 1e-6, "umol/L": 1e-6, "nM": 1e-9, "nmol/L": 1e-9}
+
+
+def molar_factor(unit: str) -> float | None:
+    """mol/L per unit of concentration (1e-6 for µM), or None when the unit is not an amount per litre."""
+    return _MOLAR.get((unit or "").strip())
 
 _MODELS = ("line", "quadratic")
 _SIGMA_SOURCES = ("residual", "intercept", "blank")
@@ -84,6 +94,7 @@ class CalibrationResult(FitResult):
     """
 
     through_origin: bool = False
+    unit: str = ""
     level: float = 0.95
     blank_sd: float | None = None
     weights: np.ndarray | None = field(default=None, repr=False)
@@ -153,12 +164,18 @@ class CalibrationResult(FitResult):
         return {"sigma": sigma, "sigma_source": source, "lod": 3.3 * sigma / s, "loq": 10.0 * sigma / s}
 
     def molar_absorptivity(self, path_cm: float, path_cm_se: float = 0.0) -> Estimate:
-        """ε = S / path with its SE; in L mol⁻¹ cm⁻¹ when concentrations were given in mol/L."""
+        """ε = S / (path · mol/L per unit) with its SE, in L mol⁻¹ cm⁻¹. Concentrations in mol/L when the
+        calibration has no unit; ``InputError`` when its unit does not convert to mol/L (mg/L needs a molar mass)."""
         if not (path_cm > 0 and math.isfinite(path_cm)):
             raise InputError(f"path length {path_cm!r} cm must be a positive number (1 for a standard cuvette)")
-        eps = self.slope / path_cm
+        factor = molar_factor(self.unit) if self.unit else 1.0
+        if factor is None:
+            raise InputError(f"the standards are in {self.unit}, which does not convert to mol/L: no molar "
+                             "absorptivity (give standards in M, mM, µM or nM)")
+        eps = self.slope / path_cm / factor
         rel = math.hypot(self.slope_se / self.slope, path_cm_se / path_cm)
-        return Estimate(eps, abs(eps) * rel, "L mol^-1 cm^-1 (concentration in mol/L)")
+        unit_note = "concentration in mol/L" if not self.unit else f"standards in {self.unit}"
+        return Estimate(eps, abs(eps) * rel, f"L mol^-1 cm^-1 ({unit_note})")
 
     # -- inverse prediction --------------------------------------------------------------------------------------
     def _f(self, x: float) -> float:
@@ -256,8 +273,14 @@ class CalibrationResult(FitResult):
             verdict = "differs from zero" if it["differs_from_zero"] else "does not differ from zero"
             lines.append(f"  intercept {verdict}: t = {it['t']:.3f}, p = {it['p_value']:.3g}")
         lin = ex["linearity"]
-        lines.append(f"  linear range ({lin['method']}): {lin['verdict']}")
-        lines.append(f"  LOD = {ex['lod']:.4g}, LOQ = {ex['loq']:.4g} (σ from {ex['sigma_source']})")
+        lines.append(f"  linear range: {lin['criterion']}: {lin['verdict']}")
+        u = f" {self.unit}" if self.unit else ""
+        sigma = {"residual": "the residual SD s_y/x", "intercept": "the intercept's SE",
+                 "blank": "the SD of repeated blank readings"}[ex["sigma_source"]]
+        lines.append(f"  LOD = {ex['lod']:.4g}{u}, LOQ = {ex['loq']:.4g}{u} — convention: {LOD_RULE}, σ = {sigma} = "
+                     f"{ex['lod_sigma']:.3g} A")
+        if self.unit:
+            lines.append(f"  concentrations in {self.unit}; slope in A per {self.unit}")
         return "\n".join(lines)
 
 
@@ -295,7 +318,9 @@ def _linearity(
         passed = p > _LINEARITY_ALPHA
         return {
             "method": "lack_of_fit_F",
-            "criterion": f"lack-of-fit F test against replicate scatter, model kept if p > {_LINEARITY_ALPHA}",
+            "criterion": (f"does the {'line' if degree == 1 else 'quadratic'} miss the mean of each concentration "
+                          "level by more than the replicates scatter? (lack-of-fit F test, "
+                          f"{'line' if degree == 1 else 'quadratic'} kept if p > {_LINEARITY_ALPHA})"),
             "statistic": f, "df": [df_lf, df_pe], "p_value": p, "passed": passed,
             "verdict": f"{'no ' if passed else ''}lack of fit (F = {f:.3g}, p = {p:.3g})",
         }
@@ -308,15 +333,34 @@ def _linearity(
         passed = p > _LINEARITY_ALPHA
         return {
             "method": f"{name}_term_t",
-            "criterion": f"no replicates: t test of an added {name} term, model kept if p > {_LINEARITY_ALPHA}",
+            "criterion": (f"does the {'line' if degree == 1 else 'quadratic'} need an added {name} term over the "
+                          f"standards' range? (no replicates: t test of that term, "
+                          f"{'line' if degree == 1 else 'quadratic'} kept if p > {_LINEARITY_ALPHA})"),
             "statistic": t, "df": [fit.dof], "p_value": p, "passed": passed,
             "verdict": f"added {name} term {'not ' if passed else ''}significant (t = {t:.3g}, p = {p:.3g})",
         }
     return {
         "method": "not_assessed",
-        "criterion": "too few concentration levels to test the linear range; add standards",
+        "criterion": (f"too few concentration levels to test whether the {'line' if degree == 1 else 'quadratic'} "
+                      "holds; add standards"),
         "statistic": None, "df": None, "p_value": None, "passed": None, "verdict": "not assessed",
     }
+
+
+def _does_not_rise(x: np.ndarray, y: np.ndarray, w: np.ndarray | None) -> str:
+    """Why the standards do not rise with concentration, or ``""``: every absorbance equal, or a straight line's
+    slope not above zero by a one-sided 95 % t test (common practice: a calibration must show a response)."""
+    if np.ptp(y) == 0:
+        return f"the standards all read the same absorbance ({y[0]:.4g}), whatever their concentration"
+    line = linear_lstsq(np.column_stack([np.ones_like(x), x]), y, ("intercept", "slope"), model="rise check",
+                        weights=w)
+    b, se = line.param("slope"), line.se("slope")
+    t_crit = float(_stats.t.ppf(0.95, line.dof)) if line.dof > 0 else math.inf
+    if b > 0 and (se == 0 or b / se > t_crit):
+        return ""
+    r = float(np.corrcoef(x, y)[0, 1])
+    return (f"the standards do not rise with concentration: slope {b:.3g} ± {se:.2g} A per unit "
+            f"(t = {b / se if se > 0 else math.inf:.3g}, needs > {t_crit:.3g} for one-sided 95 %), r = {r:.3g}")
 
 
 def fit_calibration(
@@ -330,6 +374,8 @@ def fit_calibration(
     level: float = 0.95,
     sigma_source: str | None = None,
     blank_sd: float | None = None,
+    unit: str = "",
+    accept_suspect: bool = False,
 ) -> CalibrationResult:
     """Fit absorbance of standards against their concentration.
 
@@ -344,16 +390,26 @@ def fit_calibration(
     sigma_source : σ for LOD/LOQ: ``"residual"`` (default), ``"intercept"`` or ``"blank"`` (default when
         ``blank_sd`` is given).
     blank_sd : standard deviation of repeated blank readings (absorbance).
+    unit : the concentration unit of the standards (e.g. ``"µM"``), printed with results.
+    accept_suspect : keep a calibration whose standards do not rise with concentration (``extra["suspect"]``
+        says why); otherwise that raises ``SuspectData``.
 
     Raises
     ------
     ShapeMismatch, NonFiniteInput, InputError : arrays do not pair up, NaN/inf, bad options.
     TooFewPoints : fewer standards than the model needs (n ≤ number of parameters).
     DegenerateData : too few distinct concentrations (e.g. all equal).
+    SuspectData : the absorbance does not rise with concentration (a straight line's slope not above zero at
+        one-sided 95 %, or every absorbance equal), unless ``accept_suspect``.
+    InputError : a negative concentration.
     """
     if model not in _MODELS:
         raise InputError(f"model must be 'line' or 'quadratic', not {model!r}")
     x, y, w, _ = check_pairs(concentration, absorbance, "concentration", "absorbance", weights=weights)
+    if np.any(x < 0):
+        i = int(np.flatnonzero(x < 0)[0])
+        raise InputError(f"standard {i + 1} has a negative concentration ({x[i]:g}); a standard holds zero or more "
+                         "of the analyte — fix its value")
     degree = 1 if model == "line" else 2
     k = degree + (0 if through_origin else 1)
     if x.size <= k:
@@ -376,6 +432,10 @@ def fit_calibration(
         raise InputError(f"blank_sd {blank_sd!r} must be a positive number (SD of repeated blank absorbances)")
     if w is not None:
         w = w / w.mean()
+    suspect = _does_not_rise(x, y, w)
+    if suspect and not accept_suspect:
+        raise SuspectData(suspect + " — check the standards' values, their order and the blank, or pass "
+                          "--accept-suspect to keep this calibration anyway")
     X, names = _design(x, degree, through_origin)
     base = linear_lstsq(X, y, names, model=model, weights=w, x=x, inputs=inputs,
                         curve=lambda c, beta: _design(c, degree, through_origin)[0] @ beta)
@@ -388,9 +448,13 @@ def fit_calibration(
         extra["intercept_test"] = {"t": t, "p_value": p, "differs_from_zero": bool(p < 1.0 - level)}
     extra["linearity"] = _linearity(x, y, w, base.rss, k, degree, through_origin)
     extra["weighted"] = w is not None
+    extra["unit"] = unit
+    extra["lod_rule"] = LOD_RULE
+    if suspect:
+        extra["suspect"] = suspect + " (kept with --accept-suspect)"
     result = CalibrationResult(
         **{f: getattr(base, f) for f in FitResult.__dataclass_fields__ if f != "extra"},
-        extra=extra, through_origin=through_origin, level=level, blank_sd=blank_sd, weights=w,
+        extra=extra, through_origin=through_origin, unit=unit, level=level, blank_sd=blank_sd, weights=w,
     )
     if sigma_source == "intercept" and through_origin:
         raise InputError("a calibration through the origin has no intercept SD; use sigma_source='residual'")

@@ -161,7 +161,7 @@ class FitResult:
     n, dof : number of points used and residual degrees of freedom (n − number of parameters).
     residual_sd : sqrt(RSS / dof) — s_y/x for a calibration line (weighted RSS for weighted fits).
     rss : residual sum of squares (weighted if weights were given).
-    aic : n·ln(RSS/n) + 2k (module docstring).
+    aic : n·ln(RSS/n) + 2k (module docstring); ``aicc`` (property, also in ``extra``) adds 2k(k+1)/(n−k−1).
     success, message : whether the fit can be trusted, and why / why not.
     inputs : plain-JSON record of what the fit came from (ids, windows, choices).
     extra : model-specific derived values (half-life, runs test, LOD...), plain JSON.
@@ -242,6 +242,11 @@ class FitResult:
         return float(self.cov[self.names.index(a)][self.names.index(b)])
 
     @property
+    def aicc(self) -> float:
+        """AIC with the small-sample correction 2k(k+1)/(n−k−1) (module docstring); what models are ranked by."""
+        return float(self.extra.get("aicc", _aicc(self.rss, self.n, len(self.names))))
+
+    @property
     def cov_matrix(self) -> np.ndarray:
         """Covariance as a numpy array in ``names`` order."""
         return np.asarray(self.cov, dtype=float).reshape(len(self.names), len(self.names))
@@ -264,13 +269,19 @@ class FitResult:
         values (unless ``extras=False``) and the message."""
         lines = [f"model: {self.model}" + ("" if self.success else "  (NOT TRUSTED)")]
         width = max([len(n) for n in self.names] + [9])
+        t = t_quantile(0.95, self.dof)
         for name in self.names:
-            lines.append(f"  {name:<{width}}  {_fmt(self.values[name])} ± {_fmt(self.stderr[name])}")
+            lo, hi = self.confint(name)
+            lines.append(f"  {name:<{width}}  {_fmt(self.values[name])} ± {_fmt(self.stderr[name])} (SE); "
+                         f"95 % CI {_fmt(lo)} to {_fmt(hi)}")
+        lines.append(f"  95 % intervals: value ± t·SE with t = {_fmt(t)} (Student t, {self.dof} dof)")
         lines.append(
             f"  n = {self.n}, dof = {self.dof}, residual SD = {_fmt(self.residual_sd)}, "
-            f"RSS = {_fmt(self.rss)}, AIC = {_fmt(self.aic)}"
+            f"RSS = {_fmt(self.rss)}, AIC = {_fmt(self.aic)}, AICc = {_fmt(self.aicc)}"
         )
         for key, value in (self.extra.items() if extras else ()):
+            if key == "aicc":
+                continue
             if isinstance(value, (int, float, str)) and not isinstance(value, bool):
                 lines.append(f"  {key}: {_fmt(value) if isinstance(value, float) else value}")
         if self.message:

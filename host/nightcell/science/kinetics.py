@@ -2,7 +2,8 @@
 
 Owns: the initial rate (with an automatic early-window rule), the integrated zero-, first- and second-order laws,
 the exponential approach to a plateau with a free offset, half-lives with standard errors, and the comparison of all
-candidate models by AIC with a runs test of the residual signs.
+candidate models by AICc (AIC with the small-sample correction; ΔAICc and Akaike weights) with a runs test of
+the residual signs.
 
 Must never: open a serial port or a database, print, or read files. It takes arrays ``(time_s, absorbance)``; points
 flagged by optics are left out with ``mask`` (True = leave out). Bad input raises a named error from
@@ -21,6 +22,17 @@ Conventions (all fits are least squares on absorbance itself, so the noise is tr
 - ``second_order``: ``A = a_end + D0/(1 + k·|D0|·τ)`` with ``D0 = A0 − a_end`` (from 1/[X] = 1/[X]0 + k·t);
   k is in (absorbance·s)⁻¹; multiply by ε·l to get M⁻¹ s⁻¹.
 - ``first_order_plateau``: ``A = A_inf + (A0 − A_inf)·exp(−k·τ)`` with A_inf free; works for fading and growth.
+- ``first_order_rise`` (not in the default set ``MODELS``: with A0 free it is the plateau law written another way):
+  ``A = A0 + A_rise·(1 − exp(−k·t))``, a rise to the final value ``A0 + A_rise`` (product formation, growth-like
+  curves), with A0 free or fixed (``a0=``). Its time is the time as given (t = 0 is when the reaction began: the
+  CSV's zero, a stored run's first sample), not the first point used, because a fixed A0 is the absorbance at t = 0.
+  Fitted by Levenberg–Marquardt from the given start (``start=``) *and* from the best point of a log grid over k
+  (the linear parameters solved exactly at each k); the lower sum of squares wins. It fails, with the reason,
+  when k is not positive, when the best k lies at the edge of the grid (the curve is still straight, or has
+  finished rising before the first point), or when the Jacobian is singular — never a wrong answer as a success.
+- A fitted rate constant (or a first/second-order half-life) that is not positive is a failed fit (``FitFailed``
+  with the reason), never a result: e.g. ``first_order`` on rising data. A zero-order line keeps its fit, but
+  gives no half-life when the absorbance moves away from ``a_end`` (``extra["half_life_note"]`` says so).
   No guess is needed: the start comes from the integrated law (a straight line in τ and ∫A dτ), or from a grid
   over k where that fails.
 - How the laws are fitted: each is linear in all its parameters but one once that one is fixed, so the search is
@@ -46,16 +58,18 @@ import numpy as np
 from scipy import stats as _stats
 
 from ..errors import AnalysisError, FitFailed, InputError, NonFiniteInput, TimeOrderError, TooFewPoints
-from .laws import MODELS
+from .laws import ALL_MODELS, MODELS
 from .fitting import FitResult, _package, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq, runs_test
 
 __all__ = [
+    "ALL_MODELS",
     "MODELS",
     "ModelComparison",
     "fit_all",
     "fit_model",
     "half_life",
     "initial_rate",
+    "rank_by_aicc",
 ]
 
 _LN2 = math.log(2.0)
@@ -105,7 +119,7 @@ def _half_life(result: FitResult) -> None:
     v, c, names = result.values, result.cov, result.names
     a_end = result.inputs.get("a_end", 0.0)
     grad = [0.0] * len(names)
-    if result.model in ("first_order", "first_order_plateau"):
+    if result.model in ("first_order", "first_order_plateau", "first_order_rise"):
         k = v["k"]
         value = _LN2 / k
         grad[names.index("k")] = -_LN2 / k**2
@@ -121,6 +135,11 @@ def _half_life(result: FitResult) -> None:
         grad[names.index("rate")] = d0 / (2.0 * rate**2) if rate != 0 else 0.0
     else:
         return
+    if not value > 0:
+        # a zero-order line moving away from a_end never reaches half of it (the k-laws fail before this point)
+        result.extra["half_life_note"] = (f"no half-life: the absorbance moves away from a_end = {a_end:g} "
+                                          "instead of toward it")
+        return
     result.extra["half_life_s"] = value
     var = sum(gi * cij * gj for gi, row in zip(grad, c) for cij, gj in zip(row, grad))  # gradᵀ·cov·grad
     result.extra["half_life_se_s"] = math.sqrt(max(var, 0.0))
@@ -129,7 +148,7 @@ def _half_life(result: FitResult) -> None:
 def half_life(result: FitResult) -> tuple[float, float]:
     """``(half-life, its SE)`` in seconds from a fitted zero-, first-, second-order or plateau model."""
     if "half_life_s" not in result.extra:
-        raise InputError(f"model {result.model!r} has no half-life; fit first_order or first_order_plateau")
+        raise InputError(f"model {result.model!r} has no half-life here; fit first_order or first_order_plateau")
     return result.extra["half_life_s"], result.extra["half_life_se_s"]
 
 
@@ -527,6 +546,103 @@ def _second_order_start(tau: np.ndarray, d: np.ndarray, sign: float) -> tuple[fl
     return k0, inv_d0
 
 
+# -- the rise to a final value -------------------------------------------------------------------------------------
+_RISE_GRID = 96
+
+
+def _rise(t: np.ndarray, a0: float, a_rise: float, k: float) -> np.ndarray:
+    return a0 + a_rise * -np.expm1(-k * t)
+
+
+def _rise_grid(t: np.ndarray, a: np.ndarray, w: np.ndarray | None, a0: float | None) -> tuple[list[float], int]:
+    """Best (A0, A_rise, k) on a log grid of k (the linear parameters solved exactly at each k), and the index of
+    that k in the grid (0 or the last means the best k lies at an edge)."""
+    span = float(t.max()) if t.max() > 0 else 1.0
+    ks = np.geomspace(0.01 / span, 500.0 / span, _RISE_GRID)
+    sw = np.ones_like(t) if w is None else np.sqrt(w)
+    best, best_i, best_p = math.inf, 0, [math.nan] * 3
+    for i, k in enumerate(ks):
+        basis = -np.expm1(-k * t)
+        if a0 is None:
+            X = np.column_stack([np.ones_like(t), basis]) * sw[:, None]
+            coef, *_ = np.linalg.lstsq(X, a * sw, rcond=None)
+            p = [float(coef[0]), float(coef[1]), float(k)]
+        else:
+            bb = float(np.sum((sw * basis) ** 2))
+            if not bb > 0:
+                continue
+            p = [a0, float(np.sum(sw * sw * basis * (a - a0)) / bb), float(k)]
+        rss = float(np.sum((sw * (a - _rise(t, *p))) ** 2))
+        if rss < best:
+            best, best_i, best_p = rss, i, p
+    return best_p, best_i
+
+
+def _fit_rise(t: np.ndarray, a: np.ndarray, w: np.ndarray | None, a0: float | None,
+              start: Mapping[str, float] | None, inputs: Mapping[str, Any]) -> FitResult:
+    """``first_order_rise`` (module docstring): LM from the given start and from the grid's best, the lower RSS."""
+    model = "first_order_rise"
+    names = ("A0", "A_rise", "k") if a0 is None else ("A_rise", "k")
+    fixed = 0.0 if a0 is None else a0
+
+    def f(x: np.ndarray, *p: float) -> np.ndarray:
+        return _rise(x, *p) if a0 is None else _rise(x, fixed, *p)
+
+    def jac(x: np.ndarray, *p: float) -> np.ndarray:
+        a_rise, k = p[-2], p[-1]
+        e = np.exp(-k * x)
+        cols = [-np.expm1(-k * x), a_rise * x * e]
+        return np.column_stack(([np.ones_like(x)] if a0 is None else []) + cols)
+
+    grid, edge = _rise_grid(t, a, w, a0)
+    starts: list[tuple[str, list[float]]] = []
+    if start:
+        unknown = sorted(set(start) - set(names))
+        if unknown:
+            raise InputError(f"{model}: no parameter {unknown[0]!r} to start from; its parameters are "
+                             f"{', '.join(names)}")
+        auto = dict(zip(("A0", "A_rise", "k"), grid))
+        starts.append(("given", [float(start.get(n, auto[n])) for n in names]))
+    starts.append(("grid", grid if a0 is None else grid[1:]))
+    best: FitResult | None = None
+    failures = []
+    given_rss = None
+    for origin, p0 in starts:
+        try:
+            fit = nonlinear_lstsq(f, t, a, p0, names, model=model, jac=jac, weights=w, inputs=inputs)
+        except FitFailed as exc:
+            failures.append(f"from the {origin} start: {exc}")
+            continue
+        if origin == "given":
+            given_rss = fit.rss
+        fit.extra["start"] = dict(zip(names, p0))
+        fit.extra["start_used"] = origin
+        if best is None or fit.rss < best.rss * (1.0 - 1e-9):
+            best = fit
+    if best is None:
+        raise FitFailed(f"{model}: no start converged ({'; '.join(failures)}); check the data or give --start values")
+    k = best.values["k"]
+    if not k > 0:
+        raise FitFailed(f"{model}: the fitted rate constant k = {k:.4g} is not positive; the curve does not rise "
+                        "toward a final value as this law needs — fit zero_order or first_order_plateau instead")
+    span = float(t.max())
+    if (edge == 0 or edge == _RISE_GRID - 1) and not 0.01 < k * span < 500.0:
+        raise FitFailed(
+            f"{model}: the rise cannot be pinned down (k·t_max = {k * span:.3g}): "
+            + ("the curve is still nearly straight, so the final value is not determined — record longer or fit "
+               "zero_order" if k * span <= 0.01 else
+               "the curve has finished rising before most points — use shorter intervals or fit zero_order")
+        )
+    if len(starts) > 1 and best.extra["start_used"] == "grid":
+        best.message = ((f"from the given start the fit stopped at a higher sum of squares ({given_rss:.6g} against "
+                         f"{best.rss:.6g})" if given_rss is not None else "the fit from the given start did not "
+                         "converge") + "; the minimum from the grid start is reported")
+    best.extra["A_final"] = best.values["A_rise"] + (best.values["A0"] if a0 is None else fixed)
+    if a0 is not None:
+        best.inputs["a0_fixed"] = fixed
+    return best
+
+
 def _fit_one(
     tau: np.ndarray, a: np.ndarray, model: str, a_end: float, inputs: Mapping[str, Any], w: np.ndarray | None,
     moments: _Moments | None = None,
@@ -604,6 +720,8 @@ def fit_model(
     t_start: float | None = None,
     a_end: float = 0.0,
     weights: Any = None,
+    a0: float | None = None,
+    start: Mapping[str, float] | None = None,
 ) -> FitResult:
     """Fit one rate law (module docstring) to a run.
 
@@ -618,14 +736,19 @@ def fit_model(
         model fits it).
     weights : relative weights (1/variance of A up to a constant), e.g. ``optics_result.weights`` when the count
         noise is about constant — A read at low light is noisier, and unweighted SEs then understate the truth.
+    a0 : ``first_order_rise`` only: hold A0 (the absorbance at t = 0) fixed at this value; None fits it.
+    start : ``first_order_rise`` only: starting values by parameter name (``A0``, ``A_rise``, ``k``); the grid's
+        start is always tried too and the lower sum of squares wins.
 
     Returns
     -------
     FitResult with ``extra``: ``time_origin_s``, ``runs_test``, ``half_life_s``/``half_life_se_s`` where defined.
     """
-    if model not in MODELS:
-        raise InputError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
-    return _fit_prepared(_points(t, A, mask, t_start, weights), model, inputs, t_start, a_end)
+    if model not in ALL_MODELS:
+        raise InputError(f"unknown model {model!r}; choose one of {', '.join(ALL_MODELS)}")
+    if model != "first_order_rise" and (a0 is not None or start):
+        raise InputError("a0 and start apply to first_order_rise only")
+    return _fit_prepared(_points(t, A, mask, t_start, weights), model, inputs, t_start, a_end, a0=a0, start=start)
 
 
 @dataclass
@@ -650,9 +773,9 @@ def _points(t: Any, A: Any, mask: Any, t_start: float | None, weights: Any) -> _
 
 
 def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_start: float | None,
-                  a_end: float) -> FitResult:
+                  a_end: float, *, a0: float | None = None, start: Mapping[str, float] | None = None) -> FitResult:
     tv, av = p.tv, p.av
-    k = 3 if model == "first_order_plateau" else 2
+    k = 3 if model == "first_order_plateau" or (model == "first_order_rise" and a0 is None) else 2
     if tv.size < k + 2:
         raise TooFewPoints(
             f"{model}: {tv.size} usable points, need at least {k + 2}; record a longer run, a shorter interval, "
@@ -676,10 +799,26 @@ def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_st
     if model in ("zero_order", "first_order", "second_order"):
         rec["a_end"] = a_end
     rec["weighted"] = w is not None
+    if model == "first_order_rise":
+        if a0 is not None and not math.isfinite(a0):
+            raise InputError("a0 must be a finite absorbance (the absorbance at t = 0)")
+        result = _fit_rise(tv, av, w, a0, start, rec)
+        _half_life(result)
+        return _finish(result, 0.0, {})
     if p.moments is None:
         p.moments = _Moments(tv - t0, av, w)
     result = _fit_one(p.moments.tau, av, model, a_end, rec, w, p.moments)
     result.x = tv
+    if model != "zero_order" and not result.values["k"] > 0:
+        k_value = result.values["k"]
+        hint = ("the absorbance rises, so it does not decay toward a_end = "
+                f"{a_end:g} as this law needs — fit first_order_plateau or first_order_rise"
+                if av[-1] > av[0] else "the data do not follow this law — fit another model")
+        if not k_value < 0:
+            raise FitFailed(f"{model}: the fitted rate constant is zero; the data show no reaction")
+        life = f" (half-life {_LN2 / k_value:.3g} s)" if model != "second_order" else ""
+        raise FitFailed(f"{model}: the fitted rate constant k = {k_value:.4g} is negative{life}, which is not "
+                        f"physical: {hint}")
     _half_life(result)
     return _finish(result, t0, {})
 
@@ -751,34 +890,37 @@ def initial_rate(
 
 @dataclass
 class ModelComparison:
-    """Every candidate model fitted to the same points, ranked by AIC (lowest first).
+    """Every candidate model fitted to the same points, ranked by AICc (lowest first).
+
+    AICc = AIC + 2k(k+1)/(n−k−1) (fitting module docstring): with the few points of a short run plain AIC favours
+    the model with more parameters too often.
 
     Attributes
     ----------
     results : fitted models by name.
     failures : models that could not be fitted, with the reason.
-    ranking : model names, best first; ``delta_aic`` and ``akaike_weight`` by name.
+    ranking : model names, best first; ``delta_aicc`` and ``akaike_weight`` (from AICc) by name.
     """
 
     results: dict[str, FitResult]
     failures: dict[str, str]
     ranking: list[str]
-    delta_aic: dict[str, float] = field(default_factory=dict)
+    delta_aicc: dict[str, float] = field(default_factory=dict)
     akaike_weight: dict[str, float] = field(default_factory=dict)
 
     @property
     def best(self) -> FitResult:
-        """The model with the lowest AIC."""
+        """The model with the lowest AICc."""
         return self.results[self.ranking[0]]
 
     def report(self) -> str:
         """A ranking table followed by each model's report."""
-        lines = ["model comparison (AIC = n·ln(RSS/n) + 2k; lowest first)"]
+        lines = ["model comparison (AICc = n·ln(RSS/n) + 2k + 2k(k+1)/(n−k−1); lowest first)"]
         for name in self.ranking:
             r = self.results[name]
             rt = r.extra["runs_test"]["p_value"]
             lines.append(
-                f"  {name:<20} AIC = {r.aic:10.2f}  ΔAIC = {self.delta_aic[name]:8.2f}  "
+                f"  {name:<20} AICc = {r.extra['aicc']:10.2f}  ΔAICc = {self.delta_aicc[name]:8.2f}  "
                 f"weight = {self.akaike_weight[name]:.3f}  runs-test p = {'n/a' if rt is None else f'{rt:.3g}'}"
             )
         for name, why in self.failures.items():
@@ -792,12 +934,31 @@ class ModelComparison:
         return jsonable(
             {
                 "ranking": self.ranking,
-                "delta_aic": self.delta_aic,
+                "ranked_by": "AICc",
+                "delta_aicc": self.delta_aicc,
                 "akaike_weight": self.akaike_weight,
                 "failures": self.failures,
                 "results": {k: v.to_dict() for k, v in self.results.items()},
             }
         )
+
+
+def rank_by_aicc(results: Mapping[str, FitResult]) -> tuple[list[str], dict[str, float], dict[str, float]]:
+    """Model names by AICc (lowest first), ΔAICc and Akaike weights from AICc."""
+    score = {m: r.extra.get("aicc", math.inf) for m, r in results.items()}
+    ranking = sorted(results, key=lambda m: (score[m], results[m].aic))
+    best = score[ranking[0]]
+    if math.isinf(best):  # an exact fit (−inf) or too few points for the correction (+inf): fall back to AIC
+        score = {m: r.aic for m, r in results.items()}
+        ranking = sorted(results, key=lambda m: score[m])
+        best = score[ranking[0]]
+    delta = {m: score[m] - best for m in ranking}
+    if math.isinf(best):
+        raw = {m: 1.0 if delta[m] == 0 or math.isnan(delta[m]) else 0.0 for m in ranking}
+    else:
+        raw = {m: math.exp(-0.5 * delta[m]) for m in ranking}
+    total = sum(raw.values())
+    return ranking, delta, {m: raw[m] / total for m in ranking}
 
 
 def fit_all(
@@ -811,7 +972,7 @@ def fit_all(
     a_end: float = 0.0,
     weights: Any = None,
 ) -> ModelComparison:
-    """Fit every candidate model to the same points and rank them by AIC.
+    """Fit every candidate model to the same points and rank them by AICc.
 
     A model that cannot be fitted is listed in ``failures``; input errors (unsorted times, NaN, too few points)
     still raise. Raises ``FitFailed`` if no model could be fitted.
@@ -819,8 +980,8 @@ def fit_all(
     results: dict[str, FitResult] = {}
     failures: dict[str, str] = {}
     for model in models:
-        if model not in MODELS:
-            raise InputError(f"unknown model {model!r}; choose one of {', '.join(MODELS)}")
+        if model not in ALL_MODELS:
+            raise InputError(f"unknown model {model!r}; choose one of {', '.join(ALL_MODELS)}")
     points = _points(t, A, mask, t_start, weights)  # checked once, shared by every model
     for model in models:
         try:
@@ -828,18 +989,10 @@ def fit_all(
         except InputError:
             raise
         except AnalysisError as exc:
-            if isinstance(exc, TooFewPoints) and model != "first_order_plateau":
+            if isinstance(exc, TooFewPoints) and model not in ("first_order_plateau", "first_order_rise"):
                 raise
             failures[model] = str(exc)
     if not results:
         raise FitFailed("no rate law could be fitted: " + "; ".join(failures.values()))
-    ranking = sorted(results, key=lambda m: results[m].aic)
-    best = results[ranking[0]].aic
-    delta = {m: results[m].aic - best for m in ranking}
-    if math.isinf(best):
-        raw = {m: 1.0 if delta[m] == 0 or math.isnan(delta[m]) else 0.0 for m in ranking}
-    else:
-        raw = {m: math.exp(-0.5 * delta[m]) for m in ranking}
-    total = sum(raw.values())
-    weights = {m: raw[m] / total for m in ranking}
+    ranking, delta, weights = rank_by_aicc(results)
     return ModelComparison(results, failures, ranking, delta, weights)

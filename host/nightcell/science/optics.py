@@ -26,6 +26,7 @@ __all__ = [
     "FLAG_DARK_DRIFT",
     "FLAG_BEYOND_STRAY",
     "FLAG_MISSING",
+    "FLAG_BELOW_BLANK",
     "FLAG_NAMES",
     "NoiseEstimate",
     "OpticsResult",
@@ -35,6 +36,7 @@ __all__ = [
     "correct_stray",
     "flag_names",
     "stray_ceiling",
+    "blank_problems",
     "stray_fraction_from_opaque",
 ]
 
@@ -43,6 +45,10 @@ FLAG_SATURATED = 2  #: the light reading (or the blank's) is at the top of the A
 FLAG_DARK_DRIFT = 4  #: the dark reading moved from the blank's dark by more than ``dark_drift_limit`` counts.
 FLAG_BEYOND_STRAY = 8  #: stray light is at least half of the detected light (true A ≥ −log10 s); A reads low.
 FLAG_MISSING = 16  #: a count is NaN or infinite (a missing read); A is NaN.
+FLAG_BELOW_BLANK = 32  #: more light than the blank beyond its noise (A below −max(5 SD, 0.005)): wrong blank?
+NOISE_COUNTS = 3.0
+"""Count noise (SD, counts per read) assumed when no scatter was measured: about 2–3 LSB for a 12-bit ADC with
+~8.7 effective bits [memory, RP2040 datasheet errata and MicroPython port notes]."""
 
 FLAG_NAMES = {
     FLAG_NONPOSITIVE: "nonpositive",
@@ -50,6 +56,7 @@ FLAG_NAMES = {
     FLAG_DARK_DRIFT: "dark_drift",
     FLAG_BEYOND_STRAY: "beyond_stray",
     FLAG_MISSING: "missing",
+    FLAG_BELOW_BLANK: "below_blank",
 }
 
 _LN10 = math.log(10.0)
@@ -183,6 +190,7 @@ def absorbance(
     saturation_fraction: float = 0.995,
     stray: float = 0.0,
     dark_drift_limit: float | None = None,
+    noise_counts: float = NOISE_COUNTS,
 ) -> OpticsResult:
     """Absorbance of each reading against a blank: ``A = −log10((light − dark)/(blank_light − blank_dark))``.
 
@@ -196,6 +204,8 @@ def absorbance(
         (A_obs ≥ ceiling − log10 2, i.e. true A ≥ −log10 s) are flagged. A is reported as read, not corrected
         (see :func:`correct_stray`).
     dark_drift_limit : flag readings whose dark differs from the blank's dark by more than this many counts.
+    noise_counts : SD of one light or dark value in counts (``NOISE_COUNTS`` by default); readings more than
+        max(5 SD of A at T = 1, 0.005) below zero absorbance are flagged ``below_blank``.
 
     Returns
     -------
@@ -240,6 +250,10 @@ def absorbance(
     if s > 0:
         with np.errstate(invalid="ignore"):
             flags[usable & (a >= ceiling - math.log10(2.0))] |= FLAG_BEYOND_STRAY
+    # A at T = 1 scatters by (1/ln 10)·sqrt(var S/S² + var R/R²) with var = 2·noise² (light and dark each)
+    below = max(5.0 * math.sqrt(4.0) * noise_counts / (math.log(10.0) * reference), 0.005)
+    with np.errstate(invalid="ignore"):
+        flags[usable & (a < -below)] |= FLAG_BELOW_BLANK
     return OpticsResult(
         transmittance=transmittance,
         absorbance=a,
@@ -309,3 +323,28 @@ def absorbance_noise(
         sd_reading = np.where(signal > 0, np.sqrt(rel_reading) / _LN10, np.nan)
         sd = np.where(signal > 0, np.sqrt(rel_reading + var_reference / reference**2) / _LN10, np.nan)
     return NoiseEstimate(absorbance=a, sd=sd, sd_reading=sd_reading)
+
+
+BLANK_NOISE_SDS = 5.0
+"""A blank whose light − dark is within this many SDs of the dark noise (of a difference: √2·noise) is blocked."""
+BLANK_FAR_BELOW = 0.1
+"""A blank whose signal is below this fraction of the median of the board's earlier blanks (A > 1 against them)."""
+
+
+def blank_problems(light: float, dark: float, earlier_signals: Any = (), *,
+                   noise_counts: float = NOISE_COUNTS) -> list[str]:
+    """Why a blank (mean counts per read) looks wrong, or ``[]``: light within ``BLANK_NOISE_SDS`` dark-noise SDs
+    of its dark (the light path blocked), or a signal far below the board's earlier blanks (``earlier_signals``:
+    their light − dark). Common practice: a blank is the brightest reading of a session."""
+    problems = []
+    sd = math.sqrt(2.0) * noise_counts
+    signal = float(light) - float(dark)
+    if signal <= BLANK_NOISE_SDS * sd:
+        problems.append(f"light {light:.1f} vs dark {dark:.1f} counts per read: within {BLANK_NOISE_SDS:g} "
+                        f"dark-noise SDs ({sd:.2g} counts) of its dark, as if the light path were blocked")
+    earlier = np.asarray(list(earlier_signals), dtype=float)
+    earlier = earlier[np.isfinite(earlier) & (earlier > 0)]
+    if earlier.size and signal < BLANK_FAR_BELOW * float(np.median(earlier)):
+        problems.append(f"signal {signal:.1f} counts per read, far below the {float(np.median(earlier)):.1f} of this "
+                        f"board's {earlier.size} earlier blank(s) (less than {BLANK_FAR_BELOW:g} of them)")
+    return problems

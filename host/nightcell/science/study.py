@@ -24,7 +24,11 @@ import numpy as np
 from ..errors import DegenerateData, InputError, ShapeMismatch, TooFewPoints
 from .fitting import FitResult, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq
 
-__all__ = ["GAS_CONSTANT", "BOLTZMANN", "PLANCK", "OrderStudy", "arrhenius", "eyring", "orders"]
+__all__ = ["GAS_CONSTANT", "BOLTZMANN", "PLANCK", "SE_RULE", "OrderStudy", "arrhenius", "eyring", "orders"]
+
+SE_RULE = ("SE scaled by the residual scatter (the Birge ratio sqrt(χ²/dof), up or down: NIST/statsmodels "
+           "convention); 95 % interval from Student t with n − 2 dof")
+"""The one rule for the SE of Ea (and every fit over runs): the arrhenius command and the study report both."""
 
 # CODATA 2018 exact values (SI redefinition).
 GAS_CONSTANT = 8.314462618  # J mol⁻¹ K⁻¹
@@ -107,6 +111,12 @@ def arrhenius(
         inputs=inputs,
     )
     a = math.exp(fit.param("ln_A"))
+    lo, hi = fit.confint("Ea_J_per_mol")
+    fit.extra.update(
+        se_rule=(SE_RULE + f" (Birge ratio {fit.residual_sd:.3g})") if not absolute_sigma or k_se is None
+        else "SE from the given k_se alone (absolute_sigma; the scatter of the runs not used)",
+        Ea_ci95_kJ_per_mol=[lo / 1000.0, hi / 1000.0],
+    )
     fit.extra.update(
         A=a, A_se=a * fit.se("ln_A"), Ea_kJ_per_mol=fit.param("Ea_J_per_mol") / 1000.0,
         Ea_se_kJ_per_mol=fit.se("Ea_J_per_mol") / 1000.0, correlation_Ea_lnA=float(fit.correlation()[0, 1]),

@@ -603,6 +603,38 @@ def new_device_id(rng: random.Random | None = None) -> str:
     return "".join(rng.choice("0123456789abcdef") for _ in range(16))
 
 
+SIM_DEVICE_FILE = "device_id"
+_LEGACY_SIM_DEVICE = "5e1fc0ffee000001"  # the one id every simulated board of `nightcell sim-board` once had
+
+
+def folder_device_id(folder: str | Path, *, create: bool) -> str | None:
+    """The device id of the simulated board kept in ``folder``: made (random) the first time, then kept.
+
+    Two simulated boards in two folders get two ids, so their rows never share a key in one database; the same
+    folder started again is the same board (its flash is there) and keeps its id. A folder made before ids were
+    kept there holds the old shared id's cuvette file, and keeps that id. None when there is no board and
+    ``create`` is false.
+    """
+    folder = Path(folder)
+    path = folder / SIM_DEVICE_FILE
+    try:
+        text = path.read_text(encoding="ascii").strip()
+        if len(text) == 16 and all(c in "0123456789abcdef" for c in text):
+            return text
+    except (OSError, UnicodeDecodeError):
+        pass
+    if (folder / f"{_LEGACY_SIM_DEVICE}.cell.json").exists():
+        return _LEGACY_SIM_DEVICE
+    if not create:
+        return None
+    device = new_device_id(random.SystemRandom())
+    folder.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_suffix(".tmp")
+    tmp.write_text(device + "\n", encoding="ascii")
+    os.replace(tmp, path)
+    return device
+
+
 def copy_firmware(dest: str | Path) -> Path:
     """Copy the firmware tree to ``dest`` (used by deploy and by tests that compile it)."""
     src = firmware_dir()

@@ -26,7 +26,7 @@ import numpy as np
 from ._sqlite import sqlite_utils
 
 from .. import __version__
-from ..errors import InputError, SchemaTooNew, StoreError
+from ..errors import InputError, RecordConflict, SchemaTooNew, StoreError
 from ..wire.frames import (
     KIND_ANCHOR,
     KIND_BOOT,
@@ -410,8 +410,11 @@ class Store(StoreQueries):
 
     # -- ingest -------------------------------------------------------------------------------------------------
 
-    def ingest(self, device: str, records: Iterable[Record], *, journal: int | None = None) -> dict[str, int]:
-        """Insert decoded records (inside the caller's transaction). Rows already present are left as they are.
+    def ingest(self, device: str, records: Iterable[Record], *, journal: int | None = None,
+               refuse_conflicts: bool = False) -> dict[str, int]:
+        """Insert decoded records (inside the caller's transaction). Rows already present are left as they are;
+        with ``refuse_conflicts`` (the sync) a record whose key is stored with other content is refused
+        (``RecordConflict``, see ``insert_rows``).
 
         Record uptimes are unwrapped (u32 milliseconds wrap after 49.7 days) from the last row stored for the same
         boot, so ``uptime_ms`` in every raw table only grows within a boot. SAMPLES records decoded with
@@ -458,7 +461,7 @@ class Store(StoreQueries):
                                        f["vsys_mv"]))
         if lazy:
             rows["samples"].extend(self._sample_rows(device, lazy, lazy_uptime))
-        return self.insert_rows(rows)
+        return self.insert_rows(rows, refuse_conflicts=refuse_conflicts, journal=journal)
 
     @staticmethod
     def _sample_rows(device: str, lazy: list[Record], uptime: dict[int, int]) -> list[tuple]:
@@ -508,8 +511,18 @@ class Store(StoreQueries):
                 best = (row[0], row[1])
         return None if best is None else best[1]
 
-    def insert_rows(self, rows: dict[str, list[tuple]]) -> dict[str, int]:
-        """``INSERT OR IGNORE`` raw rows table by table; returns the number of new rows per table."""
+    # How many leading columns of each raw table are its key (device, boot[, seq[, channel]]).
+    _KEY_COLUMNS = {"boots": 2, "samples": 4, "mark_counts": 4, "marks": 3, "anchors": 3, "events": 3,
+                    "settings_records": 3, "health": 3}
+
+    def insert_rows(self, rows: dict[str, list[tuple]], *, refuse_conflicts: bool = False,
+                    journal: int | None = None) -> dict[str, int]:
+        """``INSERT OR IGNORE`` raw rows table by table; returns the number of new rows per table.
+
+        With ``refuse_conflicts`` a row whose key is already stored must be the stored row itself (a row arriving
+        twice); one with other content raises ``RecordConflict`` — inside the caller's transaction, which then
+        writes nothing. Only rows that were not new are looked at, so a sync of fresh records pays nothing.
+        """
         counts = {}
         for table, values in rows.items():
             if not values:
@@ -519,7 +532,37 @@ class Store(StoreQueries):
             before = self.conn.total_changes
             self.conn.executemany(f"INSERT OR IGNORE INTO {table} VALUES ({marks})", values)
             counts[table] = self.conn.total_changes - before
+            if refuse_conflicts and counts[table] < len(values):
+                self._refuse_conflicts(table, values, journal)
         return counts
+
+    def _refuse_conflicts(self, table: str, values: list[tuple], journal: int | None) -> None:
+        k = self._KEY_COLUMNS[table]
+        names = [r[1] for r in self.conn.execute(f"PRAGMA table_info({table})")]
+        where = " AND ".join(f"{n} = ?" for n in names[:k])
+        for row in values:
+            stored = self.conn.execute(f"SELECT * FROM {table} WHERE {where}", row[:k]).fetchone()
+            if stored is None or self._same_row(names, stored, row):
+                continue
+            key = ", ".join(f"{n} {v}" for n, v in zip(names[1:k], row[1:k]))
+            other = self.conn.execute("SELECT journal FROM boots WHERE device = ? AND boot = ?",
+                                      row[:2]).fetchone()
+            was = f" (stored from journal {other[0]})" if other and other[0] not in (None, journal) else ""
+            raise RecordConflict(
+                f"journal {journal} of {row[0]} would change rows already stored here: its {table} row of {key} "
+                f"differs from the one stored{was}. Its flash was wiped or reflashed (a new journal counts boots "
+                "from 1 again), or another board has the same device id. Nothing was written: sync it into another "
+                "database (--db other.db) and keep both"
+            )
+
+    @staticmethod
+    def _same_row(names: list[str], stored: tuple, row: tuple) -> bool:
+        for name, a, b in zip(names, stored, row):
+            if name == "position" or (name == "journal" and (a is None or b is None)):
+                continue  # provenance: where the row was read from, unknown for rows stored without it
+            if a != b:
+                return False
+        return True
 
     def touch_device(self, device: str, *, board: str | None = None, firmware: str | None = None,
                      label: str | None = None, now: float | None = None) -> None:

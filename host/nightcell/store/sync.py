@@ -3,8 +3,9 @@
 The order is the whole point: records are committed to SQLite (one transaction per batch, together with the new
 stored position) *before* the board is told it may trim them, so a cable pulled, a laptop closed or the host killed at
 any moment loses nothing and duplicates nothing — the next sync starts from what was committed, and rows that
-arrive twice are the same rows (identity device + boot + seq). This module uses the link and the store; it
-computes no science.
+arrive twice are the same rows (identity device + boot + seq). A record whose identity is stored with other
+content (a wiped board's new journal counting boots from 1 again) is refused, nothing of its batch written. This
+module uses the link and the store; it computes no science.
 
 Example::
 
@@ -139,7 +140,7 @@ def sync_board(
                                    label=info.get("label") or None)
                 if state is None:
                     store.set_journal_state(device, journal, stored_to=summary.start, acked_to=0)
-            counts = store.ingest(device, pending, journal=journal)
+            counts = store.ingest(device, pending, journal=journal, refuse_conflicts=True)
             store.set_journal_state(device, journal, stored_to=upto)
             if any(r.kind == KIND_ANCHOR for r in pending):
                 rebuild_clocks(store, device)

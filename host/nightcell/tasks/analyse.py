@@ -36,11 +36,12 @@ from ..science import calibration as _calibration
 from ..science import kinetics as _kinetics
 from ..science import optics as _optics
 from ..science import study as _study
-from ..errors import AnalysisError, InputError
+from ..errors import AnalysisError, InputError, SuspectData
 from ..science.fitting import FitResult, jsonable
 from ..store.database import Run, Store
 
 __all__ = ["BlankChoice", "RunAnalysis", "choose_blank", "standards_from_store", "calibrate_from_store",
+           "standard_sets", "label_tokens", "ACCEPT_HINT",
            "run_series", "analyse_run", "run_bounds", "set_run_condition", "run_conditions", "run_provenance",
            "RunSummary", "StudyAnalysis", "analyse_study", "CONDITION_PATTERN", "RESUME_SOURCE", "initial_rate_of",
            "k_and_temperature"]
@@ -52,6 +53,9 @@ CONDITION_PATTERN = re.compile(r"^(temperature_K|conc_[a-z][a-z0-9_]*_M)$")
 """Names of run conditions: ``temperature_K``, or ``conc_<reactant>_M`` (mol/L at the start of the run)."""
 
 BLANK_RULE = "nearest preceding blank mark of the same device and channel"
+AFTER_RULE = "no blank before the run: the first blank mark after it (same device and channel)"
+ACCEPT_HINT = "pass --accept-suspect to use it anyway"
+"""How every guard's refusal ends: the one option that confirms suspect data (the flag is kept on the result)."""
 
 
 @dataclass
@@ -67,9 +71,11 @@ class BlankChoice:
     rule: str
     stray: float = 0.0
     stray_mark: str | None = None
+    warnings: list[str] = field(default_factory=list)
+    suspect: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
-        return dict(self.__dict__)
+        return jsonable(dict(self.__dict__))
 
     @property
     def stray_text(self) -> str:
@@ -133,68 +139,213 @@ def _mark_means(mark: dict[str, Any], channel: int) -> tuple[float, float]:
     return mark["light"][channel] / mark["reads"], mark["dark"][channel] / mark["reads"]
 
 
+def _mark_after(store: Store, device: str, kind: str, after: tuple[int, int]) -> dict[str, Any] | None:
+    """The first ``kind`` mark of a device after (boot, seq) ``after``, or None."""
+    keys = store.mark_keys(device, kind)
+    i = bisect.bisect_right(keys, (int(after[0]), int(after[1])))
+    if i >= len(keys):
+        return None
+    boot, seq = keys[i]
+    rows = store.query("SELECT * FROM marks WHERE device = ? AND boot = ? AND seq = ?", (device, boot, seq))
+    return _with_counts(store, rows[0] if rows else None)
+
+
+_KEY = re.compile(r"^\s*(\d+):(\d+)\s*$")
+
+
+def _named_blank(store: Store, device: str, blank: tuple[int, int] | str) -> dict[str, Any]:
+    """The blank mark named by (boot, seq), by its key text ``boot:seq``, or by its label."""
+    if isinstance(blank, str):
+        key = _KEY.match(blank)
+        if key is None:
+            rows = store.query("SELECT * FROM marks WHERE device = ? AND mark = 'blank' AND label = ? "
+                               "ORDER BY boot, seq", (device, blank))
+            if not rows:
+                raise InputError(f"no blank labelled {blank!r} on device {device}: list blanks with "
+                                 "`nightcell list blanks` and give its key (boot:seq) or label")
+            if len(rows) > 1:
+                raise InputError(f"{len(rows)} blanks are labelled {blank!r} on device {device} "
+                                 f"({', '.join('%d:%d' % (r['boot'], r['seq']) for r in rows)}): give its key")
+            return _with_counts(store, rows[0])
+        blank = (int(key.group(1)), int(key.group(2)))
+    chosen = store.query("SELECT * FROM marks WHERE device = ? AND mark = 'blank' AND boot = ? AND seq = ?",
+                         (device, blank[0], blank[1]))
+    if not chosen:
+        raise InputError(f"no blank {blank[0]}:{blank[1]} on device {device}: list blanks with `nightcell list`")
+    return _with_counts(store, chosen[0])
+
+
+def _earlier_blank_signals(store: Store, device: str, mark: dict[str, Any], channel: int, most: int = 10) -> list:
+    """light − dark per read of up to ``most`` blanks of the device before ``mark``."""
+    keys = store.mark_keys(device, "blank")
+    i = bisect.bisect_left(keys, (int(mark["boot"]), int(mark["seq"])))
+    out = []
+    for boot, seq in keys[max(0, i - most):i]:
+        rows = store.query("SELECT * FROM marks WHERE device = ? AND boot = ? AND seq = ?", (device, boot, seq))
+        if rows:
+            m = store.with_counts(rows[0])
+            if m["reads"] > 0 and channel < len(m["light"]):
+                light, dark = _mark_means(m, channel)
+                out.append(light - dark)
+    return out
+
+
 def choose_blank(store: Store, device: str, before: tuple[int, int] | None = None, channel: int = 0,
-                 blank: tuple[int, int] | None = None) -> BlankChoice:
-    """The blank for readings of ``device`` taken at (boot, seq) ``before``: the nearest preceding blank mark,
-    or the one named by ``blank`` = (boot, seq). ``AnalysisError`` when there is none."""
+                 blank: tuple[int, int] | str | None = None, *, accept_suspect: bool = False) -> BlankChoice:
+    """The blank for readings of ``device`` taken at (boot, seq) ``before``: the nearest preceding blank mark;
+    when there is none, the first blank after it (with a warning); or the one named by ``blank`` — (boot, seq),
+    its key ``"boot:seq"`` or its label. ``AnalysisError`` when there is none at all.
+
+    A blank that looks wrong (``optics.blank_problems``: blocked, or far below the board's earlier blanks) raises
+    ``SuspectData`` unless ``accept_suspect``; then the problem is kept in ``suspect`` and the warnings.
+    """
+    warnings: list[str] = []
     if blank is not None:
-        chosen = store.mark(device, blank[0], blank[1], kind="blank")
-        if chosen is None:
-            raise InputError(f"no blank {blank[0]}:{blank[1]} on device {device}: list blanks with `nightcell list`")
-        m = _with_counts(store, chosen)
+        m = _named_blank(store, device, blank)
         rule = "named by the user"
+        if before is not None and (m["boot"], m["seq"]) > (int(before[0]), int(before[1])):
+            warnings.append(f"blank {m['boot']}:{m['seq']} was taken after the readings it is used for; the cell "
+                            "may have changed in between (LED warmth, cuvette position)")
     else:
         m = _mark_before(store, device, "blank", before)
+        rule = BLANK_RULE
+        if m is None and before is not None:
+            m = _mark_after(store, device, "blank", before)
+            rule = AFTER_RULE
+            if m is not None:
+                warnings.append(f"no blank before {before[0]}:{before[1]}: absorbance is read against blank "
+                                f"{m['boot']}:{m['seq']}, taken after; the cell may have changed in between — "
+                                "take a blank before each run, or name one with --blank")
         if m is None:
             raise AnalysisError(f"device {device} has no blank before {before}: take a blank first "
                                 "(`nightcell blank`) or name one")
-        rule = BLANK_RULE
     light, dark = _mark_means(m, channel)
-    choice = BlankChoice(device, m["boot"], m["seq"], channel, light, dark, rule)
+    key = f"{m['boot']}:{m['seq']}"
+    problems = _optics.blank_problems(light, dark, _earlier_blank_signals(store, device, m, channel))
+    if problems and not accept_suspect:
+        raise SuspectData(f"blank {key} looks wrong: {problems[0]} — clear the light path and take a new blank, "
+                          f"name another with --blank, or {ACCEPT_HINT}")
+    warnings += [f"suspect blank {key} used as confirmed (--accept-suspect): {p}" for p in problems]
+    choice = BlankChoice(device, m["boot"], m["seq"], channel, light, dark, rule, warnings=warnings,
+                         suspect=problems)
     _stray(store, device, before, channel, choice)
     return choice
 
 
-def standards_from_store(store: Store, device: str, channel: int = 0) -> dict[str, Any]:
-    """Concentration and absorbance of every standard mark of a device, each against its own blank."""
-    conc, absorb, ids, blanks, strays, skipped = [], [], [], [], [], []
-    for m in store.marks(device, "standard"):
-        name = f"standard {m['label']!r} ({m['boot']}:{m['seq']})" if m["label"] else f"standard {m['boot']}:{m['seq']}"
+_TOKEN = re.compile(r"(?:^|\s)(unit|set)=(\S+)")
+
+
+def label_tokens(label: str) -> tuple[str, dict[str, str]]:
+    """A standard's label without its ``unit=…``/``set=…`` tokens (schema/records.md), and the tokens."""
+    tokens = {k: v for k, v in _TOKEN.findall(label or "")}
+    return _TOKEN.sub("", label or "").strip(), tokens
+
+
+SET_RULE = ("a calibration set is the standards taken after one blank with no run started between them, or the "
+            "standards that share a set=NAME label; by default the latest set before the run (or the latest of "
+            "all), else the one named with --set")
+
+
+def standard_sets(store: Store, device: str) -> tuple[list[dict[str, Any]], list[str]]:
+    """The device's standards grouped into calibration sets (``SET_RULE``), in journal order, and the standards
+    left out (negative or non-numeric values), each with the reason.
+
+    Each set: ``name``, ``how`` (the rule that formed it), ``marks`` (the standard rows, each with ``shown_label``,
+    ``unit`` and ``concentration``), ``first`` and ``last`` (boot, seq).
+    """
+    sets: dict[str, dict[str, Any]] = {}
+    left_out: list[str] = []
+    after = "before any blank"
+    for m in store.marks(device):
+        kind, key = m["mark"], f"{m['boot']}:{m['seq']}"
+        if kind == "blank":
+            after = f"after blank {key}"
+            continue
+        if kind == "run_start" and m.get("source") != RESUME_SOURCE:
+            after = f"after run start {key} (no new blank)"
+            continue
+        if kind != "standard":
+            continue
+        shown, tokens = label_tokens(m["label"])
         try:
             c = float(m["value"])
-        except ValueError:
-            c = math.nan
-        if not (math.isfinite(c) and 0.0 <= c < 1e50):
-            # a journaled mark cannot be taken back: the analysis leaves it out and names it, so one bad value
-            # never blocks the device's other standards
-            skipped.append(f"{name} left out: its value {m['value']!r} is not a usable concentration")
+        except (TypeError, ValueError):
+            left_out.append(f"standard {key} has value {m['value']!r}, not a number")
             continue
-        b = choose_blank(store, device, (m["boot"], m["seq"]), channel)
+        if not math.isfinite(c) or c < 0:
+            left_out.append(f"standard {key} has a concentration of {m['value']} (not a physical amount): left out")
+            continue
+        name = f"set {tokens['set']}" if "set" in tokens else after
+        one = sets.setdefault(name, {"name": name, "how": "labelled set=" + tokens["set"] if "set" in tokens
+                                     else "standards " + after, "marks": [], "first": (m["boot"], m["seq"])})
+        one["marks"].append(dict(m, shown_label=shown, unit=tokens.get("unit", ""), concentration=c))
+        one["last"] = (m["boot"], m["seq"])
+    return sorted(sets.values(), key=lambda st: st["last"]), left_out
+
+
+def _pick_set(sets: list[dict[str, Any]], name: str | None, before: tuple[int, int] | None, device: str) -> dict:
+    if not sets:
+        raise AnalysisError(f"device {device} has no standards: record some with `nightcell standard`")
+    if name is not None:
+        wanted = name.strip()
+        for st in sets:
+            if wanted in (st["name"], st["name"].removeprefix("set "), st["name"].removeprefix("after blank ")):
+                return st
+        raise InputError(f"no calibration set {name!r} on device {device}; its sets are "
+                         f"{'; '.join(repr(st['name']) for st in sets)}")
+    if before is not None:
+        earlier = [st for st in sets if st["last"] < (int(before[0]), int(before[1]))]
+        if earlier:
+            return earlier[-1]
+    return sets[-1]
+
+
+def standards_from_store(store: Store, device: str, channel: int = 0, *, set_name: str | None = None,
+                         before: tuple[int, int] | None = None, accept_suspect: bool = False) -> dict[str, Any]:
+    """Concentration and absorbance of the standards of one calibration set (``SET_RULE``), each against its own
+    blank, with the set's name, the standards' labels, values and unit."""
+    sets, left_out = standard_sets(store, device)
+    chosen = _pick_set(sets, set_name, before, device)
+    conc, absorb, ids, blanks, strays, listing, warnings = [], [], [], [], [], [], []
+    units = sorted({m["unit"] for m in chosen["marks"] if m["unit"]})
+    if len(units) > 1:
+        raise InputError(f"the standards of {chosen['name']} carry different units ({', '.join(units)}): "
+                         "calibrate each unit as its own set (set=NAME in the label)")
+    for m in chosen["marks"]:
+        b = choose_blank(store, device, (m["boot"], m["seq"]), channel, accept_suspect=accept_suspect)
+        warnings += b.warnings
         light, dark = _mark_means(m, channel)
         res = _absorbance([light], [dark], b)
-        a = float(res.absorbance[0])
-        if not math.isfinite(a):
-            skipped.append(f"{name} left out: its absorbance cannot be read (no light above the dark)")
-            continue
-        conc.append(c)
-        absorb.append(a)
+        conc.append(m["concentration"])
+        absorb.append(float(res.absorbance[0]))
         ids.append(f"{m['boot']}:{m['seq']}")
         blanks.append(f"{b.boot}:{b.seq}")
         strays.append(b.stray_text)
+        listing.append({"mark": ids[-1], "label": m["shown_label"], "value": m["value"], "unit": m["unit"]})
     return {"concentration": np.array(conc), "absorbance": np.array(absorb), "marks": ids, "blanks": blanks,
-            "stray": strays, "skipped": skipped}
+            "stray": strays, "set": chosen["name"], "set_how": chosen["how"], "listing": listing,
+            "unit": units[0] if units else "", "other_sets": [st["name"] for st in sets if st is not chosen],
+            "left_out": left_out, "warnings": list(dict.fromkeys(warnings))}
 
 
-def calibrate_from_store(store: Store, device: str, channel: int = 0, **options: Any) -> _calibration.CalibrationResult:
-    """Fit a calibration to the standards a device recorded (options go to ``fit_calibration``)."""
-    std = standards_from_store(store, device, channel)
+def calibrate_from_store(store: Store, device: str, channel: int = 0, *, set_name: str | None = None,
+                         before: tuple[int, int] | None = None, unit: str | None = None,
+                         accept_suspect: bool = False, **options: Any) -> _calibration.CalibrationResult:
+    """Fit a calibration to one calibration set of a device's standards (``SET_RULE``; options go to
+    ``fit_calibration``). ``unit`` gives the concentration unit when the standards carry none."""
+    std = standards_from_store(store, device, channel, set_name=set_name, before=before,
+                               accept_suspect=accept_suspect)
     if len(std["concentration"]) == 0:
         raise AnalysisError(f"device {device} has no standards: record some with `nightcell standard`")
+    if unit and std["unit"] and unit != std["unit"]:
+        raise InputError(f"--unit {unit} but the standards of {std['set']} were recorded in {std['unit']}: "
+                         "leave --unit out, or give the same unit")
     inputs = {"device": device, "channel": channel, "standards": std["marks"], "blanks": std["blanks"],
-              "blank_rule": BLANK_RULE, "stray_light": sorted(set(std["stray"]))}
-    if std["skipped"]:
-        inputs["skipped"] = std["skipped"]
-    return _calibration.fit_calibration(std["concentration"], std["absorbance"], inputs=inputs, **options)
+              "blank_rule": BLANK_RULE, "stray_light": sorted(set(std["stray"])), "set": std["set"],
+              "set_rule": SET_RULE, "standards_used": std["listing"], "other_sets": std["other_sets"],
+              "left_out": std["left_out"], "warnings": std["warnings"]}
+    return _calibration.fit_calibration(std["concentration"], std["absorbance"], inputs=inputs,
+                                        unit=unit or std["unit"], accept_suspect=accept_suspect, **options)
 
 
 @dataclass
@@ -218,6 +369,11 @@ class RunAnalysis:
     end_rule: str = ""
     channel: int = 0
 
+    def flag_counts(self) -> dict[str, int]:
+        """How many readings carry each flag (a reading may carry several)."""
+        return {name: int(np.count_nonzero(self.flags & bit)) for bit, name in _optics.FLAG_NAMES.items()
+                if np.any(self.flags & bit)}
+
     def to_dict(self) -> dict[str, Any]:
         return {
             "run": self.run.to_dict(),
@@ -225,6 +381,7 @@ class RunAnalysis:
             "time_basis": self.time_basis,
             "points": int(len(self.time_s)),
             "flagged": int(np.count_nonzero(self.flags)),
+            "flag_counts": self.flag_counts(),
             "best_model": self.best,
             "fits": {name: fit.to_dict() for name, fit in self.fits.items()},
             "calibration": self.calibration_id,
@@ -264,8 +421,10 @@ def run_bounds(store: Store, run: Run) -> dict[str, Any]:
     return {"end": end, "rule": rule, "resumed": resumed}
 
 
-def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] | None = None) -> dict[str, Any]:
-    """Time (s from the first sample), absorbance and flags of a run, with the blank and time basis used."""
+def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] | str | None = None, *,
+               accept_suspect: bool = False) -> dict[str, Any]:
+    """Time (s from the first sample), absorbance and flags of a run, with the blank and time basis used
+    (``choose_blank``: the blank before the run, else the first after it, or the one named)."""
     cols = store.run_sample_columns(run, channel)
     bounds = run_bounds(store, run)
     warnings = []
@@ -278,7 +437,9 @@ def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] 
                         + bounds["rule"])
     if cols["seq"].size == 0:
         raise AnalysisError(f"run {run.key} ({run.label!r}) has no samples yet: sync the board first")
-    b = choose_blank(store, run.device, (run.start_boot, run.start_seq), channel, blank)
+    b = choose_blank(store, run.device, (run.start_boot, run.start_seq), channel, blank,
+                     accept_suspect=accept_suspect)
+    warnings += b.warnings
     light = cols["light"] / cols["reads"]
     dark = cols["dark"] / cols["reads"]
     res = _absorbance(light, dark, b)
@@ -343,19 +504,35 @@ def _wall_clock(boot: np.ndarray, uptime_ms: np.ndarray, boots: list[int],
 
 
 def analyse_run(store: Store, run: Run, *, channel: int = 0, calibration: Any = None,
-                blank: tuple[int, int] | None = None, models: tuple[str, ...] | None = None) -> RunAnalysis:
-    """Absorbance of a run against its blank, every candidate rate model fitted, the best by AIC."""
-    s = run_series(store, run, channel, blank)
-    ok = s["flags"] == 0
-    if np.count_nonzero(ok) < 4:
-        raise AnalysisError(f"run {run.key} has {np.count_nonzero(ok)} clean points: too few to fit a rate")
+                blank: tuple[int, int] | str | None = None, models: tuple[str, ...] | None = None,
+                t_start: float | None = None, t_end: float | None = None,
+                accept_suspect: bool = False) -> RunAnalysis:
+    """Absorbance of a run against its blank, every candidate rate model fitted, the best by AICc.
+
+    ``t_start``/``t_end`` (s from the run's first sample) leave out readings outside that window, as they do for a
+    CSV; ``blank`` names the blank (``choose_blank``)."""
+    s = run_series(store, run, channel, blank, accept_suspect=accept_suspect)
     t = s["time_s"]
+    if t_start is not None and t_end is not None and not t_end > t_start:
+        raise InputError(f"--t-end {t_end:g} must be after --t-start {t_start:g}")
+    inside = np.ones(t.size, dtype=bool)
+    if t_start is not None:
+        inside &= t >= t_start
+    if t_end is not None:
+        inside &= t <= t_end
+    ok = (s["flags"] == 0) & inside
+    if np.count_nonzero(ok) < 4:
+        raise AnalysisError(f"run {run.key} has {np.count_nonzero(ok)} clean points"
+                            + (" in the window" if t_start is not None or t_end is not None else "")
+                            + ": too few to fit a rate")
     a = s["absorbance"]
     inputs = {"run": run.key, "device": run.device, "channel": channel,
               "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
               "stray_light": s["blank"].stray_text,
               "time_basis": s["time_basis"], "weights": "T^2 (count noise about constant)",
-              "left_out": "flagged readings"}
+              "left_out": "flagged readings", "window_s": [t_start, t_end]}
+    if s["blank"].suspect:
+        inputs["suspect_blank"] = s["blank"].suspect
     # Absorbance is noisier where less light gets through: weight by 1/var(A) ∝ T², else intervals are too narrow.
     weights = np.where(ok, np.nan_to_num(10.0 ** (-2.0 * np.nan_to_num(a, nan=0.0))), 0.0)
     comparison = _kinetics.fit_all(t, a, inputs=inputs, mask=~ok, weights=weights,
@@ -385,8 +562,14 @@ def _run_of(store: Store, run: Run | str) -> Run:
     raise InputError(f"no run {run!r} in {store.path}: give a run key device:boot:seq (see `nightcell list runs`)")
 
 
+TEMPERATURE_SENSE_K = (243.15, 383.15)
+"""Temperatures a cuvette of solution can have (−30 to 110 °C, common practice); outside needs --accept-suspect."""
+CONCENTRATION_SENSE_M = 20.0
+"""No solute is above ~20 mol/L (pure water is 55 mol/L of itself); more needs --accept-suspect."""
+
+
 def set_run_condition(store: Store, run: Run | str, quantity: str, value: float, source: str, *,
-                      now: float | None = None) -> None:
+                      now: float | None = None, accept_suspect: bool = False, check_only: bool = False) -> None:
     """Record one condition of a run (``temperature_K`` or ``conc_<reactant>_M``) and where it came from.
 
     A second entry for the same run and quantity replaces the first (conditions are typed-in knowledge, not raw
@@ -405,8 +588,18 @@ def set_run_condition(store: Store, run: Run | str, quantity: str, value: float,
     if quantity == "temperature_K" and not 150.0 <= v <= 600.0:
         raise InputError(f"temperature_K {v:g} is not a plausible temperature in kelvin: "
                          "give kelvin (°C + 273.15)")
+    lo, hi = TEMPERATURE_SENSE_K
+    if quantity == "temperature_K" and not lo <= v <= hi and not accept_suspect:
+        raise InputError(f"a run at {v - 273.15:.1f} °C ({v:g} K) is outside what a cuvette of solution can be "
+                         f"({lo - 273.15:.0f} to {hi - 273.15:.0f} °C): check the value (°C or K?), or "
+                         "pass --accept-suspect to record it anyway")
+    if quantity.startswith("conc_") and v > CONCENTRATION_SENSE_M and not accept_suspect:
+        raise InputError(f"{quantity} {v:g} mol/L is more than any solution holds ({CONCENTRATION_SENSE_M:g} mol/L): "
+                         "give mol/L (not mmol/L), or pass --accept-suspect to record it anyway")
     if not isinstance(source, str) or not source.strip():
         raise InputError("say where the condition comes from (e.g. 'bench sheet', 'probe mean')")
+    if check_only:
+        return
     r = _run_of(store, run)
     if store.mark(r.device, r.start_boot, r.start_seq, kind="run_start") is None:
         raise InputError(f"no run starts at {r.key} in {store.path}: sync the board first, or check the run key")
@@ -459,7 +652,9 @@ def run_provenance(store: Store, analysis: RunAnalysis, calibration: Any = None)
     prov["first reading"] = "%d:%d" % analysis.seqs[0]
     prov["last reading"] = "%d:%d" % analysis.seqs[-1]
     if calibration is not None:
-        prov["calibration"] = (f"slope {calibration.slope:.6g} ± {calibration.slope_se:.2g} A per unit from standards "
+        set_text = f"set {calibration.inputs['set']!r}, " if calibration.inputs.get("set") else ""
+        prov["calibration"] = (f"slope {calibration.slope:.6g} ± {calibration.slope_se:.2g} A per "
+                               f"{getattr(calibration, 'unit', '') or 'unit'} from {set_text}standards "
                                f"{', '.join(calibration.inputs.get('standards', []))} "
                                f"(blanks {', '.join(calibration.inputs.get('blanks', []))})")
     settings = store.settings_before(run.device, run.start_boot, run.start_seq)
@@ -548,27 +743,19 @@ class StudyAnalysis:
         })
 
 
-SCALE_RULE = ("standard errors rest on each run's own k standard error (weights 1/(se/k)² on ln k), multiplied by "
-              "the Birge ratio sqrt(χ²/dof) when the runs scatter more than those errors allow — never shrunk: "
-              "with 3 or 4 runs the residual scatter alone has too few degrees of freedom to be trusted")
+SCALE_RULE = ("standard errors rest on each run's own k standard error (weights 1/(se/k)² on ln k), scaled by the "
+              "runs' own scatter (the Birge ratio sqrt(χ²/dof), up or down: the NIST/statsmodels convention), with "
+              "95 % intervals from Student t with the fit's n − 2 degrees of freedom — the same rule as the "
+              "arrhenius command")
 
 
 def _per_run_scale(fit: FitResult) -> None:
-    """Rescale a weighted fit's covariance from the residual scale s² to max(1, s)² (see SCALE_RULE)."""
+    """Record the one rule for standard errors of fits over runs (``SCALE_RULE``; ``study.SE_RULE``): the scale
+    estimated from the residuals, as ``linear_lstsq`` already gives it — nothing is rescaled here."""
     s2 = fit.residual_sd ** 2
-    if not (s2 > 0 and math.isfinite(s2)):
-        return
-    factor = max(1.0, s2) / s2
-    c = fit.cov_matrix * factor
-    fit.cov = c.tolist()
-    fit.stderr = {n: float(math.sqrt(c[i, i])) for i, n in enumerate(fit.names)}
-    fit.extra["birge_ratio"] = math.sqrt(s2)
+    if s2 > 0 and math.isfinite(s2):
+        fit.extra["birge_ratio"] = math.sqrt(s2)
     fit.extra["scale_rule"] = SCALE_RULE
-    if "ln_A" in fit.values:
-        fit.extra["A_se"] = fit.extra.get("A", math.exp(fit.values["ln_A"])) * fit.stderr["ln_A"]
-        fit.extra["Ea_se_kJ_per_mol"] = fit.stderr["Ea_J_per_mol"] / 1000.0
-    if "ln_k" in fit.values and "k" in fit.extra:
-        fit.extra["k_se"] = fit.extra["k"] * fit.stderr["ln_k"]
 
 
 def _pick_group(items: list[RunSummary], key: Any, level: Any) -> list[RunSummary] | None:
@@ -602,13 +789,13 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
             out.skipped[run.key] = ("no recorded temperature_K and starting concentration: record the run's "
                                     "temperature_K and conc_<reactant>_M (analyse.set_run_condition) first")
             continue
-        if run.device not in cals:
-            try:
-                cals[run.device] = calibrate_from_store(store, run.device, channel, level=level)
-            except AnalysisError:
-                cals[run.device] = None
         try:
-            a = analyse_run(store, run, channel=channel, calibration=cals[run.device])
+            cals[run.key] = calibrate_from_store(store, run.device, channel, before=(run.start_boot, run.start_seq),
+                                                 level=level)
+        except AnalysisError:
+            cals[run.key] = None
+        try:
+            a = analyse_run(store, run, channel=channel, calibration=cals[run.key])
         except AnalysisError as exc:
             out.skipped[run.key] = f"not analysed: {exc}"
             continue
@@ -622,7 +809,7 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
             ini = None
         out.runs.append(RunSummary(run, {q: v["value"] for q, v in c.items()},
                                    {q: v["source"] for q, v in c.items()}, a, a.fits[model], ini,
-                                   cals[run.device]))
+                                   cals[run.key]))
     items = out.runs
     reactants = sorted({q for it in items for q in it.conditions if q.startswith("conc_")})
 
@@ -689,9 +876,11 @@ def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str
     return out
 
 
-def initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None) -> Any:
-    """The run's initial rate (``window`` in s, or chosen automatically), flagged readings left out, with its inputs."""
-    s = run_series(store, run, channel)
+def initial_rate_of(store: Any, run: Any, channel: int, window: tuple[float, float] | None, *,
+                    blank: tuple[int, int] | str | None = None, accept_suspect: bool = False) -> Any:
+    """The run's initial rate (``window`` in s, or chosen automatically), flagged readings left out, with its inputs
+    (the blank by ``choose_blank``, or the one named)."""
+    s = run_series(store, run, channel, blank, accept_suspect=accept_suspect)
     inputs = {"run": run.key, "device": run.device, "channel": channel,
               "blank": f"{s['blank'].boot}:{s['blank'].seq}", "blank_rule": s["blank"].rule,
               "time_basis": s["time_basis"], "left_out": "flagged readings"}

@@ -34,8 +34,8 @@ from ..wire.frames import KIND_BOOT, KIND_EVENT, KIND_MARK, KIND_SAMPLES, MARK_N
 from ..wire.link import READ_CHUNK, Board
 from .live import Blank, blank_from_mark, journal_fill, reading_absorbance
 
-__all__ = ["Limits", "BoardWorker", "ClassSet", "alerts_for", "board_ports", "parse_planned_end", "serve_page",
-           "CONTROLS", "ALERT_CODES"]
+__all__ = ["Limits", "BoardWorker", "ClassSet", "alerts_for", "board_ports", "parse_planned_end", "scatter_sd",
+           "serve_page", "CONTROLS", "ALERT_CODES"]
 
 EVENT_FLASH_FULL = 4  # schema/records.md, EVENT codes
 MARK_SOURCE_BOARD = 2  # schema/records.md: a MARK the board journaled by itself (a run it resumed)
@@ -101,20 +101,34 @@ def parse_planned_end(text: str | None, now: float | None = None) -> float | Non
 
 
 def _reading_flags(status: dict[str, Any], blank: Blank | None, stray: float, limits: Limits) -> list[int]:
-    """``optics`` flags of each channel of the status's last reading against the blank (saturation, stray light)."""
-    last = status.get("last")
+    """``optics`` flags of each channel of the status's last reading against the blank (saturation, stray light);
+    0 for a channel the blank cannot read."""
+    last = status.get("last") if blank is not None else None
     if not last or blank is None:
         return []
-    reads = max(1, int(last.get("reads") or 1))
-    out = []
-    for c, (light, dark) in enumerate(zip(last["light"], last["dark"])):
-        if c >= len(blank.light) or blank.light[c] - blank.dark[c] <= 0:
-            out.append(0)
-            continue
-        res = _optics.absorbance([light / reads], [dark / reads], blank.light[c], blank.dark[c],
-                                 full_scale=limits.full_scale, stray=stray)
-        out.append(int(res.flags[0]))
+    per_read = 1.0 / max(1, int(last.get("reads") or 1))
+    out = [0] * len(last["light"])
+    for c in range(min(len(out), len(blank.light))):
+        if blank.light[c] > blank.dark[c]:
+            res = _optics.absorbance([last["light"][c] * per_read], [last["dark"][c] * per_read], blank.light[c],
+                                     blank.dark[c], full_scale=limits.full_scale, stray=stray)
+            out[c] = int(res.flags[0])
     return out
+
+
+def scatter_sd(values: Sequence[float | None], last: int = 12) -> float | None:
+    """Reading-to-reading scatter of the newest ``last`` finite values, from their successive differences: the
+    median absolute difference over 0.6745·√2 (a difference of two independent normal readings has SD σ√2, and the
+    median of its size is 0.6745 of that SD). Differences, so a slow drift or a reaction barely counts; the median,
+    so one change of cuvette does not. None with fewer than 5 values. The page rounds the absorbance it shows at
+    this uncertainty."""
+    finite = [v for v in values if v is not None and math.isfinite(v)][-last:]
+    if len(finite) < 5:
+        return None
+    diffs = sorted(abs(b - a) for a, b in zip(finite, finite[1:]))
+    n = len(diffs)
+    median = diffs[n // 2] if n % 2 else (diffs[n // 2 - 1] + diffs[n // 2]) / 2
+    return median / (0.6745 * math.sqrt(2.0))
 
 
 def _net_light(light: Sequence[float], dark: Sequence[float], reads: int = 1) -> list[float]:
@@ -501,7 +515,7 @@ class BoardWorker:
             "port": self.url, "device": info.get("device"), "label": info.get("label") or "",
             "board": info.get("board"), "firmware": info.get("firmware"), "boot": info.get("boot"),
             "state": state, "paused_for": self.paused_for if state == "paused" else "",
-            "absorbance": absorbance, "trend": history,
+            "absorbance": absorbance, "trend": history, "absorbance_sd": scatter_sd(history),
             "flags": _reading_flags(st, self.blank, self._stray(), self.limits) if st else [],
             "last": st.get("last"), "interval_ms": st.get("interval_ms", info.get("interval_ms")),
             "samples_boot": samples, "samples_run": run_samples,
@@ -573,6 +587,7 @@ class ClassSet:
         tiles = [w.snapshot(now) for w in self.workers]
         alerts = [dict(a, port=t["port"], label=t["label"], device=t["device"]) for t in tiles for a in t["alerts"]]
         return {"version": self.version, "server_unix": now, "db": str(self.db), "tiles": tiles, "alerts": alerts,
+                "planned_end_unix": self.workers[0].planned_end if self.workers else None,
                 "sync": {"running": self.sync_running, "boards": dict(self.sync_state)}}
 
     def sync_all(self) -> list[dict[str, Any]]:

@@ -23,7 +23,8 @@ from pathlib import Path
 from typing import Any, Callable
 
 from ..render import report as _report
-from .analyse import RESUME_SOURCE, analyse_study, run_conditions, run_provenance, set_run_condition
+from .analyse import RESUME_SOURCE, analyse_study, set_run_condition
+from .export import study_report
 from ..errors import DeviceNotFound, InputError, NightcellError
 from ..wire.link import Board
 from ..sim.board import SimulatedBoard, micropython_command
@@ -305,21 +306,9 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
         study = analyse_study(store)
         cut_bench = next((b for b in benches if b.power_cut), None)
         cut = _power_cut_facts(store, cut_bench.device, cut_bench.power_cut) if cut_bench else {}
-        conds = run_conditions(store)
-        pages: dict[str, str] = {}
-        run_files: list[Path] = []
-        figures: list[Path] = []
         rows = []
-        shared: dict = {}
         for it in study.runs:
             p = planned[(it.run.device, it.run.label)]
-            prov = run_provenance(store, it.analysis, it.calibration)
-            name = _report.safe_filename(f"{sc.benches[p.bench]}-{it.run.label}")
-            files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
-                                       conditions=conds.get(it.run.key), name=name, cache=shared, unit="µM")
-            pages[it.run.key] = f"runs/{files.html.name}"
-            run_files.append(files.html)
-            figures += [f for f in files.figures if f not in figures]
             rows.append({"run": it.run.key, "label": it.run.label, "bench": sc.benches[p.bench],
                          "hydroxide_M": p.hydroxide_M, "temperature_C": p.temperature_C,
                          "k_per_s": it.k, "k_se_per_s": it.k_se, "k_true_per_s": sc.k_true(p),
@@ -343,33 +332,35 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
                                              f"{b.sync['acked_to']}" for b in benches},
                       **{f"device {d['device']}": f"{d['label'] or ''}, board profile {d['board']}, firmware "
                                                    f"{d['firmware']}" for d in store.devices()}}
-    pm = _report.plus_minus
-    truth_rows = [(r["label"], r["bench"], pm(r["k_per_s"], r["k_se_per_s"]), f"{r['k_true_per_s']:.5g}",
-                   f"{(r['k_per_s'] - r['k_true_per_s']) / r['k_se_per_s']:+.2f}") for r in rows]
-    ea = study.arrhenius.extra if study.arrhenius is not None else {}
-    truth_rows.append(("order in hydroxide", "", pm(order.values["order"], order.stderr["order"]),
-                       f"{sc.order_hydroxide:g}",
-                       f"{(order.values['order'] - sc.order_hydroxide) / order.stderr['order']:+.2f}"))
-    if ea:
-        truth_rows.append(("Ea (kJ/mol)", "", pm(ea["Ea_kJ_per_mol"], ea["Ea_se_kJ_per_mol"]),
-                           f"{sc.ea_J_per_mol / 1000:g}",
-                           f"{(ea['Ea_kJ_per_mol'] - sc.ea_J_per_mol / 1000) / ea['Ea_se_kJ_per_mol']:+.2f}"))
-    extra = [{"title": "The scenario's own numbers against what the fits recovered",
-              "text": "The demo's cuvettes follow invented rate constants; a fit is good when it lands within a few "
-                      "of its standard errors of them (the last column, in standard errors).",
-              "html": _report.html_table(["quantity", "bench", "recovered ± SE", "scenario", "difference / SE"],
-                                     truth_rows)},
-             {"title": "The power cut", "text": cut.get("what_happened", "no power cut in this scenario")
-              + (f". Events journaled at the restart: {'; '.join(cut['events'])}." if cut.get("events") else "")}]
-    intro = ("A demonstration on two simulated boards running the real nightcell firmware; the scenario and every "
-             "number in it are invented. A class followed a violet dye fading in alkali: bench A at three hydroxide "
-             "concentrations at 25 °C, bench B at 15, 25 and 35 °C. Each bench took a blank and five standards, "
-             "logged its runs with the host unplugged, and bench B lost power in the middle of its 15 °C run. The "
-             "host then synced each board once into one database.\n\n" + SAFETY)
-    files = _report.study_report(study, out, name="report", title="nightcell demo — a dye fading in alkali",
-                                 intro=intro, provenance=study_prov, run_pages=pages, extra_sections=extra,
-                                 unit="µM")
-    figures = files.figures + figures
+        pm = _report.plus_minus
+        truth_rows = [(r["label"], r["bench"], pm(r["k_per_s"], r["k_se_per_s"]), f"{r['k_true_per_s']:.5g}",
+                       f"{(r['k_per_s'] - r['k_true_per_s']) / r['k_se_per_s']:+.2f}") for r in rows]
+        ea = study.arrhenius.extra if study.arrhenius is not None else {}
+        truth_rows.append(("order in hydroxide", "", pm(order.values["order"], order.stderr["order"]),
+                           f"{sc.order_hydroxide:g}",
+                           f"{(order.values['order'] - sc.order_hydroxide) / order.stderr['order']:+.2f}"))
+        if ea:
+            truth_rows.append(("Ea (kJ/mol)", "", pm(ea["Ea_kJ_per_mol"], ea["Ea_se_kJ_per_mol"]),
+                               f"{sc.ea_J_per_mol / 1000:g}",
+                               f"{(ea['Ea_kJ_per_mol'] - sc.ea_J_per_mol / 1000) / ea['Ea_se_kJ_per_mol']:+.2f}"))
+        extra = [{"title": "The scenario's own numbers against what the fits recovered",
+                  "text": "The demo's cuvettes follow invented rate constants; a fit is good when it lands within a "
+                          "few of its standard errors of them (the last column, in standard errors).",
+                  "html": _report.html_table(["quantity", "bench", "recovered ± SE", "scenario", "difference / SE"],
+                                         truth_rows)},
+                 {"title": "The power cut", "text": cut.get("what_happened", "no power cut in this scenario")
+                  + (f". Events journaled at the restart: {'; '.join(cut['events'])}." if cut.get("events") else "")}]
+        intro = ("A demonstration on two simulated boards running the real nightcell firmware; the scenario and every "
+                 "number in it are invented. A class followed a violet dye fading in alkali: bench A at three "
+                 "hydroxide concentrations at 25 °C, bench B at 15, 25 and 35 °C. Each bench took a blank and five "
+                 "standards, logged its runs with the host unplugged, and bench B lost power in the middle of its "
+                 "15 °C run. The host then synced each board once into one database.\n\n" + SAFETY)
+        written = study_report(store, out, study=study, name="report",
+                               title="nightcell demo — a dye fading in alkali", intro=intro, provenance=study_prov,
+                               extra_sections=extra, unit="µM",
+                               page_name=lambda run: _report.safe_filename(
+                                   f"{sc.benches[planned[(run.device, run.label)].bench]}-{run.label}"))
+    run_files, figures = written.run_pages, written.figures
     _report.write_csv(out / "runs.csv", list(rows[0]), [[r[k] if k != "boots" else " ".join(map(str, r[k]))
                                                         for k in rows[0]] for r in rows])
     summary: dict[str, Any] = {
@@ -387,7 +378,7 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
     if study.eyring is not None:
         summary["dH_kJ_per_mol"] = study.eyring.values["dH_J_per_mol"] / 1000
         summary["dS_J_per_mol_K"] = study.eyring.values["dS_J_per_mol_K"]
-    outcome = DemoOutcome(out, db_path, files.html, figures, benches[0].sim.interpreter, summary,
+    outcome = DemoOutcome(out, db_path, written.page, figures, benches[0].sim.interpreter, summary,
                           time.monotonic() - t_start, run_files)
     for r in rows:
         say(f"  {r['bench']}, {r['hydroxide_M'] * 1000:g} mM, {r['temperature_C']:g} °C: k = {r['k_per_s']:.4g} ± "
@@ -399,7 +390,7 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
             f"{sc.ea_J_per_mol / 1000:g})")
     if cut:
         say(f"power cut: {cut['what_happened']}")
-    say(f"report: {files.html} (one page per run in {out / 'runs'})")
+    say(f"report: {written.page} (one page per run in {out / 'runs'})")
     say(f"database: {db_path} — open it with `sqlite3 {db_path}` or any SQLite browser; try the views "
         "sample_readings, mark_readings, run_condition_readings and boot_overview")
     say(SAFETY)

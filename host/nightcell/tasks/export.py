@@ -15,13 +15,14 @@ Example::
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any, Callable, Iterable, Sequence
 
 from ..render import report as _report
 from .analyse import analyse_run, calibrate_from_store, run_conditions, run_provenance, run_series
-from ..errors import AnalysisError, InputError
+from ..errors import AnalysisError, InputError, SuspectData
 from ..science.optics import flag_names
 from ..render.report import out_folder, write_atomic
 from ..store.database import Run, Store
@@ -68,6 +69,9 @@ class Written:
 
     files: list[Path] = field(default_factory=list)
     skipped: list[str] = field(default_factory=list)
+    page: Path | None = None  # a study's own page
+    run_pages: list[Path] = field(default_factory=list)  # a study's page per run, in its order
+    figures: list[Path] = field(default_factory=list)  # the PNG and SVG files among ``files``
 
     def to_dict(self) -> dict[str, Any]:
         return {"files": [str(f) for f in self.files], "skipped": list(self.skipped)}
@@ -82,7 +86,9 @@ SAMPLE_COLUMNS = ("device", "boot", "seq", "channel", "uptime_ms", "wall_clock_u
                   "dark", "light", "temp_centi")
 MARK_COLUMNS = ("device", "boot", "seq", "uptime_ms", "mark", "source", "label", "value", "channel", "reads", "dark",
                 "light")
-ABSORBANCE_COLUMNS = ("time_s", "absorbance", "flags", "flag_names", "boot", "seq", "blank", "time_basis")
+ABSORBANCE_COLUMNS = ("time_s", "absorbance", "flags", "flag_names", "boot", "seq", "blank", "time_basis", "weight")
+"""``weight`` is the T² weight ``rate --db`` fits with (0 for flagged readings, which it leaves out), so
+``nightcell rate`` on this file weighs the readings the same way and gives the same k and SE."""
 
 
 def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None, channel: int = 0) -> Written:
@@ -117,16 +123,17 @@ def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None,
             continue
         blank = f"{series['blank'].boot}:{series['blank'].seq}"
         done.files.append(_csv(out / f"{name}-absorbance.csv", ABSORBANCE_COLUMNS, (
-            (float(t), float(a), int(f), " ".join(flag_names(int(f))), b, s, blank, series["time_basis"])
+            (float(t), float(a), int(f), " ".join(flag_names(int(f))), b, s, blank, series["time_basis"],
+             repr(float(10.0 ** (-2.0 * a))) if f == 0 and math.isfinite(a) else 0)
             for t, a, f, (b, s) in zip(series["time_s"], series["absorbance"], series["flags"], series["seqs"]))))
     return done
 
 
 def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cache: dict | None = None,
-               level: float = 0.95) -> Written:
+               blank: str | None = None, accept_suspect: bool = False, level: float = 0.95) -> Written:
     """One self-contained HTML page for a run (figures embedded), and its figures as PNG and SVG beside it.
 
-    The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AIC). When its
+    The run's absorbance comes from ``analyse_run`` (nearest preceding blank, every rate law, best by AICc). When its
     device recorded standards the calibration is fitted, shown, and used to give concentrations. The page itself is
     drawn by ``report.run_report``; this function gathers what it shows from the store. ``level``: the
     calibration's intervals and prediction band.
@@ -135,10 +142,14 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
     done = Written()
     cal = None
     try:
-        cal = calibrate_from_store(store, run.device, channel, level=level)
+        cal = calibrate_from_store(store, run.device, channel, before=(run.start_boot, run.start_seq),
+                                   accept_suspect=accept_suspect, level=level)
+    except SuspectData as exc:
+        done.skipped.append(f"calibration for run {run.key}: {exc}")
     except AnalysisError:
         cal = None  # no standards (or none usable) on this device: the page shows absorbance only
-    analysis = analyse_run(store, run, channel=channel, calibration=cal)
+    analysis = analyse_run(store, run, channel=channel, calibration=cal, blank=blank,
+                           accept_suspect=accept_suspect)
     provenance = run_provenance(store, analysis, cal)
     conditions = run_conditions(store, run).get(run.key)
     files = _report.run_report(analysis, out, calibration=cal, provenance=provenance, conditions=conditions,
@@ -147,17 +158,24 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
     return done
 
 
-def study_report(store: Store, out: str | Path, channel: int = 0, *, level: float = 0.95) -> Written:
-    """A study page (``study.html``) over every run with recorded conditions, linking one page per run (``runs/``).
+def study_report(store: Store, out: str | Path, channel: int = 0, *, level: float = 0.95, study: Any = None,
+                 name: str = "study", title: str = "nightcell study report", intro: str = "",
+                 provenance: dict[str, Any] | None = None, extra_sections: Sequence[dict[str, Any]] = (),
+                 unit: str = "", page_name: Callable[[Run], str] | None = None) -> Written:
+    """A study page (``<name>.html``) over every run with recorded conditions, linking one page per run (``runs/``).
 
-    Orders and Arrhenius/Eyring come from ``analyse.analyse_study``; runs without a recorded temperature and starting
-    concentration are listed as skipped with what to record (``nightcell condition``).
+    Orders and Arrhenius/Eyring come from ``analyse.analyse_study`` (or ``study``, one already made); runs without a
+    recorded temperature and starting concentration are listed as skipped with what to record (``nightcell
+    condition``). ``title``, ``intro``, ``provenance`` (instead of the database, run count and channel),
+    ``extra_sections``, ``unit`` (of concentrations) and ``page_name`` (a run's page name; default ``run_name``)
+    shape the pages.
     """
     from .analyse import analyse_study
 
     out = out_folder(out)
     done = Written()
-    study = analyse_study(store, channel=channel, level=level)
+    if study is None:
+        study = analyse_study(store, channel=channel, level=level)
     if not study.runs:
         raise AnalysisError("no run has both a temperature_K and a conc_<reactant>_M recorded: record them with "
                             "`nightcell condition` first")
@@ -167,11 +185,18 @@ def study_report(store: Store, out: str | Path, channel: int = 0, *, level: floa
     for it in study.runs:
         prov = run_provenance(store, it.analysis, it.calibration)
         files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
-                                   conditions=conds.get(it.run.key), name=run_name(it.run), cache=cache)
+                                   conditions=conds.get(it.run.key), name=(page_name or run_name)(it.run),
+                                   cache=cache, unit=unit)
         pages[it.run.key] = f"runs/{files.html.name}"
         done.files += files.files
-    prov = {"database": store.path, "runs": len(study.runs), "channel": channel}
-    files = _report.study_report(study, out, name="study", provenance=prov, run_pages=pages)
+        done.run_pages.append(files.html)
+        done.figures += [f for f in files.figures if f not in done.figures]
+    if provenance is None:
+        provenance = {"database": store.path, "runs": len(study.runs), "channel": channel}
+    files = _report.study_report(study, out, name=name, title=title, intro=intro, provenance=provenance,
+                                 run_pages=pages, extra_sections=extra_sections, unit=unit)
     done.files = files.files + done.files
+    done.page = files.html
+    done.figures = files.figures + done.figures
     done.skipped += [f"run {key}: {why}" for key, why in study.skipped.items()]
     return done

@@ -112,7 +112,7 @@ def journal_fill(statuses: Sequence[dict[str, Any]]) -> dict[str, Any]:
     """How full the journal is and, from how fast its head grew over these statuses, board seconds until full.
 
     ``seconds_left`` is None while the growth cannot be seen yet (fewer than two blocks arrived while watched, or not
-    logging).
+    logging); a board that reports ``full_in_s`` (its own measured bytes per sample) is taken at its word.
     """
     st = statuses[-1]
     used = int(st.get("used_bytes", 0))
@@ -137,6 +137,10 @@ def journal_fill(statuses: Sequence[dict[str, Any]]) -> dict[str, Any]:
         if grown > 0 and span_s > 0:
             out["bytes_per_s"] = grown / span_s
             out["seconds_left"] = free / out["bytes_per_s"]
+    # a board that measures its own bytes per sample (hello/status ``full_in_s``) knows better than two polls
+    if st.get("running") and st.get("full_in_s") is not None and st.get("bytes_per_sample"):
+        out["seconds_left"] = float(st["full_in_s"])
+        out["bytes_per_s"] = float(st["bytes_per_sample"]) * 1000.0 / max(1, int(st.get("interval_ms") or 1))
     return out
 
 

@@ -73,7 +73,7 @@
     const alerts = el("ul", "tile-alerts");
     const sync = el("p", "tile-sync");
     root.append(head, who, reading, facts, alerts, sync);
-    Object.assign(parts, {root, label, state, who, value, line, alerts, sync, fill, fillBar, journalText});
+    Object.assign(parts, {root, label, state, who, value, unit, line, alerts, sync, fill, fillBar, journalText});
     if (controlOn) {
       const box = el("div", "tile-controls");
       box.hidden = true;
@@ -142,8 +142,13 @@
     p.state.textContent = t.state + (t.paused_for ? " (" + t.paused_for + ")" : "");
     p.who.textContent = (t.device || "no answer yet") + " · " + t.port + (t.run_label ? " · run “" + t.run_label + "”" : "");
     const a = t.absorbance && t.absorbance.length ? t.absorbance[0] : null;
-    p.value.textContent = a === null ? "—" : a.toFixed(3);
+    const sd = t.absorbance_sd;
+    // rounded at the first significant digit of the reading-to-reading scatter (3 decimals until it is known)
+    const decimals = sd ? Math.max(1, Math.min(4, -Math.floor(Math.log10(sd)))) : 3;
+    p.value.textContent = a === null ? "—" : a.toFixed(decimals);
     p.value.dataset.absorbance = a === null ? "" : String(a);
+    p.value.dataset.decimals = String(decimals);
+    p.unit.textContent = "absorbance" + (sd && a !== null ? " ± " + sd.toPrecision(1) + " (scatter)" : "");
     drawTrend(p.line, t.trend || []);
     p.mark.textContent = markText(t.last_mark);
     p.samples.textContent = t.samples_run === null || t.samples_run === undefined ? "—" : String(t.samples_run);
@@ -188,6 +193,14 @@
     lastState = state;
     receivedAt = Date.now();
     document.getElementById("db-path").textContent = state.db;
+    const end = document.getElementById("planned-end");
+    if (state.planned_end_unix) {
+      const at = new Date(state.planned_end_unix * 1000);
+      end.textContent = "· runs end " + at.toLocaleTimeString([], {hour: "2-digit", minute: "2-digit"}) + " (in " +
+        duration(state.planned_end_unix - state.server_unix) + ")";
+    } else {
+      end.textContent = "";
+    }
     const syncing = state.sync.running;
     document.getElementById("sync-all").disabled = syncing;
     for (const t of state.tiles) updateTile(t, state.sync.boards[t.port]);

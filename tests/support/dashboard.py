@@ -3,7 +3,7 @@
 The browser is the system's Chromium (Debian/Ubuntu: ``apt-get install -y chromium``; ``.ci/run`` installs it),
 driven by the ``playwright`` package with ``executable_path`` — never a browser downloaded by playwright.
 
-Usage::
+Usage (from tests/, which puts the support package on the path)::
 
     with boards(tmp, [("5e1f...", "bench 1", 200)]) as sims, page_server([s.url for s in sims], db) as server:
         with browser() as (pw_browser, note):
