@@ -21,12 +21,14 @@ import pytest
 from click.testing import CliRunner
 
 from support.dashboard import boards, browser, browser_missing, page_server, tile_absorbance_js
-from nightcell.cli import SIM_DEVICE, cli
+from nightcell.cli import cli
 
 pytestmark = pytest.mark.skipif(browser_missing() is not None, reason=browser_missing() or "")
 
+SIM_DEVICE = "5e1fdab0a4d00001"  # the test's own boards (every sim-board folder now makes an id of its own)
 HOSTILE_IMG = "<img src=x onerror=pwned=1>"
 HOSTILE_SCRIPT = "<script>pwned=2</script>"
+SIM_DEVICE = "5e1fdab0a4d00001"
 SPECS = [(SIM_DEVICE, "bench 1", 200), ("5e1fdab0a4d00002", HOSTILE_IMG, 1000),
          ("5e1fdab0a4d00003", HOSTILE_SCRIPT, 1000)]
 

@@ -25,7 +25,7 @@ from pathlib import Path
 from typing import Any, Iterator, Sequence
 
 from nightcell.wire.link import Board
-from nightcell.sim.board import SimulatedBoard
+from nightcell.sim.board import SIM_DEVICE_FILE, SimulatedBoard
 
 CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
                  "--disable-component-update", "--disable-sync", "--no-first-run"]
@@ -75,7 +75,10 @@ def boards(workdir: Path, specs: Sequence[tuple[str, str, int]], *, run: bool = 
     sims: list[SimulatedBoard] = []
     try:
         for i, (device, label, interval_ms) in enumerate(specs):
-            sim = SimulatedBoard(workdir / f"board{i}", device=device, seed=11 + i,
+            folder = workdir / f"board{i}"
+            folder.mkdir(parents=True, exist_ok=True)
+            (folder / SIM_DEVICE_FILE).write_text(device + "\n", encoding="ascii")  # so `sim-cuvette --dir` finds it
+            sim = SimulatedBoard(folder, device=device, seed=11 + i,
                                  settings={"interval_ms": interval_ms, "durability_ms": 1000, "label": label})
             sims.append(sim.start())
         for sim in sims:

@@ -334,17 +334,16 @@ def _t(level: float, dof: int) -> float:
 
 def _stored_path_cm(store: Any, device: str) -> tuple[float | None, str]:
     """The path length in the device's latest settings record, and where it came from."""
-    row = store.conn.execute("SELECT boot, seq, json FROM settings_records WHERE device = ? "
-                             "ORDER BY boot DESC, seq DESC LIMIT 1", (device,)).fetchone()
+    row = store.settings_before(device, 2 ** 32, 0)  # the latest of all
     if row is None:
         return None, "no settings record"
     try:
-        value = json.loads(row[2]).get("path_cm")
+        value = json.loads(row["json"]).get("path_cm")
     except (ValueError, AttributeError):
         return None, "settings record unreadable"
     if not isinstance(value, (int, float)) or not value > 0:
         return None, "no path_cm setting"
-    return float(value), f"the board's path_cm setting, record {row[0]}:{row[1]}"
+    return float(value), f"the board's path_cm setting, record {row['boot']}:{row['seq']}"
 
 
 def _run_text(analysis: Any) -> str:

@@ -451,6 +451,8 @@ class SimulatedBoard:
                   "speed": self.speed, "seed": self.seed + self.boots, "cell": str(self.cell_path),
                   "settings": self.settings, "optics": self.optics, "ticks_start_ms": self.ticks_start_ms}
         self.config_path.write_text(json.dumps(config, indent=1))
+        # the folder names the board it holds, so `nightcell sim-cuvette --dir` finds its cuvette
+        (self.workdir / SIM_DEVICE_FILE).write_text(self.device + "\n", encoding="ascii")
         if self.link == "socket":
             return self._start_on_socket()
         if self.relay is None:
@@ -619,8 +621,8 @@ def folder_device_id(folder: str | Path, *, create: bool) -> str | None:
     path = folder / SIM_DEVICE_FILE
     try:
         text = path.read_text(encoding="ascii").strip()
-        if len(text) == 16 and all(c in "0123456789abcdef" for c in text):
-            return text
+        if 1 <= len(text) <= 64 and all(c.isalnum() or c in "-_.:" for c in text):
+            return text  # made here, or written by a SimulatedBoard started in this folder
     except (OSError, UnicodeDecodeError):
         pass
     if (folder / f"{_LEGACY_SIM_DEVICE}.cell.json").exists():

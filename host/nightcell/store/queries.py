@@ -33,6 +33,12 @@ class StoreQueries:
         return self._one("SELECT * FROM marks WHERE device = ? AND mark = ? AND boot = ? AND seq = ?",
                          (device, kind, boot, seq))
 
+    def marks_labelled(self, device: str, kind: str, label: str) -> list[dict[str, Any]]:
+        """The ``kind`` marks of ``device`` whose label is exactly ``label``, in journal order (a blank named by
+        its label)."""
+        return self.query("SELECT * FROM marks WHERE device = ? AND mark = ? AND label = ? ORDER BY boot, seq",
+                          (device, kind, label))
+
     def run_starts_after(self, device: str, boot: int, seq: int) -> Iterator[tuple[int, int, int]]:
         """(boot, seq, source) of each run_start mark of ``device`` after (boot, seq), in journal order."""
         yield from self.conn.execute(

@@ -146,8 +146,7 @@ def _mark_after(store: Store, device: str, kind: str, after: tuple[int, int]) ->
     if i >= len(keys):
         return None
     boot, seq = keys[i]
-    rows = store.query("SELECT * FROM marks WHERE device = ? AND boot = ? AND seq = ?", (device, boot, seq))
-    return _with_counts(store, rows[0] if rows else None)
+    return _with_counts(store, store.mark(device, boot, seq))
 
 
 _KEY = re.compile(r"^\s*(\d+):(\d+)\s*$")
@@ -158,8 +157,7 @@ def _named_blank(store: Store, device: str, blank: tuple[int, int] | str) -> dic
     if isinstance(blank, str):
         key = _KEY.match(blank)
         if key is None:
-            rows = store.query("SELECT * FROM marks WHERE device = ? AND mark = 'blank' AND label = ? "
-                               "ORDER BY boot, seq", (device, blank))
+            rows = store.marks_labelled(device, "blank", blank)
             if not rows:
                 raise InputError(f"no blank labelled {blank!r} on device {device}: list blanks with "
                                  "`nightcell list blanks` and give its key (boot:seq) or label")
@@ -168,11 +166,10 @@ def _named_blank(store: Store, device: str, blank: tuple[int, int] | str) -> dic
                                  f"({', '.join('%d:%d' % (r['boot'], r['seq']) for r in rows)}): give its key")
             return _with_counts(store, rows[0])
         blank = (int(key.group(1)), int(key.group(2)))
-    chosen = store.query("SELECT * FROM marks WHERE device = ? AND mark = 'blank' AND boot = ? AND seq = ?",
-                         (device, blank[0], blank[1]))
-    if not chosen:
+    chosen = store.mark(device, blank[0], blank[1], "blank")
+    if chosen is None:
         raise InputError(f"no blank {blank[0]}:{blank[1]} on device {device}: list blanks with `nightcell list`")
-    return _with_counts(store, chosen[0])
+    return _with_counts(store, chosen)
 
 
 def _earlier_blank_signals(store: Store, device: str, mark: dict[str, Any], channel: int, most: int = 10) -> list:
@@ -181,9 +178,9 @@ def _earlier_blank_signals(store: Store, device: str, mark: dict[str, Any], chan
     i = bisect.bisect_left(keys, (int(mark["boot"]), int(mark["seq"])))
     out = []
     for boot, seq in keys[max(0, i - most):i]:
-        rows = store.query("SELECT * FROM marks WHERE device = ? AND boot = ? AND seq = ?", (device, boot, seq))
-        if rows:
-            m = store.with_counts(rows[0])
+        row = store.mark(device, boot, seq)
+        if row is not None:
+            m = store.with_counts(row)
             if m["reads"] > 0 and channel < len(m["light"]):
                 light, dark = _mark_means(m, channel)
                 out.append(light - dark)
