@@ -46,7 +46,7 @@ __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_com
 
 def read_columns(
     path: Path, required: Sequence[str], optional: Sequence[str] = (), *, prefix: str | None = None, min_rows: int = 1,
-    text: Sequence[str] = (), say: Callable[[str], None] | None = None,
+    text: Sequence[str] = (), say: Callable[[str], None] | None = None, check_range: bool = False,
 ) -> dict[str, np.ndarray]:
     """Numeric columns of a CSV or spreadsheet by header name (``tasks.tables.read_table`` with the dialect options
     of the command being run); what was detected or converted is said through ``say`` (to stderr by default)."""
@@ -58,8 +58,14 @@ def read_columns(
                        delimiter=params.get("delimiter"), decimal=params.get("decimal"), sheet=params.get("sheet"))
     if table.notes:
         (say or (lambda line: click.echo(inert(line), err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
-    _plausible(table)
+    if check_range:
+        _plausible(table)
     return table.columns
+
+
+def _read_checked(path: Path, *args: Any, **kwargs: Any) -> dict[str, np.ndarray]:
+    """``read_columns`` as the commands read: values beyond any plausible size refused by row."""
+    return read_columns(path, *args, check_range=True, **kwargs)
 
 
 # Beyond these no reading of a colorimeter or rate constant lies, and the fits' arithmetic would overflow.
@@ -109,9 +115,10 @@ def _absorbance_columns(path: Path, first: str, optional: Sequence[str], *, min_
     import numpy as np
 
     notes: list[str] = []
-    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append)
+    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append,
+                        check_range=True)
     for line in notes:
-        click.echo(line, err=True)
+        click.echo(inert(line), err=True)
     if any("percent transmittance" in line for line in notes):
         return cols, "converted from percent transmittance: A = 2 − log10(%T)"
     a = cols["absorbance"]
@@ -533,9 +540,9 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
     if db is not None:
-        cols = read_columns(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",))
+        cols = _read_checked(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",))
     else:
-        cols = read_columns(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
+        cols = _read_checked(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
     conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
     if not conc:
         raise InputError(f"{csv_file} has no concentration columns; add one column per reactant named conc_<name>")
@@ -599,9 +606,9 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
     assert csv_file is not None
     inputs: dict[str, Any] = {"file": csv_file.name}
     if db is not None:
-        cols = read_columns(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
+        cols = _read_checked(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
     else:
-        cols = read_columns(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3)
+        cols = _read_checked(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3)
     with contextlib.ExitStack() as opened:
         store = None if db is None else opened.enter_context(_open(db))
         if store is not None:
