@@ -23,11 +23,16 @@ RUNNER = ROOT / "tests" / "bench" / "run.py"
 # Goals missed today, with the reason; a row here may pass or miss without failing this test (speed ratios are
 # noisy on a shared machine, so a miss cannot be required either). Remove a row once its goal is met for good.
 KNOWN_MISSES = {
-    "full_over_bare_ratio": "a stored run read from SQLite, every rate law with SEs and AIC, result stored, against "
-                            "one bare curve_fit: 4.7-5.9x measured, goal 3x (the read alone 2.1-2.6x, the fits "
-                            "1.7-2.1x)",
-    "sync_ingest_vs_executemany": "ingest measured at 0.6-0.75 of bare executemany on this machine, goal 0.7",
+    "sync_ingest_vs_executemany": "ingest measured at 0.6-0.75 of bare executemany on this machine (median of 5-10 "
+                                  "interleaved rounds, 0.61-0.62 under load), goal 0.7",
     "parallel_sync_speedup_two_boards": "two syncs at once on 2 shared cores: 1.3-1.9x measured, goal 1.4x",
+    # the quick slices of the long-run benchmarks hold 2·10⁴ samples, where each side is mostly its start-up
+    # (nightcell loads click, numpy, scipy and its own rooms; the plain script numpy and scipy.optimize): the goals
+    # are the full run's, on 10⁶ samples
+    "rate_db_long_run_time_ratio": "quick slice (2e4 samples) mostly start-up: 1.5x measured under load, goal 1.2x "
+                                   "(on 1e6 samples)",
+    "report_run_long_time_ratio": "quick slice (2e4 samples) mostly start-up: 0.8-2.2x per round, median 1.55x "
+                                  "measured under load, goal 1.5x (on 1e6 samples)",
     "full_sync_fraction_of_115200_baud": "a 30 KB quick sync under load measured 0.84-0.90 of the link, goal 0.85; "
                                          "the full run (61 KB) gave 0.924",
     "csv_reader_over_loadtxt_ratio (100000 rows, median of 5)": "a 0.05 s read timed on a loaded 2-core machine: "
@@ -113,3 +118,15 @@ def test_runner_text_lines_only_and_exit_codes(tmp_path):
     second.mkdir()
     proc = _runner_on(second, {"good": good}, "--only", "nothing")
     assert proc.returncode == 2 and "no benchmark module nothing" in proc.stderr
+
+
+def test_runner_prints_a_ratios_spread_and_refuses_a_ratio_of_too_few_rounds(tmp_path):
+    proc = _runner_on(tmp_path, {
+        "ratio": "def run(quick):\n    return [{'name': 'ingest ratio', 'value': 0.8, 'goal': '>= 0.7', 'ok': True,\n"
+                 "                     'rounds': 5, 'spread': [0.61, 0.93]},\n"
+                 "            {'name': 'other ratio', 'value': 0.8, 'goal': '>= 0.7', 'ok': True,\n"
+                 "                     'rounds': 3, 'spread': [0.7, 0.9]}]\n",
+    }, "--only", "ratio")
+    assert proc.returncode == 1, proc.stderr
+    assert "ingest ratio: 0.8 [median of 5 rounds, spread 0.61-0.93] (goal >= 0.7)" in proc.stdout
+    assert "ratio: malformed row" in proc.stdout and "rounds >= 5" in proc.stdout

@@ -56,3 +56,29 @@ def test_help_lists_the_exit_codes():
 def test_an_unknown_command_is_a_usage_error():
     r = CliRunner().invoke(cli, ["calibrat"])
     assert r.exit_code == 2 and "No such command 'calibrat'" in r.output
+
+
+def test_long_tables_are_drawn_as_rich_draws_them():
+    """The quick table drawer gives rich's own output (rich 13, the reference) for a table that fits, and leaves
+    a table too wide, or with a cell that is not printable text, to rich."""
+    import io
+
+    from rich.console import Console
+    from rich.table import Table
+    from rich.text import Text
+
+    from nightcell.cli import _box_lines
+
+    columns = ("run", "label", "started (UTC)", "samples", "state")
+    rows = [("d:1:2", "dye 日本", "2026-12-01 22:21:00", 34, "stopped"), ("d:1:9", "", None, 5, "open"),
+            ("d:2:1", "[bold]not markup[/bold]", "", 0, "open")]
+    table = Table(title="runs", title_justify="left")
+    for c in columns:
+        table.add_column(c, overflow="fold")
+    for r in rows:
+        table.add_row(*[Text("" if v is None else str(v)) for v in r])
+    buf = io.StringIO()
+    Console(file=buf, highlight=False, width=100).print(table)
+    assert "\n".join(_box_lines("runs", columns, rows, 100, False)) + "\n" == buf.getvalue()
+    assert _box_lines("runs", columns, rows, 40, False) is None  # too wide: rich folds the cells
+    assert _box_lines("runs", columns, [("d:1:2", "bell\x07", "", 1, "open")], 100, False) is None

@@ -210,6 +210,48 @@ def test_plus_minus_uses_one_power_of_ten_far_from_one():
     assert report.plus_minus(2.5, float("nan")) == "2.5"
 
 
+def test_a_dense_series_is_thinned_for_drawing_only_keeping_each_slices_extremes():
+    """Drawing a dense series keeps the lowest and highest point of every time slice (checked point by point
+    against a plain loop) plus evenly spaced ones; a sparse series is drawn whole. (Invented noise: a drawing
+    check, not a science one.)"""
+    rng = np.random.default_rng(7)
+    n = 60_000
+    t = np.cumsum(rng.uniform(0.5, 1.5, n))
+    a = rng.normal(0.5, 0.01, n)
+    a[12_345] = 0.9  # an outlier must be drawn
+    assert report.thin_for_drawing(t[:report.DRAW_LIMIT], a[:report.DRAW_LIMIT]) is None
+    keep = report.thin_for_drawing(t, a)
+    assert keep is not None and np.all(np.diff(keep) > 0) and keep.size <= 3 * report.DRAW_SLICES
+    assert 12_345 in keep
+    slot = np.minimum(((t - t.min()) * (report.DRAW_SLICES / (t.max() - t.min()))).astype(int),
+                      report.DRAW_SLICES - 1)
+    drawn = set(keep.tolist())
+    for s in range(0, report.DRAW_SLICES, 37):
+        idx = np.flatnonzero(slot == s)
+        assert idx[np.argmin(a[idx])] in drawn and idx[np.argmax(a[idx])] in drawn, s
+    shuffled = rng.permutation(n)  # times out of order take the sorting path: the same extremes
+    back = shuffled[report.thin_for_drawing(t[shuffled], a[shuffled])]
+    assert {int(np.argmin(a)), int(np.argmax(a))} <= set(back.tolist())
+
+
+def test_a_run_of_a_hundred_thousand_readings_draws_small_files_that_say_they_are_thinned(tmp_path):
+    """The figure of a long run is a few hundred kB in either format (goal: ≤ 2 MB, issue 17), its text says the
+    drawing is thinned, and the fit it shows was made from every reading."""
+    from nightcell.science import kinetics
+
+    rng = np.random.default_rng(3)
+    t = np.arange(100_000) * 2.0
+    a = _plateau(t, 0.8, 0.1, 0.004) + rng.normal(0, 0.003, t.size)
+    fit = kinetics.fit_model(t, a, "first_order_plateau")
+    assert fit.n == t.size
+    fig, ax, rax = report._two_panel()
+    report.plot_run(t, a, fit, ax=ax, resid_ax=rax, title="long")
+    png = report._figure_files(fig, tmp_path / "long", [])
+    svg = (tmp_path / "long.svg").read_bytes()
+    assert len(png) < 2e6 and len(svg) < 2e6, (len(png), len(svg))
+    assert b"thinned" in svg
+
+
 @pytest.mark.parametrize("level", [0.90, 0.99])
 def test_calibration_plot_draws_the_prediction_band_at_the_calibrations_level(level):
     from nightcell.science.calibration import fit_calibration

@@ -83,6 +83,8 @@ REVIEWED_DYNAMIC_SQL = {
     ("store/database.py", "query"): "the caller's SQL text; callers pass data as params",
     ("store/database.py", "marks"): "fixed WHERE clauses with ? placeholders",
     ("store/database.py", "run_samples"): "fixed clauses with ? placeholders",
+    ("store/database.py", "_run_sample_columns"): "fixed clauses with ? placeholders and column names from its own "
+                                                  "tuples",
     ("store/database.py", "open_read"): "an integer from a module constant",
     ("store/database.py", "open_write"): "an integer from a module constant",
     ("store/database.py", "_migrate"): "an integer: the number of migration files shipped",

@@ -10,22 +10,16 @@ set; measured 16–19 s on an otherwise idle machine). The run counts only if it
 from __future__ import annotations
 
 import os
-import shutil
 import subprocess
 import sys
 import tempfile
 import time
 from pathlib import Path
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the shared support package
+from support.commands import nightcell_command  # noqa: E402
+
 GOAL_S = 30.0
-
-
-def _command() -> list[str]:
-    script = Path(sys.executable).parent / "nightcell"
-    if script.exists():
-        return [str(script)]
-    found = shutil.which("nightcell")
-    return [found] if found else [sys.executable, "-c", "from nightcell.cli import main; main()"]
 
 
 def run(quick: bool) -> list[dict]:
@@ -34,7 +28,7 @@ def run(quick: bool) -> list[dict]:
         out = Path(tmp) / "demo"
         env = dict(os.environ, NO_COLOR="1")
         t0 = time.perf_counter()
-        proc = subprocess.run([*_command(), "demo", "--out", str(out)], capture_output=True, text=True,
+        proc = subprocess.run([*nightcell_command(), "demo", "--out", str(out)], capture_output=True, text=True,
                               timeout=1200, cwd=tmp, env=env)
         seconds = time.perf_counter() - t0
         wrote = (out / "report.html").is_file() and (out / "nightcell.db").is_file()

@@ -13,7 +13,6 @@ rounds, and the ratio is the ratio of the medians.
 from __future__ import annotations
 
 import os
-import shutil
 import statistics
 import subprocess
 import sys
@@ -21,15 +20,10 @@ import tempfile
 import time
 from pathlib import Path
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/: the shared support package
+from support.commands import nightcell_command  # noqa: E402
+
 GOAL_RATIO = 4.0
-
-
-def _nightcell() -> list[str]:
-    script = Path(sys.executable).parent / "nightcell"
-    if script.exists():
-        return [str(script)]
-    found = shutil.which("nightcell")
-    return [found] if found else [sys.executable, "-c", "from nightcell.cli import main; main()"]
 
 
 def _empty_database(folder: Path) -> Path:
@@ -58,8 +52,8 @@ def run(quick: bool) -> list[dict]:
         env = dict(os.environ, NO_COLOR="1")
         commands = {
             "click": [sys.executable, "-c", "import click"],
-            "help": [*_nightcell(), "--help"],
-            "list": [*_nightcell(), "list", "runs", "--db", str(db)],
+            "help": [*nightcell_command(), "--help"],
+            "list": [*nightcell_command(), "list", "runs", "--db", str(db)],
         }
         for cmd in commands.values():  # one warm-up each: the first start also fills the OS file cache
             _seconds(cmd, folder, env)

@@ -6,7 +6,9 @@
     python tests/bench/run.py --only nist --only demo   # some modules only (name without ``bench_``)
 
 Modules are found at run time: every ``tests/bench/bench_*.py`` with ``run(quick: bool) -> list[dict]`` returning
-rows ``{name, value, goal, ok}``. A module without ``run``, one that raises, or a row of the wrong shape becomes a
+rows ``{name, value, goal, ok}``; a timing ratio adds ``rounds`` (≥ 5 interleaved rounds, its value their
+median) and ``spread`` ([smallest, largest] per-round ratio), printed beside it. A module without ``run``, one
+that raises, or a row of the wrong shape becomes a
 row of its own with ``ok`` false, so nothing is lost silently. A module that only gathers others (it lists them in
 ``MODULES``) is skipped when all of those are found on their own, so no figure is measured twice. Modules run one
 after another in this process; each compares what it compares side by side within its own run, so the ratios are
@@ -31,6 +33,7 @@ from pathlib import Path
 from typing import Any
 
 HERE = Path(__file__).resolve().parent
+MIN_ROUNDS = 5  # a timing ratio is the median of at least this many interleaved rounds
 TESTS = HERE.parent
 
 # The figures of the project's promise, and how to recognise a row that measures each (a regular expression over
@@ -51,6 +54,11 @@ FIGURES: dict[str, str] = {
     "NIST digits": r"nist",
     "interval coverage": r"coverage",
     "demo time": r"demo.*(time|seconds)",
+    "list runs ratio": r"list_runs_over_plain",
+    "list runs flat in samples": r"list_runs_flat",
+    "long-run rate time and memory": r"rate_db_long_run_(time|memory)_ratio",
+    "long-run report time, memory and files": r"report_run_long_(time|memory)_ratio|report_largest_file",
+    "study report per run": r"study_report_seconds_per_run_beyond",
     "start-up": r"start-?up: nightcell --help",
     "CSV reader ratio": r"csv_reader_over_loadtxt",
     "page update latency": r"update latency (median|worst)",
@@ -106,8 +114,16 @@ def _check_row(module: str, row: Any) -> dict[str, Any]:
         ok, goal = True, "(reported)"
     if type(ok).__name__ not in ("bool", "bool_"):  # numpy's bool is a yes/no too
         return _error_row(module, "malformed row", f"{row['name']}: ok is {ok!r}, not true/false")
-    return {"name": str(row["name"]), "value": _plain(row["value"]), "goal": str(goal), "ok": bool(ok),
-            "module": module}
+    out = {"name": str(row["name"]), "value": _plain(row["value"]), "goal": str(goal), "ok": bool(ok),
+           "module": module}
+    if "rounds" in row or "spread" in row:  # a timing ratio: the median of interleaved rounds, and their spread
+        rounds, spread = row.get("rounds"), row.get("spread")
+        if not (isinstance(rounds, int) and rounds >= MIN_ROUNDS and isinstance(spread, (list, tuple))
+                and len(spread) == 2):
+            return _error_row(module, "malformed row", f"{row['name']}: a ratio needs rounds >= {MIN_ROUNDS} and "
+                              f"spread [low, high], got rounds {rounds!r}, spread {spread!r}")
+        out["rounds"], out["spread"] = rounds, [_plain(v) for v in spread]
+    return out
 
 
 def _plain(value: Any) -> Any:
@@ -209,7 +225,11 @@ def run_all(quick: bool, only: list[str] | None = None, echo: Any = None) -> lis
 def line(row: dict[str, Any]) -> str:
     v = row["value"]
     value = f"{v:.4g}" if isinstance(v, float) else json.dumps(v) if isinstance(v, (dict, list)) else str(v)
-    return f"{row['name']}: {value} (goal {row['goal']}){'' if row['ok'] else '  MISSED'}"
+    spread = ""
+    if "spread" in row:
+        lo, hi = row["spread"]
+        spread = f" [median of {row['rounds']} rounds, spread {lo:.4g}-{hi:.4g}]"
+    return f"{row['name']}: {value}{spread} (goal {row['goal']}){'' if row['ok'] else '  MISSED'}"
 
 
 def script(module_file: str) -> int:

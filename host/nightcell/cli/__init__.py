@@ -643,17 +643,65 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
 # -- the database ------------------------------------------------------------------------------------------------------
 
 def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> None:
-    """Print a table with rich; every cell is plain text (labels from users are never read as markup)."""
+    """Print a table with rich; every cell is plain text (labels from users are never read as markup).
+
+    A table that fits the console's width with one line per row is drawn by ``_box_lines`` in rich's own layout:
+    rich lays out and wraps every cell (about 1.5 ms a row, seconds for a thousand runs), which only a table too
+    wide for the console needs.
+    """
     from rich.console import Console
     from rich.table import Table
     from rich.text import Text
 
+    # labels come from boards and users: control characters are written out, never sent to the terminal
+    rows = [[None if v is None else inert(str(v)) for v in row] for row in rows]
+    console = Console(highlight=False)
+    lines = _box_lines(title, columns, rows, console.width, console.is_terminal)
+    if lines is not None:
+        console.file.write("\n".join(lines) + "\n")
+        console.file.flush()
+        return
     table = Table(title=title, title_justify="left")
     for c in columns:
         table.add_column(c, overflow="fold")
     for row in rows:
-        table.add_row(*[Text("" if v is None else inert(str(v))) for v in row])
-    Console(highlight=False).print(table)
+        table.add_row(*[Text("" if v is None else str(v)) for v in row])
+    console.print(table)
+
+
+def _box_lines(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], width: int,
+               styled: bool) -> list[str] | None:
+    """The lines rich draws for a table of printable one-line cells that fits ``width`` (heavy head, title on the
+    left, italic title and bold headers on a terminal), or None when rich must lay it out itself."""
+    from rich.cells import cell_len
+
+    head = [str(c) for c in columns]
+    body = [["" if v is None else str(v) for v in row] for row in rows]
+    widths = [cell_len(h) for h in head]
+    for row in body:
+        for i, c in enumerate(row):
+            if not c.isprintable():
+                return None
+            n = cell_len(c)
+            if n > widths[i]:
+                widths[i] = n
+    total = sum(widths) + 3 * len(widths) + 1
+    if total > width or not all(h.isprintable() for h in head + [title]) or cell_len(title) > total:
+        return None
+    bold, italic, plain = ("\x1b[1m", "\x1b[3m", "\x1b[0m") if styled else ("", "", "")
+
+    def cells(values: list[str], bar: str, on: str = "", off: str = "") -> str:
+        return bar + bar.join(f" {on}{v}{off}{' ' * (w - cell_len(v))} " for v, w in zip(values, widths)) + bar
+
+    def rule(left: str, fill: str, mid: str, right: str) -> str:
+        return left + mid.join(fill * (w + 2) for w in widths) + right
+
+    lines = [f"{italic}{title}{' ' * (total - cell_len(title))}{plain}" if styled
+             else title + " " * (total - cell_len(title)),
+             rule("┏", "━", "┳", "┓"), cells(head, "┃", bold, plain), rule("┡", "━", "╇", "┩")]
+    lines += [cells(row, "│") for row in body]
+    lines.append(rule("└", "─", "┴", "┘"))
+    return lines
 
 
 @cli.group("list")
@@ -710,9 +758,10 @@ def list_runs(store: Any) -> tuple:
     """
     starts = store.mark_times("run_start")
     data = []
-    for run in store.runs():
+    runs = store.runs()
+    for run, samples in zip(runs, store.run_sample_counts(runs)):
         d = run.to_dict()
-        d["samples"] = len(store.run_samples(run))
+        d["samples"] = samples
         d["started_utc"] = starts.get((run.device, run.start_boot, run.start_seq), "")
         d["state"] = "stopped" if run.stop_seq is not None else "open (still logging, or not synced to its stop)"
         data.append(d)

@@ -54,15 +54,14 @@ def _matplotlib_config_folder() -> None:
 
 _matplotlib_config_folder()
 
-import matplotlib  # noqa: E402
 import numpy as np  # noqa: E402
-from matplotlib.figure import Figure  # noqa: E402
 
 from .. import __version__  # noqa: E402
 
-__all__ = ["plot_calibration", "plot_run", "plot_orders", "plot_arrhenius", "figure_png", "figure_svg",
-           "save_figure", "html_report", "fit_table", "write_csv", "safe_filename", "ReportFiles", "run_report",
-           "study_report", "plain_text", "plus_minus", "html_table", "write_atomic", "out_folder", "all_or_nothing"]
+__all__ = ["plot_calibration", "plot_run", "thin_for_drawing", "DRAW_LIMIT", "plot_orders", "plot_arrhenius",
+           "figure_png", "figure_svg", "save_figure", "html_report", "fit_table", "write_csv", "safe_filename",
+           "ReportFiles", "run_report", "study_report", "plain_text", "plus_minus", "html_table", "write_atomic",
+           "out_folder", "all_or_nothing"]
 
 
 def plain_text(label: Any) -> str:
@@ -94,25 +93,89 @@ def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str =
     return ax
 
 
+DRAW_LIMIT = 4000
+"""Points of one series drawn as they are; a denser series is thinned for drawing only (``thin_for_drawing``)."""
+DRAW_SLICES = 1000
+"""Equal slices of time a thinned series is cut into; each keeps its lowest and highest point."""
+
+
+def thin_for_drawing(x: np.ndarray, y: np.ndarray, limit: int = DRAW_LIMIT,
+                     slices: int = DRAW_SLICES) -> np.ndarray | None:
+    """Indices (in order) of the points of a series to draw: None (draw all) up to ``limit`` finite points; beyond,
+    the lowest and highest point of each of ``slices`` equal slices of x (the outline and every outlier) and
+    ``slices`` points evenly spaced through the series (where the cloud is dense). For drawing only: fits, tables
+    and CSV keep every point."""
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    finite = np.flatnonzero(np.isfinite(x) & np.isfinite(y))
+    if finite.size <= limit:
+        return None
+    xs, ys = x[finite], y[finite]
+    lo, hi = float(xs.min()), float(xs.max())
+    slot = np.zeros(xs.size, dtype=np.int64) if hi <= lo else np.minimum(
+        ((xs - lo) * (slices / (hi - lo))).astype(np.int64), slices - 1)
+    even = np.linspace(0, xs.size - 1, slices).round().astype(np.int64)
+    if np.all(slot[1:] >= slot[:-1]):  # times in order (as runs are): each slice is one stretch of the series
+        starts = np.flatnonzero(np.concatenate(([True], slot[1:] != slot[:-1])))
+        counts = np.diff(np.append(starts, xs.size))
+        pick = []
+        for reduce in (np.minimum, np.maximum):
+            extreme = np.repeat(reduce.reduceat(ys, starts), counts)
+            hits = np.flatnonzero(ys == extreme)
+            pick.append(hits[np.concatenate(([True], slot[hits][1:] != slot[hits][:-1]))])  # first in its slice
+        return finite[np.unique(np.concatenate((*pick, even)))]
+    order = np.lexsort((ys, slot))  # by slice, then by y: each slice's lowest first and highest last
+    ends = np.flatnonzero(np.diff(slot[order]))
+    first = np.concatenate(([0], ends + 1))
+    last = np.concatenate((ends, [order.size - 1]))
+    return finite[np.unique(np.concatenate((order[first], order[last], even)))]
+
+
+def _drawn(ax: Any, x: np.ndarray, y: np.ndarray, what: str, *,
+           at: float = 0.98) -> tuple[np.ndarray, np.ndarray, str]:
+    """The points of a series to draw and the words for its legend; a thinned series says so inside ``ax``."""
+    keep = thin_for_drawing(x, y)
+    if keep is None:
+        return x, y, what
+    ax.text(0.99, at, f"{what}: drawing thinned, {keep.size:,} of {np.size(x):,} shown (each of "
+            f"{DRAW_SLICES} time slices' lowest and highest, and evenly spaced ones); fits use all",
+            transform=ax.transAxes, ha="right", va="top", fontsize="xx-small", color="#444444")
+    return x[keep], y[keep], f"{what} (thinned for drawing)"
+
+
 def plot_run(time_s: Sequence[float], absorbance: Sequence[float], fit: Any = None, ax: Any = None,
              resid_ax: Any = None, flags: Sequence[int] | None = None, title: str = "") -> Any:
-    """Absorbance against time with the fitted curve; flagged points hollow; residuals on ``resid_ax``."""
+    """Absorbance against time with the fitted curve; flagged points hollow; residuals on ``resid_ax``.
+
+    A dense series (more than ``DRAW_LIMIT`` points) is thinned for drawing only (``thin_for_drawing``), and its
+    legend says so; the fit and its residuals were computed from every point before.
+    """
     if ax is None:
         ax = _new_axes()
     t = np.asarray(time_s, dtype=float)
     a = np.asarray(absorbance, dtype=float)
     bad = np.zeros(len(t), bool) if flags is None else np.asarray(flags) != 0
-    ax.plot(t[~bad], a[~bad], ".", color="#7a3b8f", label="readings")
+    dx, dy, label = _drawn(ax, t[~bad], a[~bad], "readings")
+    ax.plot(dx, dy, ".", color="#7a3b8f", label=label)
     if bad.any():
-        ax.plot(t[bad], a[bad], "o", mfc="none", color="#cc5500", label="flagged")
+        dx, dy, label = _drawn(ax, t[bad], a[bad], "flagged", at=0.93)
+        ax.plot(dx, dy, "o", mfc="none", color="#cc5500", label=label)
     if fit is not None and len(getattr(fit, "x", [])):
         fx = np.asarray(fit.x, dtype=float)
-        fy = np.asarray(fit.y, dtype=float) - np.asarray(fit.residuals, dtype=float)
-        order = np.argsort(fx)
-        ax.plot(fx[order], fy[order], "-", color="#222222", label=plain_text(f"fit: {fit.model}"))
+        resid = np.asarray(fit.residuals, dtype=float)
+        fy = np.asarray(fit.y, dtype=float) - resid
+        if np.any(fx[1:] < fx[:-1]):
+            order = np.argsort(fx)
+            fx, fy, resid = fx[order], fy[order], resid[order]
+        keep = thin_for_drawing(fx, fy)  # the curve through the same thinning (its shape, at a fraction)
+        if keep is not None:
+            ax.plot(fx[keep], fy[keep], "-", color="#222222", label=plain_text(f"fit: {fit.model}"))
+        else:
+            ax.plot(fx, fy, "-", color="#222222", label=plain_text(f"fit: {fit.model}"))
         if resid_ax is not None:
             resid_ax.axhline(0, color="#999999", lw=0.8)
-            resid_ax.plot(fx, fit.residuals, ".", color="#7a3b8f")
+            dx, dy, _ = _drawn(resid_ax, fx, resid, "residuals")
+            resid_ax.plot(dx, dy, ".", color="#7a3b8f")
             resid_ax.set_xlabel("time (s)")
             resid_ax.set_ylabel("residual (A)")
     ax.set_xlabel("time (s)")
@@ -420,8 +483,12 @@ def _figure_files(fig: Any, stem: Path, done: list[Path]) -> bytes:
     """PNG and SVG of a figure beside the report; returns the PNG bytes to embed.
 
     The report's figures are laid out by matplotlib's constrained layout when made, so saving needs no extra
-    "tight" drawing pass (a report draws many figures: this halves the time).
+    "tight" drawing pass (a report draws many figures: this halves the time). The layout runs once, here, and is
+    then fixed, so the PNG and the SVG are drawn from the same positions without laying the figure out again.
     """
+    if fig.get_layout_engine() is not None:
+        fig.draw_without_rendering()  # the one layout pass
+        fig.set_layout_engine("none")
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=110)
     png = buf.getvalue()
@@ -442,6 +509,8 @@ def _new_axes() -> Any:
 
 def _figure(figsize: tuple[float, float] | None = None, **kw: Any) -> tuple[Any, Any]:
     """A report figure: a bare ``Figure`` (no pyplot, no backend) laid out by constrained layout."""
+    from matplotlib.figure import Figure  # on first use: commands that only write files do not load matplotlib
+
     fig = Figure(figsize=figsize, layout="constrained")
     return fig, fig.subplots(**kw)
 
@@ -497,14 +566,15 @@ def _conditions_text(conditions: dict[str, Any] | None) -> str:
 
 def _shade_restarts(analysis: Any, axes: Sequence[Any]) -> None:
     """Grey bands where the board restarted inside the run (no readings: the time without power)."""
-    boots = [b for b, _ in analysis.seqs]
+    keys = analysis.seqs
+    boots = np.asarray(keys.boot if hasattr(keys, "boot") else [b for b, _ in keys])
     t = np.asarray(analysis.time_s, dtype=float)
-    for i in range(1, len(boots)):
-        if boots[i] != boots[i - 1]:
-            for j, ax in enumerate(axes):
-                ax.axvspan(t[i - 1], t[i], color="#888888", alpha=0.2, lw=0,
-                           label=f"restart (boot {boots[i]})" if j == 0 else None)
-    if len(set(boots)) > 1:
+    changes = np.flatnonzero(boots[1:] != boots[:-1]) + 1
+    for i in changes:
+        for j, ax in enumerate(axes):
+            ax.axvspan(t[i - 1], t[i], color="#888888", alpha=0.2, lw=0,
+                       label=f"restart (boot {boots[i]})" if j == 0 else None)
+    if changes.size:
         axes[0].legend(loc="best", fontsize="small")
 
 
@@ -628,21 +698,39 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
     if study.runs:
         fig, ax = _figure(figsize=(7.0, 4.4))
         try:
+            import matplotlib
+
             cmap = matplotlib.colormaps["viridis"]
+            # one figure for every run: the points drawn are shared out (about 4 × DRAW_LIMIT in all, at least 30
+            # a run), so a study of many runs stays a figure of a few MB
+            share = max(30, 4 * DRAW_LIMIT // len(study.runs))
+            thinned = False
             for i, it in enumerate(study.runs):
                 a = it.analysis
                 ok = a.flags == 0
                 col = cmap(i / max(1, len(study.runs) - 1))
-                ax.plot(a.time_s[ok], a.absorbance[ok], ".", ms=2.5, color=col,
-                        label=plain_text(it.run.label or it.run.key)[:60])
+                x, y = a.time_s[ok], a.absorbance[ok]
+                keep = thin_for_drawing(x, y, limit=share, slices=max(10, share // 3))
+                if keep is not None:
+                    x, y, thinned = x[keep], y[keep], True
+                ax.plot(x, y, ".", ms=2.5, color=col, label=plain_text(it.run.label or it.run.key)[:60])
                 fx = np.asarray(it.fit.x, dtype=float)
+                fy = np.asarray(it.fit.y) - np.asarray(it.fit.residuals)
                 order = np.argsort(fx)
-                ax.plot(fx[order], (np.asarray(it.fit.y) - np.asarray(it.fit.residuals))[order], "-", lw=0.9,
-                        color=col)
+                fx, fy = fx[order], fy[order]
+                keep = thin_for_drawing(fx, fy, limit=share, slices=max(10, share // 3))
+                if keep is not None:
+                    fx, fy = fx[keep], fy[keep]
+                ax.plot(fx, fy, "-", lw=0.9, color=col)
             ax.set_xlabel("time (s)")
             ax.set_ylabel("absorbance")
-            ax.set_title("All runs with their fits")
-            ax.legend(fontsize="x-small", loc="upper right")
+            ax.set_title("All runs with their fits" + (" (drawing thinned; the fits use every reading)"
+                                                       if thinned else ""))
+            if len(study.runs) <= 20:
+                ax.legend(fontsize="x-small", loc="upper right")
+            else:  # a legend of hundreds of runs would hide the plot: the table above names every run in order
+                ax.text(0.99, 0.98, f"{len(study.runs)} runs coloured in the table's order (dark first, yellow last)",
+                        transform=ax.transAxes, ha="right", va="top", fontsize="x-small")
             png = _figure_files(fig, out / f"{name}-runs", figs)
         finally:
             fig.clear()  # drop the figure's artists now: a report draws many

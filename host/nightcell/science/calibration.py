@@ -22,10 +22,10 @@ from dataclasses import dataclass, field
 from typing import Any, Mapping
 
 import numpy as np
-from scipy import stats as _stats
 
 from ..errors import DegenerateData, InputError, OutsideCalibration, SuspectData, TooFewPoints
 from .fitting import FitResult, check_pairs, jsonable, linear_lstsq, t_quantile
+from .fitting import _stats  # scipy.stats, imported when first used
 
 __all__ = ["CalibrationResult", "Estimate", "Prediction", "fit_calibration", "molar_factor", "LOD_RULE"]
 

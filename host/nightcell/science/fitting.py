@@ -24,9 +24,24 @@ from typing import Any, Callable, Mapping, Sequence
 import numpy as np
 from scipy import linalg as _sla
 from scipy import optimize as _opt
-from scipy import stats as _stats
 
 from ..errors import DegenerateData, FitFailed, InputError, NonFiniteInput, ShapeMismatch, TooFewPoints
+
+
+class _OnFirstUse:
+    """A module imported when one of its names is first used: ``scipy.stats`` takes about a second to import and
+    most commands (a listing, one run's fit) need at most one quantile from it."""
+
+    def __init__(self, name: str):
+        self._name = name
+
+    def __getattr__(self, attr: str) -> Any:
+        import importlib
+
+        return getattr(importlib.import_module(self._name), attr)
+
+
+_stats: Any = _OnFirstUse("scipy.stats")
 
 __all__ = [
     "FitResult",
@@ -78,7 +93,9 @@ def t_quantile(level: float, dof: int) -> float:
         raise InputError(f"confidence level {level!r} must lie between 0 and 1, e.g. 0.95")
     if dof <= 0:
         return math.inf
-    return float(_stats.t.ppf(0.5 + level / 2.0, dof))
+    from scipy.special import stdtrit  # what scipy.stats.t.ppf computes, without loading scipy.stats (~1 s)
+
+    return float(stdtrit(dof, 0.5 + level / 2.0))
 
 
 def aic(rss: float, n: int, k: int) -> float:

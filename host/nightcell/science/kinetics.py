@@ -55,11 +55,11 @@ from dataclasses import dataclass, field
 from typing import Any, Mapping, Sequence
 
 import numpy as np
-from scipy import stats as _stats
 
 from ..errors import AnalysisError, FitFailed, InputError, NonFiniteInput, TimeOrderError, TooFewPoints
 from .laws import ALL_MODELS, MODELS
 from .fitting import FitResult, _package, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq, runs_test
+from .fitting import _stats  # scipy.stats, imported when first used
 
 __all__ = [
     "ALL_MODELS",
@@ -207,6 +207,8 @@ def _plateau_start(tau: np.ndarray, a: np.ndarray) -> tuple[float, float, float]
 _FAST_MAX_ITER = 60
 _EPS = float(np.finfo(float).eps)
 _FAST_XTOL = 1e-10  # relative step in k (or c) at which the search stops: far below curve_fit's 1.5e-8
+_WARM_MIN = 20_000  # beyond twice this many points, a search starts from the minimum over a subset of them
+_WARM_HEAD = 4_000  # the subset keeps the run's first points whole: a fast reaction is over within them
 _FAST_COND = 1e-10  # smallest determinant of the unit-diagonal JᵀWJ the fast path accepts (else the SVD path decides)
 
 
@@ -231,6 +233,20 @@ class _Moments:
         self.span = float(tau[-1]) if tau[-1] > 0 else 1.0
         self.ntau = -tau
         self._integral: np.ndarray | None = None
+        self._warm: _Moments | None = None
+
+    def warm_start(self) -> "_Moments | None":
+        """For a long run (> ``_WARM_MIN`` points), the moments of a subset of its points — the first
+        ``_WARM_HEAD`` and about ``_WARM_MIN`` spread evenly — whose minimum starts the search on every point near
+        its end, so that search needs two or three passes over the whole run instead of five to ten. None for a
+        short run."""
+        n = self.tau.size
+        if n <= 2 * _WARM_MIN:
+            return None
+        if self._warm is None:  # made once, shared by the laws fitted to these points
+            idx = np.union1d(np.arange(_WARM_HEAD), np.arange(0, n, n // _WARM_MIN))
+            self._warm = _Moments(self.tau[idx], self.a[idx], None if self.w is None else self.w[idx])
+        return self._warm
 
     def integral(self) -> np.ndarray:
         """∫A dτ from the first point (trapezoid rule)."""
@@ -286,6 +302,11 @@ def _search(step_at: Any, theta: float, valid: Any, slack: float) -> tuple[float
 def _fast_exponential(m: _Moments, k0: float, a_end: float | None) -> tuple[float, float, float, list] | None:
     """Weighted LS over k of A = c0 + d·e^(−kτ): the plateau when ``a_end`` is None (c0 free), else first order
     (c0 = a_end). Returns (k, c0, d, sums at k) at the minimum, or None."""
+    warm = m.warm_start()
+    if warm is not None:
+        got = _fast_exponential(warm, k0, a_end)
+        if got is not None:
+            k0 = got[0]
     sw, swa = m.sw, m.swa
     E = np.empty((2, m.tau.size))
     plateau = a_end is None
@@ -334,7 +355,9 @@ def _fast_exponential(m: _Moments, k0: float, a_end: float | None) -> tuple[floa
         except (ZeroDivisionError, OverflowError):
             return None
 
-    out = _search(step_at, k0, lambda k: abs(k) * m.span < 300.0, 64 * _EPS * yy)
+    # e = exp(−kτ) only overflows for growth (k < 0) over a long span; a decay that ends long before the run does
+    # (k·span of thousands: a long run logging its plateau) underflows to 0, which the sums take as it is
+    out = _search(step_at, k0, lambda k: -k * m.span < 300.0, 64 * _EPS * yy)
     if out is None:
         return None
     k, (c0, d, S) = out
@@ -343,6 +366,11 @@ def _fast_exponential(m: _Moments, k0: float, a_end: float | None) -> tuple[floa
 
 def _fast_second(m: _Moments, c_start: float, a_end: float) -> tuple[float, float, list] | None:
     """Weighted LS over c of A − a_end = d0/(1 + c·τ). Returns (c, d0, sums at c) at the minimum, or None."""
+    warm = m.warm_start()
+    if warm is not None:
+        got = _fast_second(warm, c_start, a_end)
+        if got is not None:
+            c_start = got[0]
     sw, swa = m.sw, m.swa
     U = np.empty((4, m.tau.size))
     yy = m.sum_waa - 2.0 * a_end * swa + a_end * a_end * sw
@@ -449,15 +477,20 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
     tau, a = m.tau, m.a
     if model == "zero_order":
         return _fast_line(m, inputs)
+    # the starts come from a subset of a long run's points (its warm start; the points themselves otherwise): a start
+    # only has to lie near the minimum, which the search over every point then finds
+    s = m.warm_start() or m
     if model == "first_order_plateau":
         c = math.nan
-        X = np.column_stack([np.ones_like(tau), tau, m.integral()])
+        X = np.column_stack([np.ones_like(s.tau), s.tau, s.integral()])
         try:
-            coef = np.linalg.solve(X.T @ X, X.T @ a)  # A = A0 + k·A_inf·τ − k·∫A dτ (the law, integrated)
+            coef = np.linalg.solve(X.T @ X, X.T @ s.a)  # A = A0 + k·A_inf·τ − k·∫A dτ (the law, integrated)
             c = -float(coef[2])
         except np.linalg.LinAlgError:
             pass
-        k0 = c if math.isfinite(c) and 0.05 < c * m.span < 200.0 else _plateau_start(tau, a)[2]
+        # the integrated law's k where it is a usable start (on a long run that reached its plateau early, k·span
+        # runs to thousands, beyond the grid's range)
+        k0 = c if math.isfinite(c) and 0.05 < c * m.span else _plateau_start(s.tau, s.a)[2]
         got = _fast_exponential(m, k0, None)
         if got is None:
             return None
@@ -480,13 +513,13 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
         rss = float(m.wv @ (resid * resid))
         cov = np.array(T) * (rss / (m.a.size - 3))
         return _package(model, ("A0", "A_inf", "k"), beta, cov, m.tau, m.a, resid, rss, inputs=inputs)
-    integral_d = m.integral() - a_end * tau  # ∫(A − a_end) dτ
     d = a - a_end
+    sd = s.a - a_end
     if model == "first_order":
-        _, slope = _line(integral_d, d)  # D = D0 − k·∫D dτ (the law, integrated)
+        _, slope = _line(s.integral() - a_end * s.tau, sd)  # D = D0 − k·∫D dτ (the law, integrated)
         k0 = -slope
         if not (math.isfinite(k0) and k0 > 0):
-            k0 = _first_order_start(tau, d)
+            k0 = _first_order_start(s.tau, sd)
         got = _fast_exponential(m, k0, a_end)
         if got is None:
             return None
@@ -499,12 +532,12 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
     if model == "second_order":
         sign = _second_sign(d)
         # D = D0 − (c/D0)·∫D² dτ (the law, integrated)
-        sq = d * d
-        integral_sq = np.concatenate(([0.0], np.cumsum(np.diff(tau) * (sq[1:] + sq[:-1]) * 0.5)))
-        d0_line, slope = _line(integral_sq, d)
+        sq = sd * sd
+        integral_sq = np.concatenate(([0.0], np.cumsum(np.diff(s.tau) * (sq[1:] + sq[:-1]) * 0.5)))
+        d0_line, slope = _line(integral_sq, sd)
         c0 = -slope * d0_line
         if not (math.isfinite(c0) and c0 > 0):
-            k_start, inv_d0 = _second_order_start(tau, d, sign)
+            k_start, inv_d0 = _second_order_start(s.tau, sd, sign)
             c0 = k_start / inv_d0
         got = _fast_second(m, c0, a_end)
         if got is None:

@@ -84,15 +84,10 @@ class StoreQueries:
 
     def sample_count(self, device: str | None = None, boot: int | None = None, channel: int = 0) -> int:
         """Samples of one channel: of every device, of one device, or of one boot of it."""
-        where, params = ["channel = ?"], [channel]
-        if device is not None:
-            where.append("device = ?")
-            params.append(device)
-        if boot is not None:
-            where.append("boot = ?")
-            params.append(boot)
-        return self.conn.execute("SELECT count(*) FROM samples WHERE " + " AND ".join(where),
-                                 tuple(params)).fetchone()[0]
+        given = {name: value for name, value in (("channel", channel), ("device", device), ("boot", boot))
+                 if value is not None}  # column names of this method's own, values as parameters
+        return self.conn.execute("SELECT count(*) FROM samples WHERE " + " AND ".join(f"{c} = ?" for c in given),
+                                 tuple(given.values())).fetchone()[0]
 
     # -- run conditions ------------------------------------------------------------------------------------------------
     def record_run_condition(self, device: str, start_boot: int, start_seq: int, quantity: str, value: float,

@@ -28,6 +28,7 @@ import math
 import re
 import time
 from dataclasses import dataclass, field
+from collections import abc as _abc
 from typing import Any, Sequence
 
 import numpy as np
@@ -40,8 +41,8 @@ from ..errors import AnalysisError, InputError, SuspectData
 from ..science.fitting import FitResult, jsonable
 from ..store.database import Run, Store
 
-__all__ = ["BlankChoice", "RunAnalysis", "choose_blank", "standards_from_store", "calibrate_from_store",
-           "standard_sets", "label_tokens", "ACCEPT_HINT",
+__all__ = ["BlankChoice", "ReadingKeys", "RunAnalysis", "choose_blank", "standards_from_store",
+           "calibrate_from_store", "standard_sets", "label_tokens", "ACCEPT_HINT",
            "run_series", "analyse_run", "run_bounds", "set_run_condition", "run_conditions", "run_provenance",
            "RunSummary", "StudyAnalysis", "analyse_study", "CONDITION_PATTERN", "RESUME_SOURCE", "initial_rate_of",
            "k_and_temperature"]
@@ -345,6 +346,40 @@ def calibrate_from_store(store: Store, device: str, channel: int = 0, *, set_nam
                                         unit=unit or std["unit"], accept_suspect=accept_suspect, **options)
 
 
+class ReadingKeys(_abc.Sequence):
+    """The (boot, seq) of each reading of a run, kept as two integer arrays (``boot``, ``seq``).
+
+    Reads as a sequence of ``(boot, seq)`` tuples (``keys[0]``, ``keys[-1]``, iteration, ``len``), made one at a
+    time when asked for, so a run of a million readings holds two arrays rather than a million tuples.
+    """
+
+    def __init__(self, boot: np.ndarray, seq: np.ndarray):
+        self.boot = np.asarray(boot, dtype=np.int64)
+        self.seq = np.asarray(seq, dtype=np.int64)
+
+    def __len__(self) -> int:
+        return int(self.seq.size)
+
+    def __getitem__(self, i: Any) -> Any:
+        if isinstance(i, slice):
+            return ReadingKeys(self.boot[i], self.seq[i])
+        return int(self.boot[i]), int(self.seq[i])
+
+    def __iter__(self) -> Any:
+        return zip(self.boot.tolist(), self.seq.tolist()) if self.seq.size <= 100_000 else (
+            (int(b), int(q)) for b, q in zip(self.boot, self.seq))
+
+    def __eq__(self, other: object) -> bool:
+        if isinstance(other, ReadingKeys):
+            return bool(np.array_equal(self.boot, other.boot) and np.array_equal(self.seq, other.seq))
+        if isinstance(other, (list, tuple)):
+            return len(other) == len(self) and all(a == tuple(b) for a, b in zip(self, other))
+        return NotImplemented
+
+    def __repr__(self) -> str:
+        return f"ReadingKeys({len(self)} readings)"
+
+
 @dataclass
 class RunAnalysis:
     """A run's absorbance series, the fits of every candidate model, and where it all came from."""
@@ -354,7 +389,7 @@ class RunAnalysis:
     time_s: np.ndarray
     absorbance: np.ndarray
     flags: np.ndarray
-    seqs: list[tuple[int, int]]
+    seqs: "ReadingKeys | list[tuple[int, int]]"
     time_basis: str
     fits: dict[str, Any]
     best: str
@@ -473,7 +508,7 @@ def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] 
     seq_col = cols["seq"] if keep is None else cols["seq"][keep]
     t = t - t[0]
     return {"time_s": t, "absorbance": res.absorbance, "flags": flags, "blank": b, "time_basis": basis,
-            "seqs": list(zip(boot_col.tolist(), seq_col.tolist())), "warnings": warnings,
+            "seqs": ReadingKeys(boot_col, seq_col), "warnings": warnings,
             "boots": boots if keep is None else _boots_of(boot_col), "resumed": bounds["resumed"],
             "end_rule": bounds["rule"]}
 
