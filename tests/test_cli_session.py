@@ -21,7 +21,7 @@ import pytest
 from click.testing import CliRunner
 
 from nightcell.cli import cli
-from nightcell.sim.board import SimulatedBoard
+from nightcell.sim.board import SimulatedBoard, folder_device_id
 
 # The session's invented cuvette (ours, used nowhere else): absorbance per µM, standards, and a first-order fading.
 EPSILON_PER_UM = 0.075
@@ -48,8 +48,9 @@ def run_session(workdir: Path, *, interval_s: float = 0.5, run_s: float = 8.0, w
                 watch_every: float = 1.0,
                 label: str = "dye fading", db_name: str = "bench.db") -> tuple[list[Step], SimulatedBoard]:
     """Run the session in ``workdir`` against a fresh simulated board (real time: speed 1); returns every step."""
-    sim = SimulatedBoard(workdir / "board", device="5e55000000000001", speed=1.0, seed=11,
-                         settings={"board": "sim"})
+    # the board's id is the one its folder keeps, as `nightcell sim-board --dir board` would use
+    device = folder_device_id(workdir / "board", create=True)
+    sim = SimulatedBoard(workdir / "board", device=device, speed=1.0, seed=11, settings={"board": "sim"})
     sim.start()
     env = {"NIGHTCELL_PORT": sim.url, "COLUMNS": "100"}
     runner = CliRunner()
@@ -72,14 +73,15 @@ def run_session(workdir: Path, *, interval_s: float = 0.5, run_s: float = 8.0, w
             time.sleep(0.1)
         run("setup", "--interval", f"{interval_s:g}", "--warmup", "1", "--durability", "1", "--label", "bench 3")
         run("clock")
+        # the cuvette is filled as a reader of the README fills it: with `nightcell sim-cuvette`
+        run("sim-cuvette", "--dir", "board", "--blocked")
         run("dark", "--label", "lid on, LED off")
-        sim.set_cell({"absorbance": 0.0})
+        run("sim-cuvette", "--dir", "board", "--absorbance", "0")
         run("blank", "--label", "alkaline water")
         for c in STANDARDS_UM:
-            sim.set_cell({"absorbance": EPSILON_PER_UM * c})
+            run("sim-cuvette", "--dir", "board", "--absorbance", f"{EPSILON_PER_UM * c:g}")
             run("standard", f"{c:g}", "--label", f"dye {c:g} µM")
-        sim.set_cell({"reaction": {"a0": EPSILON_PER_UM * START_UM, "a_inf": A_INF, "k_per_s": K_PER_S,
-                                   "since_unix": time.time()}})
+        run("sim-cuvette", "--dir", "board", "--fading", f"{EPSILON_PER_UM * START_UM:g}:{A_INF:g}:{K_PER_S:g}")
         run("start", "--label", label)
         time.sleep(2.0)
         run("watch", "--every", f"{watch_every:g}", "--polls", str(watch_polls))
@@ -116,7 +118,8 @@ def test_every_step_succeeds(session):
 
 
 def test_board_steps_say_what_they_did(session):
-    _, by, _ = session
+    workdir, by, _ = session
+    sim_device = folder_device_id(workdir / "board", create=False)
     assert "interval_ms = 500" in by["setup"].output and "label = \"bench 3\"" in by["setup"].output
     assert "clock set from this computer's time" in by["clock"].output
     assert re.search(r"\d\d:\d\d:\d\d [A-Z][A-Za-z0-9:+-]*", by["clock"].output)  # local time, zone named
@@ -176,7 +179,7 @@ def test_report_and_export_write_their_files(session):
     workdir, by, _ = session
     reports = workdir / "reports"
     html = sorted(reports.glob("*.html"))
-    assert len(html) == 1 and html[0].name.startswith("dye_fading-5e55000000000001-1-")
+    assert len(html) == 1 and html[0].name.startswith("dye_fading-")
     assert len(list(reports.glob("*.png"))) == 2 and len(list(reports.glob("*.svg"))) == 2
     page = html[0].read_text(encoding="utf-8")
     assert "data:image/png;base64," in page and "Rate laws ranked" in page

@@ -16,6 +16,7 @@ import contextlib
 import datetime
 import functools
 import json
+import math
 import sys
 import time
 from pathlib import Path
@@ -26,7 +27,8 @@ import click
 from .. import __version__
 from ..errors import DeviceError, InputError
 from ..wire import settings as _settings
-from .options import EXIT_CODES, accept_suspect_option, db_option, friendly, json_option, open_reading, open_writing, port_option
+from .options import (EXIT_CODES, FINITE, Finite, accept_suspect_option, db_option, friendly, inert, json_option,
+                      link_settings, open_reading, open_writing, port_option)
 from .options import emit as _emit
 
 __all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "accept_suspect_option", "EXIT_CODES", "open_reading",
@@ -39,7 +41,7 @@ def _connected(port: str) -> Iterator[tuple[Any, dict[str, Any]]]:
     """The board on ``port`` and its ``hello``: a clear error at once when nothing there speaks nightcell."""
     from ..wire.link import Board
 
-    with Board.open(port) as board:
+    with Board.open(port, **link_settings()) as board:
         yield board, board.hello()
 
 
@@ -116,30 +118,52 @@ def _sim_folder(path: Path) -> Path:
 @cli.command("sim-board")
 @click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
               show_default=True, help="Folder for the board's flash image and cuvette file (kept between runs).")
-@click.option("--speed", type=click.FloatRange(min=1.0, max=1000.0), default=1.0, show_default=True,
+@click.option("--speed", type=Finite(1.0, 1000.0), default=1.0, show_default=True,
               help="How many times faster than real time the board's clock runs.")
-@click.option("--seconds", type=click.FloatRange(min=0.1), default=None,
+@click.option("--seconds", type=Finite(0.1, unit="s"), default=None,
               help="Stop by itself after this many real seconds (default: run until Ctrl-C).")
 @click.option("--interpreter", type=click.Choice(["auto", "micropython", "cpython"]), default="auto",
               show_default=True, help="Run the firmware in MicroPython's unix port or in CPython.")
+@click.option("--link", type=click.Choice(["auto", "pty", "socket"]), default="auto", show_default=True,
+              help="How the host reaches it: a pseudo-terminal (Linux, macOS) or a local TCP port as a "
+                   "socket:// URL (any system; 'auto' takes the pty where there is one).")
+@click.option("--tcp-port", type=click.IntRange(0, 65535), default=None,
+              help="The TCP port for --link socket (default: the one it had last time in --dir, else any free one).")
 @friendly
-def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: str) -> None:
+def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: str, link: str,
+              tcp_port: int | None) -> None:
     """Run the real firmware on a simulated board and print its port, to try every board command without hardware.
 
     Leave it running; in another terminal give its port to the other commands and change its cuvette with
     `nightcell sim-cuvette`. Ctrl-C switches it off (its flash is kept in --dir, so it starts again where it was).
+    `nightcell boards` lists it while it runs.
 
     Example: nightcell sim-board --dir my-sim
     """
     import time
 
-    from ..sim.board import SimulatedBoard, folder_device_id
+    from ..sim.board import SimulatedBoard, announce, folder_device_id, remember_port, remembered_port, withdraw
 
     device = folder_device_id(_sim_folder(folder), create=True)  # its own id, kept in the folder
-    sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter)
-    sim.start()
+    last = remembered_port(folder)
+    wanted = tcp_port if tcp_port is not None else int(last.get("tcp_port") or 0)
+    try:
+        sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter,
+                             link=link, tcp_port=wanted)
+        sim.start()
+    except OSError as exc:
+        if tcp_port is not None or not wanted:
+            raise InputError(f"cannot serve the simulated board on TCP port {wanted} ({exc.strerror or exc}): "
+                             "give another --tcp-port, or 0 for any free one") from None
+        sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter, link=link)
+        sim.start()  # last time's port is taken now: any free one, and say so below
+    remember_port(sim)
+    announce(sim)
     try:
         click.echo(f"port: {sim.url}")
+        if last.get("url") and last["url"] != sim.url:
+            click.echo(f"the port changed since the last run in {folder} (it was {last['url']}): set NIGHTCELL_PORT "
+                       "again, or find it with `nightcell boards`")
         click.echo(f"simulated board {device} running the firmware in {sim.interpreter}, clock x{speed:g}; "
                    f"its cuvette holds {sim.cell_path.name} in {sim.workdir}")
         click.echo(f"try: NIGHTCELL_PORT={sim.url} nightcell hello   — Ctrl-C switches the board off")
@@ -148,10 +172,12 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
         while end is None or time.monotonic() < end:
             time.sleep(0.2)
             if not sim.alive():
-                raise DeviceError("the simulated board stopped by itself:\n" + sim.stderr_text()[-2000:])
+                tail = sim.stderr_text().strip().splitlines()[-1:] or ["(it wrote nothing)"]
+                raise DeviceError(f"the simulated board stopped by itself: {tail[0]} — see {sim.log_path}")
     except KeyboardInterrupt:
         pass
     finally:
+        withdraw(sim)
         sim.stop()
     click.echo("simulated board switched off (its flash is kept)")
 
@@ -159,7 +185,7 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
 @cli.command("sim-cuvette")
 @click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
               show_default=True, help="The folder a running `nightcell sim-board` was given.")
-@click.option("--absorbance", type=float, help="A solution of this absorbance (0 for the blank's solvent).")
+@click.option("--absorbance", type=FINITE, help="A solution of this absorbance (0 for the blank's solvent).")
 @click.option("--fading", metavar="A0:A_END:K",
               help="A reaction: absorbance A0 fading (or growing) to A_END with rate constant K per second.")
 @click.option("--blocked", is_flag=True, help="Block the light path (for `nightcell opaque`).")
@@ -207,11 +233,13 @@ def boards(as_json: bool) -> None:
 
     Example: nightcell boards
     """
+    from ..sim.board import running_boards
     from ..wire.link import candidate_ports
 
-    found = candidate_ports()
-    lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" for p in found] or \
-        ["no candidate boards found: plug one in (see hardware_notes/linux.md for permissions)"]
+    found = candidate_ports() + running_boards()
+    lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" if p["vid"] else f"{p['port']}  {p['kind']}"
+             for p in found] or \
+        ["no candidate boards found: plug one in (see hardware_notes/linux.md or windows_macos.md)"]
     _emit(found, as_json, "\n".join(lines))
 
 
@@ -298,9 +326,9 @@ def _check_text(what: str, text: str, verb: str, max_bytes: int | None = None) -
 
 @cli.command()
 @port_option
-@click.option("--interval", type=float, metavar="SECONDS", help="Time between samples of a run (0.2 s to 1 day).")
-@click.option("--warmup", type=float, metavar="SECONDS", help="LED on before a run's first sample (0 to 600 s).")
-@click.option("--durability", type=float, metavar="SECONDS",
+@click.option("--interval", type=FINITE, metavar="SECONDS", help="Time between samples of a run (0.2 s to 1 day).")
+@click.option("--warmup", type=FINITE, metavar="SECONDS", help="LED on before a run's first sample (0 to 600 s).")
+@click.option("--durability", type=FINITE, metavar="SECONDS",
               help="Durability window: samples older than this are on flash (0 to 3600 s; shorter wears flash more).")
 @click.option("--label", "device_label", help=f"The board's own label, e.g. 'bench 3' (at most {LABEL_MAX_BYTES} "
                                              "bytes).")
@@ -308,7 +336,7 @@ def _check_text(what: str, text: str, verb: str, max_bytes: int | None = None) -
               help="A light channel: name, LED pin, ADC pin (or sensor channel); repeat for up to 4. Replaces all "
                    "channels; takes effect after the board restarts.")
 @click.option("--reads", type=int, help="ADC reads summed per dark and per light value (1 to 256).")
-@click.option("--path-cm", type=float, help="Optical path length of the cuvette in cm (0.01 to 10).")
+@click.option("--path-cm", type=FINITE, help="Optical path length of the cuvette in cm (0.01 to 10).")
 @json_option
 @friendly
 def setup(port: str, interval: float | None, warmup: float | None, durability: float | None,
@@ -478,7 +506,10 @@ def standard(port: str, value: str, label: str, unit: str, set_name: str, as_jso
         number = float(value)
         ok = len(value) <= 32 and all(c in "0123456789.+-eE" for c in value)
     except ValueError:
-        ok = False
+        number, ok = 0.0, False
+    if ok and not (math.isfinite(number) and abs(number) < 1e50):
+        raise InputError(f"the standard's VALUE {value!r} is not a usable concentration: give a finite number of "
+                         "0 or more, e.g. 0.250")
     if not ok:
         raise InputError(f"the standard's VALUE must be a decimal number as typed, e.g. 0.250, not {value!r} "
                          "(give the unit with --unit)")
@@ -577,7 +608,7 @@ def note(port: str, text: str, as_json: bool) -> None:
 @cli.command()
 @port_option
 @db_option
-@click.option("--every", type=click.FloatRange(min=0.1), default=1.0, show_default=True, metavar="SECONDS",
+@click.option("--every", type=Finite(0.1, unit="s"), default=1.0, show_default=True, metavar="SECONDS",
               help="How often to ask the board.")
 @click.option("--polls", type=click.IntRange(min=1), default=None,
               help="Stop after this many polls (default: until Ctrl-C).")
@@ -625,7 +656,7 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
     from ..store.database import Store
     from ..store.sync import sync_board
 
-    with Board.open(port) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
+    with Board.open(port, **link_settings()) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
         summary = sync_board(board, store, acknowledge=not no_ack,
                              progress=lambda done, total, records: update(port, done, total, records))
     new = sum(summary.new_rows.values())
@@ -649,6 +680,8 @@ def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) ->
     from rich.table import Table
     from rich.text import Text
 
+    # labels come from boards and users: control characters are written out, never sent to the terminal
+    rows = [[None if v is None else inert(str(v)) for v in row] for row in rows]
     console = Console(highlight=False)
     lines = _box_lines(title, columns, rows, console.width, console.is_terminal)
     if lines is not None:
@@ -856,17 +889,22 @@ def _concentration(text: str) -> tuple[str, float]:
     if not sep or not name.strip() or not value.strip():
         raise InputError(f"--conc {text!r}: write REACTANT=MOLAR, e.g. --conc hydroxide=0.02")
     try:
-        return f"conc_{name.strip().lower()}_M", float(value)
+        molar = float(value)
     except ValueError:
         raise InputError(f"--conc {text!r}: {value!r} is not a number of mol/L") from None
+    if not (math.isfinite(molar) and 0.0 <= molar < 1e3):
+        raise InputError(f"--conc {text!r}: give a finite concentration from 0 to 1000 mol/L")
+    return f"conc_{name.strip().lower()}_M", molar
 
 
 @cli.command()
 @db_option
 @click.option("--run", "run_text", metavar="RUN",
               help="The run (its number in `list runs`, or its label); default: the only run.")
-@click.option("--temperature-c", "temperature_c", type=float, help="The run's temperature in °C.")
-@click.option("--temperature-k", "temperature_k", type=float, help="The run's temperature in kelvin.")
+@click.option("--temperature-c", "temperature_c", type=Finite(-273.15, 1000.0, unit="°C"),
+              help="The run's temperature in °C.")
+@click.option("--temperature-k", "temperature_k", type=Finite(0.0, 1300.0, unit="K", open_ends=False),
+              help="The run's temperature in kelvin.")
 @click.option("--conc", "concentrations", multiple=True, metavar="REACTANT=MOLAR",
               help="A starting concentration in mol/L, e.g. hydroxide=0.02 (repeat for each reactant).")
 @click.option("--source", default="typed in by the user", show_default=True,
@@ -914,7 +952,7 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the HTML pages and figures.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
-@click.option("--level", type=float, default=0.95, show_default=True,
+@click.option("--level", type=Finite(0.0, 1.0, open_ends=True), default=0.95, show_default=True,
               help="Confidence level of the calibration's intervals and prediction band.")
 @click.option("--blank", "blank", metavar="KEY|LABEL", default=None,
               help="With --run: read the run against this blank (its key boot:seq or its label) instead of the "

@@ -37,7 +37,8 @@ import click
 from ..errors import InputError
 from ..science import laws as _laws
 from ..science.laws import ALL_MODELS, MODELS
-from .options import accept_suspect_option, db_from_environment, friendly, json_option, open_writing, source_db_option
+from .options import (FINITE, Finite, accept_suspect_option, db_from_environment, friendly, inert, json_option,
+                      open_writing, source_db_option)
 
 if TYPE_CHECKING:
     import numpy as np
@@ -47,7 +48,7 @@ __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_com
 
 def read_columns(
     path: Path, required: Sequence[str], optional: Sequence[str] = (), *, prefix: str | None = None, min_rows: int = 1,
-    text: Sequence[str] = (), say: Callable[[str], None] | None = None,
+    text: Sequence[str] = (), say: Callable[[str], None] | None = None, check_range: bool = False,
 ) -> dict[str, np.ndarray]:
     """Numeric columns of a CSV or spreadsheet by header name (``tasks.tables.read_table`` with the dialect options
     of the command being run); what was detected or converted is said through ``say`` (to stderr by default)."""
@@ -58,8 +59,34 @@ def read_columns(
     table = read_table(path, required, optional, prefix=prefix, min_rows=min_rows, text=text,
                        delimiter=params.get("delimiter"), decimal=params.get("decimal"), sheet=params.get("sheet"))
     if table.notes:
-        (say or (lambda line: click.echo(line, err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+        (say or (lambda line: click.echo(inert(line), err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+    if check_range:
+        _plausible(table)
     return table.columns
+
+
+def _read_checked(path: Path, *args: Any, **kwargs: Any) -> dict[str, np.ndarray]:
+    """``read_columns`` as the commands read: values beyond any plausible size refused by row."""
+    return read_columns(path, *args, check_range=True, **kwargs)
+
+
+# Beyond these no reading of a colorimeter or rate constant lies, and the fits' arithmetic would overflow.
+_LIMITS = {"absorbance": 1000.0, "k": 1e50, "k_se": 1e50, "initial_rate": 1e50, "rate_se": 1e50, "weight": 1e50,
+           "concentration": 1e50, "time_s": 1e12, "temperature_K": 1e5}
+
+
+def _plausible(table: Any) -> None:
+    import numpy as np
+
+    for name, values in table.columns.items():
+        limit = _LIMITS.get(name, 1e50 if name.startswith("conc_") else None)
+        if limit is None or values.dtype == object or values.size == 0:
+            continue
+        big = np.flatnonzero(np.abs(values) > limit)
+        if big.size:
+            i = int(big[0])
+            raise InputError(f"{table.path} line {table.line(i)}, column {name}: {values[i]:g} is beyond any plausible value "
+                             f"(at most {limit:g} in size): fix or delete that row")
 
 
 def _table_options(fn: Callable[..., Any]) -> Callable[..., Any]:
@@ -90,9 +117,10 @@ def _absorbance_columns(path: Path, first: str, optional: Sequence[str], *, min_
     import numpy as np
 
     notes: list[str] = []
-    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append)
+    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append,
+                        check_range=True)
     for line in notes:
-        click.echo(line, err=True)
+        click.echo(inert(line), err=True)
     if any("percent transmittance" in line for line in notes):
         return cols, "converted from percent transmittance: A = 2 − log10(%T)"
     a = cols["absorbance"]
@@ -169,7 +197,7 @@ def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None, *,
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
-    click.echo(payload if as_json else text)
+    click.echo(payload if as_json else inert(text))
 
 
 def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str, Any], data: dict[str, Any],
@@ -188,7 +216,7 @@ def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str,
                 write_atomic(out, (payload + "\n").encode("utf-8"))
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
-    click.echo(payload if as_json else text)
+    click.echo(payload if as_json else inert(text))
 
 
 def _only_device(store: Any, device: str | None) -> tuple[str, str]:
@@ -248,13 +276,14 @@ def _detail_option(fn: Callable[..., Any]) -> Callable[..., Any]:
               "standards were journaled without one).")
 @click.option("--quadratic", is_flag=True, help="Fit a quadratic instead of a straight line.")
 @click.option("--through-origin", is_flag=True, help="Fit without an intercept.")
-@click.option("--reading", "readings", type=float, multiple=True,
+@click.option("--reading", "readings", type=FINITE, multiple=True,
               help="Absorbance of an unknown; repeat for replicate readings. Prints its concentration.")
-@click.option("--path-cm", type=float, default=None,
+@click.option("--path-cm", type=Finite(0.001, 100.0, unit="cm"), default=None,
               help="Path length (cm) for the molar absorptivity (with --db: default the board's path_cm setting).")
-@click.option("--blank-sd", type=float, default=None,
+@click.option("--blank-sd", type=Finite(0.0), default=None,
               help="SD of repeated blank absorbances; LOD/LOQ then use it as σ.")
-@click.option("--level", type=float, default=0.95, show_default=True, help="Confidence level of intervals.")
+@click.option("--level", type=Finite(0.0, 1.0, open_ends=True), default=0.95,
+              show_default=True, help="Confidence level of intervals, between 0 and 1 (e.g. 0.95).")
 @accept_suspect_option
 @_detail_option
 @json_option
@@ -436,13 +465,13 @@ def _starts(texts: Sequence[str]) -> dict[str, float]:
 @click.option("--model", type=LawChoice(extra=("all", "initial_rate")), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate by AICc "
                                       "(first_order_rise_to_final only when named).")
-@click.option("--window", type=(float, float), default=None, metavar="START END",
+@click.option("--window", type=(FINITE, FINITE), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
-@click.option("--t-start", type=float, default=None, help="Leave out readings before this time (s), e.g. mixing.")
-@click.option("--t-end", type=float, default=None, help="Leave out readings after this time (s).")
-@click.option("--a-end", type=float, default=0.0, show_default=True,
+@click.option("--t-start", type=FINITE, default=None, help="Leave out readings before this time (s), e.g. mixing.")
+@click.option("--t-end", type=FINITE, default=None, help="Leave out readings after this time (s).")
+@click.option("--a-end", type=FINITE, default=0.0, show_default=True,
               help="Absorbance when the followed species is used up (zero/first/second-order laws).")
-@click.option("--a0", type=float, default=None,
+@click.option("--a0", type=FINITE, default=None,
               help="first_order_rise_to_final: hold A0 (the absorbance at t = 0) at this value; default: fitted.")
 @click.option("--start", "starts", multiple=True, metavar="NAME=VALUE",
               help="first_order_rise_to_final: a starting value (A0, A_rise, k); a grid start is always tried too.")
@@ -637,9 +666,9 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
         if csv_file is None:
             cols, source = _plan_from_conditions(store, "orders"), "recorded conditions"
         elif store is not None:
-            cols, source = read_columns(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",)), csv_file.name
+            cols, source = _read_checked(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",)), csv_file.name
         else:
-            cols = read_columns(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
+            cols = _read_checked(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
             source = csv_file.name
         inputs: dict[str, Any] = {"file": source}
         conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
@@ -660,6 +689,16 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
             _finish_saved(store, db, "orders", Path(source).stem, inputs, data, text, as_json, out)
             return
     _finish(data, text, as_json, out)
+
+
+def _kelvin(path: Path, temperature_k: np.ndarray) -> None:
+    """Refuse temperatures that are plainly °C written as kelvin (no solution is studied below 200 K)."""
+    import numpy as np
+
+    t = np.asarray(temperature_k, dtype=float)
+    if t.size and float(np.max(t)) < 200.0:
+        raise InputError(f"{path}: temperatures {float(np.min(t)):g} to {float(np.max(t)):g} K look like °C — add "
+                         "273.15 to each (or name the column 'temperature (°C)', which is converted)")
 
 
 @click.command("arrhenius")
@@ -701,10 +740,10 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
         if csv_file is None:
             cols, source = _plan_from_conditions(store, "arrhenius"), "recorded conditions"
         elif store is not None:
-            cols = read_columns(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
+            cols = _read_checked(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
             source = csv_file.name
         else:
-            cols, source = read_columns(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3), csv_file.name
+            cols, source = _read_checked(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3), csv_file.name
         inputs: dict[str, Any] = {"file": source}
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
@@ -720,6 +759,7 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
             inputs = {"file": source, "runs": [r.key for r in runs], "channel": channel, "model": model,
                       "temperature": "from the CSV" if "temperature_K" in cols and not all(g[2] for g in got)
                       else "CSV column, else the run's mean probe temperature"}
+        _kelvin(csv_file, cols["temperature_K"])
         fit = _study.arrhenius(cols["temperature_K"], cols["k"], cols.get("k_se"), inputs=inputs)
         data: dict[str, Any] = {"arrhenius": fit.to_dict()}
         ey = None
