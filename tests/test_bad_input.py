@@ -1275,7 +1275,7 @@ def test_a_board_answering_in_3_s_is_found_with_a_longer_timeout():
     finally:
         fake.close()
     assert result.exit_code == 0, result.output
-    assert f"device: {DEVICE}" in result.output
+    assert f"device {DEVICE}" in result.output  # hello answered: the board it found
 
 
 def test_a_journal_read_waits_as_long_as_the_baud_rate_needs():
