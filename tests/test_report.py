@@ -277,3 +277,40 @@ def test_calibration_plot_draws_the_prediction_band_at_the_calibrations_level(le
         assert_allclose(abs(at_mean[1] - centre), half, rtol=2e-2)  # the grid point nearest the mean
     finally:
         plt.close(fig)
+
+
+def test_six_runs_are_told_apart_by_marker_and_line_as_well_as_colour_and_the_legend_covers_no_data(
+        store, tmp_path, monkeypatch):
+    """Six runs in the study's figure: each its own colour, marker and (with its neighbours) line style, so the runs
+    stay apart in greyscale and for colour-blind readers (common practice: never colour alone); the legend stands
+    beside the axes, never over the readings."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    _hostile_store(store, n_runs=6)
+    for i, run in enumerate(store.runs(DEV)):
+        set_run_condition(store, run, "temperature_K", 298.15, "sheet")
+        set_run_condition(store, run, "conc_hydroxide_M", 0.01 * (1 + i), "sheet")
+    s = analyse_study(store)
+    assert len(s.runs) == 6
+    seen = {}
+    real = report._figure_files
+
+    def keep(fig, stem, figs):
+        if stem.name == "study-runs":  # look before the figure is saved and let go
+            ax = fig.axes[0]
+            points = [ln for ln in ax.get_lines() if ln.get_linestyle() in ("None", "none", "")]
+            renderer = FigureCanvasAgg(fig).get_renderer()
+            seen.update(points=points, curves=[ln for ln in ax.get_lines() if ln not in points],
+                        legend=fig.legends[0].get_window_extent(renderer), axes=ax.get_window_extent(renderer))
+        return real(fig, stem, figs)
+
+    monkeypatch.setattr(report, "_figure_files", keep)
+    report.study_report(s, tmp_path)
+    points, curves = seen["points"], seen["curves"]
+    assert len(points) == len(curves) == 6
+    assert len({ln.get_marker() for ln in points}) == 6  # greyscale: the markers alone tell the runs apart
+    assert len({ln.get_color() for ln in points}) == 6
+    assert all(c.get_linestyle() != d.get_linestyle() for c, d in zip(curves, curves[1:]))
+    assert not seen["legend"].overlaps(seen["axes"])
+    assert [report.run_style(i)["marker"] for i in range(8)] == list(report.RUN_MARKERS)
+    assert len({(report.run_style(i)["color"], report.run_style(i)["marker"]) for i in range(64)}) == 64

@@ -64,7 +64,21 @@ from ..science import laws as _laws  # noqa: E402
 __all__ = ["plot_calibration", "plot_run", "thin_for_drawing", "DRAW_LIMIT", "plot_orders", "plot_arrhenius",
            "figure_png", "figure_svg", "save_figure", "html_report", "fit_table", "write_csv", "safe_filename",
            "ReportFiles", "run_report", "study_report", "plain_text", "plus_minus", "html_table", "write_atomic",
-           "out_folder", "all_or_nothing"]
+           "out_folder", "all_or_nothing", "run_style"]
+
+
+# The eight colours of the colour-universal-design palette (Okabe & Ito, 2008 [memory for the values]), told apart
+# by readers with the common colour-vision deficiencies; each run also gets its own marker and line style, so the
+# runs stay apart in greyscale print.
+RUN_COLOURS = ("#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7")
+RUN_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
+RUN_LINES = ("-", "--", "-.", ":")
+
+
+def run_style(i: int) -> dict[str, str]:
+    """Colour, marker and line style of the ``i``-th run in a figure of several runs: no two of the first 64 share
+    colour and marker, and no two of the first 8 share a marker."""
+    return {"color": RUN_COLOURS[i % 8], "marker": RUN_MARKERS[(i + i // 8) % 8], "linestyle": RUN_LINES[i % 4]}
 
 
 def plain_text(label: Any) -> str:
@@ -791,11 +805,12 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
                                      "half-life (s) ± SE", "A∞ ± SE", "restarts", "readings"], rows)
                      + _links(study.runs, run_pages, bench)})
     if study.runs:
-        fig, ax = _figure(figsize=(7.0, 4.4))
+        fig, ax = _figure(figsize=(8.6, 4.4))
         try:
             import matplotlib
 
             cmap = matplotlib.colormaps["viridis"]
+            styled = len(study.runs) <= 20  # up to 20 runs each gets its own colour, marker and line (run_style)
             # one figure for every run: the points drawn are shared out (about 4 × DRAW_LIMIT in all, at least 30
             # a run), so a study of many runs stays a figure of a few MB
             share = max(30, 4 * DRAW_LIMIT // len(study.runs))
@@ -803,12 +818,15 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             for i, it in enumerate(study.runs):
                 a = it.analysis
                 ok = a.flags == 0
-                col = cmap(i / max(1, len(study.runs) - 1))
+                style = run_style(i) if styled else {"color": cmap(i / max(1, len(study.runs) - 1)),
+                                                      "marker": ".", "linestyle": "-"}
+                col = style["color"]
                 x, y = a.time_s[ok], a.absorbance[ok]
                 keep = thin_for_drawing(x, y, limit=share, slices=max(10, share // 3))
                 if keep is not None:
                     x, y, thinned = x[keep], y[keep], True
-                ax.plot(x, y, ".", ms=2.5, color=col, label=plain_text(it.run.label or it.run.key)[:60])
+                ax.plot(x, y, style["marker"], ms=2.5, mfc="none", mew=0.6, color=col, linestyle="none",
+                        label=plain_text(it.run.label or it.run.key)[:60])
                 fx = np.asarray(it.fit.x, dtype=float)
                 fy = np.asarray(it.fit.y) - np.asarray(it.fit.residuals)
                 order = np.argsort(fx)
@@ -816,13 +834,13 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
                 keep = thin_for_drawing(fx, fy, limit=share, slices=max(10, share // 3))
                 if keep is not None:
                     fx, fy = fx[keep], fy[keep]
-                ax.plot(fx, fy, "-", lw=0.9, color=col)
+                ax.plot(fx, fy, style["linestyle"], lw=0.9, color=col)
             ax.set_xlabel("time (s)")
             ax.set_ylabel("absorbance")
             ax.set_title("All runs with their fits" + (" (drawing thinned; the fits use every reading)"
                                                        if thinned else ""))
-            if len(study.runs) <= 20:
-                ax.legend(fontsize="x-small", loc="upper right")
+            if styled:  # beside the axes, never over the data
+                fig.legend(fontsize="x-small", loc="outside right upper", markerscale=2.0)
             else:  # a legend of hundreds of runs would hide the plot: the table above names every run in order
                 ax.text(0.99, 0.98, f"{len(study.runs)} runs coloured in the table's order (dark first, yellow last)",
                         transform=ax.transAxes, ha="right", va="top", fontsize="x-small")
