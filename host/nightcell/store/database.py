@@ -466,21 +466,25 @@ class Store(StoreQueries):
                                     "ORDER BY journal LIMIT 1", (device, journal_boot)).fetchone()
         else:
             row = self.conn.execute("SELECT boot FROM journal_boots WHERE device = ? AND journal_boot = ? AND "
-                                    "journal IN (?, 0) ORDER BY journal DESC LIMIT 1",
+                                    "journal IN (?, 0) ORDER BY journal = 0 LIMIT 1",
                                     (device, journal_boot, int(journal))).fetchone()
         return None if row is None else int(row[0])
 
     def assign_host_boot(self, device: str, journal: int | None, journal_boot: int) -> int:
         """``host_boot``, numbering the boot here first when it is new (inside the caller's transaction).
 
-        A new boot keeps the board's number unless a boot of another journal of the device holds it; then it gets
-        the next number after every boot of the device stored here.
+        A new boot keeps the board's number while the device has boots of no other journal here (and the number is
+        free); otherwise it gets the next number after every boot of the device stored here, so a later journal's
+        boots sort after the earlier journals' ones, as they happened.
         """
         found = self.host_boot(device, journal, journal_boot)
         if found is not None:
             return found
         taken = self.conn.execute("SELECT 1 FROM journal_boots WHERE device = ? AND boot = ?",
                                   (device, journal_boot)).fetchone()
+        if journal is not None and not taken:
+            taken = self.conn.execute("SELECT 1 FROM journal_boots WHERE device = ? AND journal NOT IN (?, 0)",
+                                      (device, int(journal))).fetchone()
         boot = journal_boot
         if taken:
             (top,) = self.conn.execute("SELECT max(boot) FROM journal_boots WHERE device = ?", (device,)).fetchone()
