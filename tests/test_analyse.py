@@ -219,7 +219,7 @@ def test_a_run_resumed_after_a_power_cut_is_one_run_across_two_boots(cut_run):
     # absorbance equals the definition applied to the stored counts
     assert_allclose(a.absorbance, _absorbance_from_counts(store, DEV, a.seqs, (a.blank.boot, a.blank.seq)),
                     rtol=0, atol=1e-12)
-    fit = a.fits["first_order_plateau"]
+    fit = a.fits["first_order_to_final"]
     # scipy.optimize.curve_fit on the same points and weights (reference library)
     w = 10.0 ** (-2.0 * a.absorbance)
     p, cov = curve_fit(_plateau, a.time_s, a.absorbance, p0=[0.7, 0.05, 0.003], sigma=1.0 / np.sqrt(w))

@@ -4,6 +4,7 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import click
@@ -70,9 +71,10 @@ def test_rate_all_and_single_model(group, tmp_path):
     res = _invoke(group, "rate", csv_file, "--json")
     assert res.exit_code == 0, res.output
     data = json.loads(res.output)
-    assert data["ranking"][0] == "first_order_plateau"
-    k = data["results"]["first_order_plateau"]["values"]["k"]
-    assert abs(k - 0.006) < 3 * data["results"]["first_order_plateau"]["stderr"]["k"]
+    assert data["answer"]["law"] == data["laws_ranked"][0]["law"] == "first_order_to_final"
+    k = data["answer"]["rate_constant"]
+    assert abs(k["value"] - 0.006) < 3 * k["standard_error"] and k["unit"] == "s⁻¹"
+    assert k["value"] == data["detail"]["first_order_to_final"]["values"]["k"]
     one = _invoke(group, "rate", csv_file, "--model", "initial_rate", "--window", 0, 60)
     assert one.exit_code == 0 and "window given: 0 to 60 s" in one.output
 
@@ -98,8 +100,13 @@ def test_orders_and_arrhenius(group, tmp_path):
     data = json.loads(res.output)
     assert data["arrhenius"]["extra"]["Ea_kJ_per_mol"] == pytest.approx(102.9, abs=0.05)
     assert "eyring" in data
-    text = _invoke(group, "arrhenius", arr_csv)
-    assert "Ea_J_per_mol" in text.output
+    text = _invoke(group, "arrhenius", arr_csv, "--eyring")
+    # Ea the one way it is printed everywhere, rounded by its standard error, in kJ mol⁻¹ (render.numbers)
+    assert re.search(r"Ea = 102\.\d+ ± \d\.\d+ kJ mol⁻¹", text.output) and "ΔH‡ = " in text.output
+    assert "Ea_J_per_mol" not in text.output and "Ea_J_per_mol" in _invoke(group, "arrhenius", arr_csv,
+                                                                              "--detail").output
+    orders_text = _invoke(group, "orders", orders_csv).output
+    assert re.search(r"order in ketone: 1\.\d+ ± 0\.\d+", orders_text), orders_text
 
 
 @pytest.mark.parametrize(
@@ -132,8 +139,8 @@ def test_bad_csv_gives_one_line_and_its_exit_code(group, tmp_path, command, head
 
 
 def test_nonconvergent_rate_fit_is_a_clean_error(group, tmp_path):
-    # a plateau model on a straight line has no plateau to find
+    # the law towards a final absorbance, on a straight line, has no final absorbance to find
     csv_file = _write(tmp_path / "line.csv", "time_s,absorbance", [(t, 0.01 * t) for t in range(0, 60, 10)])
-    res = _invoke(group, "rate", csv_file, "--model", "first_order_plateau")
+    res = _invoke(group, "rate", csv_file, "--model", "first_order_to_final")
     assert res.exit_code == 5 and "Traceback" not in res.output
-    assert res.output.startswith("Error: first_order_plateau:")
+    assert res.output.startswith("Error: first_order_to_final:")

@@ -46,5 +46,5 @@ def test_the_developers_example_runs(tmp_path):
     lines = proc.stdout.splitlines()
     # the calibration's unknown: 0.37 on a slope of about 0.075 per µM
     assert lines[0].startswith("unknown: 4.9") and "µM" in lines[0]
-    assert any(line.startswith("model: first_order_plateau") for line in lines)
-    assert re.match(r"5eba000000000007:1:9 first_order_plateau k = 0\.02 ± \S+ s⁻¹", lines[-1]), lines[-1]
+    assert any(line.startswith("model: first_order_to_final") for line in lines)
+    assert re.match(r"5eba000000000007:1:9 first_order_to_final k = 0\.02 ± \S+ s⁻¹", lines[-1]), lines[-1]

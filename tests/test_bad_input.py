@@ -498,6 +498,14 @@ CASES = [
          "--window applies to --model initial_rate"),
     Case("unknown rate model", ["rate", "--db", "{db}", "--model", "third_order"], 2, "Invalid value for '--model'"),
     Case("run that does not exist", ["rate", "--db", "{db}", "--run", "no such run"], 2, "no such run"),
+    Case("run label with a typo", ["rate", "--db", "{db}", "--run", "fading 52 C"], 2,
+         f"; did you mean {RUN_LABEL!r}? Give a run's key or label"),
+    Case("orders --db on runs with no recorded conditions", ["orders", "--db", "{db}"], 2,
+         "has a recorded starting concentration: record each run's with `nightcell condition"),
+    Case("arrhenius --db on runs with no recorded conditions", ["arrhenius", "--db", "{db}"], 2,
+         "has a recorded temperature: record each run's with `nightcell condition"),
+    Case("orders with neither CSV nor database (NIGHTCELL_DB empty)", ["orders"], 2, "give a CSV file",
+         env={"NIGHTCELL_DB": ""}),
     Case("calibrate an unknown device", ["calibrate", "--db", "{db}", "--device", "ffff000000000000"], 2,
          "no device 'ffff000000000000'"),
     Case("negative channel", ["export", "--db", "{db}", "--out", "{dir}/x", "--channel", "-1"], 2,
@@ -510,6 +518,34 @@ CASES = [
          port="missing"),
     Case("setup channel not NAME:LED:ADC", ["setup", "--channel", "red"], 2, "must be NAME:LED:ADC", port="missing"),
     Case("empty note", ["note", "   "], 2, "the note is empty", port="missing"),
+    Case("setup interval NaN", ["setup", "--interval", "nan"], 2, "'nan' is not a finite number", port="missing"),
+    Case("setup warm-up infinite", ["setup", "--warmup", "inf"], 2, "'inf' is not a finite number", port="missing"),
+    Case("setup path length NaN", ["setup", "--path-cm", "nan"], 2, "'nan' is not a finite number", port="missing"),
+    Case("standard value beyond a double", ["standard", "1e999"], 2, "'1e999' is not a usable concentration",
+         port="missing"),
+    Case("watch every NaN seconds", ["watch", "--every", "nan"], 2, "'nan' is not a finite number", port="missing"),
+    Case("condition temperature NaN", ["condition", "--db", "{db}", "--temperature-c", "nan"], 2,
+         "'nan' is not a finite number"),
+    Case("condition temperature below absolute zero", ["condition", "--db", "{db}", "--temperature-k", "-5"], 2,
+         "-5 K is out of range: give a number from 0 to 1300 K"),
+    Case("condition concentration infinite", ["condition", "--db", "{db}", "--conc", "naoh=inf"], 2,
+         "give a finite concentration"),
+    Case("calibrate --level 1.5", ["calibrate", "{csv}", "--level", "1.5"], 2,
+         "1.5 is out of range: give a number between 0 and 1, not either end", csv=_csv(GOOD_CAL)),
+    Case("calibrate --level 0", ["calibrate", "--db", "{db}", "--level", "0"], 2,
+         "0 is out of range: give a number between 0 and 1", csv=None),
+    Case("calibrate --reading NaN", ["calibrate", "{csv}", "--reading", "nan"], 2, "'nan' is not a finite number",
+         csv=_csv(GOOD_CAL)),
+    Case("rate --window with infinity", ["rate", "--db", "{db}", "--model", "initial_rate", "--window", "0", "inf"],
+         2, "'inf' is not a finite number"),
+    Case("roll-call --timeout NaN", ["roll-call", "--timeout", "nan"], 2, "'nan' is not a finite number"),
+    Case("arrhenius on °C written as K", ["arrhenius", "{csv}"], 2, "look like °C — add 273.15",
+         csv=_csv("temperature_K,k\n15,0.010\n25,0.021\n35,0.043\n")),
+    Case("arrhenius --eyring with k of 1e300", ["arrhenius", "{csv}", "--eyring"], 2,
+         "line 2, column k: 1e+300 is beyond any plausible value",
+         csv=_csv("temperature_K,k\n288,1e300\n298,2e300\n308,4e300\n")),
+    Case("rate with absorbances of 1e300", ["rate", "{csv}"], 2, "column absorbance: 1e+300 is beyond any plausible",
+         csv=_csv("time_s,absorbance\n0,1e300\n2,0.9e300\n4,0.8e300\n6,0.7e300\n8,0.6e300\n")),
     Case("sync with no port given", ["sync", "--db", "{db}"], 2, "Missing option '--port'", env={"NIGHTCELL_PORT": ""}),
     Case("benches with a planned end that is no time", ["benches", "--db", "{db}", "--no-browser", "--planned-end",
                                                           "tea time"], 2, "give a time today as HH:MM"),
@@ -603,8 +639,11 @@ CASES = [
     # -- the serial side -------------------------------------------------------------------------------------------
     Case("port that does not exist", ["hello", "--port", "/dev/nightcell-no-such-port"], 3, "no board at", port=None),
     Case("port URL of an unknown kind", ["hello", "--port", "bogus://x"], 3, "no board at", port=None),
-    Case("nothing answers on the port", ["hello"], 3, "no board answered", port="silent"),
-    Case("another device on the port", ["stop"], 3, "no board answered", port=echo_other_device),
+    Case("nothing answers on the port", ["hello"], 3, "(nothing came back)", port="silent"),
+    Case("--timeout NaN for a board command", ["hello", "--timeout", "nan"], 2, "'nan' is not a finite number",
+         port="missing"),
+    Case("--baud of 10", ["sync", "--db", "{db}", "--baud", "10"], 2, "Invalid value for '--baud'", port="missing"),
+    Case("another device on the port", ["stop"], 3, "none of them a nightcell reply", port=echo_other_device),
     Case("garbage from the port", ["sync", "--db", "{db}"], 3, "", port=garbage),
     Case("frames with a bad CRC", ["hello"], 3, "no board answered", port=frame_with_bad_crc),
     Case("benches with no board anywhere", ["benches", "--db", "{db}", "--no-browser"], 3,
@@ -613,6 +652,12 @@ CASES = [
          chatter=b"\x1b[2J MicroPython v1.99 REPL >>> " * 4),
     Case("a board of another protocol", ["hello"], 3, "speaks an unknown protocol",
          port=board_then_vanish("never", dict(HELLO, protocol=7))),
+    Case("hello with head before tail", ["sync", "--db", "{db}"], 3, "'tail' lies past the head 10",
+         port=board_then_vanish("never", dict(HELLO, head=10, tail=500))),
+    Case("hello with a negative head", ["hello"], 3, "'head' must be a whole number",
+         port=board_then_vanish("never", dict(HELLO, head=-1))),
+    Case("hello with a device id that is a path", ["sync", "--db", "{db}"], 3, "'device' must be a device id",
+         port=board_then_vanish("never", dict(HELLO, device="../../x"))),
     Case("board vanishes mid-command (stop)", ["stop"], 3, "", port=board_then_vanish("stop")),
     Case("board vanishes mid-sync (anchor)", ["sync", "--db", "{db}"], 3, "", port=board_then_vanish("anchor")),
     Case("board vanishes mid-mark (blank)", ["blank", "--label", "water"], 3, "", port=board_then_vanish("blank")),
@@ -684,8 +729,9 @@ CASES = [
     Case("CSV absorbance column holding %T (calibrate)", ["calibrate", "{csv}"], 2,
          "look like percent transmittance",
          csv=_csv("concentration,absorbance\n0,100\n2,69.2\n4,47.9\n6,33.1\n")),
-    Case("negative rate constant (CSV, first_order on a rising curve)", ["rate", "{csv}", "--model", "first_order"],
-         5, "first_order: the fitted rate constant k = -0.0", csv=_csv(RISING_RUN)),
+    Case("negative rate constant (CSV, first_order_to_zero on a rising curve)",
+         ["rate", "{csv}", "--model", "first_order_to_zero"],
+         5, "first_order_to_zero: the fitted rate constant k = -0.0", csv=_csv(RISING_RUN)),
     Case("negative rate constant with --db saves nothing", ["rate", "--db", "{db}", "--model", "second_order"], 5,
          "second_order: the fitted rate constant k = -", db=_variant(curve=_rising)),
     # -- a run that cannot be done on this board -------------------------------------------------------------------
@@ -717,11 +763,71 @@ def _fill(arg: Any, subs: dict[str, str]) -> str:
     return text
 
 
-def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPatch) -> tuple[Any, Path, dict, dict]:
+class _Medium:
+    """A small tmpfs mounted for one row: ``readonly`` holds a copy of the row's database and is remounted
+    read-only; ``full`` holds the copy (and the row's folder) and is then filled to its last byte. Needs root and a
+    kernel that lets us mount; otherwise the row is skipped with the reason."""
+
+    def __init__(self, kind: str, root: Path):
+        self.kind, self.root = kind, root
+
+    def __enter__(self) -> "_Medium":
+        import subprocess
+
+        self.root.mkdir(parents=True, exist_ok=True)
+        if os.geteuid() != 0:
+            pytest.skip("mounting a small tmpfs needs root; run the suite as root (CI does) to run this row")
+        done = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=512k", "tmpfs", str(self.root)],
+                              capture_output=True, text=True)
+        if done.returncode != 0:
+            pytest.skip(f"this machine does not let us mount a tmpfs ({done.stderr.strip()})")
+        return self
+
+    def place(self, db: Path) -> Path:
+        """Copy ``db`` onto the medium, then make it read-only or full; returns the copy's path."""
+        import subprocess
+
+        if not db.exists():
+            return db
+        if db.is_dir():
+            return self.root
+        copy = self.root / db.name
+        if copy != db:
+            shutil.copy(db, copy)
+        return copy
+
+    def seal(self) -> None:
+        """Once the row's inputs are in place: remount read-only, or fill every byte left."""
+        import subprocess
+
+        if self.kind == "readonly":
+            subprocess.run(["mount", "-o", "remount,ro", str(self.root)], check=True)
+        else:
+            fd = os.open(self.root / "filler", os.O_WRONLY | os.O_CREAT | os.O_EXCL)
+            try:
+                for size in (65536, 4096, 512, 1):
+                    while True:
+                        try:
+                            os.write(fd, b"\0" * size)
+                        except OSError:
+                            break
+            finally:
+                os.close(fd)
+
+    def __exit__(self, *exc: object) -> None:
+        import subprocess
+
+        subprocess.run(["umount", "-l", str(self.root)], capture_output=True)
+
+
+def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPatch,
+            medium: _Medium | None = None) -> tuple[Any, Path, dict, dict]:
     monkeypatch.setattr(link_module, "Deadline", _QuickDeadline)
     monkeypatch.setattr(link_module, "candidate_ports", lambda: [])  # no row probes this machine's own serial ports
     monkeypatch.setattr(store_module, "BUSY_TIMEOUT_S", 0.2)
     db = case.db(template, work)
+    if medium is not None:
+        db = medium.place(db)
     subs = {"db": str(db), "dir": str(work)}
     if case.csv is not None:
         subs["csv"] = str(case.csv(work))
@@ -739,6 +845,8 @@ def _invoke(case: Case, template: Path, work: Path, monkeypatch: pytest.MonkeyPa
     if fake is not None:
         env["NIGHTCELL_PORT"] = fake.path
     env.update(case.env)
+    if medium is not None:
+        medium.seal()
     undo = case.setup(db, work) if case.setup else None
     before = snapshot(db)
     if case.disk_pages is not None:
@@ -775,6 +883,31 @@ def test_bad_input(case: Case, template: Path, tmp_path: Path, monkeypatch: pyte
     assert not list(tmp_path.rglob("*.part")), list(tmp_path.rglob("*.part"))
 
 
+@pytest.mark.parametrize("kind", ["readonly", "full"])
+@pytest.mark.parametrize("case", [c for c in CASES if c.setup is None], ids=[c.name for c in CASES if c.setup is None])
+def test_bad_input_on_a_read_only_or_full_medium(case: Case, kind: str, template: Path, tmp_path: Path,
+                                                  monkeypatch: pytest.MonkeyPatch):
+    """The whole table again, with the row's database on a read-only medium, or on a full one with the row's
+    outputs: every row is still refused with one line and a documented code, nothing changes and nothing is left
+    behind. A row refused before the database is touched gives the same code; a row whose command writes may
+    instead be refused as read-only or full (exit 4) or unwritable (exit 2)."""
+    with _Medium(kind, tmp_path / "medium") as medium:
+        work = tmp_path / "medium" if kind == "full" else tmp_path / "work"
+        work.mkdir(exist_ok=True)
+        result, db, before, after = _invoke(case, template, work, monkeypatch, medium)
+        output = result.output
+        assert result.exit_code != 0, output
+        assert result.exit_code == case.code or (result.exit_code in (2, 4) and any(
+            w in output for w in ("read-only", "readonly", "No space left", "disk is full", "full"))), \
+            f"exit {result.exit_code}, expected {case.code}:\n{output}\n{result.exception!r}"
+        assert "Traceback" not in output and "Warning" not in output
+        assert output.strip() and len(output.strip().splitlines()) <= 8, output
+        assert not isinstance(result.exception, (AssertionError, TypeError, AttributeError, KeyError, IndexError)), \
+            output
+        assert after == before, f"the database changed: {before} -> {after}"
+        assert not list(work.rglob("*.part")), list(work.rglob("*.part"))
+
+
 def test_flagged_readings_are_counted_by_kind(tmp_path: Path):
     # issue 12 §2: readings beyond the stray-light ceiling (an opaque mark gives 1 % stray light: readings at
     # A ≥ ceiling − log10 2 ≈ 1.70 are flagged, standard spectrophotometry [memory], shared/REFERENCES.md) and
@@ -787,13 +920,14 @@ def test_flagged_readings_are_counted_by_kind(tmp_path: Path):
         return 0.05 + 0.6 * math.exp(-0.04 * i)
 
     db = make_db(tmp_path / "flags.db", curve=curve, opaque=2.0)
-    result = CliRunner().invoke(cli, ["rate", "--db", str(db), "--model", "first_order_plateau"],
+    result = CliRunner().invoke(cli, ["rate", "--db", str(db), "--model", "first_order_to_final"],
                                 env={"COLUMNS": "200"})
     assert result.exit_code == 0, result.output
     assert "40 readings, 6 flagged and left out (beyond_stray: 3, below_blank: 3)" in result.output, result.output
-    data = json.loads(CliRunner().invoke(cli, ["rate", "--db", str(db), "--model", "first_order_plateau",
+    data = json.loads(CliRunner().invoke(cli, ["rate", "--db", str(db), "--model", "first_order_to_final",
                                                "--json"]).output)
-    assert data["flag_counts"] == {"beyond_stray": 3, "below_blank": 3} and data["flagged"] == 6
+    assert data["readings"]["flags"] == {"beyond_stray": 3, "below_blank": 3}
+    assert data["readings"]["left_out_flagged"] == 6
 
 
 def test_suspect_data_confirmed_with_accept_suspect_is_kept_and_flagged(tmp_path: Path):
@@ -948,6 +1082,113 @@ def test_settings_defaults_file_loads_cleanly(tmp_path):
     assert problem is None and got == settings.defaults()
 
 
+# -- values already journaled that cannot be used -------------------------------------------------------------------
+
+def test_a_journaled_standard_of_1e999_is_left_out_and_named(tmp_path):
+    records = [F.decode_record(r)[0] for r in journal_records()]
+    for r in records:
+        if r.kind == F.KIND_MARK and r.fields["label"] == "dye 6":
+            r.fields["value"] = "1e999"  # what `standard 1e999` journaled before the CLI checked it
+    db = store_as_synced(tmp_path / "bad-standard.db", DEVICE, records)
+    out = CliRunner().invoke(cli, ["calibrate", "--db", str(db), "--json"])
+    cal = json.loads(out.stdout)["calibration"]
+    assert cal["n"] == 4
+    assert cal["inputs"]["left_out"] == ["standard 1:6 has a concentration of 1e999 (not a physical amount): left out"]
+    text = CliRunner().invoke(cli, ["calibrate", "--db", str(db)]).output
+    assert "note: standard 1:6 has a concentration of 1e999 (not a physical amount): left out" in text
+
+
+# -- file names: one page per run, whatever the labels ---------------------------------------------------------------
+
+def test_n_runs_give_n_pages_whatever_their_labels(tmp_path):
+    labels = ["NaOH 0.02 M", "NaOH 0.04 M", "x" * 61, "x" * 61 + "y", "CON", "end dot."]
+    records = []
+    for i, label in enumerate(labels):
+        device = f"5eba0000000001{i:02x}"
+        records.append((device, [F.decode_record(r)[0] for r in journal_records(device=device, run_label=label)]))
+    db = tmp_path / "many.db"
+    for device, recs in records:
+        store_as_synced(db, device, recs)
+    result = CliRunner().invoke(cli, ["report", "--db", str(db), "--all", "--out", str(tmp_path / "r")])
+    assert result.exit_code == 0, result.output
+    pages = sorted((tmp_path / "r").glob("*.html"))
+    assert len(pages) == len(labels), [p.name for p in pages]
+    figures = sorted((tmp_path / "r").glob("*-absorbance.png"))
+    assert len(figures) == len(labels) and len(list((tmp_path / "r").glob("*-absorbance.svg"))) == len(labels)
+    wrote = [ln for ln in result.output.splitlines() if ln.startswith("wrote ")]
+    assert len(wrote) == len(set(wrote)) == len(list((tmp_path / "r").iterdir()))
+    reserved = {"CON", "PRN", "AUX", "NUL", *(f"COM{i}" for i in range(10)), *(f"LPT{i}" for i in range(10))}
+    for p in (tmp_path / "r").iterdir():
+        assert p.name.split(".")[0].upper() not in reserved and not p.name.endswith((".", " ")), p.name
+    csv_out = CliRunner().invoke(cli, ["export", "--db", str(db), "--out", str(tmp_path / "x")])
+    assert csv_out.exit_code == 0, csv_out.output
+    assert len(list((tmp_path / "x").glob("*-absorbance.csv"))) == len(labels)
+
+
+# -- reading commands on a read-only medium work; outputs onto a full one are refused whole ------------------------
+
+@pytest.mark.parametrize("args", [
+    ["list", "runs", "--db", "{db}"],
+    ["list", "devices", "--db", "{db}"],
+    ["report", "--db", "{db}", "--all", "--out", "{dir}/r"],
+    ["export", "--db", "{db}", "--out", "{dir}/x"],
+    ["merge", "{db}", "--db", "{dir}/target.db"],
+], ids=["list runs", "list devices", "report", "export", "merge from it"])
+def test_reading_commands_work_on_a_read_only_database(args, template, tmp_path):
+    # a WAL database on a read-only filesystem: SQLite cannot make its -shm file there, so it is read immutable
+    with _Medium("readonly", tmp_path / "medium") as medium:
+        db = medium.place(_copy(template, tmp_path))
+        medium.seal()
+        before = snapshot(db)
+        result = CliRunner().invoke(cli, [_fill(a, {"db": str(db), "dir": str(tmp_path)}) for a in args])
+        assert result.exit_code == 0, result.output
+        assert "Traceback" not in result.output and "Warning" not in result.output
+        assert snapshot(db) == before
+    if args[0] == "merge":
+        assert Store.open_read(tmp_path / "target.db").count("samples") == 40
+
+
+def test_a_writing_command_on_a_read_only_database_says_so(template, tmp_path):
+    with _Medium("readonly", tmp_path / "medium") as medium:
+        db = medium.place(_copy(template, tmp_path))
+        medium.seal()
+        result = CliRunner().invoke(cli, ["rate", "--db", str(db)])
+    assert result.exit_code == 4, result.output
+    assert "the file or its folder is read-only; this command saves to the database" in result.output
+
+
+@pytest.mark.parametrize("args", [["export", "--db", "{db}", "--out", "{out}"],
+                                  ["report", "--db", "{db}", "--all", "--out", "{out}"],
+                                  ["rate", "--db", "{db}", "--out", "{out}/fit.json"]],
+                         ids=["export", "report", "rate --out"])
+def test_outputs_onto_a_full_disk_are_refused_whole(args, template, tmp_path):
+    db = _copy(template, tmp_path)
+    with _Medium("full", tmp_path / "medium") as medium:
+        out = tmp_path / "medium" / "out"
+        out.mkdir()
+        medium.seal()
+        before = snapshot(db)
+        result = CliRunner().invoke(cli, [_fill(a, {"db": str(db), "out": str(out)}) for a in args])
+        assert result.exit_code == 2, result.output
+        assert "No space left on device" in result.output and "cannot write" in result.output, result.output
+        assert sorted(p.name for p in out.iterdir()) == []  # no part file, no half of the outputs
+        assert snapshot(db) == before  # rate --out saves nothing when its file cannot be written
+
+
+def test_a_read_only_home_gives_no_matplotlib_noise(template, tmp_path):
+    import subprocess
+
+    db = _copy(template, tmp_path)
+    with _Medium("readonly", tmp_path / "home") as home:
+        home.seal()
+        env = dict(os.environ, HOME=str(tmp_path / "home"), XDG_CONFIG_HOME="", XDG_CACHE_HOME="")
+        env.pop("MPLCONFIGDIR", None)
+        done = subprocess.run([sys.executable, "-m", "nightcell.cli", "report", "--db", str(db), "--all", "--out",
+                               str(tmp_path / "r")], capture_output=True, text=True, env=env, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "matplotlib" not in done.stderr and "mkdir" not in done.stderr, done.stderr
+
+
 # -- a sync that fails half-way acknowledges nothing it has not committed ---------------------------------------------
 
 def _many_records(device: str) -> list[bytes]:
@@ -1025,6 +1266,31 @@ def test_a_gap_after_some_progress_stops_the_sync_and_nothing_past_it_is_acknowl
     with Store.open(db) as store:
         stored_to, acked_to = store.journal_state(device, SCRIPTED_JOURNAL)
     assert board.acks and max(board.acks) <= board.gap_from and stored_to <= board.gap_from
+
+
+# -- a slow board: timeouts follow --timeout and the link's baud rate -------------------------------------------------
+
+def test_a_board_answering_in_3_s_is_found_with_a_longer_timeout():
+    def slow(line: bytes) -> bytes:
+        time.sleep(3.0)
+        return F.encode_reply(F.REPLY_OK, int(line.split(b" ")[0]), json.dumps(HELLO).encode())
+
+    fake = FakePort(slow)
+    try:
+        result = CliRunner().invoke(cli, ["hello", "--port", fake.path, "--timeout", "6"])
+    finally:
+        fake.close()
+    assert result.exit_code == 0, result.output
+    assert f"device: {DEVICE}" in result.output
+
+
+def test_a_journal_read_waits_as_long_as_the_baud_rate_needs():
+    from nightcell.wire.link import Board, JournalPull
+
+    with Board.open("loop://", timeout=5.0, baudrate=2400) as slow, Board.open("loop://", timeout=5.0) as fast:
+        # 4 KB at 2400 baud (10 bits a byte) take 17 s: a chunk and the one queued behind it get that long each
+        assert JournalPull(slow, 0, 1).timeout >= 5.0 + 2 * 17.0
+        assert JournalPull(fast, 0, 1).timeout < 5.0 + 3.0
 
 
 def test_a_forged_board_with_the_stored_journal_id_and_other_content_is_refused_with_nothing_changed(tmp_path, template):

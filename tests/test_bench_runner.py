@@ -35,6 +35,9 @@ KNOWN_MISSES = {
                                   "measured under load, goal 1.5x (on 1e6 samples)",
     "full_sync_fraction_of_115200_baud": "a 30 KB quick sync under load measured 0.84-0.90 of the link, goal 0.85; "
                                          "the full run (61 KB) gave 0.924",
+    "csv_reader_over_loadtxt_ratio (100000 rows, median of 5)": "a 0.05 s read timed on a loaded 2-core machine: "
+                                                                "0.9-2.0x measured in quick runs; the full run "
+                                                                "(10^6 rows) measured 1.35-1.45x, goal 1.5x",
     "demo time, seconds (nightcell demo into an empty folder)": "wall time on a shared machine: 16-19 s measured "
                                                                 "alone, goal 30 s; the runner still reports a miss",
 }

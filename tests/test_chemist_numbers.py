@@ -12,6 +12,7 @@ sets and windows are invented for the test (they check bookkeeping, not chemistr
 from __future__ import annotations
 
 import json
+import re
 import math
 from pathlib import Path
 
@@ -50,33 +51,33 @@ def _misra_csv(tmp_path: Path) -> Path:
 
 @pytest.mark.parametrize("start", MISRA_STARTS, ids=["NIST start 1", "NIST start 2"])
 def test_misra1a_through_the_cli_from_both_nist_starts(tmp_path, start):
-    # NIST StRD Misra1a, y = b1·(1 − exp(−b2·x)) = first_order_rise with A0 held at 0 (shared/REFERENCES.md).
+    # NIST StRD Misra1a, y = b1·(1 − exp(−b2·x)) = first_order_rise_to_final with A0 held at 0 (shared/REFERENCES.md).
     # Its y values (10–82) are not absorbances, so the %T guard needs --accept-suspect.
-    code, out = _run("rate", _misra_csv(tmp_path), "--model", "first_order_rise", "--a0", "0",
+    code, out = _run("rate", _misra_csv(tmp_path), "--model", "first_order_rise_to_final", "--a0", "0",
                      "--start", f"A_rise={start[0]}", "--start", f"k={start[1]}", "--accept-suspect", "--json")
     assert code == 0, out
-    fit = json.loads(out)
+    fit = json.loads(out)["detail"]["first_order_rise_to_final"]  # the full fit record (render.fit_layout)
     assert fit["success"] and fit["extra"]["start_used"] == "given"
     # goal of shared/REFERENCES.md: parameters and RSS to at least 6 significant digits, SDs to 4
     assert_allclose([fit["values"]["A_rise"], fit["values"]["k"]], MISRA_B, rtol=1e-6)
     assert_allclose(fit["rss"], MISRA_RSS, rtol=1e-6)
     assert_allclose([fit["stderr"]["A_rise"], fit["stderr"]["k"]], MISRA_SD, rtol=1e-4)
     assert fit["dof"] == 12
-    text = _run("rate", _misra_csv(tmp_path), "--model", "first_order_rise", "--a0", "0", "--start",
+    text = _run("rate", _misra_csv(tmp_path), "--model", "first_order_rise_to_final", "--a0", "0", "--start",
                 f"A_rise={start[0]}", "--start", f"k={start[1]}", "--accept-suspect")[1]
-    assert "95 % intervals: value ± t·SE with t = 2.17881 (Student t, 12 dof)" in text, text
+    assert "95 % interval = value ± t·SE, t = 2.179 with 12 degrees of freedom" in text, text
 
 
 @pytest.mark.parametrize("start", [(1.0, 1.0), (1e6, 1e-9), (-100.0, -1e-3), (238.0, 1e-7), (10.0, 10.0)])
 def test_misra1a_from_a_poor_start_reaches_the_certified_values_or_fails_clearly(tmp_path, start):
-    code, out = _run("rate", _misra_csv(tmp_path), "--model", "first_order_rise", "--a0", "0",
+    code, out = _run("rate", _misra_csv(tmp_path), "--model", "first_order_rise_to_final", "--a0", "0",
                      "--start", f"A_rise={start[0]}", "--start", f"k={start[1]}", "--accept-suspect", "--json")
     if code == 0:  # a success must be the certified answer (NIST StRD Misra1a), never another point
-        fit = json.loads(out)
+        fit = json.loads(out)["detail"]["first_order_rise_to_final"]
         assert_allclose([fit["values"]["A_rise"], fit["values"]["k"]], MISRA_B, rtol=1e-6)
         assert_allclose(fit["rss"], MISRA_RSS, rtol=1e-6)
     else:
-        assert code == 5 and "first_order_rise:" in out, out
+        assert code == 5 and "first_order_rise_to_final:" in out, out
 
 
 def test_a_rise_that_is_still_straight_is_a_failure_not_a_final_value(tmp_path):
@@ -84,8 +85,8 @@ def test_a_rise_that_is_still_straight_is_a_failure_not_a_final_value(tmp_path):
     p = tmp_path / "line.csv"
     t = np.arange(0.0, 100.0, 5.0)
     p.write_text("time_s,absorbance\n" + "".join(f"{x},{0.1 + 0.002 * x}\n" for x in t))
-    code, out = _run("rate", p, "--model", "first_order_rise", "--a0", "0.1")
-    assert code == 5 and "first_order_rise:" in out, out
+    code, out = _run("rate", p, "--model", "first_order_rise_to_final", "--a0", "0.1")
+    assert code == 5 and "first_order_rise_to_final:" in out, out
     assert "still nearly straight" in out or "singular" in out or "did not converge" in out, out
 
 
@@ -94,7 +95,7 @@ def test_rise_law_with_a0_free_recovers_a_simulated_product_curve():
     rng = np.random.default_rng(3)
     t = np.arange(0.0, 600.0, 5.0)
     a = 0.05 + 0.7 * -np.expm1(-0.01 * t) + rng.normal(0.0, 0.003, t.size)
-    fit = kinetics.fit_model(t, a, "first_order_rise")
+    fit = kinetics.fit_model(t, a, "first_order_rise_to_final")
     for name, true in (("A0", 0.05), ("A_rise", 0.7), ("k", 0.01)):
         lo, hi = fit.confint(name)
         assert lo - 2 * fit.se(name) <= true <= hi + 2 * fit.se(name), (name, fit.values)
@@ -134,7 +135,7 @@ def test_ea_se_is_the_same_in_the_arrhenius_command_and_the_study(tmp_path):
     assert in_study.se("Ea_J_per_mol") == pytest.approx(command["stderr"]["Ea_J_per_mol"], rel=1e-12)
     assert "Birge ratio" in command["extra"]["se_rule"] and "n − 2 dof" in command["extra"]["se_rule"]
     text = _run("arrhenius", p)[1]
-    assert "t = 12.7062 (Student t, 1 dof)" in text and "se_rule" in text, text
+    assert "t = 12.71 with 1 degree(s) of freedom" in text and command["extra"]["se_rule"] in text, text
 
 
 # -- §4: the same weights for a CSV and a stored run ------------------------------------------------------------
@@ -143,12 +144,12 @@ def test_refitting_an_exported_run_gives_the_same_k_and_se(tmp_path):
     db = make_db(tmp_path / "class.db")
     assert _run("export", "--db", db, "--out", tmp_path / "csv")[0] == 0
     exported = next((tmp_path / "csv").glob("*-absorbance.csv"))
-    code, out = _run("rate", "--db", db, "--model", "first_order_plateau", "--json")
+    code, out = _run("rate", "--db", db, "--model", "first_order_to_final", "--json")
     assert code == 0, out
-    stored = json.loads(out)["fits"]["first_order_plateau"]
-    code, out = _run("rate", exported, "--model", "first_order_plateau", "--json")
+    stored = json.loads(out)["detail"]["first_order_to_final"]
+    code, out = _run("rate", exported, "--model", "first_order_to_final", "--json")
     assert code == 0, out
-    refit = json.loads(out)
+    refit = json.loads(out)["detail"]["first_order_to_final"]
     assert refit["inputs"]["weights"] == "the CSV's weight column"
     assert_allclose(refit["values"]["k"], stored["values"]["k"], rtol=1e-9)
     assert_allclose(refit["stderr"]["k"], stored["stderr"]["k"], rtol=1e-6)
@@ -156,10 +157,10 @@ def test_refitting_an_exported_run_gives_the_same_k_and_se(tmp_path):
 
 def test_t_start_and_t_end_work_on_stored_runs(tmp_path):
     db = make_db(tmp_path / "class.db")
-    code, out = _run("rate", "--db", db, "--model", "first_order_plateau", "--t-start", "10", "--t-end", "60",
+    code, out = _run("rate", "--db", db, "--model", "first_order_to_final", "--t-start", "10", "--t-end", "60",
                      "--json")
     assert code == 0, out
-    fit = json.loads(out)["fits"]["first_order_plateau"]
+    fit = json.loads(out)["detail"]["first_order_to_final"]
     assert fit["n"] == 26 and fit["inputs"]["window_s"] == [10.0, 60.0]  # samples every 2 s from 0 s: 10 … 60 s
     code, out = _run("rate", "--db", db, "--t-start", "60", "--t-end", "10")
     assert code == 2 and "--t-end 10 must be after --t-start 60" in out
@@ -170,7 +171,8 @@ def test_a_run_can_be_read_against_a_named_blank(tmp_path):
     code, out = _run("rate", "--db", db, "--blank", "1:3", "--json")
     assert code == 0, out
     data = json.loads(out)
-    assert (data["blank"]["seq"], data["blank"]["rule"]) == (3, "named by the user")
+    blank = data["detail"]["readings_from"]["blank"]
+    assert (blank["seq"], blank["rule"]) == (3, "named by the user")
     code, out = _run("rate", "--db", db, "--blank", "water")
     assert code == 2 and "2 blanks are labelled 'water'" in out and "give its key" in out, out
 
@@ -205,7 +207,8 @@ def test_calibrate_uses_the_latest_set_lists_its_standards_and_keeps_the_choice(
     code, out = _run("calibrate", "--db", two_sets.path, "--path-cm", "1")
     assert code == 0, out
     assert "calibration set: after blank 1:26 (4 standards; other sets: after blank 1:3)" in out, out
-    assert "standards used: 1:27 'dye' = 1 µM, 1:28 'dye' = 2 µM, 1:29 'dye' = 3 µM, 1:30 'dye' = 4 µM" in out
+    assert "standards used: 'dye' = 1 µM, 'dye' = 2 µM, 'dye' = 3 µM, 'dye' = 4 µM" in out  # mark keys: --detail
+    assert "standards' marks: 1:27, 1:28, 1:29, 1:30" in _run("calibrate", "--db", two_sets.path, "--detail")[1]
     # slope 0.2 A per µM in 1 cm ⇒ ε = 0.2 / 1e-6 = 2.0e5 L mol⁻¹ cm⁻¹ (Beer–Lambert, common practice)
     assert "molar absorptivity: 2000" in out and "L mol^-1 cm^-1 (standards in µM)" in out, out
     eps = json.loads(_run("calibrate", "--db", two_sets.path, "--path-cm", "1", "--json")[1])["molar_absorptivity"]
@@ -238,7 +241,8 @@ def test_units_that_do_not_convert_give_no_molar_absorptivity(tmp_path):
     assert code == 0, out
     assert "molar absorptivity not given: the unit mg/L does not convert to mol/L" in out
     code, out = _run("calibrate", p, "--unit", "mM", "--path-cm", "1", "--reading", "0.3")
-    assert code == 0 and "L mol^-1 cm^-1 (standards in mM)" in out and "mM ± " in out, out
+    # every concentration with its unit, rounded by its uncertainty (render.numbers)
+    assert code == 0 and "L mol^-1 cm^-1 (standards in mM)" in out and re.search(r"\d ± [\d.]+ mM", out), out
 
 
 def test_linear_range_line_says_what_it_tests_for_each_model(tmp_path):
@@ -259,12 +263,12 @@ def test_unit_and_set_travel_in_the_standard_label():
 def test_rise_law_on_a_stored_run(tmp_path):
     # invented product-formation run (A rises to a final value); fitted with A0 free from the grid start
     db = make_db(tmp_path / "rise.db", curve=lambda i: 0.05 + 0.5 * -math.expm1(-0.05 * i))
-    code, out = _run("rate", "--db", db, "--model", "first_order_rise", "--json")
+    code, out = _run("rate", "--db", db, "--model", "first_order_rise_to_final", "--json")
     assert code == 0, out
-    fit = json.loads(out)["fits"]["first_order_rise"]
+    fit = json.loads(out)["detail"]["first_order_rise_to_final"]
     assert fit["values"]["k"] == pytest.approx(0.025, rel=0.02)  # 0.05 per sample, a sample every 2 s
     assert fit["extra"]["A_final"] == pytest.approx(0.55, abs=0.01)
-    code, out = _run("rate", "--db", db, "--model", "first_order_rise", "--a0", "0")
+    code, out = _run("rate", "--db", db, "--model", "first_order_rise_to_final", "--a0", "0")
     assert code == 2 and "export the run" in out
 
 

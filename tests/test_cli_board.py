@@ -100,7 +100,7 @@ def test_setting_ranges_agree_with_the_schema():
 
 def test_marks_print_counts_and_json(sim):
     r = _run(sim, "dark", "--label", "lid on")
-    assert r.exit_code == 0 and "dark 'lid on' journaled as 1:" in r.output and "counts per read" in r.output
+    assert r.exit_code == 0 and "dark 'lid on' recorded on the board" in r.output and "counts per read" in r.output
     r = _run(sim, "blank", "--json")
     assert r.exit_code == 0, r.output
     data = json.loads(r.output)
@@ -108,7 +108,7 @@ def test_marks_print_counts_and_json(sim):
     # the simulated LED gives 3000 counts above a dark of 60 per read (simulate.DEFAULT_OPTICS)
     assert data["light"][0] / data["reads"] - data["dark"][0] / data["reads"] == pytest.approx(3000, rel=0.02)
     r = _run(sim, "opaque", "--label", "black card")
-    assert r.exit_code == 0 and "opaque 'black card' journaled" in r.output
+    assert r.exit_code == 0 and "opaque 'black card' recorded" in r.output
     r = _run(sim, "standard", "1e-3", "--label", "std A")
     assert r.exit_code == 0 and "standard 1e-3 'std A'" in r.output
 
@@ -134,13 +134,13 @@ def test_start_stop_note_clock_and_their_refusals(sim):
     r = _run(sim, "stop")
     assert r.exit_code == 2 and "is not logging a run: nothing to stop" in r.output
     r = _run(sim, "clock")
-    assert r.exit_code == 0 and "clock anchor" in r.output
+    assert r.exit_code == 0 and "clock set from this computer's time" in r.output
     r = _run(sim, "start", "--label", "run A")
-    assert r.exit_code == 0 and "started 'run A'" in r.output
+    assert r.exit_code == 0 and "run 'run A' started" in r.output
     r = _run(sim, "start")
     assert r.exit_code == 2 and "already logging a run: stop it first" in r.output
     r = _run(sim, "note", "added base")
-    assert r.exit_code == 0 and "note journaled" in r.output
+    assert r.exit_code == 0 and "note recorded on the board" in r.output
     r = _run(sim, "stop", "--json")
     assert r.exit_code == 0 and json.loads(r.output)["device"] == "5eb0000000000002"
     assert _hello(sim)["running"] is False
@@ -203,7 +203,7 @@ def test_start_for_checks_the_journal_room_and_hello_tells_time_until_full(sim):
     info = _hello(sim)
     assert 2.0 <= info["bytes_per_sample"] <= 6.0
     r = _run(sim, "hello")
-    assert r.exit_code == 0 and "journal full in: " in r.output
+    assert r.exit_code == 0 and "storage full in: " in r.output
     assert _run(sim, "stop").exit_code == 0
     r = _run(sim, "start", "--for", "1h", "--json")  # fits: started, with the room it has
     assert r.exit_code == 0, r.output

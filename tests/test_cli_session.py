@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import sys
 import time
 from dataclasses import dataclass
@@ -20,7 +21,7 @@ import pytest
 from click.testing import CliRunner
 
 from nightcell.cli import cli
-from nightcell.sim.board import SimulatedBoard
+from nightcell.sim.board import SimulatedBoard, folder_device_id
 
 # The session's invented cuvette (ours, used nowhere else): absorbance per µM, standards, and a first-order fading.
 EPSILON_PER_UM = 0.075
@@ -47,8 +48,9 @@ def run_session(workdir: Path, *, interval_s: float = 0.5, run_s: float = 8.0, w
                 watch_every: float = 1.0,
                 label: str = "dye fading", db_name: str = "bench.db") -> tuple[list[Step], SimulatedBoard]:
     """Run the session in ``workdir`` against a fresh simulated board (real time: speed 1); returns every step."""
-    sim = SimulatedBoard(workdir / "board", device="5e55000000000001", speed=1.0, seed=11,
-                         settings={"board": "sim"})
+    # the board's id is the one its folder keeps, as `nightcell sim-board --dir board` would use
+    device = folder_device_id(workdir / "board", create=True)
+    sim = SimulatedBoard(workdir / "board", device=device, speed=1.0, seed=11, settings={"board": "sim"})
     sim.start()
     env = {"NIGHTCELL_PORT": sim.url, "COLUMNS": "100"}
     runner = CliRunner()
@@ -71,14 +73,15 @@ def run_session(workdir: Path, *, interval_s: float = 0.5, run_s: float = 8.0, w
             time.sleep(0.1)
         run("setup", "--interval", f"{interval_s:g}", "--warmup", "1", "--durability", "1", "--label", "bench 3")
         run("clock")
+        # the cuvette is filled as a reader of the README fills it: with `nightcell sim-cuvette`
+        run("sim-cuvette", "--dir", "board", "--blocked")
         run("dark", "--label", "lid on, LED off")
-        sim.set_cell({"absorbance": 0.0})
+        run("sim-cuvette", "--dir", "board", "--absorbance", "0")
         run("blank", "--label", "alkaline water")
         for c in STANDARDS_UM:
-            sim.set_cell({"absorbance": EPSILON_PER_UM * c})
+            run("sim-cuvette", "--dir", "board", "--absorbance", f"{EPSILON_PER_UM * c:g}")
             run("standard", f"{c:g}", "--label", f"dye {c:g} µM")
-        sim.set_cell({"reaction": {"a0": EPSILON_PER_UM * START_UM, "a_inf": A_INF, "k_per_s": K_PER_S,
-                                   "since_unix": time.time()}})
+        run("sim-cuvette", "--dir", "board", "--fading", f"{EPSILON_PER_UM * START_UM:g}:{A_INF:g}:{K_PER_S:g}")
         run("start", "--label", label)
         time.sleep(2.0)
         run("watch", "--every", f"{watch_every:g}", "--polls", str(watch_polls))
@@ -115,23 +118,28 @@ def test_every_step_succeeds(session):
 
 
 def test_board_steps_say_what_they_did(session):
-    _, by, _ = session
+    workdir, by, _ = session
+    sim_device = folder_device_id(workdir / "board", create=False)
     assert "interval_ms = 500" in by["setup"].output and "label = \"bench 3\"" in by["setup"].output
-    assert "clock anchor" in by["clock"].output and "UTC" in by["clock"].output
-    assert "dark 'lid on, LED off' journaled as 1:" in by["dark"].output
-    assert "blank 'alkaline water' journaled" in by["blank"].output
-    assert "standard 10 'dye 10 µM' journaled" in by["standard"].output
-    assert "run 5e55000000000001:1:" in by["start"].output and "started 'dye fading'" in by["start"].output
-    assert "note journaled" in by["note"].output
+    assert "clock set from this computer's time" in by["clock"].output
+    assert re.search(r"\d\d:\d\d:\d\d [A-Z][A-Za-z0-9:+-]*", by["clock"].output)  # local time, zone named
+    assert "bench 3: dark 'lid on, LED off' recorded on the board" in by["dark"].output
+    assert "blank 'alkaline water' recorded" in by["blank"].output
+    assert "standard 10 'dye 10 µM' recorded" in by["standard"].output
+    assert "bench 3: run 'dye fading' started" in by["start"].output
+    assert "note recorded" in by["note"].output
     assert "run stopped" in by["stop"].output
-    assert "new rows" in by["sync"].output
+    assert "new readings and marks stored" in by["sync"].output
+    # the board by its label; its id and the journal's record keys are for --json and the detail
+    for step in ("clock", "dark", "blank", "start", "note", "stop", "sync"):
+        assert "5e55000000000001" not in by[step].output and "journal" not in by[step].output, step
 
 
 def test_watch_shows_absorbance_against_the_boards_blank_and_the_journal(session):
     _, by, _ = session
     out = by["watch"].output
-    assert "blank 1:" in out and "'alkaline water' (from the board)" in out
-    assert "logging a run" in out and "journal" in out and "% used" in out
+    assert "blank 'alkaline water' (from the board)" in out
+    assert "logging a run" in out and "storage" in out and "% used" in out
     assert "the board goes on logging" in out
     # the cuvette held the fading dye: absorbance near a0 = 0.675 at the start (invented session value)
     row = next(line for line in out.splitlines() if line.strip().startswith("0 "))
@@ -158,9 +166,11 @@ def test_calibration_recovers_the_invented_absorptivity(session):
 def test_rate_recovers_the_invented_fading_rate(session):
     _, by, _ = session
     out = by["rate"].output
-    assert "best rate law by AICc:" in out
-    k_line = next(line for line in out.splitlines() if line.strip().startswith("k "))
-    k, se = float(k_line.split()[1]), float(k_line.split()[3])
+    # the answer first: k with its unit, then how well the law fits, the parameters, the laws ranked
+    assert out.index("answer:") < out.index("how well it fits") < out.index("parameters") < out.index("laws ranked")
+    k_line = next(line for line in out.splitlines() if line.strip().startswith("k = "))
+    k, se = float(k_line.split()[2]), float(k_line.split()[4])
+    assert k_line.split()[5] == "s⁻¹"
     # times come from the host's clock anchors (clock and sync); the board runs in real time here
     assert abs(k - K_PER_S) < 4 * se
 
@@ -169,10 +179,11 @@ def test_report_and_export_write_their_files(session):
     workdir, by, _ = session
     reports = workdir / "reports"
     html = sorted(reports.glob("*.html"))
-    assert len(html) == 1 and html[0].name.startswith("dye_fading-5e55000000000001-1-")
+    assert len(html) == 1 and html[0].name.startswith("dye_fading-")
     assert len(list(reports.glob("*.png"))) == 2 and len(list(reports.glob("*.svg"))) == 2
     page = html[0].read_text(encoding="utf-8")
-    assert "data:image/png;base64," in page and "Rate laws compared" in page
+    assert "data:image/png;base64," in page and "Rate laws ranked" in page
+    assert "stirred once" in page  # the note taken during the run is on its page
     csv = workdir / "csv"
     names = sorted(p.name for p in csv.iterdir())
     assert "marks.csv" in names

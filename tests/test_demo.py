@@ -225,3 +225,40 @@ def test_study_report_command_on_the_demo_database(demo, tmp_path):
     assert r.exit_code == 2 and "REACTANT=MOLAR" in r.output
     r = _cli("report", "--db", db, "--study", "--all", "--out", tmp_path / "x")
     assert r.exit_code == 2 and "one of --run, --all or --study" in r.output
+
+
+def test_demo_tells_what_it_is_doing_during_its_long_steps(demo):
+    _, said, _ = demo
+    text = "\n".join(said)
+    # each bench's unattended runs, then the analysis and the report: no long silence (issue: ~12 s, then ~9 s)
+    for step in ("standards measured", "logging with the host unplugged", "plugged in to sync", "analysing:",
+                 "drawing the report"):
+        assert step in text, step
+    assert text.index("analysing:") < text.index("drawing the report") < text.index("report: ")
+    # every number printed with its unit, rounded by its uncertainty; Ea the one way (render.numbers)
+    assert re.search(r"k = \d\.\d+ ± 0\.0+\d\d s⁻¹", text) and re.search(r"Ea = \d+\.\d+ ± \d\.\d+ kJ mol⁻¹", text)
+
+
+def test_study_page_names_benches_and_calibrations_by_label(demo):
+    outcome, _, _ = demo
+    page = outcome.report.read_text(encoding="utf-8")
+    runs_table = page[page.index("<h2>Runs</h2>"):page.index("</table>", page.index("<h2>Runs</h2>"))]
+    assert "<th>bench</th>" in runs_table and runs_table.count("<td>bench A</td>") == 3
+    assert runs_table.count("<td>bench B</td>") == 3
+    assert "Calibration of bench A" in page and "Calibration of bench B" in page
+    for device in SC.devices:  # hex ids only in the provenance
+        assert device not in page[:page.index("<h2>Provenance</h2>")]
+    # two runs with the same label on two benches are told apart by their links
+    links = re.findall(r"<a href='[^']*'>([^<]*)</a>", page)
+    assert len(links) == len(set(links)) == len(SC.runs)
+    assert "plateau" not in page.lower()
+
+
+def test_report_files_have_the_users_normal_permissions(demo):
+    import os
+
+    outcome, _, _ = demo
+    mask = os.umask(0o022)
+    os.umask(mask)
+    for path in [outcome.report, *outcome.run_reports, *outcome.figures[:4]]:
+        assert path.stat().st_mode & 0o777 == 0o666 & ~mask, path  # not 0600 as a private temporary file is

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import csv
 import json
+import re
 import sqlite3
 import time
 from pathlib import Path
@@ -113,12 +114,12 @@ def test_rate_on_a_run_without_blank_before_it_uses_the_next_blank_with_a_warnin
     assert r.exit_code == 0, r.output
     assert "no blank before" in r.output and "taken after" in r.output
     data = json.loads(_cli("rate", "--db", db, "--run", "before any blank", "--json").output)
-    assert "no blank before the run" in data["blank"]["rule"]
+    assert "no blank before the run" in data["detail"]["readings_from"]["blank"]["rule"]
 
 
 def test_rate_by_key_saves_a_result_naming_its_inputs(db):
     key = _key(db, HOSTILE)
-    r = _cli("rate", "--db", db, "--run", key, "--model", "first_order", "--json")
+    r = _cli("rate", "--db", db, "--run", key, "--model", "first_order_to_zero", "--json")
     assert r.exit_code == 0, r.output
     data = json.loads(r.output)
     row = sqlite3.connect(db).execute("SELECT kind, label, inputs_json FROM results WHERE id = ?",

@@ -17,10 +17,10 @@ ROOT = Path(__file__).resolve().parent.parent
 NOTES = ROOT / "hardware_notes"
 EXPECTED_NOTES = {
     "README.md", "parts.md", "wiring.md", "led_per_analyte.md", "holder.md",
-    "power.md", "linux.md", "check_procedure.md",
+    "power.md", "linux.md", "windows_macos.md", "check_procedure.md",
 }
 # Notes that certainly discuss chemicals, LEDs or batteries; guards the keyword detector below.
-KNOWN_HAZARD_NOTES = EXPECTED_NOTES - {"linux.md"}
+KNOWN_HAZARD_NOTES = EXPECTED_NOTES - {"linux.md", "windows_macos.md"}
 HAZARD_WORDS = re.compile(
     r"\b(hydroxide|acids?|iodine|dyes?|dichromate|copper|reagents?|LEDs?|batter(y|ies)|lithium|power banks?)\b",
     re.IGNORECASE,
@@ -232,3 +232,17 @@ def test_feedback_resistor_worked_value():
     v, c = chosen
     assert 0.70 <= v / 3.3 <= 0.85 and v < 3.0
     assert min(abs(c - bad) for bad in (512, 1536, 2560, 3584)) > 100
+
+
+def test_windows_and_macos_steps_name_the_ports_and_the_socket_sim():
+    text = read("windows_macos.md")
+    for needed in ("Device Manager", "COM3", "NIGHTCELL_PORT", "/dev/cu.", "nightcell boards", "--link socket",
+                   "socket://127.0.0.1:", "CDC"):
+        assert needed in text, needed
+
+
+def test_check_procedure_marks_standards_with_the_commands():
+    text = read("check_procedure.md")
+    for command in ("nightcell dark", "nightcell blank", "nightcell standard", "nightcell opaque"):
+        assert command in text, command
+    assert "button press" not in text and "note the times" not in text

@@ -17,14 +17,14 @@ T = np.arange(0.0, 900.0, 10.0)
 
 
 def _synthetic_plateau(seed, a0=0.95, a_inf=0.12, k=0.006, sd=0.004, t=T):
-    """Synthetic run (invented numbers, fixed seed): exponential approach to a plateau plus Gaussian noise."""
+    """Synthetic run (invented numbers, fixed seed): first-order approach towards a final absorbance plus Gaussian noise."""
     rng = np.random.default_rng(seed)
     return a_inf + (a0 - a_inf) * np.exp(-k * t) + rng.normal(0.0, sd, t.size)
 
 
 def test_plateau_matches_scipy_curve_fit():
     a = _synthetic_plateau(1)
-    fit = kinetics.fit_model(T, a, model="first_order_plateau")
+    fit = kinetics.fit_model(T, a, model="first_order_to_final")
 
     def f(t, a0, a_inf, k):
         return a_inf + (a0 - a_inf) * np.exp(-k * t)
@@ -42,7 +42,7 @@ def test_plateau_recovers_known_k_synthetic(direction):
     a0, a_inf = (0.95, 0.12) if direction == "fading" else (0.05, 0.80)
     for seed in range(5):
         a = _synthetic_plateau(seed, a0=a0, a_inf=a_inf)
-        fit = kinetics.fit_model(T, a, model="first_order_plateau", inputs={"run": f"synthetic-{seed}"})
+        fit = kinetics.fit_model(T, a, model="first_order_to_final", inputs={"run": f"synthetic-{seed}"})
         assert abs(fit.param("k") - 0.006) < 3 * fit.se("k")
         assert abs(fit.param("A_inf") - a_inf) < 3 * fit.se("A_inf")
         hl, hl_se = kinetics.half_life(fit)
@@ -54,7 +54,7 @@ def test_plateau_recovers_known_k_synthetic(direction):
 def test_integrated_laws_recover_known_constants_synthetic():
     rng = np.random.default_rng(7)  # synthetic runs, fixed seed
     noise = rng.normal(0.0, 0.003, T.size)
-    first = kinetics.fit_model(T, 0.9 * np.exp(-0.004 * T) + noise, model="first_order")
+    first = kinetics.fit_model(T, 0.9 * np.exp(-0.004 * T) + noise, model="first_order_to_zero")
     assert abs(first.param("k") - 0.004) < 3 * first.se("k")
     second = kinetics.fit_model(T, 0.9 / (1 + 0.02 * 0.9 * T) + noise, model="second_order")
     assert abs(second.param("k") - 0.02) < 3 * second.se("k")
@@ -63,7 +63,7 @@ def test_integrated_laws_recover_known_constants_synthetic():
     zero = kinetics.fit_model(T, 0.9 - 5e-4 * T + noise, model="zero_order")
     assert abs(zero.param("rate") + 5e-4) < 3 * zero.se("rate")
     # growth towards a known end value with the fixed-offset first-order law
-    growth = kinetics.fit_model(T, 0.7 - 0.6 * np.exp(-0.004 * T) + noise, model="first_order", a_end=0.7)
+    growth = kinetics.fit_model(T, 0.7 - 0.6 * np.exp(-0.004 * T) + noise, model="first_order_to_zero", a_end=0.7)
     assert abs(growth.param("k") - 0.004) < 3 * growth.se("k")
 
 
@@ -71,14 +71,14 @@ def test_fit_all_ranks_the_true_model_first_synthetic():
     rng = np.random.default_rng(8)  # synthetic runs, fixed seed
     noise = rng.normal(0.0, 0.003, T.size)
     plateau = kinetics.fit_all(T, 0.15 + 0.8 * np.exp(-0.005 * T) + noise)
-    assert plateau.ranking[0] == "first_order_plateau"
+    assert plateau.ranking[0] == "first_order_to_final"
     assert plateau.best.extra["runs_test"]["p_value"] > 0.01
     assert plateau.results["zero_order"].extra["runs_test"]["p_value"] < 1e-6  # a line misses the curve
     assert sum(plateau.akaike_weight.values()) == pytest.approx(1.0)
     second = kinetics.fit_all(T, 0.9 / (1 + 0.02 * 0.9 * T) + noise)
-    assert second.ranking.index("second_order") < second.ranking.index("first_order")
+    assert second.ranking.index("second_order") < second.ranking.index("first_order_to_zero")
     d = json.loads(json.dumps(plateau.to_dict(), allow_nan=False))
-    assert d["ranking"][0] == "first_order_plateau"
+    assert d["ranking"][0] == "first_order_to_final"
     assert "ΔAIC" in plateau.report()
 
 
@@ -134,7 +134,7 @@ def test_bad_input_says_what_to_do():
 
 
 def test_rate_constant_interval_coverage_ci_slice():
-    """Synthetic Monte Carlo (fixed seed, 200 runs): nominal 95 % t intervals for k of first_order_plateau.
+    """Synthetic Monte Carlo (fixed seed, 200 runs): nominal 95 % t intervals for k of first_order_to_final.
 
     Counts with Gaussian noise and 12-bit quantisation go through optics. The band 90–99 % is wide on purpose;
     the long campaign is tests/bench/bench_coverage.py.
@@ -147,7 +147,7 @@ def test_rate_constant_interval_coverage_ci_slice():
         light = np.round(100 + 3400 * 10 ** (-true_a) + rng.normal(0, 3.0, t.size))
         res = optics.absorbance(light, np.full(t.size, 100.0), 3500.0, 100.0)
         # count noise is constant, so A is noisier at low light: weight by T² (optics' weights)
-        fit = kinetics.fit_model(t, res.absorbance, model="first_order_plateau", weights=res.weights)
+        fit = kinetics.fit_model(t, res.absorbance, model="first_order_to_final", weights=res.weights)
         lo, hi = fit.confint("k")
         covered += lo <= k_true <= hi
     assert 0.90 <= covered / runs <= 0.99
@@ -169,9 +169,9 @@ def test_every_rate_law_evaluates_its_curve_and_band_like_uncertainties(model):
     names = dict(zip(fit.names, p))
     if model == "zero_order":
         law = names["A0"] + names["rate"] * grid
-    elif model == "first_order_plateau":
+    elif model == "first_order_to_final":
         law = names["A_inf"] + (names["A0"] - names["A_inf"]) * unumpy.exp(-names["k"] * grid)
-    elif model == "first_order":
+    elif model == "first_order_to_zero":
         law = names["A0"] * unumpy.exp(-names["k"] * grid)  # a_end = 0
     else:
         law = names["A0"] / (1.0 + names["k"] * names["A0"] * grid)  # a_end = 0, decreasing signal

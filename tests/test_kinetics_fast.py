@@ -59,9 +59,9 @@ def _laws(a: np.ndarray, a_end: float = 0.0):
         return np.column_stack([e, 1.0 - e, -(a0 - a_inf) * x * e])
 
     return {
-        "first_order": (lambda x, a0, k: a_end + (a0 - a_end) * np.exp(-k * x), first_jac),
+        "first_order_to_zero": (lambda x, a0, k: a_end + (a0 - a_end) * np.exp(-k * x), first_jac),
         "second_order": (lambda x, a0, k: a_end + (a0 - a_end) / (1.0 + k * s * (a0 - a_end) * x), second_jac),
-        "first_order_plateau": (lambda x, a0, a_inf, k: a_inf + (a0 - a_inf) * np.exp(-k * x), plateau_jac),
+        "first_order_to_final": (lambda x, a0, a_inf, k: a_inf + (a0 - a_inf) * np.exp(-k * x), plateau_jac),
     }
 
 
@@ -109,7 +109,7 @@ def test_every_law_matches_scipy(no_reference, kind, weighted):
     comparison = kinetics.fit_all(T, a, weights=w)
     # on a rising curve a law that decays toward a_end = 0 can only fit with k < 0: a failure with its reason
     # (issue 12 §2), never a result
-    allowed = {"first_order", "second_order"} if kind == "growth" else set()
+    allowed = {"first_order_to_zero", "second_order"} if kind == "growth" else set()
     assert set(comparison.failures) <= allowed, comparison.failures
     assert all("is negative" in why for why in comparison.failures.values()), comparison.failures
     for model, f in _laws(a).items():
@@ -129,8 +129,8 @@ def test_a_straight_line_fitted_by_every_law(no_reference):
     # the laws that bend must find their (poor) best on data that do not bend; the plateau law cannot separate
     # A_inf from k there, which the fallback test below covers
     a = _curve("line", seed=2)
-    comparison = kinetics.fit_all(T, a, models=("zero_order", "first_order", "second_order"))
-    for model in ("first_order", "second_order"):
+    comparison = kinetics.fit_all(T, a, models=("zero_order", "first_order_to_zero", "second_order"))
+    for model in ("first_order_to_zero", "second_order"):
         _check_against_scipy(comparison.results[model], _laws(a)[model], T - T[0], a)
     assert comparison.best.model == "zero_order"
 
@@ -153,7 +153,7 @@ def test_a_end_and_masked_points(no_reference):
     comparison = kinetics.fit_all(T, a, mask=mask, a_end=0.05, t_start=10.0, weights=w)
     keep = ~mask & (T >= 10.0)
     t, y = T[keep], a[keep]
-    for model in ("first_order", "second_order"):
+    for model in ("first_order_to_zero", "second_order"):
         fit = comparison.results[model]
         _check_against_scipy(fit, _laws(y, a_end=0.05)[model], t - t[0], y, w[keep])
         assert fit.inputs["a_end"] == 0.05 and fit.n == int(keep.sum())
@@ -165,7 +165,7 @@ def test_fast_path_equals_the_reference_path():
     for kind in ("plateau", "growth", "first", "second"):
         a = _curve(kind, seed=99)
         w = 10.0 ** (-2.0 * a)
-        for model in ("first_order", "second_order", "first_order_plateau"):
+        for model in ("first_order_to_zero", "second_order", "first_order_to_final"):
             # the two paths themselves (below fit_model's check that k is positive, which a growth curve fails
             # for the laws that decay toward a_end = 0)
             fast = kinetics._fit_one(T - T[0], a, model, 0.0, {}, w)
@@ -184,15 +184,15 @@ def test_degenerate_data_still_gets_the_reference_answer():
     # and the reference path decides (a fit, or FitFailed with its message)
     a = 0.9 - 0.0003 * T + np.random.default_rng(5).normal(0.0, 1e-9, T.size)
     m = kinetics._Moments(T, a, None)
-    if kinetics._fast_fit(m, "first_order_plateau", 0.0, {}) is not None:
+    if kinetics._fast_fit(m, "first_order_to_final", 0.0, {}) is not None:
         pytest.skip("the fast path handled this line; nothing to fall back from")
     try:
-        ref = kinetics._fit_reference(T, a, "first_order_plateau", 0.0, {}, None)
+        ref = kinetics._fit_reference(T, a, "first_order_to_final", 0.0, {}, None)
     except FitFailed as exc:
         with pytest.raises(FitFailed, match=str(exc)[:40].replace("(", r"\(").replace(")", r"\)")):
-            kinetics.fit_model(T, a, "first_order_plateau")
+            kinetics.fit_model(T, a, "first_order_to_final")
     else:
-        fit = kinetics.fit_model(T, a, "first_order_plateau")
+        fit = kinetics.fit_model(T, a, "first_order_to_final")
         assert_allclose([fit.param(n) for n in fit.names], [ref.param(n) for n in ref.names], rtol=1e-12)
 
 
@@ -213,7 +213,7 @@ def test_half_life_and_ranking_unchanged_in_shape(no_reference):
     a = _curve("plateau", seed=4)
     comparison = kinetics.fit_all(T, a)
     best = comparison.best
-    assert best.model == "first_order_plateau"
+    assert best.model == "first_order_to_final"
     hl, hl_se = kinetics.half_life(best)
     assert_allclose(hl, math.log(2) / best.param("k"), rtol=1e-12)
     assert_allclose(hl_se, math.log(2) * best.se("k") / best.param("k") ** 2, rtol=1e-12)

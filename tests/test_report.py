@@ -92,9 +92,14 @@ def test_run_report_with_a_hostile_label_is_inert_self_contained_and_complete(st
     page = files.html.read_text(encoding="utf-8")
     _assert_self_contained_and_inert(page)
     assert len(re.findall(r"<img ", page)) == 2  # absorbance with fit and residuals; calibration
-    for needed in ("standard error", "Rate laws compared", "first_order_plateau", "Provenance", "firmware 0.1.0",
-                   "interval_ms", "298.15", "LOD", "blank"):
+    for needed in ("standard error", "Rate laws ranked", "first order, towards a final absorbance", "Provenance",
+                   "firmware 0.1.0", "interval_ms", "298.15", "Limit of detection", "blank", "Glossary"):
         assert needed in page, needed
+    # the fit in the one order (render.fit_layout): the answer first, the runs test only in the detail
+    heads = ["The answer: ", "How well the law fits", "Parameters", "Rate laws ranked", "Detail", "Glossary"]
+    at = [page.index(f"<h2>{h}") for h in heads]
+    assert at == sorted(at)
+    assert page.index("runs-test p") > page.index("<h2>Detail") and "plateau" not in page.lower()
     pngs = sorted(p for p in files.figures if p.suffix == ".png")
     svgs = sorted(p for p in files.figures if p.suffix == ".svg")
     assert len(pngs) == len(svgs) == 2
@@ -204,8 +209,8 @@ def test_plus_minus_rounds_like_the_uncertainties_library(value, se):
 
 
 def test_plus_minus_uses_one_power_of_ten_far_from_one():
-    assert report.plus_minus(1.234e-7, 5.1e-9) == "(1.234 ± 0.051)e-07"
-    assert report.plus_minus(3.989e7, 1.1e6) == "(3.99 ± 0.11)e+07"
+    assert report.plus_minus(1.234e-7, 5.1e-9) == "(1.234 ± 0.051)×10⁻⁷"
+    assert report.plus_minus(3.989e7, 1.1e6) == "(3.99 ± 0.11)×10⁷"
     assert report.plus_minus(float("nan"), 1.0) == "—"
     assert report.plus_minus(2.5, float("nan")) == "2.5"
 
@@ -242,7 +247,7 @@ def test_a_run_of_a_hundred_thousand_readings_draws_small_files_that_say_they_ar
     rng = np.random.default_rng(3)
     t = np.arange(100_000) * 2.0
     a = _plateau(t, 0.8, 0.1, 0.004) + rng.normal(0, 0.003, t.size)
-    fit = kinetics.fit_model(t, a, "first_order_plateau")
+    fit = kinetics.fit_model(t, a, "first_order_to_final")
     assert fit.n == t.size
     fig, ax, rax = report._two_panel()
     report.plot_run(t, a, fit, ax=ax, resid_ax=rax, title="long")

@@ -198,6 +198,51 @@ def test_terminal_tables_show_rich_markup_in_labels_literally(tmp_path):
     assert r.exit_code == 0 and "[bold red]not markup[/]" in r.output
 
 
+# Escape sequences a terminal acts on (ECMA-48: CSI "ESC [", OSC "ESC ]" ended by BEL, C1 CSI 0x9b) and a
+# right-to-left override (Unicode bidi control U+202E) that reorders what follows it.
+TERMINAL_ATTACKS = ["\x1b[2J\x1b[Hcleared", "\x1b[5mblink\x1b[0m", "\x1b]0;owned\x07title", "\x9b31mred",
+                    "ok\rOVERWRITE", "abc\u202etxt.exe"]
+_ACTS_ON = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069]")
+
+
+@pytest.mark.parametrize("label", TERMINAL_ATTACKS)
+def test_labels_reach_the_terminal_inert(tmp_path, label):
+    db = make_db(tmp_path / "t.db", run_label=label, blank_label=label)
+    con = sqlite3.connect(db)
+    con.execute("UPDATE devices SET label = ?", (label,))
+    con.commit()
+    con.close()
+    for args in (["list", "runs"], ["list", "devices"], ["list", "blanks"]):
+        r = CliRunner().invoke(cli, [*args, "--db", str(db)], env={"COLUMNS": "250"})
+        assert r.exit_code == 0, r.output
+        assert not _ACTS_ON.search(r.output), (args, r.output)  # nothing the terminal would act on
+        assert label.split("\x1b")[-1][-3:] in r.output  # the printable part is still shown
+    r = CliRunner().invoke(cli, ["rate", "--db", str(db), "--run", label + "x"])
+    assert r.exit_code == 2 and not _ACTS_ON.search(r.output), r.output
+
+
+@pytest.mark.parametrize("label", TERMINAL_ATTACKS)
+def test_hello_shows_a_boards_label_inert(label, monkeypatch):
+    import json as json_module
+
+    from nightcell.wire import frames
+    from test_bad_input import HELLO, FakePort
+
+    info = dict(HELLO, label=label, board=label)
+
+    def board(line: bytes) -> bytes:
+        return frames.encode_reply(frames.REPLY_OK, int(line.split(b" ")[0]), json_module.dumps(info).encode())
+
+    fake = FakePort(board)
+    try:
+        r = CliRunner().invoke(cli, ["hello", "--port", fake.path])
+    finally:
+        fake.close()
+    assert r.exit_code == 0, r.output
+    assert not _ACTS_ON.search(r.output), r.output
+    assert "\\x" in r.output or "\\u" in r.output  # the label is shown, escaped
+
+
 @settings(max_examples=200, deadline=None)
 @given(st.text(max_size=60), st.text(max_size=60).filter(lambda t: "\n\n" not in t))
 def test_html_pages_escape_any_title_and_text(title, para):

@@ -168,11 +168,11 @@ def test_rate_reads_an_xlsx_with_mm_ss_and_percent_t(tmp_path):
     absorbance = 0.05 + 0.6 * np.exp(-k * times)
     rows = [["time", "%T"]] + [[f"{t // 60}:{t % 60:02d}", 100 * 10 ** (-a)] for t, a in zip(times, absorbance)]
     book = _xlsx(tmp_path / "run.xlsx", {"Sheet1": rows})
-    result = CliRunner().invoke(cli, ["rate", str(book), "--model", "first_order_plateau", "--json"])
+    result = CliRunner().invoke(cli, ["rate", str(book), "--model", "first_order_to_final", "--json"])
     assert result.exit_code == 0, result.output
     import json
 
-    fit = json.loads(result.stdout)
+    fit = json.loads(result.stdout)["detail"]["first_order_to_final"]
     # noiseless data made with k = 0.01 s^-1: the fit gives it back
     assert_allclose(fit["values"]["k"], k, rtol=1e-6)
     assert "times written as mm:ss or h:mm:ss" in result.output

@@ -7,7 +7,7 @@ Goal: coverage between 93.5 % and 96.5 % (binomial SD at 2000 runs ≈ 0.5 %). A
 numbers, fixed seeds).
 
 Campaigns (every interval: value ± t·SE with Student t of the fit's own degrees of freedom):
-- k of first_order_plateau, weighted by optics' weights (T²); the unweighted coverage is reported beside it;
+- k of first_order_to_final, weighted by optics' weights (T²); the unweighted coverage is reported beside it;
   and k of the law ranked best by AICc among every candidate (``fit_all``), as ``rate`` reports it.
 - concentration predicted from a straight-line calibration (6 levels × 2 replicates; unknown read 3 times).
 - Ea from an Arrhenius design (5 temperatures; each k fitted from a simulated run, weighted by its SE), and from
@@ -54,10 +54,10 @@ def coverage_k(runs: int, seed: int = 11) -> list[dict]:
         k = rng.uniform(0.003, 0.012)
         true_a = 0.1 + 0.8 * np.exp(-k * t)
         res = _read(rng, true_a)
-        fit = kinetics.fit_model(t, res.absorbance, "first_order_plateau", mask=res.mask, weights=res.weights)
+        fit = kinetics.fit_model(t, res.absorbance, "first_order_to_final", mask=res.mask, weights=res.weights)
         lo, hi = fit.confint("k")
         hits_w += lo <= k <= hi
-        fit_u = kinetics.fit_model(t, res.absorbance, "first_order_plateau", mask=res.mask)
+        fit_u = kinetics.fit_model(t, res.absorbance, "first_order_to_final", mask=res.mask)
         lo, hi = fit_u.confint("k")
         hits_u += lo <= k <= hi
         best = kinetics.fit_all(t, res.absorbance, mask=res.mask, weights=res.weights).best
@@ -65,12 +65,12 @@ def coverage_k(runs: int, seed: int = 11) -> list[dict]:
         if "k" in best.values:
             lo, hi = best.confint("k")
             hits_aicc += lo <= k <= hi
-    rows = [_row("coverage_k_first_order_plateau_weighted", hits_w, runs),
+    rows = [_row("coverage_k_first_order_to_final_weighted", hits_w, runs),
             _row("coverage_k_best_by_AICc_weighted", hits_aicc, runs),
             {"name": "models chosen by AICc (k campaign)", "value": ", ".join(f"{m}: {c}" for m, c in
                                                                                  sorted(chosen.items())),
              "goal": None, "ok": None}]
-    rows.append({"name": "coverage_k_first_order_plateau_unweighted", "value": hits_u / runs,
+    rows.append({"name": "coverage_k_first_order_to_final_unweighted", "value": hits_u / runs,
                  "goal": "report (A noise is not constant, so unweighted SEs are expected to be off)", "ok": True})
     return rows
 
@@ -100,7 +100,7 @@ def coverage_arrhenius(runs: int, seed: int = 13, temps: tuple[float, ...] = (28
         k_fit, k_se = [], []
         for k in ks:
             res = _read(rng, 0.1 + 0.8 * np.exp(-k * t))
-            fit = kinetics.fit_model(t, res.absorbance, "first_order_plateau", mask=res.mask, weights=res.weights)
+            fit = kinetics.fit_model(t, res.absorbance, "first_order_to_final", mask=res.mask, weights=res.weights)
             k_fit.append(fit.param("k"))
             k_se.append(fit.se("k"))
         arr = study.arrhenius(temps_a, k_fit, k_se)

@@ -16,6 +16,7 @@ import contextlib
 import datetime
 import functools
 import json
+import math
 import sys
 import time
 from pathlib import Path
@@ -26,7 +27,8 @@ import click
 from .. import __version__
 from ..errors import DeviceError, InputError
 from ..wire import settings as _settings
-from .options import EXIT_CODES, accept_suspect_option, db_option, friendly, json_option, open_reading, open_writing, port_option
+from .options import (EXIT_CODES, FINITE, Finite, accept_suspect_option, db_option, friendly, inert, json_option,
+                      link_settings, open_reading, open_writing, port_option)
 from .options import emit as _emit
 
 __all__ = ["main", "cli", "friendly", "db_option", "port_option", "json_option", "accept_suspect_option", "EXIT_CODES", "open_reading",
@@ -39,14 +41,25 @@ def _connected(port: str) -> Iterator[tuple[Any, dict[str, Any]]]:
     """The board on ``port`` and its ``hello``: a clear error at once when nothing there speaks nightcell."""
     from ..wire.link import Board
 
-    with Board.open(port) as board:
+    with Board.open(port, **link_settings()) as board:
         yield board, board.hello()
 
 
-def _utc(unix_s: float | None) -> str:
-    if unix_s is None:
-        return ""
-    return datetime.datetime.fromtimestamp(unix_s, datetime.timezone.utc).strftime("%Y-%m-%d %H:%M:%S UTC")
+def _utc(unix_s: float | None, seconds: bool = True) -> str:
+    """A stored moment as a person reads it: local time with its zone named (stored in UTC)."""
+    from ..render.numbers import local_time
+
+    return local_time(unix_s, seconds=seconds)
+
+
+def _device_label(db: Path, device: str) -> str:
+    with open_reading(db) as store:
+        return _labels(store).get(device, device)
+
+
+def _labels(store: Any) -> dict[str, str]:
+    """Device id → its label ("bench A"), or the id where it has none."""
+    return {d["device"]: d["label"] or d["device"] for d in store.devices()}
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"], "max_content_width": 100})
@@ -105,30 +118,52 @@ def _sim_folder(path: Path) -> Path:
 @cli.command("sim-board")
 @click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
               show_default=True, help="Folder for the board's flash image and cuvette file (kept between runs).")
-@click.option("--speed", type=click.FloatRange(min=1.0, max=1000.0), default=1.0, show_default=True,
+@click.option("--speed", type=Finite(1.0, 1000.0), default=1.0, show_default=True,
               help="How many times faster than real time the board's clock runs.")
-@click.option("--seconds", type=click.FloatRange(min=0.1), default=None,
+@click.option("--seconds", type=Finite(0.1, unit="s"), default=None,
               help="Stop by itself after this many real seconds (default: run until Ctrl-C).")
 @click.option("--interpreter", type=click.Choice(["auto", "micropython", "cpython"]), default="auto",
               show_default=True, help="Run the firmware in MicroPython's unix port or in CPython.")
+@click.option("--link", type=click.Choice(["auto", "pty", "socket"]), default="auto", show_default=True,
+              help="How the host reaches it: a pseudo-terminal (Linux, macOS) or a local TCP port as a "
+                   "socket:// URL (any system; 'auto' takes the pty where there is one).")
+@click.option("--tcp-port", type=click.IntRange(0, 65535), default=None,
+              help="The TCP port for --link socket (default: the one it had last time in --dir, else any free one).")
 @friendly
-def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: str) -> None:
+def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: str, link: str,
+              tcp_port: int | None) -> None:
     """Run the real firmware on a simulated board and print its port, to try every board command without hardware.
 
     Leave it running; in another terminal give its port to the other commands and change its cuvette with
     `nightcell sim-cuvette`. Ctrl-C switches it off (its flash is kept in --dir, so it starts again where it was).
+    `nightcell boards` lists it while it runs.
 
     Example: nightcell sim-board --dir my-sim
     """
     import time
 
-    from ..sim.board import SimulatedBoard, folder_device_id
+    from ..sim.board import SimulatedBoard, announce, folder_device_id, remember_port, remembered_port, withdraw
 
     device = folder_device_id(_sim_folder(folder), create=True)  # its own id, kept in the folder
-    sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter)
-    sim.start()
+    last = remembered_port(folder)
+    wanted = tcp_port if tcp_port is not None else int(last.get("tcp_port") or 0)
+    try:
+        sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter,
+                             link=link, tcp_port=wanted)
+        sim.start()
+    except OSError as exc:
+        if tcp_port is not None or not wanted:
+            raise InputError(f"cannot serve the simulated board on TCP port {wanted} ({exc.strerror or exc}): "
+                             "give another --tcp-port, or 0 for any free one") from None
+        sim = SimulatedBoard(folder, device=device, speed=speed, interpreter=interpreter, link=link)
+        sim.start()  # last time's port is taken now: any free one, and say so below
+    remember_port(sim)
+    announce(sim)
     try:
         click.echo(f"port: {sim.url}")
+        if last.get("url") and last["url"] != sim.url:
+            click.echo(f"the port changed since the last run in {folder} (it was {last['url']}): set NIGHTCELL_PORT "
+                       "again, or find it with `nightcell boards`")
         click.echo(f"simulated board {device} running the firmware in {sim.interpreter}, clock x{speed:g}; "
                    f"its cuvette holds {sim.cell_path.name} in {sim.workdir}")
         click.echo(f"try: NIGHTCELL_PORT={sim.url} nightcell hello   — Ctrl-C switches the board off")
@@ -137,10 +172,12 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
         while end is None or time.monotonic() < end:
             time.sleep(0.2)
             if not sim.alive():
-                raise DeviceError("the simulated board stopped by itself:\n" + sim.stderr_text()[-2000:])
+                tail = sim.stderr_text().strip().splitlines()[-1:] or ["(it wrote nothing)"]
+                raise DeviceError(f"the simulated board stopped by itself: {tail[0]} — see {sim.log_path}")
     except KeyboardInterrupt:
         pass
     finally:
+        withdraw(sim)
         sim.stop()
     click.echo("simulated board switched off (its flash is kept)")
 
@@ -148,7 +185,7 @@ def sim_board(folder: Path, speed: float, seconds: float | None, interpreter: st
 @cli.command("sim-cuvette")
 @click.option("--dir", "folder", type=click.Path(file_okay=False, path_type=Path), default="nightcell-sim",
               show_default=True, help="The folder a running `nightcell sim-board` was given.")
-@click.option("--absorbance", type=float, help="A solution of this absorbance (0 for the blank's solvent).")
+@click.option("--absorbance", type=FINITE, help="A solution of this absorbance (0 for the blank's solvent).")
 @click.option("--fading", metavar="A0:A_END:K",
               help="A reaction: absorbance A0 fading (or growing) to A_END with rate constant K per second.")
 @click.option("--blocked", is_flag=True, help="Block the light path (for `nightcell opaque`).")
@@ -196,20 +233,23 @@ def boards(as_json: bool) -> None:
 
     Example: nightcell boards
     """
+    from ..sim.board import running_boards
     from ..wire.link import candidate_ports
 
-    found = candidate_ports()
-    lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" for p in found] or \
-        ["no candidate boards found: plug one in (see hardware_notes/linux.md for permissions)"]
+    found = candidate_ports() + running_boards()
+    lines = [f"{p['port']}  {p['vid']:04X}:{p['pid']:04X}  {p['kind']}" if p["vid"] else f"{p['port']}  {p['kind']}"
+             for p in found] or \
+        ["no candidate boards found: plug one in (see hardware_notes/linux.md or windows_macos.md)"]
     _emit(found, as_json, "\n".join(lines))
 
 
 @cli.command()
 @port_option
+@click.option("--detail", is_flag=True, help="Also print everything the board answered, as it answered it.")
 @json_option
 @friendly
-def hello(port: str, as_json: bool) -> None:
-    """Ask a board who it is and how full its journal is.
+def hello(port: str, detail: bool, as_json: bool) -> None:
+    """Ask a board who it is and how full its storage is.
 
     Example: nightcell hello --port /dev/ttyACM0
     """
@@ -217,10 +257,19 @@ def hello(port: str, as_json: bool) -> None:
 
     with _connected(port) as (_, info):
         pass
-    text = "\n".join(f"{k}: {v}" for k, v in sorted(info.items()))
+    used = max(0, int(info.get("head", 0)) - int(info.get("tail", 0)))
+    free = int(info.get("free_bytes", 0))
+    who = f"{info['label']} (device {info['device']})" if info.get("label") else f"device {info['device']}"
+    lines = [f"{who}: board {info.get('board', '?')}, firmware {info.get('firmware', '?')}",
+             ("logging a run" if info.get("running") else "not logging a run")
+             + f"; a sample every {int(info.get('interval_ms', 0)) / 1000:g} s when it does",
+             f"storage: {used / 1024:.0f} KiB used, {free / 1024:.0f} KiB free",
+             f"switched on {int(info.get('uptime_ms', 0)) / 1000:.1f} s ago"]
     if info.get("full_in_s") is not None:
-        text += f"\njournal full in: {human_duration(float(info['full_in_s']))} at this interval (board's estimate)"
-    _emit(info, as_json, text)
+        lines.append(f"storage full in: {human_duration(float(info['full_in_s']))} at this interval (board's estimate)")
+    if detail:
+        lines += ["detail:"] + [f"  {k}: {v}" for k, v in sorted(info.items())]
+    _emit(info, as_json, "\n".join(lines))
 
 
 # Host-side checks of the settings `setup` changes, from the one settings table (schema/settings.json).
@@ -277,9 +326,9 @@ def _check_text(what: str, text: str, verb: str, max_bytes: int | None = None) -
 
 @cli.command()
 @port_option
-@click.option("--interval", type=float, metavar="SECONDS", help="Time between samples of a run (0.2 s to 1 day).")
-@click.option("--warmup", type=float, metavar="SECONDS", help="LED on before a run's first sample (0 to 600 s).")
-@click.option("--durability", type=float, metavar="SECONDS",
+@click.option("--interval", type=FINITE, metavar="SECONDS", help="Time between samples of a run (0.2 s to 1 day).")
+@click.option("--warmup", type=FINITE, metavar="SECONDS", help="LED on before a run's first sample (0 to 600 s).")
+@click.option("--durability", type=FINITE, metavar="SECONDS",
               help="Durability window: samples older than this are on flash (0 to 3600 s; shorter wears flash more).")
 @click.option("--label", "device_label", help=f"The board's own label, e.g. 'bench 3' (at most {LABEL_MAX_BYTES} "
                                              "bytes).")
@@ -287,7 +336,7 @@ def _check_text(what: str, text: str, verb: str, max_bytes: int | None = None) -
               help="A light channel: name, LED pin, ADC pin (or sensor channel); repeat for up to 4. Replaces all "
                    "channels; takes effect after the board restarts.")
 @click.option("--reads", type=int, help="ADC reads summed per dark and per light value (1 to 256).")
-@click.option("--path-cm", type=float, help="Optical path length of the cuvette in cm (0.01 to 10).")
+@click.option("--path-cm", type=FINITE, help="Optical path length of the cuvette in cm (0.01 to 10).")
 @json_option
 @friendly
 def setup(port: str, interval: float | None, warmup: float | None, durability: float | None,
@@ -343,8 +392,8 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
             applied[key] = value
             if reply.get("after_reset"):
                 after_reset.append(key)
-    lines = [f"{info['device']}: " + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
-    lines.append(f"journaled on the board; its settings crc is now {reply.get('settings_crc')}")
+    lines = [f"{_who(info)}: " + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
+    lines.append("saved on the board (and recorded with its readings, so every run says how it was taken)")
     if after_reset:
         lines.append(f"{', '.join(after_reset)} take effect when the board restarts (unplug and plug it in)")
     _emit({"device": info["device"], "applied": applied, "after_reset": after_reset,
@@ -356,7 +405,7 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
 @json_option
 @friendly
 def clock(port: str, as_json: bool) -> None:
-    """Journal a clock anchor: the host's time now, so the board's readings can be placed in wall-clock time.
+    """Set the board's clock from this computer's time, so its readings can be placed in local time.
 
     `sync` takes one too; take one before a run that starts while the board is away from its host.
 
@@ -365,17 +414,23 @@ def clock(port: str, as_json: bool) -> None:
     with _connected(port) as (board, info):
         now_ms = int(round(time.time() * 1000))
         reply = board.anchor(now_ms)
-    text = (f"{info['device']}: clock anchor {reply['boot']}:{reply['seq']} — host time {_utc(now_ms / 1000)} at "
-            f"board uptime {reply['uptime_ms'] / 1000:.1f} s")
+    text = (f"{_who(info)}: clock set from this computer's time, {_utc(now_ms / 1000)} "
+            f"(the board had been on for {reply['uptime_ms'] / 1000:.1f} s)")
     _emit(dict(reply, device=info["device"], host_unix_ms=now_ms), as_json, text)
+
+
+def _who(info: dict[str, Any]) -> str:
+    """A board as its class knows it: its label ("bench 3"), or its id when it has none."""
+    return str(info.get("label") or info["device"])
 
 
 def _mark_text(device: str, kind: str, reply: dict[str, Any], label: str) -> str:
     reads = max(1, int(reply.get("reads") or 1))
-    counts = ", ".join(f"channel {c}: light {li / reads:.1f}, dark {d / reads:.1f}"
-                       for c, (li, d) in enumerate(zip(reply.get("light", []), reply.get("dark", []))))
+    pairs = list(zip(reply.get("light", []), reply.get("dark", [])))
+    counts = "; ".join((f"channel {c}: " if len(pairs) > 1 else "") + f"light {li / reads:.1f}, dark {d / reads:.1f}"
+                       for c, (li, d) in enumerate(pairs))
     shown = f" {label!r}" if label else ""
-    return f"{device}: {kind}{shown} journaled as {reply['boot']}:{reply['seq']} — {counts} (counts per read)"
+    return f"{device}: {kind}{shown} recorded on the board — {counts} counts per read"
 
 
 def _blank_check(device: str, reply: dict[str, Any], accept_suspect: bool) -> list[str]:
@@ -405,7 +460,7 @@ def _measure_command(kind: str, doc: str) -> click.Command:
         with _connected(port) as (board, info):
             reply = board.mark(kind, label)
         problems = _blank_check(info["device"], reply, accept_suspect) if kind == "blank" else []
-        text = _mark_text(info["device"], kind, reply, label)
+        text = _mark_text(_who(info), kind, reply, label)
         if problems:
             text += "\nsuspect blank kept as confirmed (--accept-suspect): " + "; ".join(problems)
         _emit(dict(reply, device=info["device"], mark=kind, label=label, suspect=problems), as_json, text)
@@ -417,15 +472,15 @@ def _measure_command(kind: str, doc: str) -> click.Command:
     return cli.command(kind)(command)
 
 
-_measure_command("dark", """Measure with the LED off and journal a dark mark (cover the cell first).
+_measure_command("dark", """Measure with the LED off and record it on the board as the dark (cover the cell first).
 
     Example: nightcell dark --port /dev/ttyACM0 --label "lid on"
     """)
-_measure_command("blank", """Measure the blank (solvent only) and journal a blank mark; absorbance is read against it.
+_measure_command("blank", """Measure the blank (solvent only) and record it on the board; absorbance is read against it.
 
     Example: nightcell blank --port /dev/ttyACM0 --label "buffer pH 7"
     """)
-_measure_command("opaque", """Measure with the light path blocked and journal an opaque mark (gives the stray light).
+_measure_command("opaque", """Measure with the light path blocked and record it on the board (gives the stray light).
 
     Example: nightcell opaque --port /dev/ttyACM0 --label "black card"
     """)
@@ -443,7 +498,7 @@ _measure_command("opaque", """Measure with the light path blocked and journal an
 @json_option
 @friendly
 def standard(port: str, value: str, label: str, unit: str, set_name: str, as_json: bool) -> None:
-    """Measure a standard of known concentration VALUE (as typed) and journal a standard mark.
+    """Measure a standard of known concentration VALUE (as typed) and record it on the board.
 
     Example: nightcell standard --port /dev/ttyACM0 2.0 --unit µM --label "dye"
     """
@@ -451,7 +506,10 @@ def standard(port: str, value: str, label: str, unit: str, set_name: str, as_jso
         number = float(value)
         ok = len(value) <= 32 and all(c in "0123456789.+-eE" for c in value)
     except ValueError:
-        ok = False
+        number, ok = 0.0, False
+    if ok and not (math.isfinite(number) and abs(number) < 1e50):
+        raise InputError(f"the standard's VALUE {value!r} is not a usable concentration: give a finite number of "
+                         "0 or more, e.g. 0.250")
     if not ok:
         raise InputError(f"the standard's VALUE must be a decimal number as typed, e.g. 0.250, not {value!r} "
                          "(give the unit with --unit)")
@@ -467,7 +525,7 @@ def standard(port: str, value: str, label: str, unit: str, set_name: str, as_jso
     with _connected(port) as (board, info):
         reply = board.mark("standard", label, value=value)
     _emit(dict(reply, device=info["device"], mark="standard", value=value, label=label), as_json,
-          _mark_text(info["device"], f"standard {value}", reply, label))
+          _mark_text(_who(info), f"standard {value}", reply, label))
 
 
 @cli.command()
@@ -500,10 +558,10 @@ def start(port: str, label: str, planned: str | None, even_if_short: bool, as_js
             raise InputError(room.message())
         reply = board.start(label)
     run_key = f"{info['device']}:{reply['boot']}:{reply['seq']}"
-    text = (f"{info['device']}: run {run_key} started{' ' + repr(label) if label else ''}, a sample every "
-            f"{int(info.get('interval_ms', 0)) / 1000:g} s; you may unplug the host now")
+    text = (f"{_who(info)}: run{' ' + repr(label) if label else ''} started, a sample every "
+            f"{int(info.get('interval_ms', 0)) / 1000:g} s; you may unplug the computer now")
     if room is not None:
-        text += (f"\nthe journal holds about {human_duration(room.seconds_that_fit)} at this interval"
+        text += (f"\nthe board's storage holds about {human_duration(room.seconds_that_fit)} at this interval"
                  + ("" if room.fits else f": it fills before the planned {human_duration(room.seconds_wanted)}"))
     out = dict(reply, device=info["device"], run=run_key, label=label)
     if room is not None:
@@ -524,7 +582,7 @@ def stop(port: str, as_json: bool) -> None:
         if not info.get("running"):
             raise InputError(f"{info['device']} is not logging a run: nothing to stop")
         reply = board.stop()
-    text = f"{info['device']}: run stopped at {reply['boot']}:{reply['seq']}; sync it with `nightcell sync`"
+    text = f"{_who(info)}: run stopped; copy it to the database with `nightcell sync`"
     _emit(dict(reply, device=info["device"]), as_json, text)
 
 
@@ -534,7 +592,7 @@ def stop(port: str, as_json: bool) -> None:
 @json_option
 @friendly
 def note(port: str, text: str, as_json: bool) -> None:
-    """Journal a note at this moment (what the board's button does), e.g. when a reagent was added.
+    """Record a note on the board at this moment (what the board's button does), e.g. when a reagent was added.
 
     Example: nightcell note --port /dev/ttyACM0 "added 1 mL NaOH"
     """
@@ -544,19 +602,19 @@ def note(port: str, text: str, as_json: bool) -> None:
     with _connected(port) as (board, info):
         reply = board.note(text)
     _emit(dict(reply, device=info["device"], text=text), as_json,
-          f"{info['device']}: note journaled as {reply['boot']}:{reply['seq']}")
+          f"{_who(info)}: note recorded on the board, with the time it was taken")
 
 
 @cli.command()
 @port_option
 @db_option
-@click.option("--every", type=click.FloatRange(min=0.1), default=1.0, show_default=True, metavar="SECONDS",
+@click.option("--every", type=Finite(0.1, unit="s"), default=1.0, show_default=True, metavar="SECONDS",
               help="How often to ask the board.")
 @click.option("--polls", type=click.IntRange(min=1), default=None,
               help="Stop after this many polls (default: until Ctrl-C).")
 @friendly
 def watch(port: str, db: Path, every: float, polls: int | None) -> None:
-    """Live view: counts, absorbance against the latest blank, a trend, journal fill and time until full.
+    """Live view: counts, absorbance against the latest blank, a trend, storage used and time until full.
 
     Only asks the board for its status: Ctrl-C ends the view and the board goes on logging. The blank is the
     newest one on the board, else the newest in --db (if that file exists).
@@ -589,7 +647,7 @@ def watch(port: str, db: Path, every: float, polls: int | None) -> None:
 @json_option
 @friendly
 def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
-    """Pull a board's journal into the database (resumable; running it again adds nothing).
+    """Copy a board's readings into the database (resumable; running it again adds nothing).
 
     Example: nightcell sync --port /dev/ttyACM0 --db class.db
     """
@@ -598,12 +656,12 @@ def sync(port: str, db: Path, no_ack: bool, as_json: bool) -> None:
     from ..store.database import Store
     from ..store.sync import sync_board
 
-    with Board.open(port) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
+    with Board.open(port, **link_settings()) as board, open_writing(db, create=True) as store, sync_progress(not as_json) as update:
         summary = sync_board(board, store, acknowledge=not no_ack,
                              progress=lambda done, total, records: update(port, done, total, records))
     new = sum(summary.new_rows.values())
-    text = (f"{summary.device}: {summary.records} records, {summary.bytes} bytes, {new} new rows "
-            f"in {summary.seconds:.1f} s; journal stored to {summary.end}")
+    text = (f"{_device_label(db, summary.device)}: {new} new readings and marks stored in {db} "
+            f"({summary.records} records, {summary.bytes} bytes, {summary.seconds:.1f} s)")
     for w in summary.warnings:
         text += f"\nwarning: {w}"
     _emit(summary.to_dict(), as_json, text)
@@ -622,6 +680,8 @@ def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) ->
     from rich.table import Table
     from rich.text import Text
 
+    # labels come from boards and users: control characters are written out, never sent to the terminal
+    rows = [[None if v is None else inert(str(v)) for v in row] for row in rows]
     console = Console(highlight=False)
     lines = _box_lines(title, columns, rows, console.width, console.is_terminal)
     if lines is not None:
@@ -629,8 +689,9 @@ def _table(title: str, columns: Sequence[str], rows: Sequence[Sequence[Any]]) ->
         console.file.flush()
         return
     table = Table(title=title, title_justify="left")
-    for c in columns:
-        table.add_column(c, overflow="fold")
+    for i, c in enumerate(columns):
+        # the first column names the row (a number or id that --run, --device take): never folded
+        table.add_column(c, overflow="fold", no_wrap=i == 0)
     for row in rows:
         table.add_row(*[Text("" if v is None else str(v)) for v in row])
     console.print(table)
@@ -711,30 +772,35 @@ def list_devices(store: Any) -> tuple:
         n_runs = len(store.runs(d["device"]))
         n_samples = store.sample_count(d["device"], channel=0)
         data.append(dict(d, runs=n_runs, samples=n_samples))
-    rows = [(d["device"], d["label"] or "", d["board"], d["firmware"], d["runs"], d["samples"],
-             _utc(d["last_seen_unix"])) for d in data]
-    return ("devices", ("device", "label", "board", "firmware", "runs", "samples", "last synced"), rows, data,
+    rows = [(d["label"] or "", d["device"], d["runs"], d["samples"], _utc(d["last_seen_unix"], seconds=False))
+            for d in data]
+    return ("devices", ("label", "device id", "runs", "readings", "last synced"), rows, data,
             "no devices yet: sync a board with `nightcell sync --port PORT --db DB`")
 
 
 @_list_command("runs")
 def list_runs(store: Any) -> tuple:
-    """Runs in the database: key (what --run takes), label, start time, samples, open or stopped.
+    """Runs in the database: number and label (either is what --run takes, as is the key in --json), bench, start
+    time, readings, open or stopped.
 
     Example: nightcell list runs --db class.db
     """
     starts = store.mark_times("run_start")
+    labels = _labels(store)
     data = []
     runs = store.runs()
-    for run, samples in zip(runs, store.run_sample_counts(runs)):
+    for number, (run, samples) in enumerate(zip(runs, store.run_sample_counts(runs)), start=1):
         d = run.to_dict()
+        d["number"] = number
+        d["bench"] = labels.get(run.device, run.device)
         d["samples"] = samples
         d["started_utc"] = starts.get((run.device, run.start_boot, run.start_seq), "")
         d["state"] = "stopped" if run.stop_seq is not None else "open (still logging, or not synced to its stop)"
         data.append(d)
-    rows = [(d["key"], d["label"], d["started_utc"], d["samples"], "stopped" if d["stop_seq"] is not None else "open")
-            for d in data]
-    return ("runs", ("run", "label", "started (UTC)", "samples", "state"), rows, data,
+    rows = [(f"#{d['number']}", d["label"], d["bench"], _utc(d["started_utc"] or None, seconds=False), d["samples"],
+             "stopped" if d["stop_seq"] is not None else "open") for d in data]
+    return ("runs (--run takes the number, e.g. --run 1, or the label)",
+            ("#", "run", "bench", "started", "readings", "state"), rows, data,
             "no runs yet: start one with `nightcell start`, then `nightcell sync`")
 
 
@@ -745,17 +811,19 @@ def list_blanks(store: Any) -> tuple:
     Example: nightcell list blanks --db class.db
     """
     times = store.mark_times("blank")
+    labels = _labels(store)
     data = []
     for m in store.marks(mark="blank"):
         reads = max(1, m["reads"])
-        data.append({"device": m["device"], "blank": f"{m['boot']}:{m['seq']}", "label": m["label"],
+        data.append({"device": m["device"], "bench": labels.get(m["device"], m["device"]),
+                     "blank": f"{m['boot']}:{m['seq']}", "label": m["label"],
                      "taken_utc": times.get((m["device"], m["boot"], m["seq"]), ""),
                      "light_per_read": [v / reads for v in m["light"]],
                      "dark_per_read": [v / reads for v in m["dark"]]})
-    rows = [(d["device"], d["blank"], d["label"], d["taken_utc"],
+    rows = [(d["bench"], d["label"], _utc(d["taken_utc"] or None, seconds=False),
              " ".join(f"{v:.1f}" for v in d["light_per_read"]), " ".join(f"{v:.1f}" for v in d["dark_per_read"]))
             for d in data]
-    return ("blanks", ("device", "blank", "label", "taken (UTC)", "light/read", "dark/read"), rows, data,
+    return ("blanks (counts per read)", ("bench", "label", "taken", "light", "dark"), rows, data,
             "no blanks yet: take one with `nightcell blank`, then `nightcell sync`")
 
 
@@ -765,15 +833,18 @@ def list_calibrations(store: Any) -> tuple:
 
     Example: nightcell list calibrations --db class.db
     """
+    from ..render.numbers import measured
+
     data = store.results("calibration")
+    labels = _labels(store)
     rows = []
     for r in data:
         res = r["result"]
         slope, se = res.get("values", {}).get("slope"), res.get("stderr", {}).get("slope")
-        rows.append((r["id"], r["label"], r["inputs"].get("device", ""), res.get("model", ""), res.get("n", ""),
-                     "" if slope is None else f"{slope:.6g} ± {se:.2g}" if se is not None else f"{slope:.6g}",
-                     _utc(r["created_unix"])))
-    return ("calibrations", ("id", "label", "device", "model", "standards", "slope ± SE", "saved"), rows, data,
+        device = r["inputs"].get("device", "")
+        rows.append((r["id"], r["label"], labels.get(device, device), res.get("model", ""), res.get("n", ""),
+                     measured(slope, se), _utc(r["created_unix"], seconds=False)))
+    return ("calibrations", ("id", "label", "bench", "curve", "standards", "slope ± SE", "saved"), rows, data,
             "no calibrations saved yet: fit one with `nightcell calibrate --db DB --device DEVICE`")
 
 
@@ -784,9 +855,16 @@ def list_results(store: Any) -> tuple:
     Example: nightcell list results --db class.db
     """
     data = store.results()
-    rows = [(r["id"], r["kind"], r["label"], r["inputs"].get("run") or r["inputs"].get("device") or "",
-             r["nightcell_version"], _utc(r["created_unix"])) for r in data]
-    return ("results", ("id", "kind", "label", "input", "version", "saved"), rows, data,
+    labels = _labels(store)
+    runs = {run.key: run.label or run.key for run in store.runs()}
+    rows = []
+    for r in data:
+        ins = r["inputs"]
+        source = (runs.get(ins.get("run"), ins.get("run")) if ins.get("run") else
+                  labels.get(ins.get("device", ""), ins.get("device", "")) if ins.get("device") else
+                  ins.get("file", ""))
+        rows.append((r["id"], r["kind"], r["label"], source, _utc(r["created_unix"], seconds=False)))
+    return ("results", ("id", "kind", "label", "from", "saved"), rows, data,
             "no results saved yet: run `nightcell calibrate --db DB` or `nightcell rate --db DB`")
 
 
@@ -799,7 +877,9 @@ def list_conditions(store: Any) -> tuple:
     from ..tasks.analyse import run_conditions
 
     conds = run_conditions(store)
-    rows = [(key, q, f"{v['value']:g}", v["source"]) for key, qs in conds.items() for q, v in sorted(qs.items())]
+    runs = {run.key: run.label or run.key for run in store.runs()}
+    rows = [(runs.get(key, key), q, f"{v['value']:g}", v["source"]) for key, qs in conds.items()
+            for q, v in sorted(qs.items())]
     return ("run conditions", ("run", "quantity", "value", "source"), rows, conds,
             "no conditions recorded yet: record them with `nightcell condition`")
 
@@ -809,16 +889,22 @@ def _concentration(text: str) -> tuple[str, float]:
     if not sep or not name.strip() or not value.strip():
         raise InputError(f"--conc {text!r}: write REACTANT=MOLAR, e.g. --conc hydroxide=0.02")
     try:
-        return f"conc_{name.strip().lower()}_M", float(value)
+        molar = float(value)
     except ValueError:
         raise InputError(f"--conc {text!r}: {value!r} is not a number of mol/L") from None
+    if not (math.isfinite(molar) and 0.0 <= molar < 1e3):
+        raise InputError(f"--conc {text!r}: give a finite concentration from 0 to 1000 mol/L")
+    return f"conc_{name.strip().lower()}_M", molar
 
 
 @cli.command()
 @db_option
-@click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
-@click.option("--temperature-c", "temperature_c", type=float, help="The run's temperature in °C.")
-@click.option("--temperature-k", "temperature_k", type=float, help="The run's temperature in kelvin.")
+@click.option("--run", "run_text", metavar="RUN",
+              help="The run (its number in `list runs`, or its label); default: the only run.")
+@click.option("--temperature-c", "temperature_c", type=Finite(-273.15, 1000.0, unit="°C"),
+              help="The run's temperature in °C.")
+@click.option("--temperature-k", "temperature_k", type=Finite(0.0, 1300.0, unit="K", open_ends=False),
+              help="The run's temperature in kelvin.")
 @click.option("--conc", "concentrations", multiple=True, metavar="REACTANT=MOLAR",
               help="A starting concentration in mol/L, e.g. hydroxide=0.02 (repeat for each reactant).")
 @click.option("--source", default="typed in by the user", show_default=True,
@@ -857,7 +943,8 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 
 @cli.command()
 @db_option
-@click.option("--run", "run_text", metavar="KEY", help="The run (key or label); default: the only run.")
+@click.option("--run", "run_text", metavar="RUN",
+              help="The run (its number in `list runs`, or its label); default: the only run.")
 @click.option("--all", "all_runs", is_flag=True, help="One report per run in the database.")
 @click.option("--study", "study", is_flag=True,
               help="A study page over every run with recorded conditions (orders, Arrhenius, Eyring), linking "
@@ -865,7 +952,7 @@ def condition(db: Path, run_text: str | None, temperature_c: float | None, tempe
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the HTML pages and figures.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")
-@click.option("--level", type=float, default=0.95, show_default=True,
+@click.option("--level", type=Finite(0.0, 1.0, open_ends=True), default=0.95, show_default=True,
               help="Confidence level of the calibration's intervals and prediction band.")
 @click.option("--blank", "blank", metavar="KEY|LABEL", default=None,
               help="With --run: read the run against this blank (its key boot:seq or its label) instead of the "
@@ -917,7 +1004,8 @@ def report(db: Path, run_text: str | None, all_runs: bool, study: bool, out: Pat
 
 @cli.command()
 @db_option
-@click.option("--run", "run_text", metavar="KEY", help="Only this run (key or label); default: every run.")
+@click.option("--run", "run_text", metavar="RUN",
+              help="Only this run (its number in `list runs`, or its label); default: every run.")
 @click.option("--out", type=click.Path(file_okay=False, path_type=Path), required=True,
               help="Folder for the CSV files.")
 @click.option("--channel", type=click.IntRange(min=0), default=0, show_default=True, help="Light channel.")

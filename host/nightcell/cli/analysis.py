@@ -35,8 +35,10 @@ from typing import TYPE_CHECKING, Any, Callable, Sequence
 import click
 
 from ..errors import InputError
+from ..science import laws as _laws
 from ..science.laws import ALL_MODELS, MODELS
-from .options import accept_suspect_option, friendly, json_option, open_writing
+from .options import (FINITE, Finite, accept_suspect_option, db_from_environment, friendly, inert, json_option,
+                      open_writing, source_db_option)
 
 if TYPE_CHECKING:
     import numpy as np
@@ -46,7 +48,7 @@ __all__ = ["arrhenius_command", "calibrate_command", "orders_command", "rate_com
 
 def read_columns(
     path: Path, required: Sequence[str], optional: Sequence[str] = (), *, prefix: str | None = None, min_rows: int = 1,
-    text: Sequence[str] = (), say: Callable[[str], None] | None = None,
+    text: Sequence[str] = (), say: Callable[[str], None] | None = None, check_range: bool = False,
 ) -> dict[str, np.ndarray]:
     """Numeric columns of a CSV or spreadsheet by header name (``tasks.tables.read_table`` with the dialect options
     of the command being run); what was detected or converted is said through ``say`` (to stderr by default)."""
@@ -57,8 +59,34 @@ def read_columns(
     table = read_table(path, required, optional, prefix=prefix, min_rows=min_rows, text=text,
                        delimiter=params.get("delimiter"), decimal=params.get("decimal"), sheet=params.get("sheet"))
     if table.notes:
-        (say or (lambda line: click.echo(line, err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+        (say or (lambda line: click.echo(inert(line), err=True)))(f"read {Path(path).name}: {'; '.join(table.notes)}")
+    if check_range:
+        _plausible(table)
     return table.columns
+
+
+def _read_checked(path: Path, *args: Any, **kwargs: Any) -> dict[str, np.ndarray]:
+    """``read_columns`` as the commands read: values beyond any plausible size refused by row."""
+    return read_columns(path, *args, check_range=True, **kwargs)
+
+
+# Beyond these no reading of a colorimeter or rate constant lies, and the fits' arithmetic would overflow.
+_LIMITS = {"absorbance": 1000.0, "k": 1e50, "k_se": 1e50, "initial_rate": 1e50, "rate_se": 1e50, "weight": 1e50,
+           "concentration": 1e50, "time_s": 1e12, "temperature_K": 1e5}
+
+
+def _plausible(table: Any) -> None:
+    import numpy as np
+
+    for name, values in table.columns.items():
+        limit = _LIMITS.get(name, 1e50 if name.startswith("conc_") else None)
+        if limit is None or values.dtype == object or values.size == 0:
+            continue
+        big = np.flatnonzero(np.abs(values) > limit)
+        if big.size:
+            i = int(big[0])
+            raise InputError(f"{table.path} line {table.line(i)}, column {name}: {values[i]:g} is beyond any plausible value "
+                             f"(at most {limit:g} in size): fix or delete that row")
 
 
 def _table_options(fn: Callable[..., Any]) -> Callable[..., Any]:
@@ -89,9 +117,10 @@ def _absorbance_columns(path: Path, first: str, optional: Sequence[str], *, min_
     import numpy as np
 
     notes: list[str] = []
-    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append)
+    cols = read_columns(path, [first, "absorbance"], optional, min_rows=min_rows, say=notes.append,
+                        check_range=True)
     for line in notes:
-        click.echo(line, err=True)
+        click.echo(inert(line), err=True)
     if any("percent transmittance" in line for line in notes):
         return cols, "converted from percent transmittance: A = 2 − log10(%T)"
     a = cols["absorbance"]
@@ -116,11 +145,7 @@ def _out_option(fn: Callable[..., Any]) -> Callable[..., Any]:
     )(fn)
 
 
-def _db_option(fn: Callable[..., Any]) -> Callable[..., Any]:
-    # the shared --db, without a default here: giving it is what switches a command from CSV to the database
-    return click.option("--db", "db", type=click.Path(dir_okay=False, path_type=Path), default=None,
-                        help="The SQLite database file: analyse stored readings instead of a CSV file, and save "
-                             "the result there.")(fn)
+_db_option = source_db_option  # the shared --db and NIGHTCELL_DB, without a default (it switches CSV → database)
 
 
 def _channel_option(fn: Callable[..., Any]) -> Callable[..., Any]:
@@ -131,12 +156,30 @@ def _channel_option(fn: Callable[..., Any]) -> Callable[..., Any]:
 _csv_argument = click.argument("csv_file", required=False, type=click.Path(path_type=Path))
 
 
-def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: str) -> None:
-    """Exactly the inputs a command needs: a CSV file, or --db (with a run plan CSV where ``csv_with_db``)."""
+def _mode(csv_file: Path | None, db: Path | None, *, csv_with_db: bool, what: str) -> Path | None:
+    """Exactly the inputs a command needs: a CSV file, or --db (with a run plan CSV where ``csv_with_db``).
+
+    Returns the database to use, or None for the CSV file alone: a CSV file typed on the command line wins over a
+    database that only came from ``NIGHTCELL_DB`` (for orders and arrhenius, unless the CSV names runs).
+    """
     if db is None and csv_file is None:
         raise InputError(f"give a CSV file ({what}) or --db DATABASE")
+    if db is not None and csv_file is not None and db_from_environment():
+        if not csv_with_db or "run" not in _header(csv_file):
+            return None
     if db is not None and csv_file is not None and not csv_with_db:
         raise InputError("give a CSV file or --db, not both")
+    return db
+
+
+def _header(path: Path) -> list[str]:
+    import csv
+
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as fh:
+            return [h.strip() for h in next(csv.reader(fh), [])]
+    except (OSError, UnicodeDecodeError, csv.Error):
+        return []
 
 
 def _open(db: Path) -> Any:
@@ -144,20 +187,21 @@ def _open(db: Path) -> Any:
     return open_writing(db)
 
 
-def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None) -> None:
+def _finish(data: dict[str, Any], text: str, as_json: bool, out: Path | None, *, sort_keys: bool = True) -> None:
     from ..render.report import write_atomic
 
-    payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
+    # a fit result keeps its reading order (answer, fit, parameters, ranking, detail); other results sort their keys
+    payload = json.dumps(data, indent=1, sort_keys=sort_keys, allow_nan=False)
     if out is not None:
         try:
             write_atomic(out, (payload + "\n").encode("utf-8"))  # never half a file
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
-    click.echo(payload if as_json else text)
+    click.echo(payload if as_json else inert(text))
 
 
 def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str, Any], data: dict[str, Any],
-                  text: str, as_json: bool, out: Path | None) -> None:
+                  text: str, as_json: bool, out: Path | None, *, sort_keys: bool = True) -> None:
     """Save a result and write ``--out`` as one step: the file is written inside the transaction that saves the
     result, so a file that cannot be written leaves the database as it was (and a refused commit, no file)."""
     from ..render.report import write_atomic
@@ -166,34 +210,64 @@ def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str,
         saved = store.save_result(kind, label, inputs, data)
         data = dict(data, result_id=saved)
         text += f"\nsaved in {db} as result {saved}"
-        payload = json.dumps(data, indent=1, sort_keys=True, allow_nan=False)
+        payload = json.dumps(data, indent=1, sort_keys=sort_keys, allow_nan=False)
         try:
             if out is not None:
                 write_atomic(out, (payload + "\n").encode("utf-8"))
         except OSError as exc:
             raise InputError(f"cannot write {out}: {exc}") from None
-    click.echo(payload if as_json else text)
+    click.echo(payload if as_json else inert(text))
 
 
-def _only_device(store: Any, device: str | None) -> str:
-    devices = [d["device"] for d in store.devices()]
+def _only_device(store: Any, device: str | None) -> tuple[str, str]:
+    """The device (its id and its label, the id when it has none) that ``device`` names by id or label."""
+    from ..tasks.export import did_you_mean
+
+    known = {d["device"]: d["label"] or d["device"] for d in store.devices()}
     if device is not None:
-        if device not in devices:
-            raise InputError(f"no device {device!r} in {store.path} (devices: {', '.join(devices) or 'none'})")
-        return device
-    if len(devices) == 1:
-        return devices[0]
-    if not devices:
+        if device in known:
+            return device, known[device]
+        by_label = [d for d, label in known.items() if label == device]
+        if len(by_label) == 1:
+            return by_label[0], device
+        if by_label:
+            raise InputError(f"{len(by_label)} devices are labelled {device!r}: name one by its id "
+                             f"({', '.join(by_label)})")
+        raise InputError(f"no device {device!r} in {store.path}{did_you_mean(device, list(known.values()))} "
+                         f"Devices: {', '.join(known.values()) or 'none'}")
+    if len(known) == 1:
+        return next(iter(known.items()))
+    if not known:
         raise InputError(f"{store.path} holds no devices yet: sync a board first")
-    raise InputError(f"{store.path} holds {len(devices)} devices: name one with --device "
-                     f"({', '.join(devices)})")
+    raise InputError(f"{store.path} holds {len(known)} devices: name one with --device "
+                     f"({', '.join(known.values())})")
+
+
+class LawChoice(click.Choice):
+    """The rate laws by name; the names of version 0.1 still parse (hidden from --help) with a deprecation message."""
+
+    def __init__(self, extra: Sequence[str] = (), laws: Sequence[str] = ALL_MODELS, exclude: Sequence[str] = ()):
+        super().__init__(tuple(extra) + tuple(m for m in laws if m not in exclude))
+
+    def convert(self, value: Any, param: Any, ctx: Any) -> Any:
+        if isinstance(value, str) and value in _laws.OLD_NAMES and _laws.OLD_NAMES[value] in self.choices:
+            click.echo(f"warning: {_laws.deprecation(value)}", err=True)
+            value = _laws.OLD_NAMES[value]
+        return super().convert(value, param, ctx)
+
+
+def _detail_option(fn: Callable[..., Any]) -> Callable[..., Any]:
+    return click.option("--detail", is_flag=True,
+                        help="Also print the fit criteria (AIC, AICc), test statistics such as the runs test of "
+                             "the residual signs, and the marks the readings were taken against.")(fn)
 
 
 @click.command("calibrate")
 @_csv_argument
 @_table_options
 @_db_option
-@click.option("--device", default=None, help="With --db: the device whose standards to fit (default: the only one).")
+@click.option("--device", default=None,
+              help="With --db: the device (its label or id) whose standards to fit (default: the only one).")
 @_channel_option
 @click.option("--set", "set_name", default=None, metavar="NAME",
               help="With --db: the calibration set to fit (its set=NAME label, or the blank key it follows); "
@@ -202,21 +276,23 @@ def _only_device(store: Any, device: str | None) -> str:
               "standards were journaled without one).")
 @click.option("--quadratic", is_flag=True, help="Fit a quadratic instead of a straight line.")
 @click.option("--through-origin", is_flag=True, help="Fit without an intercept.")
-@click.option("--reading", "readings", type=float, multiple=True,
+@click.option("--reading", "readings", type=FINITE, multiple=True,
               help="Absorbance of an unknown; repeat for replicate readings. Prints its concentration.")
-@click.option("--path-cm", type=float, default=None,
+@click.option("--path-cm", type=Finite(0.001, 100.0, unit="cm"), default=None,
               help="Path length (cm) for the molar absorptivity (with --db: default the board's path_cm setting).")
-@click.option("--blank-sd", type=float, default=None,
+@click.option("--blank-sd", type=Finite(0.0), default=None,
               help="SD of repeated blank absorbances; LOD/LOQ then use it as σ.")
-@click.option("--level", type=float, default=0.95, show_default=True, help="Confidence level of intervals.")
+@click.option("--level", type=Finite(0.0, 1.0, open_ends=True), default=0.95,
+              show_default=True, help="Confidence level of intervals, between 0 and 1 (e.g. 0.95).")
 @accept_suspect_option
+@_detail_option
 @json_option
 @_out_option
 @friendly
 def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None, channel: int,
                       set_name: str | None, unit: str | None, quadratic: bool,
                       through_origin: bool, readings: tuple[float, ...], path_cm: float | None,
-                      blank_sd: float | None, level: float, accept_suspect: bool, as_json: bool,
+                      blank_sd: float | None, level: float, accept_suspect: bool, detail: bool, as_json: bool,
                       out: Path | None) -> None:
     """Fit a calibration curve to standards, from a CSV file or from a device's standards in the database.
 
@@ -229,19 +305,22 @@ def calibrate_command(csv_file: Path | None, db: Path | None, device: str | None
 
     Example: nightcell calibrate --db class.db --device 5e1f000000000001 --set week2
     """
-    _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
+    db = _mode(csv_file, db, csv_with_db=False, what="concentration,absorbance")
     if set_name is not None and db is None:
         raise InputError("--set chooses among a device's standards in the database: use it with --db")
     options = dict(through_origin=through_origin, model="quadratic" if quadratic else "line", level=level,
                    blank_sd=blank_sd, accept_suspect=accept_suspect)
     with contextlib.ExitStack() as opened:
         _calibrate(csv_file, db, device, channel, options, readings, path_cm, as_json, out, opened,
-                   set_name=set_name, unit=unit)
+                   set_name=set_name, unit=unit, detail=detail)
 
 
 def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, channel: int, options: dict[str, Any],
                readings: tuple[float, ...], path_cm: float | None, as_json: bool, out: Path | None,
-               opened: contextlib.ExitStack, *, set_name: str | None = None, unit: str | None = None) -> None:
+               opened: contextlib.ExitStack, *, set_name: str | None = None, unit: str | None = None,
+               detail: bool = False) -> None:
+    from ..render import fit_layout as _layout
+    from ..render import numbers as _n
     from ..science.calibration import molar_factor
 
     store = None
@@ -250,7 +329,7 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
         from ..tasks.analyse import calibrate_from_store
 
         store = opened.enter_context(_open(db))
-        device = _only_device(store, device)
+        device, bench = _only_device(store, device)
         cal = calibrate_from_store(store, device, channel, set_name=set_name, unit=unit, **options)
         if path_cm is None:
             path_cm, path_note = _stored_path_cm(store, device)
@@ -263,7 +342,7 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
         cal = fit_calibration(cols["concentration"], cols["absorbance"], weights=cols.get("weight"),
                               inputs={"file": csv_file.name, "absorbance": how}, unit=unit or "", **options)
     data: dict[str, Any] = {"calibration": cal.to_dict()}
-    text = cal.report()
+    text = _layout.calibration_text(cal, unit=cal.unit, detail=detail)
     u = f" {cal.unit}" if cal.unit else ""
     if db is not None:
         used = cal.inputs.get("standards_used", [])
@@ -271,8 +350,10 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
                  + (f"other sets: {'; '.join(cal.inputs['other_sets'])}" if cal.inputs.get("other_sets")
                     else "no other sets") + ")")
         text += "\nstandards used: " + ", ".join(
-            f"{d['mark']} {d['label']!r} = {d['value']}{(' ' + d['unit']) if d['unit'] else u}" if d["label"]
-            else f"{d['mark']} = {d['value']}{(' ' + d['unit']) if d['unit'] else u}" for d in used)
+            f"{d['label']!r} = {d['value']}{(' ' + d['unit']) if d['unit'] else u}" if d["label"]
+            else f"{d['value']}{(' ' + d['unit']) if d['unit'] else u}" for d in used)
+        if detail:
+            text += "\nstandards' marks: " + ", ".join(d["mark"] for d in used)
         for note in cal.inputs.get("left_out", []) + cal.inputs.get("warnings", []):
             text += f"\nnote: {note}"
     if cal.extra.get("suspect"):
@@ -280,10 +361,9 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
     if readings:
         pred = cal.predict(list(readings))
         data["prediction"] = pred.to_dict()
-        text += (f"\nunknown (mean of {pred.m} reading(s) = {pred.reading:.6g}): {pred.value:.6g}{u} ± "
-                 f"{pred.stderr:.3g}{u} (SE), {pred.level:.0%} interval {pred.ci_low:.6g} to {pred.ci_high:.6g}{u} "
-                 f"(t = {_t(pred.level, pred.dof):.3g}, {pred.dof} dof)"
-                 + ("  (outside the standards' range)" if pred.extrapolated else ""))
+        text += "\n" + _layout.prediction_text(pred, unit=cal.unit)
+        if detail:
+            text += f"\n  interval from t = {_t(pred.level, pred.dof):.3g} with {pred.dof} degrees of freedom"
     if path_cm is not None:
         factor = molar_factor(cal.unit) if cal.unit else 1.0
         if factor is None:
@@ -295,11 +375,11 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
         else:
             eps = cal.molar_absorptivity(path_cm)
             data["molar_absorptivity"] = dict(eps.to_dict(), path_cm=path_cm, path_source=path_note)
-            text += f"\nmolar absorptivity: {eps.value:.6g} ± {eps.stderr:.3g} {eps.unit}, path {path_cm:g} cm " \
+            text += f"\nmolar absorptivity: {_n.measured(eps.value, eps.stderr, eps.unit)}, path {path_cm:g} cm " \
                     f"({path_note})"
     if store is not None:
         assert db is not None and device is not None
-        _finish_saved(store, db, "calibration", f"{device} {cal.inputs['set']}", cal.inputs, data, text, as_json,
+        _finish_saved(store, db, "calibration", f"{bench} {cal.inputs['set']}", cal.inputs, data, text, as_json,
                       out)
         return
     _finish(data, text, as_json, out)
@@ -325,24 +405,40 @@ def _stored_path_cm(store: Any, device: str) -> tuple[float | None, str]:
     return float(value), f"the board's path_cm setting, record {row['boot']}:{row['seq']}"
 
 
-def _run_text(analysis: Any) -> str:
+def _run_layout(analysis: Any) -> dict[str, Any]:
+    """A stored run's fits in the one layout, with where the readings came from (``detail`` holds the raw keys)."""
     import numpy as np
 
-    from ..science.kinetics import rank_by_aicc
+    from ..render import fit_layout as _layout
 
     run = analysis.run
-    counts = analysis.flag_counts()
-    lines = [f"run {run.key} {run.label!r}: {len(analysis.time_s)} readings, "
-             f"{int(np.count_nonzero(analysis.flags))} flagged and left out"
-             + (f" ({', '.join(f'{n}: {c}' for n, c in counts.items())})" if counts else ""),
-             f"blank {analysis.blank.boot}:{analysis.blank.seq} ({analysis.blank.rule}); time: {analysis.time_basis}",
-             f"best rate law by AICc: {analysis.best}"]
-    ranking, delta, _ = rank_by_aicc(analysis.fits)
-    for name in ranking:
-        fit = analysis.fits[name]
-        lines.append(f"  {name:<20} AICc = {fit.aicc:10.2f}  ΔAICc = {delta[name]:8.2f}")
-    lines += analysis.warnings
-    lines.append(analysis.fits[analysis.best].report())
+    data = {"run": {"label": run.label, "key": run.key, "device": run.device},
+            "readings": {"used": int(len(analysis.time_s) - np.count_nonzero(analysis.flags)),
+                         "left_out_flagged": int(np.count_nonzero(analysis.flags)),
+                         "flags": analysis.flag_counts(), "channel": analysis.channel},
+            **_layout.layout(analysis.fits)}
+    data["warnings"] = list(analysis.warnings)
+    data["detail"] = dict(data["detail"], readings_from={
+        "blank": analysis.blank.to_dict(), "time_basis": analysis.time_basis, "boots": list(analysis.boots),
+        "end_rule": analysis.end_rule, "resumed_at": [f"{b}:{q}" for b, q in analysis.resumed_at],
+        "calibration": analysis.calibration_id})
+    return data
+
+
+def _run_text(analysis: Any, data: dict[str, Any], detail: bool) -> str:
+    from ..render import fit_layout as _layout
+
+    run = analysis.run
+    flagged = data["readings"]["left_out_flagged"]
+    counts = data["readings"]["flags"]
+    lines = [f"run {run.label or run.key!r}: {len(analysis.time_s)} readings"
+             + (f", {flagged} flagged and left out" if flagged else ", none left out")
+             + (f" ({', '.join(f'{n}: {c}' for n, c in counts.items())})" if counts else "")]
+    lines += [f"warning: {w}" for w in analysis.warnings]
+    lines.append(_layout.text(data, detail=detail))
+    if detail:
+        lines.append(f"  run key {run.key}; blank mark {analysis.blank.boot}:{analysis.blank.seq} "
+                     f"({analysis.blank.rule}); time: {analysis.time_basis}")
     return "\n".join(lines)
 
 
@@ -363,32 +459,34 @@ def _starts(texts: Sequence[str]) -> dict[str, float]:
 @_csv_argument
 @_table_options
 @_db_option
-@click.option("--run", "run_text", metavar="KEY", help="With --db: the run (key or label); default: the only run.")
+@click.option("--run", "run_text", metavar="RUN",
+              help="With --db: the run (its number in `list runs`, or its label); default: the only run.")
 @_channel_option
-@click.option("--model", type=click.Choice(("all", "initial_rate") + ALL_MODELS), default="all",
+@click.option("--model", type=LawChoice(extra=("all", "initial_rate")), default="all",
               show_default=True, help="Rate law to fit; 'all' fits and ranks every candidate by AICc "
-                                      "(first_order_rise only when named).")
-@click.option("--window", type=(float, float), default=None, metavar="START END",
+                                      "(first_order_rise_to_final only when named).")
+@click.option("--window", type=(FINITE, FINITE), default=None, metavar="START END",
               help="Time window (s) for initial_rate; default: chosen automatically.")
-@click.option("--t-start", type=float, default=None, help="Leave out readings before this time (s), e.g. mixing.")
-@click.option("--t-end", type=float, default=None, help="Leave out readings after this time (s).")
-@click.option("--a-end", type=float, default=0.0, show_default=True,
+@click.option("--t-start", type=FINITE, default=None, help="Leave out readings before this time (s), e.g. mixing.")
+@click.option("--t-end", type=FINITE, default=None, help="Leave out readings after this time (s).")
+@click.option("--a-end", type=FINITE, default=0.0, show_default=True,
               help="Absorbance when the followed species is used up (zero/first/second-order laws).")
-@click.option("--a0", type=float, default=None,
-              help="first_order_rise: hold A0 (the absorbance at t = 0) at this value; default: fitted.")
+@click.option("--a0", type=FINITE, default=None,
+              help="first_order_rise_to_final: hold A0 (the absorbance at t = 0) at this value; default: fitted.")
 @click.option("--start", "starts", multiple=True, metavar="NAME=VALUE",
-              help="first_order_rise: a starting value (A0, A_rise, k); a grid start is always tried too.")
+              help="first_order_rise_to_final: a starting value (A0, A_rise, k); a grid start is always tried too.")
 @click.option("--blank", "blank", metavar="KEY|LABEL", default=None,
               help="With --db: read the run against this blank (key boot:seq or label) instead of the nearest "
                    "one before it.")
 @accept_suspect_option
+@_detail_option
 @json_option
 @_out_option
 @friendly
 def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, channel: int, model: str,
                  window: tuple[float, float] | None, t_start: float | None, t_end: float | None, a_end: float,
                  a0: float | None, starts: tuple[str, ...], blank: str | None, accept_suspect: bool,
-                 as_json: bool, out: Path | None) -> None:
+                 detail: bool, as_json: bool, out: Path | None) -> None:
     """Fit rate laws to one run, from a CSV file or from a run in the database.
 
     CSV columns: time_s,absorbance[,weight][,flags] (times strictly increasing; a %T column instead of absorbance
@@ -401,12 +499,14 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
 
     Example: nightcell rate --db class.db --run "dye fading" --t-start 20 --t-end 600
 
-    Example: nightcell rate product.csv --model first_order_rise --a0 0 --start A_rise=1 --start k=0.01
+    Example: nightcell rate product.csv --model first_order_rise_to_final --a0 0 --start A_rise=1 --start k=0.01
     """
-    _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
+    from ..render import fit_layout as _layout
+
+    db = _mode(csv_file, db, csv_with_db=False, what="time_s,absorbance")
     start = _starts(starts)
-    if (a0 is not None or start) and model != "first_order_rise":
-        raise InputError("--a0 and --start apply to --model first_order_rise")
+    if (a0 is not None or start) and model != "first_order_rise_to_final":
+        raise InputError("--a0 and --start apply to --model first_order_rise_to_final")
     if t_start is not None and t_end is not None and not t_end > t_start:
         raise InputError(f"--t-end {t_end:g} must be after --t-start {t_start:g}")
     if db is not None:
@@ -414,7 +514,7 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
         from ..tasks.export import resolve_run
 
         if a_end != 0.0:
-            raise InputError("--a-end applies to CSV files; with --db fit first_order_plateau, which fits the end")
+            raise InputError("--a-end applies to CSV files; with --db fit first_order_to_final, which fits the end")
         with _open(db) as store:
             run = resolve_run(store, run_text)
             if model == "initial_rate":
@@ -422,20 +522,23 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
                     raise InputError("--t-start/--t-end choose the readings of a fit; for initial_rate give "
                                      "--window START END")
                 fit = initial_rate_of(store, run, channel, window, blank=blank, accept_suspect=accept_suspect)
-                data, text = fit.to_dict(), f"run {run.key} {run.label!r}\n" + fit.report()
+                data = fit.to_dict()
+                text = f"run {run.label or run.key!r}\n" + _layout.initial_rate_text(fit, detail=detail)
                 inputs = fit.inputs
             else:
                 if window is not None:
                     raise InputError("--window applies to --model initial_rate")
                 if a0 is not None or start:
                     raise InputError("--a0 and --start with --db: export the run (`nightcell export`) and fit its "
-                                     "absorbance CSV, where they apply (with --db first_order_rise fits A0 and "
+                                     "absorbance CSV, where they apply (with --db first_order_rise_to_final fits A0 and "
                                      "starts from its grid)")
                 analysis = analyse_run(store, run, channel=channel, models=None if model == "all" else (model,),
                                        blank=blank, t_start=t_start, t_end=t_end, accept_suspect=accept_suspect)
-                data, text = analysis.to_dict(), _run_text(analysis)
-                inputs = analysis.fits[analysis.best].inputs
-            _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out)
+                data = _run_layout(analysis)
+                text = _run_text(analysis, data, detail)
+                inputs = analysis.fits[data["answer"]["law"]].inputs
+            _finish_saved(store, db, "rate", run.label or run.key, inputs, data, text, as_json, out,
+                          sort_keys=model == "initial_rate")
         return
     import numpy as np
 
@@ -458,18 +561,62 @@ def rate_command(csv_file: Path | None, db: Path | None, run_text: str | None, c
               "weights": "the CSV's weight column" if weights is not None else "none (unweighted: no weight column)",
               "left_out": "rows with flags other than 0 (or weight 0)" if "flags" in cols or weights is not None
               else "none", "window_s": [t_start, t_end]}
-    rise = {"a0": a0, "start": start} if model == "first_order_rise" else {}
-    if model == "all":
-        result: Any = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end,
-                                        inputs=inputs, mask=mask, weights=weights)
-    elif model == "initial_rate":
+    rise = {"a0": a0, "start": start} if model == "first_order_rise_to_final" else {}
+    source = f"\nweights: {inputs['weights']}; absorbance: {how}"
+    if model == "initial_rate":
         result = _kinetics.initial_rate(cols["time_s"], cols["absorbance"], window, t_start=t_start, inputs=inputs,
                                         mask=mask)
+        _finish(result.to_dict(), _layout.initial_rate_text(result, detail=detail) + source, as_json, out)
+        return
+    if model == "all":
+        both = _kinetics.fit_all(cols["time_s"], cols["absorbance"], t_start=t_start, a_end=a_end,
+                                 inputs=inputs, mask=mask, weights=weights)
+        fits, failures = both.results, both.failures
     else:
-        result = _kinetics.fit_model(cols["time_s"], cols["absorbance"], model, t_start=t_start, a_end=a_end,
-                                     inputs=inputs, mask=mask, weights=weights, **rise)
-    text = result.report() + f"\nweights: {inputs['weights']}; absorbance: {how}"
-    _finish(result.to_dict(), text, as_json, out)
+        fits = {model: _kinetics.fit_model(cols["time_s"], cols["absorbance"], model, t_start=t_start, a_end=a_end,
+                                           inputs=inputs, mask=mask, weights=weights, **rise)}
+        failures = {}
+    data = _layout.layout(fits, failures)
+    _finish(data, _layout.text(data, detail=detail) + source, as_json, out, sort_keys=False)
+
+
+def _plan_from_conditions(store: Any, kind: str) -> dict[str, Any]:
+    """The runs and their recorded conditions (``nightcell condition``), as the CSV plan would give them."""
+    import numpy as np
+
+    from ..tasks.analyse import run_conditions
+
+    if not store.runs():
+        raise InputError(f"{store.path} holds no runs yet: start one with `nightcell start`, then `nightcell sync`")
+    conds = run_conditions(store)
+    if kind == "orders":
+        have = {k: c for k, c in conds.items() if any(q.startswith("conc_") for q in c)}
+        what, how = "starting concentration", "--conc REACTANT=MOLAR"
+        plan = "a CSV naming the runs (columns run,conc_<name>)"
+    else:
+        have = {k: c for k, c in conds.items() if "temperature_K" in c}
+        what, how = "temperature", "--temperature-c DEGREES"
+        plan = "a CSV naming the runs (column run, and temperature_K unless the runs have a probe)"
+    if not have:
+        raise InputError(f"no run in {store.path} has a recorded {what}: record each run's with `nightcell condition "
+                         f"--db {store.path} --run RUN {how}`, or give {plan}")
+    keys = sorted(have)
+    if len(keys) < 3:
+        raise InputError(f"only {len(keys)} run(s) in {store.path} have a recorded {what}; this needs at least 3: "
+                         f"record more with `nightcell condition --db {store.path} --run RUN {how}`")
+    cols: dict[str, Any] = {"run": np.array(keys, dtype=object)}
+    if kind == "orders":
+        names = sorted({q for c in have.values() for q in c if q.startswith("conc_")})
+        incomplete = [k for k in keys if not all(n in have[k] for n in names)]
+        if incomplete:
+            lacking = ", ".join(n for n in names if n not in have[incomplete[0]])
+            raise InputError(f"run {incomplete[0]} has no recorded {lacking}: record it with `nightcell condition`, "
+                             f"or give {plan}")
+        for n in names:
+            cols["conc_" + n[len("conc_"):-len("_M")]] = np.array([have[k][n]["value"] for k in keys])
+    else:
+        cols["temperature_K"] = np.array([have[k]["temperature_K"]["value"] for k in keys])
+    return cols
 
 
 def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
@@ -489,11 +636,12 @@ def _runs_from_plan(store: Any, keys: Sequence[str]) -> list[Any]:
 @_db_option
 @_channel_option
 @click.option("--nonlinear", is_flag=True, help="Refine the power law by nonlinear least squares on the rates.")
+@_detail_option
 @json_option
 @_out_option
 @friendly
-def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonlinear: bool, as_json: bool,
-                   out: Path | None) -> None:
+def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonlinear: bool, detail: bool,
+                   as_json: bool, out: Path | None) -> None:
     """Reaction orders from the initial rates of several runs.
 
     CSV: one row per run with initial_rate[,rate_se] and one conc_<name> column per reactant. With --db the CSV
@@ -502,38 +650,55 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
     Example: nightcell orders initial_rates.csv --nonlinear
 
     Example: nightcell orders --db class.db runs_and_concentrations.csv
+
+    Without a CSV, --db takes the runs whose starting concentrations were recorded with `nightcell condition`.
     """
     import numpy as np
 
     from ..science import study as _study
     from ..tasks.analyse import initial_rate_of
 
-    _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
-    assert csv_file is not None
-    inputs: dict[str, Any] = {"file": csv_file.name}
-    if db is not None:
-        cols = read_columns(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",))
-    else:
-        cols = read_columns(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
-    conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
-    if not conc:
-        raise InputError(f"{csv_file} has no concentration columns; add one column per reactant named conc_<name>")
+    from ..render import fit_layout as _layout
+
+    db = _mode(csv_file, db, csv_with_db=True, what="initial_rate,conc_<name>...")
     with contextlib.ExitStack() as opened:
         store = None if db is None else opened.enter_context(_open(db))
+        if csv_file is None:
+            cols, source = _plan_from_conditions(store, "orders"), "recorded conditions"
+        elif store is not None:
+            cols, source = _read_checked(csv_file, ["run"], prefix="conc_", min_rows=3, text=("run",)), csv_file.name
+        else:
+            cols = _read_checked(csv_file, ["initial_rate"], ["rate_se"], prefix="conc_", min_rows=3)
+            source = csv_file.name
+        inputs: dict[str, Any] = {"file": source}
+        conc = {name[len("conc_"):]: v for name, v in cols.items() if name.startswith("conc_")}
+        if not conc:
+            raise InputError(f"{csv_file} has no concentration columns; add one column per reactant named "
+                             "conc_<name>")
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
             fits = [initial_rate_of(store, run, channel, None) for run in runs]
             cols["initial_rate"] = np.array([f.values["rate"] for f in fits])
             cols["rate_se"] = np.array([f.stderr["rate"] for f in fits])
-            inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel,
+            inputs = {"file": source, "runs": [r.key for r in runs], "channel": channel,
                       "rate_rule": "initial_rate, window chosen automatically, flagged readings left out"}
         result = _study.orders(cols["initial_rate"], conc, cols.get("rate_se"), nonlinear=nonlinear, inputs=inputs)
-        data, text = result.to_dict(), result.report()
+        data, text = result.to_dict(), _layout.orders_text(result, detail=detail)
         if store is not None:
             assert db is not None
-            _finish_saved(store, db, "orders", csv_file.stem, inputs, data, text, as_json, out)
+            _finish_saved(store, db, "orders", Path(source).stem, inputs, data, text, as_json, out)
             return
     _finish(data, text, as_json, out)
+
+
+def _kelvin(path: Path, temperature_k: np.ndarray) -> None:
+    """Refuse temperatures that are plainly °C written as kelvin (no solution is studied below 200 K)."""
+    import numpy as np
+
+    t = np.asarray(temperature_k, dtype=float)
+    if t.size and float(np.max(t)) < 200.0:
+        raise InputError(f"{path}: temperatures {float(np.min(t)):g} to {float(np.max(t)):g} K look like °C — add "
+                         "273.15 to each (or name the column 'temperature (°C)', which is converted)")
 
 
 @click.command("arrhenius")
@@ -541,15 +706,16 @@ def orders_command(csv_file: Path | None, db: Path | None, channel: int, nonline
 @_table_options
 @_db_option
 @_channel_option
-@click.option("--model", type=click.Choice([m for m in MODELS if m != "zero_order"]),
-              default="first_order_plateau", show_default=True,
+@click.option("--model", type=LawChoice(laws=MODELS, exclude=("zero_order",)),
+              default="first_order_to_final", show_default=True,
               help="With --db: the rate law whose k is taken from every run (the same for all runs).")
 @click.option("--eyring", is_flag=True, help="Also fit the Eyring equation (activation enthalpy and entropy).")
+@_detail_option
 @json_option
 @_out_option
 @friendly
 def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, model: str, eyring: bool,
-                      as_json: bool, out: Path | None) -> None:
+                      detail: bool, as_json: bool, out: Path | None) -> None:
     """Activation energy from rate constants at several temperatures.
 
     CSV columns: temperature_K,k[,k_se]. With --db the CSV names the runs instead (run[,temperature_K]); k comes
@@ -558,21 +724,27 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
     Example: nightcell arrhenius rate_constants.csv --eyring --out activation.json
 
     Example: nightcell arrhenius --db class.db runs_and_temperatures.csv
+
+    Without a CSV, --db takes the runs whose temperatures were recorded with `nightcell condition`.
     """
     import numpy as np
 
     from ..science import study as _study
     from ..tasks.analyse import k_and_temperature
 
-    _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
-    assert csv_file is not None
-    inputs: dict[str, Any] = {"file": csv_file.name}
-    if db is not None:
-        cols = read_columns(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
-    else:
-        cols = read_columns(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3)
+    from ..render import fit_layout as _layout
+
+    db = _mode(csv_file, db, csv_with_db=True, what="temperature_K,k")
     with contextlib.ExitStack() as opened:
         store = None if db is None else opened.enter_context(_open(db))
+        if csv_file is None:
+            cols, source = _plan_from_conditions(store, "arrhenius"), "recorded conditions"
+        elif store is not None:
+            cols = _read_checked(csv_file, ["run"], ["temperature_K"], min_rows=3, text=("run",))
+            source = csv_file.name
+        else:
+            cols, source = _read_checked(csv_file, ["temperature_K", "k"], ["k_se"], min_rows=3), csv_file.name
+        inputs: dict[str, Any] = {"file": source}
         if store is not None:
             runs = _runs_from_plan(store, cols["run"])
             got = [k_and_temperature(store, run, channel, model) for run in runs]
@@ -580,23 +752,24 @@ def arrhenius_command(csv_file: Path | None, db: Path | None, channel: int, mode
                 missing = [r.key for r, g in zip(runs, got) if g[2] is None]
                 if missing:
                     raise InputError(f"run {missing[0]} has no solution temperature (no probe): add a "
-                                     f"temperature_K column to {csv_file}")
+                                     f"temperature_K column to {source}")
                 cols["temperature_K"] = np.array([g[2] for g in got])
             cols["k"] = np.array([g[0] for g in got])
             cols["k_se"] = np.array([g[1] for g in got])
-            inputs = {"file": csv_file.name, "runs": [r.key for r in runs], "channel": channel, "model": model,
+            inputs = {"file": source, "runs": [r.key for r in runs], "channel": channel, "model": model,
                       "temperature": "from the CSV" if "temperature_K" in cols and not all(g[2] for g in got)
                       else "CSV column, else the run's mean probe temperature"}
+        _kelvin(csv_file, cols["temperature_K"])
         fit = _study.arrhenius(cols["temperature_K"], cols["k"], cols.get("k_se"), inputs=inputs)
         data: dict[str, Any] = {"arrhenius": fit.to_dict()}
-        text = fit.report()
+        ey = None
         if eyring:
             ey = _study.eyring(cols["temperature_K"], cols["k"], cols.get("k_se"), inputs=inputs)
             data["eyring"] = ey.to_dict()
-            text += "\n" + ey.report()
+        text = _layout.arrhenius_text(fit, ey, detail=detail)
         if store is not None:
             assert db is not None
-            _finish_saved(store, db, "arrhenius", csv_file.stem, inputs, data, text, as_json, out)
+            _finish_saved(store, db, "arrhenius", Path(source).stem, inputs, data, text, as_json, out)
             return
     _finish(data, text, as_json, out)
 

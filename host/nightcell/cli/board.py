@@ -15,17 +15,13 @@ from typing import Any, Iterator
 
 import click
 
-from .options import db_option, friendly, json_option, open_writing, port_option
+from .options import Finite, db_option, emit, friendly, json_option, open_writing, port_option
 from ..errors import DeviceNotFound, InputError
 
 __all__ = ["register", "sync_progress"]
 
 
-def _emit(data: Any, as_json: bool, text: str) -> None:
-    if as_json:
-        click.echo(json.dumps(data, indent=1, sort_keys=True, default=str))
-    else:
-        click.echo(text)
+_emit = emit  # JSON, or text made inert for the terminal
 
 
 @contextlib.contextmanager
@@ -55,17 +51,20 @@ def sync_progress(enabled: bool = True) -> Iterator[Any]:
 
 
 @click.command("roll-call")
-@click.option("--timeout", type=float, default=1.0, show_default=True, help="Seconds to wait for each board.")
+@click.option("--timeout", type=Finite(0.05, 3600.0, unit="s"), default=1.0, show_default=True, help="Seconds to wait for each board.")
 @json_option
 @friendly
 def roll_call(timeout: float, as_json: bool) -> None:
-    """Ask every port with a board's USB id who is there (device id, label, journal size).
+    """Ask every port with a board's USB id who is there (label, device id, storage used).
 
     Example: nightcell roll-call
     """
     from ..wire.link import discover
 
-    found = discover(timeout=timeout)
+    from ..sim.board import running_boards
+    from ..wire.link import candidate_ports
+
+    found = discover(timeout=timeout, ports=candidate_ports() + running_boards())
     lines = []
     for e in found:
         if "hello" in e:
@@ -76,7 +75,7 @@ def roll_call(timeout: float, as_json: bool) -> None:
         else:
             lines.append(f"{e['port']}  no nightcell board: {e['error']}")
     _emit(found, as_json, "\n".join(lines) or "no candidate boards found: plug one in (see hardware_notes/linux.md "
-                                               "for permissions)")
+                                               "or windows_macos.md)")
 
 
 @click.command("sync-all")
@@ -85,7 +84,7 @@ def roll_call(timeout: float, as_json: bool) -> None:
 @db_option
 @click.option("--parallel", is_flag=True, help="Sync all ports at once instead of one after another.")
 @click.option("--no-ack", is_flag=True, help="Do not let the boards trim what was stored.")
-@click.option("--timeout", type=float, default=5.0, show_default=True, help="Seconds to wait for each reply.")
+@click.option("--timeout", type=Finite(0.05, 3600.0, unit="s"), default=5.0, show_default=True, help="Seconds to wait for each reply.")
 @json_option
 @friendly
 def sync_all(ports: tuple[str, ...], db: Path, parallel: bool, no_ack: bool, timeout: float, as_json: bool) -> None:
@@ -163,17 +162,30 @@ def merge(other: Path, db: Path, strict: bool, as_json: bool) -> None:
 @click.command("deploy")
 @port_option
 @click.option("--no-compile", is_flag=True, help="Copy .py sources instead of compiling them with mpy-cross.")
-@click.option("--wait", type=float, default=20.0, show_default=True,
+@click.option("--wait", type=Finite(0.0, 3600.0, unit="s"), default=20.0, show_default=True,
               help="Seconds to wait for the board to answer after its restart.")
 @json_option
 @friendly
 def deploy_cmd(port: str, no_compile: bool, wait: float, as_json: bool) -> None:
     """Copy this nightcell's firmware onto a board, restart it, and check it answers with the new version.
 
-    The journal and settings on the board are kept; a board that was logging is logging again afterwards.
+    The readings and settings on the board are kept; a board that was logging is logging again afterwards.
 
     Example: nightcell deploy --port /dev/ttyACM0
     """
+    from ..errors import NightcellError
+    from ..wire.link import Board
+
+    try:
+        with Board.open(port, timeout=2.0) as board:
+            board.retries = 1
+            info = board.hello()
+    except NightcellError:
+        info = {}  # no nightcell firmware answering yet (a fresh board in its REPL): deploy finds out itself
+    if info.get("board") == "sim":
+        raise InputError(f"{port} is a simulated board (`nightcell sim-board`): it runs this nightcell's own "
+                         "firmware files at every start, so there is nothing to copy — restart sim-board to run a "
+                         "new version; deploy copies firmware onto a real board over USB")
     from ..tasks.deploy import deploy
 
     report = deploy(port, compile=not no_compile, wait=wait)

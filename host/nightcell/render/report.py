@@ -57,6 +57,9 @@ _matplotlib_config_folder()
 import numpy as np  # noqa: E402
 
 from .. import __version__  # noqa: E402
+from . import fit_layout as _fit_layout  # noqa: E402
+from . import numbers as _n  # noqa: E402
+from ..science import laws as _laws  # noqa: E402
 
 __all__ = ["plot_calibration", "plot_run", "thin_for_drawing", "DRAW_LIMIT", "plot_orders", "plot_arrhenius",
            "figure_png", "figure_svg", "save_figure", "html_report", "fit_table", "write_csv", "safe_filename",
@@ -144,8 +147,10 @@ def _drawn(ax: Any, x: np.ndarray, y: np.ndarray, what: str, *,
 
 
 def plot_run(time_s: Sequence[float], absorbance: Sequence[float], fit: Any = None, ax: Any = None,
-             resid_ax: Any = None, flags: Sequence[int] | None = None, title: str = "") -> Any:
-    """Absorbance against time with the fitted curve; flagged points hollow; residuals on ``resid_ax``.
+             resid_ax: Any = None, flags: Sequence[int] | None = None, title: str = "",
+             notes: Sequence[dict[str, Any]] = ()) -> Any:
+    """Absorbance against time with the fitted curve; flagged points hollow; residuals on ``resid_ax``; each note
+    (``{"time_s", "text"}``) a dotted line with its text.
 
     A dense series (more than ``DRAW_LIMIT`` points) is thinned for drawing only (``thin_for_drawing``), and its
     legend says so; the fit and its residuals were computed from every point before.
@@ -169,15 +174,21 @@ def plot_run(time_s: Sequence[float], absorbance: Sequence[float], fit: Any = No
             fx, fy, resid = fx[order], fy[order], resid[order]
         keep = thin_for_drawing(fx, fy)  # the curve through the same thinning (its shape, at a fraction)
         if keep is not None:
-            ax.plot(fx[keep], fy[keep], "-", color="#222222", label=plain_text(f"fit: {fit.model}"))
+            ax.plot(fx[keep], fy[keep], "-", color="#222222", label=plain_text(f"fit: {_laws.title(fit.model)}"))
         else:
-            ax.plot(fx, fy, "-", color="#222222", label=plain_text(f"fit: {fit.model}"))
+            ax.plot(fx, fy, "-", color="#222222", label=plain_text(f"fit: {_laws.title(fit.model)}"))
         if resid_ax is not None:
             resid_ax.axhline(0, color="#999999", lw=0.8)
             dx, dy, _ = _drawn(resid_ax, fx, resid, "residuals")
             resid_ax.plot(dx, dy, ".", color="#7a3b8f")
             resid_ax.set_xlabel("time (s)")
             resid_ax.set_ylabel("residual (A)")
+    for i, nt in enumerate(notes):
+        for a_ in (ax, resid_ax) if resid_ax is not None else (ax,):
+            a_.axvline(float(nt["time_s"]), color="#555555", ls=":", lw=0.9,
+                       label="note" if (i == 0 and a_ is ax) else None)
+        ax.annotate(plain_text(str(nt["text"])[:40]), (float(nt["time_s"]), 1.0), xycoords=("data", "axes fraction"),
+                    xytext=(2, -2), textcoords="offset points", va="top", fontsize="x-small", rotation=90)
     ax.set_xlabel("time (s)")
     ax.set_ylabel("absorbance")
     if title:
@@ -234,15 +245,16 @@ def _fmt(v: Any) -> str:
 
 
 def fit_table(fit: Any) -> str:
-    """Parameter table of a FitResult as HTML."""
-    rows = [(n, fit.values[n], fit.stderr.get(n, float("nan")), *fit.confint(n)) for n in fit.names]
+    """Parameter table of a FitResult as HTML: each value rounded by its standard error, with its 95 % interval."""
+    rows = [(n, _n.measured(fit.values[n], fit.stderr.get(n, float("nan"))),
+             _n.interval(*fit.confint(n), fit.stderr.get(n, float("nan")))) for n in fit.names]
     t = fit.confint(fit.names[0])[1] - fit.values[fit.names[0]]
     t = t / fit.stderr[fit.names[0]] if fit.stderr.get(fit.names[0]) else float("nan")
-    summary = (f"<p class='small'>model {html.escape(fit.model)}; n = {fit.n}, dof = {fit.dof}, "
-               f"residual SD = {_fmt(fit.residual_sd)}, AIC = {_fmt(fit.aic)}, AICc = {_fmt(fit.aicc)}; "
-               f"95 % interval = value ± t·SE, t = {_fmt(t)} (Student t, {fit.dof} dof); "
+    summary = (f"<p class='small'>{html.escape(_laws.title(fit.model))}; {fit.n} points, {fit.dof} degrees of "
+               f"freedom, residual SD {html.escape(_n.quantity(fit.residual_sd, digits=2))}; 95 % interval = value "
+               f"± t·SE, t = {_fmt(t)} (Student t, {fit.dof} degrees of freedom); "
                f"{html.escape(fit.message or ('converged' if fit.success else 'failed'))}</p>")
-    return _table(["parameter", "value", "standard error", "95 % low", "95 % high"], rows) + summary
+    return _table(["parameter", "value ± standard error", "95 % interval"], rows) + summary
 
 
 _CSS = """
@@ -398,6 +410,20 @@ def figure_svg(fig: Any) -> bytes:
     return buf.getvalue()
 
 
+def _umask() -> int:
+    """The process's file-creation mask (read without changing it where the platform allows)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    except (OSError, ValueError):
+        pass
+    mask = os.umask(0o022)  # elsewhere: read by setting it, and put it back at once
+    os.umask(mask)
+    return mask
+
+
 _BATCH: contextvars.ContextVar[tuple[list[tuple[str, Path]], list[Path]] | None] = contextvars.ContextVar(
     "nightcell_output_batch", default=None)
 
@@ -439,6 +465,8 @@ def write_atomic(path: Path, data: bytes) -> Path:
         raise InputError(f"cannot write {path}: {exc.strerror or exc}; choose a folder you can write to") from None
     batch = _BATCH.get()
     try:
+        # mkstemp makes the file private (0600); a report is for handing out: the user's normal permissions
+        os.chmod(tmp, 0o666 & ~_umask())
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
         os.chmod(tmp, 0o666 & ~_umask())
@@ -520,31 +548,9 @@ def _two_panel() -> tuple[Any, Any, Any]:
     return fig, ax, rax
 
 
-def plus_minus(value: Any, se: Any, digits: int = 4) -> str:
-    """``value ± se`` with the standard error to two significant digits and the value to the same decimal place.
-
-    Values far from 1 (below 10⁻³ or from 10⁶ up) share one power of ten: ``(1.23 ± 0.05)e-07``. Without a usable
-    standard error the value is given to ``digits`` significant digits; a missing value is "—".
-    """
-    try:
-        v, e = float(value), float(se)
-    except (TypeError, ValueError):
-        try:
-            return f"{float(value):.{digits}g}"
-        except (TypeError, ValueError):
-            return "—"
-    if not math.isfinite(v):
-        return "—"
-    if not (math.isfinite(e) and e > 0):
-        return f"{v:.{digits}g}"
-    last = math.floor(math.log10(e)) - 1  # the decimal place of the SE's second significant digit
-    if v == 0 or 1e-3 <= abs(v) < 1e6:
-        d = max(0, -last)
-        return f"{v:.{d}f} ± {e:.{d}f}"
-    power = math.floor(math.log10(abs(v)))
-    d = max(0, power - last)
-    return f"({v / 10**power:.{d}f} ± {e / 10**power:.{d}f})e{power:+03d}"
-
+def plus_minus(value: Any, se: Any, digits: int = 4, unit: str = "") -> str:
+    """``value ± se`` rounded by the standard error: ``render.numbers.measured`` (the one way numbers are written)."""
+    return _n.measured(value, se, unit, digits=digits)
 
 
 def _conditions_text(conditions: dict[str, Any] | None) -> str:
@@ -580,7 +586,8 @@ def _shade_restarts(analysis: Any, axes: Sequence[Any]) -> None:
 
 def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, provenance: dict[str, Any] | None = None,
                conditions: dict[str, Any] | None = None, name: str | None = None, title: str | None = None,
-               cache: dict | None = None, unit: str = "") -> ReportFiles:
+               cache: dict | None = None, unit: str = "", notes: Sequence[dict[str, Any]] | None = None
+               ) -> ReportFiles:
     """One run's self-contained HTML page (``<name>.html``), with its figures also as PNG and SVG beside it.
 
     ``analysis`` is ``analyse.analyse_run``'s result; ``provenance`` typically ``analyse.run_provenance``;
@@ -588,45 +595,45 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
     and its residuals, every rate law compared, the parameter table with standard errors, the calibration (plot
     with residuals and prediction band) when given, warnings and provenance. Pass the same ``cache`` dict to the
     reports of several runs in one folder to draw a shared calibration once (``calibration-<device>.png/.svg``).
-    ``unit`` is the unit of the standards' values (for axis labels).
+    ``unit`` is the unit of the standards' values (for axis labels and concentrations); ``notes`` the notes journaled
+    during the run (``analyse.run_notes``), shown in a table and on the plot. The fit is laid out as on the command
+    line (``render.fit_layout``): the answer, how well the law fits, the parameters, the laws ranked; the criteria
+    and the marks the run was read against in "Detail", the words of the trade's tools in "Glossary".
     """
     out = out_folder(out)
     run = analysis.run
     name = safe_filename(name or f"run-{run.key.replace(':', '-')}", limit=None)
     figs: list[Path] = []
-    best = analysis.fits[analysis.best]
+    laid = _fit_layout.layout(analysis.fits)
+    best = analysis.fits[laid["answer"]["law"]]
+    prov = dict(provenance or {"device": run.device, "run": run.key, "run label": run.label})
+    bench = str(prov.get("device label") or "") or run.device
+    notes = list(notes or [])
     fig, ax, rax = _two_panel()
     try:
         plot_run(analysis.time_s, analysis.absorbance, best, ax=ax, resid_ax=rax, flags=analysis.flags,
-                 title=run.label or run.key)
+                 title=run.label or run.key, notes=notes)
         _shade_restarts(analysis, (ax, rax))
         run_png = _figure_files(fig, out / f"{name}-absorbance", figs)
     finally:
         fig.clear()  # drop the figure's artists now: a report draws many
     flagged = int(np.count_nonzero(analysis.flags))
+    restarts = len(analysis.boots) - 1
     sections: list[dict[str, Any]] = [{
         "title": f"Run {run.label or run.key}",
-        "text": (f"Device {run.device}, run {run.key}. Conditions: {_conditions_text(conditions)}.\n\n"
-                 f"{len(analysis.time_s)} readings over {float(analysis.time_s[-1]):.0f} s "
-                 f"({flagged} flagged and left out of the fits), boot(s) {', '.join(map(str, analysis.boots))}. "
-                 f"Time basis: {analysis.time_basis}. Blank: mark {analysis.blank.boot}:{analysis.blank.seq} "
-                 f"({analysis.blank.rule}); {analysis.blank.stray_text}. Best rate law by AICc: {analysis.best}."
+        "text": (f"Bench {bench}. Conditions: {_conditions_text(conditions)}.\n\n"
+                 f"{len(analysis.time_s)} readings over {_n.quantity(float(analysis.time_s[-1]), 's', digits=3)} "
+                 f"({flagged} flagged and left out of the fits)"
+                 + (f"; the board restarted {restarts} time(s) during the run (grey bands)" if restarts > 0 else "")
+                 + ". Absorbance is read against the blank taken before the run."
                  + (f" Flagged by kind: {', '.join(f'{n} {c}' for n, c in analysis.flag_counts().items())}."
                     if flagged else "")),
-        "figures": [run_png],
     }]
-    rows = []
-    for m, f in sorted(analysis.fits.items(), key=lambda kv: (kv[1].aicc, kv[1].aic)):
-        key = "k" if "k" in f.values else "rate"
-        rows.append((m, f.aicc, f.aicc - best.aicc, f.residual_sd, plus_minus(f.values.get(key), f.stderr.get(key)),
-                     plus_minus(f.extra.get("half_life_s"), f.extra.get("half_life_se_s"))))
-    sections.append({"title": "Rate laws compared",
-                     "html": _table(["rate law", "AICc", "ΔAICc", "residual SD (A)", "k or rate ± SE",
-                                     "half-life (s) ± SE"], rows)})
-    for m in dict.fromkeys([analysis.best, "first_order_plateau"]):
-        if m in analysis.fits:
-            f = analysis.fits[m]
-            sections.append({"title": f"Parameters: {m}", "html": fit_table(f)})
+    sections += _fit_sections(laid, run_png)
+    if notes:
+        sections.append({"title": "Notes taken during the run",
+                         "html": _table(["time into the run", "note"],
+                                        [(_n.quantity(nt["time_s"], "s", digits=3), nt["text"]) for nt in notes])})
     if calibration is not None:
         key = (id(calibration), str(out))
         if cache is not None and key in cache:
@@ -637,7 +644,7 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
             made: list[Path] = []
             try:
                 plot_calibration(calibration, ax=ax, resid_ax=rax, unit=plain_text(f"({unit})") if unit else "")
-                ax.set_title(plain_text(f"Calibration of {run.device}"))
+                ax.set_title(plain_text(f"Calibration of {bench}"))
                 stem = f"calibration-{safe_filename(run.device)}" if cache is not None else f"{name}-calibration"
                 cal_png = _figure_files(fig, out / stem, made)
             finally:
@@ -645,33 +652,121 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
             figs += made
             if cache is not None:
                 cache[key] = (cal_png, made)
-        text = (f"Standards {', '.join(calibration.inputs.get('standards', []))}. "
-                f"LOD {calibration.extra.get('lod', float('nan')):.3g}, LOQ "
-                f"{calibration.extra.get('loq', float('nan')):.3g} (σ from "
-                f"{calibration.extra.get('sigma_source', 'the residuals')}), in the unit of the standards' values.")
+        cunit = unit or "in the unit of the standards' values"
+        text = (f"{calibration.n} standards. Limit of detection "
+                f"{_n.quantity(calibration.extra.get('lod'), unit, digits=2)}, limit of quantification "
+                f"{_n.quantity(calibration.extra.get('loq'), unit, digits=2)} (σ from "
+                f"{calibration.extra.get('sigma_source', 'the residuals')})"
+                + ("" if unit else ", in the unit of the standards' values") + ".")
         if analysis.concentration is not None:
-            text += f" Concentration at the first reading: {float(analysis.concentration[0]):.4g}."
-        sections.append({"title": "Calibration", "html": fit_table(calibration), "text": text,
+            first = _first_concentration(calibration, analysis)
+            if first is not None:
+                text += (f" Concentration at the first reading: {_n.measured(first.value, first.stderr, unit)} "
+                         f"({first.level:.0%} interval {_n.interval(first.ci_low, first.ci_high, first.stderr, unit)}"
+                         f"{'' if unit else ', ' + cunit}).")
+        sections.append({"title": f"Calibration of {bench}", "html": fit_table(calibration), "text": text,
                          "figures": [cal_png]})
     if analysis.warnings:
         sections.append({"title": "Warnings", "text": "\n\n".join(analysis.warnings)})
-    prov = dict(provenance or {"device": run.device, "run": run.key, "run label": run.label})
+    sections.append(_detail_section(laid, analysis))
+    sections.append(GLOSSARY)
     page = html_report(title or f"nightcell run report — {run.label or run.key}", sections, prov)
     path = write_atomic(out / f"{name}.html", page.encode("utf-8"))
     return ReportFiles(path, figs)
 
 
+def _first_concentration(calibration: Any, analysis: Any) -> Any:
+    """The calibrated concentration of the run's first usable reading, with its standard error (None if none)."""
+    ok = np.flatnonzero(np.asarray(analysis.flags) == 0)
+    if ok.size == 0:
+        return None
+    try:
+        return calibration.predict([float(analysis.absorbance[ok[0]])])
+    except Exception:  # a reading the calibration cannot invert (e.g. outside a quadratic's range): say nothing
+        return None
+
+
+def _fit_sections(laid: dict[str, Any], run_png: bytes) -> list[dict[str, Any]]:
+    """The fit result in the one order: the answer, how well the law fits, the parameters, the laws ranked."""
+    a, q = laid["answer"], laid["how_well_it_fits"]
+    key = "rate_constant" if "rate_constant" in a else "rate"
+    r = a[key]
+    what = "Rate constant k" if key == "rate_constant" else "Rate dA/dt"
+    answer = (f"{what} = {_n.measured(r['value'], r['standard_error'], r['unit'])} (95 % interval "
+              f"{_n.interval(*r['interval_95'], r['standard_error'], r['unit'])})")
+    if "half_life" in a:
+        h = a["half_life"]
+        answer += f"; half-life = {_n.measured(h['value'], h['standard_error'], 's')}"
+    fits = (f"Residual SD {_n.quantity(q['residual_sd'], 'absorbance', digits=2)} over {q['points']} readings. "
+            f"{q['residuals_in_words']} {q['best_law_in_words']}")
+    rows = [(p["meaning"], p["name"], _n.measured(p["value"], p["standard_error"], p["unit"]),
+             _n.interval(*p["interval_95"], p["standard_error"], p["unit"])) for p in laid["parameters"]]
+    ranked = "".join(
+        f"<li>{html.escape(row['law_title'])}: "
+        + (html.escape("not fitted (" + row["not_fitted"] + ")") if "not_fitted" in row
+           else f"ΔAICc {html.escape(_fit_layout._delta(row['delta_aicc']))}") + "</li>"
+        for row in laid["laws_ranked"])
+    return [
+        {"title": f"The answer: {a['law_title']}", "text": answer + "."},
+        {"title": "How well the law fits", "text": fits, "figures": [run_png]},
+        {"title": "Parameters", "html": _table(["parameter", "symbol", "value ± standard error", "95 % interval"],
+                                                rows)},
+        {"title": "Rate laws ranked",
+         "html": f"<ol class='ranked'>{ranked}</ol><p class='small'>ΔAICc: how far behind the best law; below 2 the "
+                 "data do not tell two laws apart, above 10 they rule the worse one out.</p>"},
+    ]
+
+
+def _detail_section(laid: dict[str, Any], analysis: Any) -> dict[str, Any]:
+    rows = []
+    for law, d in laid["detail"].items():
+        if not isinstance(d, dict) or "aic" not in d:
+            continue
+        rt = d.get("extra", {}).get("runs_test") or {}
+        rows.append((law, _n.quantity(d["aic"]), _n.quantity(d.get("extra", {}).get("aicc")), d["n"], d["dof"],
+                     "n/a" if rt.get("p_value") is None else _n.quantity(rt["p_value"], digits=2)))
+    b = analysis.blank
+    text = (f"Blank: mark {b.boot}:{b.seq} ({b.rule}); {b.stray_text}. Time basis: {analysis.time_basis}. "
+            f"Boots: {', '.join(map(str, analysis.boots))}. Run key: {analysis.run.key}.")
+    return {"title": "Detail", "text": text,
+            "html": _table(["rate law", "AIC", "AICc", "n", "dof", "runs-test p"], rows)}
+
+
+GLOSSARY = {"title": "Glossary", "html": "<dl class='small'>" + "".join(
+    f"<dt>{html.escape(term)}</dt><dd>{html.escape(meaning)}</dd>" for term, meaning in (
+        ("AIC, AICc", "Akaike's information criterion: a fit's misfit with a penalty for each parameter; AICc adds "
+                      "the correction for few readings. Only differences between laws fitted to the same readings "
+                      "mean anything (ΔAICc)."),
+        ("runs-test p", "how likely residual signs this clustered are if the law were right; a small p means the "
+                        "law misses the curve's shape."),
+        ("Birge ratio", "how much more the runs scatter than their own standard errors allow; standard errors are "
+                        "enlarged by it when it is above 1."),
+        ("journal", "the record of readings and marks the board keeps on its own flash while unattended."),
+        ("durability window", "the longest time a reading waits in the board's memory before it is safe on flash; "
+                              "a power cut loses at most this much."),
+        ("boot", "one power-up of the board; a restart starts a new boot, and readings keep their boot's clock."),
+        ("mark key", "boot:number of a journal record, e.g. 1:25, as in the detail and provenance."),
+        ("torn bytes", "the unfinished end of a journal record cut by a power loss; it is left out and reported."),
+    )) + "</dl>"}
+
+
 def study_report(study: Any, out: str | Path, *, name: str = "study", title: str = "nightcell study report",
                  intro: str = "", provenance: dict[str, Any] | None = None,
                  run_pages: dict[str, str] | None = None, extra_sections: Sequence[dict[str, Any]] = (),
-                 unit: str = "") -> ReportFiles:
+                 unit: str = "", device_labels: dict[str, str] | None = None) -> ReportFiles:
     """One study's self-contained HTML page (``<name>.html``) with figures also as PNG and SVG beside it.
 
     ``study`` is ``analyse.analyse_study``'s result. Shows every run with its conditions and k ± SE, all runs'
     absorbance curves, the log–log order plot per reactant (from k and from initial rates), the Arrhenius plot with
     residuals and the Eyring parameters, each device's calibration, the rules that chose runs, and provenance.
-    ``run_pages`` maps run keys to the file names of their own pages (linked by relative path).
+    ``run_pages`` maps run keys to the file names of their own pages (linked by relative path); ``device_labels``
+    maps device ids to their labels ("bench A"), shown instead of the id (which stays in the provenance).
     """
+    labels = device_labels or {}
+
+    def bench(device: str) -> str:
+        return labels.get(device) or device
+
     out = out_folder(out)
     name = safe_filename(name, "study")
     figs: list[Path] = []
@@ -684,17 +779,17 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         c = it.conditions
         concs = "; ".join(f"{q[5:-2]} {v:.4g} M" for q, v in sorted(c.items()) if q.startswith("conc_"))
         t = c.get("temperature_K")
-        rows.append((it.run.label or it.run.key, it.run.key, "—" if t is None else f"{t - 273.15:.1f}", concs,
-                     plus_minus(it.k, it.k_se),
+        rows.append((it.run.label or it.run.key, bench(it.run.device), "—" if t is None else f"{t - 273.15:.1f}",
+                     concs, plus_minus(it.k, it.k_se),
                      plus_minus(it.fit.extra.get("half_life_s"), it.fit.extra.get("half_life_se_s")),
                      plus_minus(it.fit.values.get("A_inf"), it.fit.stderr.get("A_inf"), 3),
-                     ", ".join(map(str, it.analysis.boots)), len(it.analysis.time_s)))
+                     len(it.analysis.boots) - 1, len(it.analysis.time_s)))
     sections.append({"title": "Runs",
-                     "text": f"Rate constants from the model {study.model} (first order towards a plateau, offset "
-                             "free) fitted to each run's absorbance against its own blank.",
-                     "html": _table(["run", "key", "T (°C)", "starting concentrations", "k (s⁻¹) ± SE",
-                                     "half-life (s) ± SE", "A∞ ± SE", "boots", "readings"], rows)
-                     + _links(study.runs, run_pages)})
+                     "text": f"Rate constants from the law {_laws.title(study.model)} (A∞ found by the fit) fitted "
+                             "to each run's absorbance against its own blank.",
+                     "html": _table(["run", "bench", "T (°C)", "starting concentrations", "k (s⁻¹) ± SE",
+                                     "half-life (s) ± SE", "A∞ ± SE", "restarts", "readings"], rows)
+                     + _links(study.runs, run_pages, bench)})
     if study.runs:
         fig, ax = _figure(figsize=(7.0, 4.4))
         try:
@@ -736,6 +831,12 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             fig.clear()  # drop the figure's artists now: a report draws many
         sections.append({"title": "Absorbance of every run", "figures": [png]})
     by_key = {it.run.key: it for it in study.runs}
+    all_runs = {it.run.key: it.run for it in study.runs}
+
+    def run_name(key: str) -> str:
+        """A run as the class knows it: its label and bench; the key (in the provenance) where it has none."""
+        run = all_runs.get(key)
+        return f"{run.label} ({bench(run.device)})" if run is not None and run.label else key
     for reactant, st in study.orders.items():
         f = st.per_reactant[reactant]
         keys = study.used.get(f"order {reactant}", [])
@@ -748,7 +849,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         finally:
             fig.clear()  # drop the figure's artists now: a report draws many
         html_parts = fit_table(f)
-        text = (f"ln k against ln [{reactant}] over runs {', '.join(keys)}. "
+        text = (f"ln k against ln [{reactant}] over the runs {', '.join(run_name(k) for k in keys)}. "
                 f"Order {plus_minus(f.values['order'], f.stderr['order'])}; "
                 f"Birge ratio {f.extra.get('birge_ratio', float('nan')):.3g}.")
         ini = study.initial_orders.get(reactant)
@@ -771,14 +872,18 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         finally:
             fig.clear()  # drop the figure's artists now: a report draws many
         ex = fa.extra
-        text = (f"Runs {', '.join(keys)}. Ea = {plus_minus(ex.get('Ea_kJ_per_mol'), ex.get('Ea_se_kJ_per_mol'))} "
-                f"kJ/mol (SE), 95 % interval {ex['Ea_ci95_kJ_per_mol'][0]:.4g} to {ex['Ea_ci95_kJ_per_mol'][1]:.4g} "
-                f"kJ/mol; A = {plus_minus(ex.get('A'), ex.get('A_se'))} s⁻¹. {ex.get('se_rule', '')}.")
+        ci = ex.get("Ea_ci95_kJ_per_mol")
+        text = (f"Runs {', '.join(run_name(k) for k in keys)}. "
+                f"{_n.activation_energy(fa.values['Ea_J_per_mol'], fa.stderr['Ea_J_per_mol'])}"
+                + (f" (95 % interval {_n.interval(ci[0], ci[1], fa.stderr['Ea_J_per_mol'] / 1000, 'kJ mol⁻¹')})"
+                   if ci else "")
+                + f"; A = {plus_minus(ex.get('A'), ex.get('A_se'), unit='s⁻¹')}. {ex.get('se_rule', '')}"
+                f" (Birge ratio: see Glossary).")
         if fe is not None:
             text += (f"\n\nEyring (transmission coefficient 1): ΔH‡ = "
-                     f"{plus_minus(fe.values['dH_J_per_mol'] / 1000, fe.stderr['dH_J_per_mol'] / 1000)} kJ/mol, "
+                     f"{plus_minus(fe.values['dH_J_per_mol'] / 1000, fe.stderr['dH_J_per_mol'] / 1000, unit='kJ mol⁻¹')}, "
                      "ΔS‡ = "
-                     f"{plus_minus(fe.values['dS_J_per_mol_K'], fe.stderr['dS_J_per_mol_K'])} J/(mol·K).")
+                     f"{plus_minus(fe.values['dS_J_per_mol_K'], fe.stderr['dS_J_per_mol_K'], unit='J mol⁻¹ K⁻¹')}.")
         sections.append({"title": "Temperature dependence", "text": text,
                          "html": fit_table(fa) + (fit_table(fe) if fe is not None else ""), "figures": [png]})
     cals: dict[str, Any] = {}
@@ -789,18 +894,20 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         fig, ax, rax = _two_panel()
         try:
             plot_calibration(cal, ax=ax, resid_ax=rax, unit=plain_text(f"({unit})") if unit else "")
-            ax.set_title(plain_text(f"Calibration of {device}"))
+            ax.set_title(plain_text(f"Calibration of {bench(device)}"))
             png = _figure_files(fig, out / f"{name}-calibration-{safe_filename(device)}", figs)
         finally:
             fig.clear()  # drop the figure's artists now: a report draws many
-        sections.append({"title": f"Calibration of {device}", "html": fit_table(cal),
+        sections.append({"title": f"Calibration of {bench(device)}", "html": fit_table(cal),
                          "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; LOD "
                                  f"{cal.extra.get('lod', float('nan')):.3g}, "
                                  f"LOQ {cal.extra.get('loq', float('nan')):.3g} in the unit of the standards' values.",
                          "figures": [png]})
     sections.extend(extra_sections)
-    notes = [f"{k}: {v}" for k, v in study.rules.items()] + [f"left out — {k}: {v}" for k, v in study.skipped.items()]
+    notes = [f"{k}: {v}" for k, v in study.rules.items()] + [f"left out — {run_name(k)}: {v}"
+                                                             for k, v in study.skipped.items()]
     sections.append({"title": "How runs were chosen", "text": "\n\n".join(notes)})
+    sections.append(GLOSSARY)
     page = html_report(title, sections, provenance)
     path = write_atomic(out / f"{name}.html", page.encode("utf-8"))
     return ReportFiles(path, figs)
@@ -812,8 +919,9 @@ def _relative_page(path: str) -> bool:
     return str(path).endswith(".html") and all(p == safe_filename(p) and p not in ("", ".", "..") for p in parts)
 
 
-def _links(runs: Sequence[Any], pages: dict[str, str]) -> str:
-    items = [(it.run.label or it.run.key, pages[it.run.key]) for it in runs
+def _links(runs: Sequence[Any], pages: dict[str, str], bench: Any = None) -> str:
+    items = [((it.run.label or it.run.key) + (f" ({bench(it.run.device)})" if bench else ""), pages[it.run.key])
+             for it in runs
              if it.run.key in pages and _relative_page(pages[it.run.key])]
     if not items:
         return ""

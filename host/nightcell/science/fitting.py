@@ -171,7 +171,7 @@ class FitResult:
 
     Attributes
     ----------
-    model : name of the model (``"line"``, ``"first_order_plateau"``, ...).
+    model : name of the model (``"line"``, ``"first_order_to_final"``, ...).
     names : parameter names; ``cov`` rows and columns follow this order.
     values, stderr : parameter value and standard error by name.
     cov : covariance matrix of the parameters (list of lists, ``names`` order).

@@ -1,7 +1,7 @@
 """Rate laws fitted to one run of absorbance against time.
 
 Owns: the initial rate (with an automatic early-window rule), the integrated zero-, first- and second-order laws,
-the exponential approach to a plateau with a free offset, half-lives with standard errors, and the comparison of all
+the first-order approach towards a final absorbance (offset free), half-lives with standard errors, and the comparison of all
 candidate models by AICc (AIC with the small-sample correction; ΔAICc and Akaike weights) with a runs test of
 the residual signs.
 
@@ -18,11 +18,11 @@ Conventions (all fits are least squares on absorbance itself, so the noise is tr
   absorbance when that species is used up; 0 when only it absorbs and the blank is the solvent):
   ``D = A − a_end = ε·l·[X]`` for a fading species, ``a_end − A`` for a growing product.
 - ``zero_order``: ``A = A0 + rate·τ``; ``rate`` is dA/dt (absorbance s⁻¹); k = |rate|/(ε·l) in M s⁻¹.
-- ``first_order``: ``A = a_end + (A0 − a_end)·exp(−k·τ)``; k in s⁻¹, unchanged by the absorbance scale.
+- ``first_order_to_zero``: ``A = a_end + (A0 − a_end)·exp(−k·τ)``; k in s⁻¹, unchanged by the absorbance scale.
 - ``second_order``: ``A = a_end + D0/(1 + k·|D0|·τ)`` with ``D0 = A0 − a_end`` (from 1/[X] = 1/[X]0 + k·t);
   k is in (absorbance·s)⁻¹; multiply by ε·l to get M⁻¹ s⁻¹.
-- ``first_order_plateau``: ``A = A_inf + (A0 − A_inf)·exp(−k·τ)`` with A_inf free; works for fading and growth.
-- ``first_order_rise`` (not in the default set ``MODELS``: with A0 free it is the plateau law written another way):
+- ``first_order_to_final``: ``A = A_inf + (A0 − A_inf)·exp(−k·τ)`` with A_inf free; works for fading and growth.
+- ``first_order_rise_to_final`` (not in the default set ``MODELS``: with A0 free it is ``first_order_to_final`` written another way):
   ``A = A0 + A_rise·(1 − exp(−k·t))``, a rise to the final value ``A0 + A_rise`` (product formation, growth-like
   curves), with A0 free or fixed (``a0=``). Its time is the time as given (t = 0 is when the reaction began: the
   CSV's zero, a stored run's first sample), not the first point used, because a fixed A0 is the absorbance at t = 0.
@@ -31,7 +31,7 @@ Conventions (all fits are least squares on absorbance itself, so the noise is tr
   when k is not positive, when the best k lies at the edge of the grid (the curve is still straight, or has
   finished rising before the first point), or when the Jacobian is singular — never a wrong answer as a success.
 - A fitted rate constant (or a first/second-order half-life) that is not positive is a failed fit (``FitFailed``
-  with the reason), never a result: e.g. ``first_order`` on rising data. A zero-order line keeps its fit, but
+  with the reason), never a result: e.g. ``first_order_to_zero`` on rising data. A zero-order line keeps its fit, but
   gives no half-life when the absorbance moves away from ``a_end`` (``extra["half_life_note"]`` says so).
   No guess is needed: the start comes from the integrated law (a straight line in τ and ∫A dτ), or from a grid
   over k where that fails.
@@ -57,6 +57,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 
 from ..errors import AnalysisError, FitFailed, InputError, NonFiniteInput, TimeOrderError, TooFewPoints
+from . import laws as _laws
 from .laws import ALL_MODELS, MODELS
 from .fitting import FitResult, _package, as_vector, check_pairs, jsonable, linear_lstsq, nonlinear_lstsq, runs_test
 from .fitting import _stats  # scipy.stats, imported when first used
@@ -119,7 +120,7 @@ def _half_life(result: FitResult) -> None:
     v, c, names = result.values, result.cov, result.names
     a_end = result.inputs.get("a_end", 0.0)
     grad = [0.0] * len(names)
-    if result.model in ("first_order", "first_order_plateau", "first_order_rise"):
+    if result.model in ("first_order_to_zero", "first_order_to_final", "first_order_rise_to_final"):
         k = v["k"]
         value = _LN2 / k
         grad[names.index("k")] = -_LN2 / k**2
@@ -146,9 +147,9 @@ def _half_life(result: FitResult) -> None:
 
 
 def half_life(result: FitResult) -> tuple[float, float]:
-    """``(half-life, its SE)`` in seconds from a fitted zero-, first-, second-order or plateau model."""
+    """``(half-life, its SE)`` in seconds from a fitted zero-, first- or second-order law."""
     if "half_life_s" not in result.extra:
-        raise InputError(f"model {result.model!r} has no half-life here; fit first_order or first_order_plateau")
+        raise InputError(f"model {result.model!r} has no half-life here; fit first_order_to_zero or first_order_to_final")
     return result.extra["half_life_s"], result.extra["half_life_se_s"]
 
 
@@ -190,9 +191,9 @@ def _plateau_start(tau: np.ndarray, a: np.ndarray) -> tuple[float, float, float]
 # -- the fast path: one nonlinear parameter, the others linear ---------------------------------------------------
 #
 # Each nonlinear law is linear in all but one parameter once that one is fixed (variable projection):
-#   first_order          A − a_end = d0·e^(−kτ)                      linear in d0 given k
+#   first_order_to_zero  A − a_end = d0·e^(−kτ)                      linear in d0 given k
 #   second_order         A − a_end = d0/(1 + c·τ),  c = k·sign·d0   linear in d0 given c
-#   first_order_plateau  A = A_inf + d·e^(−kτ),     d = A0 − A_inf  linear in (A_inf, d) given k
+#   first_order_to_final A = A_inf + d·e^(−kτ),     d = A0 − A_inf  linear in (A_inf, d) given k
 # so the fit is a 1-D search over k (or c): Newton on the reduced sum of squares, whose first and second derivatives
 # variable projection gives in closed form (Gauss–Newton, Kaufman's step, where the second derivative is not
 # positive), with step halving so the weighted RSS never rises. Every weighted sum an iteration needs comes from one
@@ -480,7 +481,7 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
     # the starts come from a subset of a long run's points (its warm start; the points themselves otherwise): a start
     # only has to lie near the minimum, which the search over every point then finds
     s = m.warm_start() or m
-    if model == "first_order_plateau":
+    if model == "first_order_to_final":
         c = math.nan
         X = np.column_stack([np.ones_like(s.tau), s.tau, s.integral()])
         try:
@@ -515,7 +516,7 @@ def _fast_fit(m: _Moments, model: str, a_end: float, inputs: Mapping[str, Any]) 
         return _package(model, ("A0", "A_inf", "k"), beta, cov, m.tau, m.a, resid, rss, inputs=inputs)
     d = a - a_end
     sd = s.a - a_end
-    if model == "first_order":
+    if model == "first_order_to_zero":
         _, slope = _line(s.integral() - a_end * s.tau, sd)  # D = D0 − k·∫D dτ (the law, integrated)
         k0 = -slope
         if not (math.isfinite(k0) and k0 > 0):
@@ -613,8 +614,8 @@ def _rise_grid(t: np.ndarray, a: np.ndarray, w: np.ndarray | None, a0: float | N
 
 def _fit_rise(t: np.ndarray, a: np.ndarray, w: np.ndarray | None, a0: float | None,
               start: Mapping[str, float] | None, inputs: Mapping[str, Any]) -> FitResult:
-    """``first_order_rise`` (module docstring): LM from the given start and from the grid's best, the lower RSS."""
-    model = "first_order_rise"
+    """``first_order_rise_to_final`` (module docstring): LM from the given start and from the grid's best, the lower RSS."""
+    model = "first_order_rise_to_final"
     names = ("A0", "A_rise", "k") if a0 is None else ("A_rise", "k")
     fixed = 0.0 if a0 is None else a0
 
@@ -657,7 +658,7 @@ def _fit_rise(t: np.ndarray, a: np.ndarray, w: np.ndarray | None, a0: float | No
     k = best.values["k"]
     if not k > 0:
         raise FitFailed(f"{model}: the fitted rate constant k = {k:.4g} is not positive; the curve does not rise "
-                        "toward a final value as this law needs — fit zero_order or first_order_plateau instead")
+                        "toward a final value as this law needs — fit zero_order or first_order_to_final instead")
     span = float(t.max())
     if (edge == 0 or edge == _RISE_GRID - 1) and not 0.01 < k * span < 500.0:
         raise FitFailed(
@@ -693,11 +694,11 @@ def _law_curve(model: str, a_end: float, sign: float) -> Any:
     """The rate law ``model`` as ``curve(tau, beta)`` (beta in the fit's parameter order), for ``FitResult.curve``."""
     if model == "zero_order":
         return lambda x, b: b[0] + b[1] * x
-    if model == "first_order":
+    if model == "first_order_to_zero":
         return lambda x, b: _first(x, b[0], b[1], a_end=a_end)
     if model == "second_order":
         return lambda x, b: a_end + (b[0] - a_end) / (1.0 + b[1] * sign * (b[0] - a_end) * x)
-    if model == "first_order_plateau":
+    if model == "first_order_to_final":
         return lambda x, b: _plateau(x, *b)
     return None
 
@@ -709,7 +710,7 @@ def _fit_reference(
         return linear_lstsq(np.column_stack([np.ones_like(tau), tau]), a, ("A0", "rate"), model=model, x=tau,
                             inputs=inputs, weights=w)
     d = a - a_end
-    if model == "first_order":
+    if model == "first_order_to_zero":
         k0 = _first_order_start(tau, d)
         # a simple line in log space gives the start; the fit itself is on absorbance
         def f(x: np.ndarray, a0: float, k: float) -> np.ndarray:
@@ -736,7 +737,7 @@ def _fit_reference(
 
         return nonlinear_lstsq(f2, tau, a, (a_end + sign / inv_d0, k0), ("A0", "k"), model=model, jac=jac2,
                                inputs=inputs, tol=_TOL, weights=w)
-    if model == "first_order_plateau":
+    if model == "first_order_to_final":
         start = _plateau_start(tau, a)
         return nonlinear_lstsq(_plateau, tau, a, start, ("A0", "A_inf", "k"), model=model, jac=_plateau_jac,
                                inputs=inputs, tol=_TOL, weights=w)
@@ -746,7 +747,7 @@ def _fit_reference(
 def fit_model(
     t: Any,
     A: Any,
-    model: str = "first_order_plateau",
+    model: str = "first_order_to_final",
     *,
     mask: Any = None,
     inputs: Mapping[str, Any] | None = None,
@@ -765,22 +766,23 @@ def fit_model(
     mask : boolean array, True where a point must be left out (e.g. ``optics_result.mask``); such points may be NaN.
     inputs : plain-JSON record of where the run came from (run id, blank id...), kept in ``result.inputs``.
     t_start : leave out points before this time (dead time while mixing and placing the cuvette).
-    a_end : absorbance when the followed species is used up (zero-, first- and second-order laws; the plateau
-        model fits it).
+    a_end : absorbance when the followed species is used up (zero-, first- and second-order laws;
+        first_order_to_final fits it).
     weights : relative weights (1/variance of A up to a constant), e.g. ``optics_result.weights`` when the count
         noise is about constant — A read at low light is noisier, and unweighted SEs then understate the truth.
-    a0 : ``first_order_rise`` only: hold A0 (the absorbance at t = 0) fixed at this value; None fits it.
-    start : ``first_order_rise`` only: starting values by parameter name (``A0``, ``A_rise``, ``k``); the grid's
+    a0 : ``first_order_rise_to_final`` only: hold A0 (the absorbance at t = 0) fixed at this value; None fits it.
+    start : ``first_order_rise_to_final`` only: starting values by parameter name (``A0``, ``A_rise``, ``k``); the grid's
         start is always tried too and the lower sum of squares wins.
 
     Returns
     -------
     FitResult with ``extra``: ``time_origin_s``, ``runs_test``, ``half_life_s``/``half_life_se_s`` where defined.
     """
+    model = _laws.resolve(model)
     if model not in ALL_MODELS:
-        raise InputError(f"unknown model {model!r}; choose one of {', '.join(ALL_MODELS)}")
-    if model != "first_order_rise" and (a0 is not None or start):
-        raise InputError("a0 and start apply to first_order_rise only")
+        raise InputError(f"unknown rate law {model!r}; choose one of {', '.join(ALL_MODELS)}")
+    if model != "first_order_rise_to_final" and (a0 is not None or start):
+        raise InputError("a0 and start apply to first_order_rise_to_final only")
     return _fit_prepared(_points(t, A, mask, t_start, weights), model, inputs, t_start, a_end, a0=a0, start=start)
 
 
@@ -808,7 +810,7 @@ def _points(t: Any, A: Any, mask: Any, t_start: float | None, weights: Any) -> _
 def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_start: float | None,
                   a_end: float, *, a0: float | None = None, start: Mapping[str, float] | None = None) -> FitResult:
     tv, av = p.tv, p.av
-    k = 3 if model == "first_order_plateau" or (model == "first_order_rise" and a0 is None) else 2
+    k = 3 if model == "first_order_to_final" or (model == "first_order_rise_to_final" and a0 is None) else 2
     if tv.size < k + 2:
         raise TooFewPoints(
             f"{model}: {tv.size} usable points, need at least {k + 2}; record a longer run, a shorter interval, "
@@ -829,10 +831,10 @@ def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_st
     t0 = float(tv[0])
     rec = dict(inputs or {})
     rec.update(model=model, t_start=t_start, points_used=int(tv.size))
-    if model in ("zero_order", "first_order", "second_order"):
+    if model in ("zero_order", "first_order_to_zero", "second_order"):
         rec["a_end"] = a_end
     rec["weighted"] = w is not None
-    if model == "first_order_rise":
+    if model == "first_order_rise_to_final":
         if a0 is not None and not math.isfinite(a0):
             raise InputError("a0 must be a finite absorbance (the absorbance at t = 0)")
         result = _fit_rise(tv, av, w, a0, start, rec)
@@ -845,7 +847,7 @@ def _fit_prepared(p: _Points, model: str, inputs: Mapping[str, Any] | None, t_st
     if model != "zero_order" and not result.values["k"] > 0:
         k_value = result.values["k"]
         hint = ("the absorbance rises, so it does not decay toward a_end = "
-                f"{a_end:g} as this law needs — fit first_order_plateau or first_order_rise"
+                f"{a_end:g} as this law needs — fit first_order_to_final or first_order_rise_to_final"
                 if av[-1] > av[0] else "the data do not follow this law — fit another model")
         if not k_value < 0:
             raise FitFailed(f"{model}: the fitted rate constant is zero; the data show no reaction")
@@ -1012,9 +1014,10 @@ def fit_all(
     """
     results: dict[str, FitResult] = {}
     failures: dict[str, str] = {}
+    models = [_laws.resolve(m) for m in models]
     for model in models:
         if model not in ALL_MODELS:
-            raise InputError(f"unknown model {model!r}; choose one of {', '.join(ALL_MODELS)}")
+            raise InputError(f"unknown rate law {model!r}; choose one of {', '.join(ALL_MODELS)}")
     points = _points(t, A, mask, t_start, weights)  # checked once, shared by every model
     for model in models:
         try:
@@ -1022,7 +1025,7 @@ def fit_all(
         except InputError:
             raise
         except AnalysisError as exc:
-            if isinstance(exc, TooFewPoints) and model not in ("first_order_plateau", "first_order_rise"):
+            if isinstance(exc, TooFewPoints) and model not in ("first_order_to_final", "first_order_rise_to_final"):
                 raise
             failures[model] = str(exc)
     if not results:

@@ -14,20 +14,25 @@ Example::
 
 from __future__ import annotations
 
+import contextlib
 import importlib.resources
 import importlib.util
 import json
 import os
-import pty
+try:  # POSIX; elsewhere the simulated board is served on a local TCP port only
+    import pty
+    import tty
+except ImportError:  # pragma: no cover — Windows
+    pty = tty = None  # type: ignore[assignment]
 import random
 import select
 import shutil
 import signal
+import socket
 import subprocess
 import sys
 import threading
 import time
-import tty
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Iterable
@@ -294,6 +299,102 @@ def _unplug_ptys(owner: Any) -> None:
             pass
 
 
+def _new_session() -> dict[str, Any]:
+    if os.name == "posix":
+        return {"start_new_session": True}
+    return {"creationflags": getattr(subprocess, "CREATE_NEW_PROCESS_GROUP", 0)}  # pragma: no cover — Windows
+
+
+class SocketBridge:
+    """A local TCP port (``socket://127.0.0.1:PORT``, pyserial's URL for it) joined to a firmware process's standard
+    input and output: the simulated board reached without a pseudo-terminal, on any platform. One host at a time;
+    a new connection takes the line over (as plugging the cable into another laptop would). Port 0 takes a free
+    one; a port given that is taken raises ``OSError``."""
+
+    def __init__(self, port: int = 0):
+        self.server = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        if os.name == "posix":
+            self.server.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        try:
+            self.server.bind(("127.0.0.1", port))
+        except OSError:
+            self.server.close()
+            raise
+        self.server.listen(2)
+        self.port = self.server.getsockname()[1]
+        self.url = f"socket://127.0.0.1:{self.port}"
+        self._client: socket.socket | None = None
+        self._process: subprocess.Popen | None = None
+        self._lock = threading.Lock()
+        self._closed = False
+        threading.Thread(target=self._accept, daemon=True).start()
+
+    def attach(self, process: subprocess.Popen) -> None:
+        """Join a (re)started firmware process to the port."""
+        with self._lock:
+            self._process = process
+        threading.Thread(target=self._board_to_host, args=(process,), daemon=True).start()
+
+    def _accept(self) -> None:
+        while not self._closed:
+            try:
+                client, _ = self.server.accept()
+            except OSError:
+                return
+            client.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+            with self._lock:
+                old, self._client = self._client, client
+            if old is not None:
+                with contextlib.suppress(OSError):
+                    old.close()
+            threading.Thread(target=self._host_to_board, args=(client,), daemon=True).start()
+
+    def _host_to_board(self, client: socket.socket) -> None:
+        while not self._closed:
+            try:
+                data = client.recv(4096)
+            except OSError:
+                return
+            if not data:
+                return
+            with self._lock:
+                process = self._process
+            if process is None or process.stdin is None:
+                continue
+            try:
+                process.stdin.write(data)
+                process.stdin.flush()
+            except (OSError, ValueError):
+                continue  # the board is off (a power cut): bytes sent now are lost, as on a real line
+
+    def _board_to_host(self, process: subprocess.Popen) -> None:
+        out = process.stdout
+        assert out is not None
+        while not self._closed:
+            try:
+                data = out.read1(4096) if hasattr(out, "read1") else os.read(out.fileno(), 4096)
+            except (OSError, ValueError):
+                return
+            if not data:
+                return
+            with self._lock:
+                client = self._client
+            if client is None:
+                continue  # no host on the line: the board's bytes go nowhere
+            with contextlib.suppress(OSError):
+                client.sendall(data)
+
+    def close(self) -> None:
+        self._closed = True
+        with contextlib.suppress(OSError):
+            self.server.close()
+        with self._lock:
+            client, self._client = self._client, None
+        if client is not None:
+            with contextlib.suppress(OSError):
+                client.close()
+
+
 class SimulatedBoard:
     """One simulated board: its flash image, its cell file and its firmware process behind a pty relay."""
 
@@ -301,7 +402,16 @@ class SimulatedBoard:
                  settings: dict[str, Any] | None = None, optics: dict[str, Any] | None = None,
                  interpreter: str = "auto", baud: int | None = None,
                  fault: Callable[[str, bytes], bytes] | None = None, ticks_start_ms: int = 0,
-                 flash_blocks: int = 352):
+                 flash_blocks: int = 352, link: str = "pty", tcp_port: int = 0):
+        if link == "auto":
+            link = "pty" if pty is not None else "socket"
+        if link not in ("pty", "socket"):
+            raise ValueError(f"link must be pty, socket or auto, not {link!r}")
+        if link == "pty" and pty is None:
+            raise RuntimeError("this system has no pseudo-terminals: serve the simulated board with link='socket'")
+        self.link = link
+        self.tcp_port = tcp_port
+        self.bridge: SocketBridge | None = None
         self.workdir = Path(workdir).resolve()  # the firmware runs in its own folder: paths must be absolute
         self.workdir.mkdir(parents=True, exist_ok=True)
         self.device = device
@@ -343,6 +453,8 @@ class SimulatedBoard:
         self.config_path.write_text(json.dumps(config, indent=1))
         # the folder names the board it holds, so `nightcell sim-cuvette --dir` finds its cuvette
         (self.workdir / SIM_DEVICE_FILE).write_text(self.device + "\n", encoding="ascii")
+        if self.link == "socket":
+            return self._start_on_socket()
         if self.relay is None:
             board_master, board_slave = pty.openpty()
             host_master, host_slave = pty.openpty()
@@ -365,10 +477,30 @@ class SimulatedBoard:
         self.boots += 1
         return self
 
+    def _start_on_socket(self) -> "SimulatedBoard":
+        """The firmware on pipes, reached on a local TCP port as ``socket://127.0.0.1:PORT``: no pty anywhere."""
+        script = firmware_dir() / "sim_main.py"
+        cmd = (micropython_command() if self.interpreter == "micropython" else [sys.executable]) or []
+        env = dict(os.environ)
+        env.pop("PYTHONPATH", None)
+        self._log = open(self.log_path, "ab")
+        self.process = subprocess.Popen(cmd + [str(script), str(self.config_path)], stdin=subprocess.PIPE,
+                                        stdout=subprocess.PIPE, stderr=self._log, cwd=str(firmware_dir()), env=env,
+                                        bufsize=0, **_new_session())
+        if self.bridge is None:
+            self.bridge = SocketBridge(self.tcp_port)
+            self.url = self.bridge.url
+        self.bridge.attach(self.process)
+        self.boots += 1
+        return self
+
     def power_cut(self) -> None:
         """Kill the firmware process at once (SIGKILL): a power cut."""
         if self.process and self.process.poll() is None:
-            os.killpg(self.process.pid, signal.SIGKILL)
+            if hasattr(os, "killpg"):
+                os.killpg(self.process.pid, signal.SIGKILL)
+            else:  # pragma: no cover — Windows
+                self.process.kill()
             self.process.wait(timeout=10)
         self.process = None
 
@@ -386,6 +518,9 @@ class SimulatedBoard:
 
     def stop(self) -> None:
         self.power_cut()
+        if self.bridge is not None:
+            self.bridge.close()
+            self.bridge = None
         _unplug_ptys(self)
         if getattr(self, "_log", None):
             self._log.close()
@@ -569,3 +704,64 @@ class UnixRepl:
 
     def __exit__(self, *exc: object) -> None:
         self.stop()
+
+
+# -- running simulated boards, so `nightcell boards` and `roll-call` list them beside real ones ---------------------
+
+def _registry() -> Path:
+    import tempfile
+
+    return Path(tempfile.gettempdir()) / "nightcell-sim-boards"
+
+
+def announce(sim: "SimulatedBoard") -> Path:
+    """Note a running simulated board (its URL, folder and device) where ``running_boards`` finds it."""
+    folder = _registry()
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / f"{sim.device}.json"
+    path.write_text(json.dumps({"port": sim.url, "device": sim.device, "dir": str(sim.workdir), "link": sim.link}))
+    return path
+
+
+def withdraw(sim: "SimulatedBoard") -> None:
+    (_registry() / f"{sim.device}.json").unlink(missing_ok=True)
+
+
+def _reachable(url: str) -> bool:
+    if url.startswith("socket://"):
+        host, _, port = url[len("socket://"):].partition(":")
+        try:
+            with socket.create_connection((host, int(port.split("?")[0])), timeout=0.2):
+                return True
+        except (OSError, ValueError):
+            return False
+    return os.path.exists(url)
+
+
+def running_boards() -> list[dict[str, Any]]:
+    """Simulated boards running on this computer (``nightcell sim-board``), in the shape of ``candidate_ports``.
+    A note left by a simulator that was killed is skipped when its port no longer answers."""
+    out = []
+    for path in sorted(_registry().glob("*.json")) if _registry().is_dir() else []:
+        try:
+            entry = json.loads(path.read_text())
+        except (OSError, ValueError):
+            continue
+        if isinstance(entry, dict) and isinstance(entry.get("port"), str) and _reachable(entry["port"]):
+            out.append({"port": entry["port"], "vid": 0, "pid": 0, "kind": "simulated board (nightcell sim-board, "
+                        f"--dir {entry.get('dir')})", "serial_number": entry.get("device"), "description": "sim"})
+    return out
+
+
+def remembered_port(folder: str | Path) -> dict[str, Any]:
+    """What the last ``sim-board`` in ``folder`` served (``link``, ``url``, ``tcp_port``), or {}."""
+    try:
+        got = json.loads((Path(folder) / "sim-board.json").read_text())
+        return got if isinstance(got, dict) else {}
+    except (OSError, ValueError):
+        return {}
+
+
+def remember_port(sim: "SimulatedBoard") -> None:
+    port = sim.bridge.port if sim.bridge is not None else None
+    (sim.workdir / "sim-board.json").write_text(json.dumps({"link": sim.link, "url": sim.url, "tcp_port": port}))

@@ -230,10 +230,11 @@ class Store(StoreQueries):
                 conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
             except sqlite3.OperationalError as exc:
                 conn.close()
-                if "unable to open" not in str(exc) and "readonly" not in str(exc):
+                if not any(w in str(exc) for w in ("unable to open", "readonly", "disk I/O")):
                     raise StoreError(f"cannot read {p} ({exc}): another program holds it; try again when it is "
                                      "done") from exc
-                # a WAL database whose folder cannot hold its -shm file: read it as the unchanging file it is
+                # a WAL database whose folder cannot hold its -shm file (read-only, or full): read it as the
+                # unchanging file it is
                 last = exc
                 continue
             except sqlite3.DatabaseError as exc:
@@ -271,6 +272,21 @@ class Store(StoreQueries):
             raise StoreError(f"cannot open {p} as a database ({exc}): is it a nightcell database file?") from exc
         store = cls(conn, str(p))
         try:
+            try:
+                conn.execute("SELECT count(*) FROM sqlite_master").fetchone()
+            except sqlite3.OperationalError as exc:
+                if "unable to open" in str(exc) or "readonly" in str(exc):
+                    raise StoreError(f"cannot open {p} for writing ({exc}): the file or its folder is read-only; "
+                                     "this command saves to the database, so copy it somewhere writable (reading "
+                                     "commands such as `nightcell list runs` and `nightcell report` work as it "
+                                     "is)") from exc
+                if "disk I/O" in str(exc) or "full" in str(exc):
+                    raise StoreError(f"cannot open {p} for writing ({exc}): its disk is full (or failing) — free "
+                                     "some space and try again; nothing was written") from exc
+                raise StoreError(f"cannot open {p} ({exc}): another program holds it; try again when it is "
+                                 "done") from exc
+            except sqlite3.DatabaseError as exc:
+                raise _not_ours(p, exc) from exc
             store._migrate(readonly=False)
             # Only once the file is known to be ours: WAL rewrites the header of any SQLite file it is set on,
             # and another program's database given by mistake must be left exactly as it was.
@@ -278,7 +294,7 @@ class Store(StoreQueries):
                 conn.execute("PRAGMA journal_mode = WAL")
             except sqlite3.DatabaseError as exc:
                 raise StoreError(f"cannot open {p} for writing ({exc}): another program holds it, or it is "
-                                 "read-only (reading commands such as `nightcell list runs` still work)") from exc
+                                 "read-only (reading commands such as `nightcell list runs` work as it is)") from exc
         except BaseException:
             conn.close()
             raise

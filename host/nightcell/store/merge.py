@@ -94,13 +94,15 @@ def merge_database(store: Store, source: str | Path, *, strict: bool = False) ->
 def _merge(store: Store, src: Path, strict: bool, held: contextlib.ExitStack) -> MergeReport:
     # a nightcell database of a version we can read, opened for reading only; one an older nightcell wrote is
     # read from a migrated copy (the file given is never changed)
+    # The source is read through a private copy: a read-only file or folder (where SQLite could not make the
+    # write-ahead log an ATTACH needs), or one an older nightcell wrote (migrated in memory), merges the same.
     source = held.enter_context(Store.open_read(src))
-    attach = str(src)
-    if source.copied:
-        folder = Path(held.enter_context(tempfile.TemporaryDirectory(prefix="nightcell-merge-")))
-        attach = str(folder / "source.db")
-        target = sqlite3.connect(attach)
+    folder = Path(held.enter_context(tempfile.TemporaryDirectory(prefix="nightcell-merge-")))
+    attach = str(folder / "source.db")
+    target = sqlite3.connect(attach)
+    try:
         source.conn.backup(target)
+    finally:
         target.close()
     source.close()
     report = MergeReport(str(src))

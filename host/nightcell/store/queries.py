@@ -58,6 +58,11 @@ class StoreQueries:
             "SELECT DISTINCT device, boot, seq, wall_clock_utc FROM mark_readings WHERE mark = ?", (mark,))
         return {(dev, boot, seq): utc or "" for dev, boot, seq, utc in rows}
 
+    def mark_reading(self, device: str, boot: int, seq: int) -> dict[str, Any] | None:
+        """A mark's kind, label and wall-clock time (UTC text, None where its boot has no clock), or None."""
+        return self._one("SELECT mark, label, wall_clock_utc FROM mark_readings WHERE device = ? AND boot = ? "
+                         "AND seq = ? LIMIT 1", (device, int(boot), int(seq)))
+
     # -- devices, boots, clocks, settings, events --------------------------------------------------------------------
     def device(self, device: str) -> dict[str, Any] | None:
         """The devices row of ``device`` (board profile, firmware, label, last seen)."""

@@ -37,6 +37,7 @@ from ..science import calibration as _calibration
 from ..science import kinetics as _kinetics
 from ..science import optics as _optics
 from ..science import study as _study
+from ..render.numbers import local_time
 from ..errors import AnalysisError, InputError, SuspectData
 from ..science.fitting import FitResult, jsonable
 from ..store.database import Run, Store
@@ -134,9 +135,29 @@ def _mark_before(store: Store, device: str, kind: str, before: tuple[int, int] |
     return _with_counts(store, store.mark(device, boot, seq))
 
 
+def describe_mark(store: Store, device: str, key: tuple[int, int] | None) -> str:
+    """A mark as a person knows it: its kind, label and local time (``the run 'fading 1' started 2026-12-01 14:20
+    CET``); the mark key (boot:seq) only when it has neither label nor time."""
+    if key is None:
+        return "the end of the journal"
+    r = store.mark_reading(device, int(key[0]), int(key[1]))
+    if r is None:
+        return f"record {key[0]}:{key[1]}"
+    kind = {"run_start": "the start of run", "run_stop": "the stop of run"}.get(r["mark"], f"the {r['mark']}")
+    when = local_time(r["wall_clock_utc"], seconds=False) if r["wall_clock_utc"] else ""
+    what = f"{kind} {r['label']!r}" if r["label"] else kind
+    return f"{what}{' of ' + when if when else ''}" if when or r["label"] else f"{kind} {key[0]}:{key[1]}"
+
+
+def _device_name(store: Store, device: str) -> str:
+    row = store.device(device)
+    return repr(row["label"]) if row is not None and row["label"] else device
+
+
 def _mark_means(mark: dict[str, Any], channel: int) -> tuple[float, float]:
     if mark["reads"] <= 0 or channel >= len(mark["light"]):
-        raise AnalysisError(f"mark {mark['boot']}:{mark['seq']} has no counts for channel {channel}")
+        what = f"{mark['mark']} {mark['label']!r}" if mark.get("label") else f"mark {mark['boot']}:{mark['seq']}"
+        raise AnalysisError(f"the {what} has no counts for light channel {channel}: choose another --channel")
     return mark["light"][channel] / mark["reads"], mark["dark"][channel] / mark["reads"]
 
 
@@ -211,12 +232,14 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
             m = _mark_after(store, device, "blank", before)
             rule = AFTER_RULE
             if m is not None:
-                warnings.append(f"no blank before {before[0]}:{before[1]}: absorbance is read against blank "
-                                f"{m['boot']}:{m['seq']}, taken after; the cell may have changed in between — "
-                                "take a blank before each run, or name one with --blank")
+                warnings.append(f"no blank before {describe_mark(store, device, before)}: absorbance is read "
+                                f"against {describe_mark(store, device, (m['boot'], m['seq']))}, taken after; the "
+                                "cell may have changed in between — take a blank before each run, or name one with "
+                                "--blank")
         if m is None:
-            raise AnalysisError(f"device {device} has no blank before {before}: take a blank first "
-                                "(`nightcell blank`) or name one")
+            raise AnalysisError(f"device {_device_name(store, device)} has no blank before "
+                                f"{describe_mark(store, device, before)}: take a blank first (`nightcell blank`) "
+                                "or name one")
     light, dark = _mark_means(m, channel)
     key = f"{m['boot']}:{m['seq']}"
     problems = _optics.blank_problems(light, dark, _earlier_blank_signals(store, device, m, channel))
@@ -496,7 +519,8 @@ def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] 
     else:
         keep = np.isin(boot_col, [bt for bt in boots if bt in clocks])
         if not keep.any():
-            raise AnalysisError(f"run {run.key} spans boots {boots} with no clock anchors: connect the board and "
+            raise AnalysisError(f"run {run.label or run.key!r} spans {len(boots)} boots (restarts) with no clock "
+                                "anchors: connect the board and "
                                 "sync so its time can be placed")
         warnings.append("samples from boots without a clock anchor were left out")
         boot_col, up = boot_col[keep], up[keep]
@@ -654,6 +678,28 @@ def run_conditions(store: Store, run: Run | str | None = None) -> dict[str, dict
 _RESET_CAUSES = {0: "power on", 1: "watchdog", 2: "hard reset", 3: "reset requested by the host"}
 
 
+def run_notes(store: Store, analysis: RunAnalysis) -> list[dict[str, Any]]:
+    """Notes journaled during a run (``nightcell note`` or the board's button), placed on the run's time axis.
+
+    A note sits between two readings in the journal; it is given the time of the reading just before it (at most one
+    sample interval early). Returns ``[{"time_s", "text", "mark"}]`` in journal order; the mark key is for detail.
+    """
+    run = analysis.run
+    seqs = analysis.seqs
+    if not seqs:
+        return []
+    first, last = seqs[0], seqs[-1]
+    out = []
+    for m in store.marks(run.device, "note"):
+        key = (m["boot"], m["seq"])
+        if not (first <= key <= last):
+            continue
+        i = bisect.bisect_right(seqs, key) - 1
+        out.append({"time_s": float(analysis.time_s[max(i, 0)]), "text": m["label"] or m["value"] or "",
+                    "mark": f"{key[0]}:{key[1]}"})
+    return out
+
+
 def run_provenance(store: Store, analysis: RunAnalysis, calibration: Any = None) -> dict[str, Any]:
     """Where a run's numbers come from: device, firmware, boots, clocks, blank, calibration, settings and conditions.
 
@@ -801,7 +847,7 @@ def _pick_group(items: list[RunSummary], key: Any, level: Any) -> list[RunSummar
     return max(good, key=lambda g: (len({level(it) for it in g}), len(g)))
 
 
-def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str = "first_order_plateau",
+def analyse_study(store: Store, runs: Sequence[Run] | None = None, *, model: str = "first_order_to_final",
                   channel: int = 0, level: float = 0.95) -> StudyAnalysis:
     """Every run with its recorded conditions → per-run k (``model``) → orders and Arrhenius/Eyring (study.py).
 

@@ -5,7 +5,7 @@ fading in alkali on two benches. Each bench calibrates its colorimeter with a bl
 then runs the fading at three hydroxide concentrations at 25 °C; bench B at one hydroxide concentration at 15, 25
 and 35 °C. The host is unplugged while each run logs; the power to bench B fails in the middle of its 15 °C run and
 comes back. At the end the host syncs each board once into one database, records the conditions from the class's
-bench sheet, fits every run (first order towards a plateau), the order in hydroxide, Arrhenius and Eyring, and writes
+bench sheet, fits every run (first order, towards a final absorbance), the order in hydroxide, Arrhenius and Eyring, and writes
 a study report and one report per run. The firmware is the real one, in MicroPython's unix interpreter when
 installed (else CPython), behind pseudo-terminals, with accelerated clocks; the two benches run side by side.
 
@@ -31,6 +31,7 @@ from ..sim.board import SimulatedBoard, micropython_command
 from ..store.database import Store
 from ..science.study import GAS_CONSTANT
 from ..store.sync import sync_board
+from ..render import numbers as _n
 
 __all__ = ["DemoScenario", "PlannedRun", "DemoOutcome", "run_demo", "VirtualClock", "SAFETY"]
 
@@ -77,7 +78,7 @@ class DemoScenario:
     path_cm: float = 1.0
     standards_uM: tuple[float, ...] = (2.0, 4.0, 6.0, 8.0, 10.0)
     start_uM: float = 9.0                # dye at the start of every run
-    a_inf: float = 0.035                 # a faint product colour: the plateau is not zero
+    a_inf: float = 0.035                 # a faint product colour: the final absorbance is not zero
     k_ref_per_s: float = 0.004           # pseudo-first-order k at the reference hydroxide and temperature
     ref_hydroxide_M: float = 0.020
     ref_temperature_C: float = 25.0
@@ -169,6 +170,7 @@ class _Bench:
                 stale.unlink()
         self.error: BaseException | None = None
         self.power_cut: dict[str, Any] = {}
+        self.say: Callable[[str], None] = lambda text: None  # progress, from this bench's thread
         self.sync: dict[str, Any] = {}
 
     def _anchor(self, board: Board) -> None:
@@ -199,6 +201,8 @@ class _Bench:
         board.close()
         sim.unplug()
         length = sc.run_seconds(run)
+        self.say(f"{self.name}: run '{sc.label(run)}' logging with the host unplugged ({length / 60:.0f} min of "
+                 f"board time)" + (", power cut planned in the middle" if run.power_cut else ""))
         if run.power_cut:
             self.clock.sleep(length * sc.power_cut_at)
             sim.power_cut()
@@ -228,8 +232,10 @@ class _Bench:
             board = _open_board(self.sim.url)
             try:
                 self.calibrate(board)
+                self.say(f"{self.name}: dark, blank, opaque and {len(self.sc.standards_uM)} standards measured")
                 for i, run in enumerate(self.runs):
                     board = self.log_run(board, run, last=i == len(self.runs) - 1)
+                self.say(f"{self.name}: all runs logged; plugged in to sync")
                 with Store.open(self.db) as store:
                     summary = sync_board(board, store, clock=self.clock)
                 self.sync = summary.to_dict()
@@ -254,11 +260,11 @@ def _power_cut_facts(store: Store, device: str, before: dict[str, Any]) -> dict[
     facts["events"] = store.event_texts(device, boot)
     facts["samples_after_restart"] = store.sample_count(device, boot, channel=0)
     if resumed:
-        facts["what_happened"] = ("the board restarted, journaled a run_start mark of its own (source 2) and went on "
-                                  f"logging the run: {facts['samples_after_restart']} readings after the restart")
+        facts["what_happened"] = ("the board restarted, noted on its own that it was resuming the run, and went on "
+                                  f"logging it: {facts['samples_after_restart']} readings after the restart")
     else:
-        facts["what_happened"] = ("the board restarted but did not resume the run (no run_start of its own, "
-                                  f"{facts['samples_after_restart']} readings after the restart): the run ends at "
+        facts["what_happened"] = ("the board restarted but did not resume the run "
+                                  f"({facts['samples_after_restart']} readings after the restart): the run ends at "
                                   "the power cut and is analysed from the readings before it")
     return facts
 
@@ -281,6 +287,8 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
     benches = [_Bench(sc, i, out / "boards", db_path, interpreter, clock) for i in range(len(sc.benches))]
     say(f"two simulated boards ({benches[0].sim.interpreter}, clocks ×{sc.speed:g}): {len(sc.runs)} runs on the "
         "bench sheet, each logged with the host unplugged; the power to bench B fails in the middle of one run")
+    for b in benches:
+        b.say = say
     threads = [threading.Thread(target=b, name=b.name, daemon=True) for b in benches]
     for t in threads:
         t.start()
@@ -303,7 +311,9 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
                 continue
             set_run_condition(store, run, "temperature_K", p.temperature_C + 273.15, source)
             set_run_condition(store, run, "conc_hydroxide_M", p.hydroxide_M, source)
+        say("analysing: every run's rate laws, the order in hydroxide and the activation energy ...")
         study = analyse_study(store)
+        say(f"drawing the report: one page per run ({len(study.runs)}) and the study page ...")
         cut_bench = next((b for b in benches if b.power_cut), None)
         cut = _power_cut_facts(store, cut_bench.device, cut_bench.power_cut) if cut_bench else {}
         rows = []
@@ -340,7 +350,7 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
                            f"{sc.order_hydroxide:g}",
                            f"{(order.values['order'] - sc.order_hydroxide) / order.stderr['order']:+.2f}"))
         if ea:
-            truth_rows.append(("Ea (kJ/mol)", "", pm(ea["Ea_kJ_per_mol"], ea["Ea_se_kJ_per_mol"]),
+            truth_rows.append(("Ea (kJ mol⁻¹)", "", pm(ea["Ea_kJ_per_mol"], ea["Ea_se_kJ_per_mol"]),
                                f"{sc.ea_J_per_mol / 1000:g}",
                                f"{(ea['Ea_kJ_per_mol'] - sc.ea_J_per_mol / 1000) / ea['Ea_se_kJ_per_mol']:+.2f}"))
         extra = [{"title": "The scenario's own numbers against what the fits recovered",
@@ -381,13 +391,15 @@ def run_demo(out: str | Path, *, force: bool = False, interpreter: str = "auto",
     outcome = DemoOutcome(out, db_path, written.page, figures, benches[0].sim.interpreter, summary,
                           time.monotonic() - t_start, run_files)
     for r in rows:
-        say(f"  {r['bench']}, {r['hydroxide_M'] * 1000:g} mM, {r['temperature_C']:g} °C: k = {r['k_per_s']:.4g} ± "
-            f"{r['k_se_per_s']:.2g} s⁻¹ (scenario {r['k_true_per_s']:.4g}; boots {r['boots']})")
-    say(f"order in hydroxide {order.values['order']:.3f} ± {order.stderr['order']:.2g} (scenario "
+        restarts = len(r["boots"]) - 1
+        say(f"  {r['bench']}, {r['hydroxide_M'] * 1000:g} mM, {r['temperature_C']:g} °C: "
+            f"k = {_n.measured(r['k_per_s'], r['k_se_per_s'], 's⁻¹')} (scenario {r['k_true_per_s']:.4g} s⁻¹"
+            + (f"; the board restarted {restarts} time(s) during the run)" if restarts else ")"))
+    say(f"order in hydroxide {_n.measured(order.values['order'], order.stderr['order'])} (scenario "
         f"{sc.order_hydroxide:g})")
-    if ea:
-        say(f"Ea {ea['Ea_kJ_per_mol']:.1f} ± {ea['Ea_se_kJ_per_mol']:.1f} kJ/mol (scenario "
-            f"{sc.ea_J_per_mol / 1000:g})")
+    if study.arrhenius is not None:
+        say(f"{_n.activation_energy(study.arrhenius.values['Ea_J_per_mol'], study.arrhenius.stderr['Ea_J_per_mol'])}"
+            f" (scenario {sc.ea_J_per_mol / 1000:g} kJ mol⁻¹)")
     if cut:
         say(f"power cut: {cut['what_happened']}")
     say(f"report: {written.page} (one page per run in {out / 'runs'})")

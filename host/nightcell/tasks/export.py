@@ -21,17 +21,18 @@ from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
 from ..render import report as _report
-from .analyse import analyse_run, calibrate_from_store, run_conditions, run_provenance, run_series
+from .analyse import analyse_run, calibrate_from_store, run_conditions, run_notes, run_provenance, run_series
 from ..errors import AnalysisError, InputError, SuspectData
 from ..science.optics import flag_names
 from ..render.report import out_folder, write_atomic
 from ..store.database import Run, Store
 
-__all__ = ["resolve_run", "run_name", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
+__all__ = ["did_you_mean", "resolve_run", "run_name", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
 
 
 def resolve_run(store: Store, text: str | None) -> Run:
-    """The run whose key (``device:boot:seq``) or label is ``text``; with None, the only run in the database.
+    """The run whose key (``device:boot:seq``), label or number (``3`` or ``#3``, its place in ``nightcell list
+    runs``) is ``text``; with None, the only run in the database. A label that is a number wins over the number.
 
     ``InputError`` (saying what to type) when nothing or more than one run matches.
     """
@@ -50,10 +51,29 @@ def resolve_run(store: Store, text: str | None) -> Run:
     if len(by_label) == 1:
         return by_label[0]
     if len(by_label) > 1:
-        raise InputError(f"{len(by_label)} runs are labelled {text!r}: name one by its key "
-                         f"({', '.join(r.key for r in by_label)})")
+        numbers = [f"{runs.index(r) + 1}" for r in by_label]
+        raise InputError(f"{len(by_label)} runs are labelled {text!r}: name one by its number "
+                         f"({', '.join(numbers)}, as `nightcell list runs` shows them)")
+    number = text[1:] if text.startswith("#") else text
+    if number.isdigit() and 1 <= int(number) <= len(runs):  # the number `nightcell list runs` shows
+        return runs[int(number) - 1]
+    close = did_you_mean(text, [r.label for r in runs if r.label] + [r.key for r in runs])
+    if close:
+        raise InputError(f"no run {text!r} in {store.path}{close} Give a run's key or label as `nightcell list runs "
+                         f"--db {store.path}` shows it")
     raise InputError(f"no run {text!r} in {store.path}: give a run's key or label "
                      f"(see `nightcell list runs --db {store.path}`)")
+
+
+def did_you_mean(text: str, known: Sequence[str]) -> str:
+    """``"; did you mean 'fading 25 C'?"`` naming up to three of ``known`` closest to ``text`` ("" when none is)."""
+    import difflib
+
+    close = difflib.get_close_matches(text, list(dict.fromkeys(known)), n=3, cutoff=0.6)
+    if not close:
+        lowered = {k.lower(): k for k in known}
+        close = [lowered[k] for k in difflib.get_close_matches(text.lower(), list(lowered), n=3, cutoff=0.6)]
+    return f"; did you mean {' or '.join(repr(c) for c in close)}?" if close else ""
 
 
 def run_name(run: Run) -> str:
@@ -153,7 +173,7 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
     provenance = run_provenance(store, analysis, cal)
     conditions = run_conditions(store, run).get(run.key)
     files = _report.run_report(analysis, out, calibration=cal, provenance=provenance, conditions=conditions,
-                               name=run_name(run), cache=cache)
+                               name=run_name(run), cache=cache, notes=run_notes(store, analysis))
     done.files += files.files
     return done
 
@@ -186,7 +206,7 @@ def study_report(store: Store, out: str | Path, channel: int = 0, *, level: floa
         prov = run_provenance(store, it.analysis, it.calibration)
         files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
                                    conditions=conds.get(it.run.key), name=(page_name or run_name)(it.run),
-                                   cache=cache, unit=unit)
+                                   cache=cache, unit=unit, notes=run_notes(store, it.analysis))
         pages[it.run.key] = f"runs/{files.html.name}"
         done.files += files.files
         done.run_pages.append(files.html)
@@ -194,7 +214,8 @@ def study_report(store: Store, out: str | Path, channel: int = 0, *, level: floa
     if provenance is None:
         provenance = {"database": store.path, "runs": len(study.runs), "channel": channel}
     files = _report.study_report(study, out, name=name, title=title, intro=intro, provenance=provenance,
-                                 run_pages=pages, extra_sections=extra_sections, unit=unit)
+                                 run_pages=pages, extra_sections=extra_sections, unit=unit,
+                                 device_labels={d["device"]: d["label"] for d in store.devices()})
     done.files = files.files + done.files
     done.page = files.html
     done.figures = files.figures + done.figures

@@ -51,7 +51,7 @@ class Blank:
 
     def describe(self) -> str:
         label = f" {self.label!r}" if self.label else ""
-        return f"blank {self.boot}:{self.seq}{label} (from the {self.source})"
+        return f"blank{label} (from the {self.source})"
 
 
 def blank_from_mark(mark: dict[str, Any], source: str) -> Blank:
@@ -198,14 +198,11 @@ def render(statuses: Sequence[dict[str, Any]], blank: Blank | None, info: dict[s
     head = Table.grid(padding=(0, 2))
     head.add_column(style="bold")
     head.add_column()
-    who = Text(str(info.get("device", "board")))
-    if info.get("label"):
-        who.append("  ")
-        who.append(Text(str(info["label"])))
+    who = Text(str(info.get("label") or info.get("device", "board")))  # the id is in `hello --detail`
     head.add_row("board", who)
     state = "logging a run" if st.get("running") else "idle (not logging)"
     head.add_row("state", f"{state}; interval {int(st.get('interval_ms', info.get('interval_ms', 0))) / 1000:g} s; "
-                          f"{int(st.get('samples', 0))} samples this boot")
+                          f"{int(st.get('samples', 0))} samples since it was switched on")
     head.add_row("blank", Text(blank.describe() if blank else
                                "none yet: take one with `nightcell blank`; absorbance needs it"))
 
@@ -237,7 +234,7 @@ def render(statuses: Sequence[dict[str, Any]], blank: Blank | None, info: dict[s
         width = 30
         filled = int(round(fill["fraction"] * width))
         bar = "█" * filled + "░" * (width - filled)
-        journal.add_row("journal", f"{bar} {fill['fraction']:.1%} used "
+        journal.add_row("storage", f"{bar} {fill['fraction']:.1%} used "
                                    f"({fill['used_bytes'] / 1024:.0f} KiB of "
                                    f"{(fill['used_bytes'] + fill['free_bytes']) / 1024:.0f} KiB)")
         if fill["full"]:
@@ -246,7 +243,7 @@ def render(statuses: Sequence[dict[str, Any]], blank: Blank | None, info: dict[s
             left = Text(f"full in about {format_duration(fill['seconds_left'])} of board time at "
                         f"{fill['bytes_per_s']:.1f} bytes/s (sync before then)")
         elif st.get("running"):
-            left = Text("full in: estimating (the journal grows a block of samples at a time; this needs two "
+            left = Text("full in: estimating (the board stores a block of samples at a time; this needs two "
                         "blocks to arrive while watched)")
         else:
             left = Text("not filling: no run is logging")

@@ -62,6 +62,11 @@ class Table:
     units: dict[str, str] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
     rows: list[int] = field(default_factory=list)
+    first_line: int = 2  # the line of the first data row when ``rows`` is empty (a plain file read in one go)
+
+    def line(self, i: int) -> int:
+        """The file's line (or sheet row) of data row ``i``."""
+        return self.rows[i] if self.rows else self.first_line + i
 
     def to_dict(self) -> dict[str, Any]:
         return {"file": self.path.name, "units": dict(self.units), "notes": list(self.notes)}
@@ -115,6 +120,24 @@ def _decode(path: Path, raw: bytes) -> tuple[str, str]:
         line = raw.count(b"\n", 0, exc.start) + 1
         raise InputError(f"cannot read {path}: line {line} is not UTF-8 text (byte {raw[exc.start]:#04x}): save it "
                          "as 'CSV UTF-8' from the spreadsheet") from None
+
+
+class _Head(str):
+    """The first 64 KB of a plain UTF-8 file as text: enough to find the header and the dialect. The rest stays
+    bytes for ``numpy.loadtxt`` (which refuses a bad byte, sending the read to the careful path)."""
+
+
+def _decode_lazily(path: Path, raw: bytes) -> tuple[str, str]:
+    if len(raw) <= 65536 or raw.startswith((codecs.BOM_UTF8, codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)) or \
+            b"\x00" in raw[:4096] or b"\r" in raw[:65536]:
+        return _decode(path, raw)
+    piece = raw[:65536]
+    for cut in range(4):  # a character may straddle the cut
+        try:
+            return _Head(piece[:len(piece) - cut].decode("utf-8")), "UTF-8"
+        except UnicodeDecodeError:
+            continue
+    return _decode(path, raw)
 
 
 def _detect_delimiter(lines: list[str]) -> str | None:
@@ -232,14 +255,17 @@ def read_table(path: str | Path, required: Sequence[str], optional: Sequence[str
             raise InputError(f"--sheet applies to spreadsheets ({', '.join(SHEET_SUFFIXES)}), not to {p.name}")
         with open(p, "rb") as fh:
             raw = fh.read()
-        content, encoding = _decode(p, raw)
+        content, encoding = _decode_lazily(p, raw)
         if encoding != "UTF-8":
             notes.append(f"read as {encoding} text")
+        partial = isinstance(content, _Head) or len(content) > 65536
         head = content[:65536].splitlines()
-        if len(content) > 65536:
+        if partial:
             head = head[:-1]  # the last line of the slice may be cut
         first = next((i for i, ln in enumerate(head) if ln.strip()), None)
-        if first is None and len(content) > 65536:
+        if first is None and partial:
+            if isinstance(content, _Head):
+                content, _ = _decode(p, raw)
             head = content.splitlines()
             first = next((i for i, ln in enumerate(head) if ln.strip()), None)
         if first is None:
@@ -255,10 +281,13 @@ def read_table(path: str | Path, required: Sequence[str], optional: Sequence[str
             decimal = "." if delimiter == "," else _detect_decimal(data_sample, delimiter)
         if decimal == ",":
             notes.append("decimal comma")
-        fast = _fast_path(p, raw if encoding == "UTF-8" else content.encode("utf-8"), head[first], delimiter,
-                          decimal, required, optional, prefix, text, min_rows, notes)
+        plain = encoding == "UTF-8" and not raw.startswith(codecs.BOM_UTF8)
+        fast = _fast_path(p, raw if plain else content.encode("utf-8"), head[first], delimiter, decimal, required,
+                          optional, prefix, text, min_rows, notes, from_file=plain)
         if fast is not None:
             return fast
+        if isinstance(content, _Head):
+            content, _ = _decode(p, raw)  # the careful path reads every byte as text (and names a bad one)
         lines = content.splitlines()
         first = next(i for i, ln in enumerate(lines) if ln.strip())
         grid, row_numbers = _csv_rows(p, lines, first, delimiter)
@@ -449,7 +478,7 @@ def _columns(p: Path, headers: list[_Header], data: list[list[Any]], numbers: li
 
 def _fast_path(p: Path, data: bytes, header_line: str, delimiter: str, decimal: str, required: Sequence[str],
                optional: Sequence[str], prefix: str | None, text: Sequence[str], min_rows: int,
-               notes: list[str]) -> Table | None:
+               notes: list[str], from_file: bool = False) -> Table | None:
     """A plain numeric file (UTF-8 ``data``) read by ``numpy.loadtxt`` in one go; None to take the careful path
     (which also gives the precise message for anything wrong)."""
     if text:
@@ -468,20 +497,24 @@ def _fast_path(p: Path, data: bytes, header_line: str, delimiter: str, decimal: 
     start = data.find(head)
     if start < 0 or data[start + len(head):start + len(head) + 1] != b"\n":
         return None
-    body = data[start + len(head) + 1:]
+    first_line = data.count(b"\n", 0, start) + 2
+    begin = start + len(head) + 1  # the body is read in place: no copy of a 10^6-row file
     # quotes, CRs, clock times and blank lines: the careful path counts and reads them as a person would
     # (loadtxt skips blank lines, which the row count below then catches)
-    if not body or any(mark in body for mark in (b'"', b"\r", b":")):
+    if begin >= len(data) or any(data.find(mark, begin) >= 0 for mark in (b'"', b"\r", b":")):
         return None
+    skip = data.count(b"\n", 0, begin)
+    source: Any = p if from_file else io.BytesIO(data)  # numpy reads a file by its path fastest
     if decimal == ",":
-        body = body.replace(b",", b".")
+        data, begin, skip = data[begin:].replace(b",", b"."), 0, 0
+        source = io.BytesIO(data)
     columns = [h.index for h in wanted]
     try:
-        values = np.loadtxt(io.BytesIO(body), delimiter=delimiter, ndmin=2, dtype=float, comments=None,
-                            usecols=None if columns == list(range(len(headers))) else columns)
+        values = np.loadtxt(source, delimiter=delimiter, ndmin=2, dtype=float, comments=None, skiprows=skip,
+                            encoding="utf-8", usecols=None if columns == list(range(len(headers))) else columns)
     except ValueError:
         return None
-    rows = body.count(b"\n") + (0 if body.endswith(b"\n") else 1)
+    rows = data.count(b"\n", begin) + (0 if data.endswith(b"\n") else 1)
     if values.shape[0] != rows or values.shape[0] < min_rows or not np.all(np.isfinite(values)):
         return None
     _describe(wanted, notes)
@@ -491,4 +524,4 @@ def _fast_path(p: Path, data: bytes, header_line: str, delimiter: str, decimal: 
         out[h.name] = values[:, j] * h.scale if h.scale != 1.0 else values[:, j]
         if h.unit:
             units[h.name] = h.unit
-    return Table(p, out, units, notes, [])
+    return Table(p, out, units, notes, [], first_line=first_line)

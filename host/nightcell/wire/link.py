@@ -179,6 +179,14 @@ class Board:
     def open(cls, url: str, *, timeout: float = 5.0, baudrate: int = 115200) -> "Board":
         return cls(Transport.open(url, baudrate=baudrate), timeout=timeout)
 
+    def transfer_seconds(self, nbytes: int) -> float:
+        """How long ``nbytes`` take on the wire at the link's baud rate (8N1: 10 bits a byte); 0 where the URL has
+        no baud rate (a pty, a socket)."""
+        baud = getattr(getattr(self.transport, "port", None), "baudrate", None)
+        # at 115 200 baud and above a chunk crosses in a fraction of any timeout (and a pty or a board's own USB
+        # ignores the rate): only a slower bridge, given with --baud, lengthens the waits
+        return 0.0 if not baud or baud >= 115200 else nbytes * 10.0 / float(baud)
+
     def close(self) -> None:
         self.transport.close()
 
@@ -235,13 +243,20 @@ class Board:
 
     # -- commands -----------------------------------------------------------------------------------------------
 
-    def hello(self, timeout: float | None = 2.0) -> dict[str, Any]:
-        """Identify the board; ``DeviceNotFound`` if nothing answers (``retries`` tries of ``timeout`` s each)."""
+    def hello(self, timeout: float | None = None) -> dict[str, Any]:
+        """Identify the board; ``DeviceNotFound`` if nothing answers (``retries`` tries of ``timeout`` s each, by
+        default the board's own ``timeout``, so ``--timeout`` reaches it)."""
+        wait = self.timeout if timeout is None else timeout
+        heard = self.transport.bytes_in
         try:
-            info = self._json("hello", timeout=timeout)
+            info = self._json("hello", timeout=wait)
         except DeviceTimeout as exc:
+            got = self.transport.bytes_in - heard
+            seen = ("nothing came back" if got == 0 else
+                    f"{got} bytes came back, none of them a nightcell reply (another device, or the wrong baud rate?)")
             raise DeviceNotFound(
-                f"no board answered on {self.transport.url} — is it plugged in and running nightcell firmware?"
+                f"no board answered on {self.transport.url} within {self.retries} tries of {wait:g} s ({seen}) — is "
+                "it plugged in and running nightcell firmware? A slow link may need a longer --timeout"
             ) from exc
         if not isinstance(info, dict) or info.get("protocol") != 1:
             raise ProtocolError(f"the device on {self.transport.url} speaks an unknown protocol: {info!r:.200}")
@@ -368,7 +383,9 @@ class JournalPull:
         self.until = until
         self.depth = max(1, depth)
         self.max_bytes = max_bytes
-        self.timeout = board.timeout if timeout is None else timeout
+        # a chunk (and the one queued behind it) must have time to cross a slow link: 4 KB take 17 s at 2400 baud
+        base = board.timeout if timeout is None else timeout
+        self.timeout = base + 2 * (depth + 1) * board.transfer_seconds(max_bytes + 16)
         self.retries = board.retries if retries is None else retries
         self.requests = 0
         self.resends = 0
