@@ -103,12 +103,18 @@ def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_labe
     return recs
 
 
+SCRIPTED_JOURNAL = 0x5C0FF1ED
+"""The journal id a ``ScriptedBoard`` reports: the stored databases hold that journal, so a scripted board whose
+records differ from them replays its keys with other content (a forged board), not a new journal."""
+
+
 def store_as_synced(path: Path, device: str, records: list[F.Record]) -> Path:
-    """A nightcell database holding decoded journal ``records`` of ``device``, as a sync would have stored them."""
+    """A nightcell database holding decoded journal ``records`` of ``device``, as a sync of the scripted board's
+    journal (``SCRIPTED_JOURNAL``) would have stored them."""
     with Store.open(path) as store:
         with store.write():
             store.touch_device(device, board="sim", firmware="0.1.0", label="bench")
-            store.ingest(device, records, journal=1)
+            store.ingest(device, records, journal=SCRIPTED_JOURNAL)
             rebuild_clocks(store, device)
     return path
 
@@ -395,7 +401,7 @@ class ScriptedBoard:
         self.read_offset = read_offset
         self.gap_from = gap_from
         self.max_reply = max_reply
-        info = dict(HELLO, device=device, journal=0x5C0FF1ED, head=len(self.journal) + read_offset, tail=0)
+        info = dict(HELLO, device=device, journal=SCRIPTED_JOURNAL, head=len(self.journal) + read_offset, tail=0)
         for k, v in (hello or {}).items():
             if v is self.MISSING:
                 info.pop(k, None)
@@ -670,7 +676,7 @@ CASES = [
     Case("hello whose interval is text, before start", ["start", "--label", "x"], 3,
          "'interval_ms' must be a whole number", port=lambda: ScriptedBoard(hello={"interval_ms": "2 s"}),
          never_sent=("start",)),
-    Case("board replaying another journal's keys with other content", ["sync", "--db", "{db}"], 3,
+    Case("board replaying a stored journal's keys (same journal id) with other content", ["sync", "--db", "{db}"], 3,
          "would change rows already stored here",
          port=lambda: ScriptedBoard(journal_records(run_label="forged run"), device=DEVICE), never_sent=("ack",)),
     Case("disk full in the middle of a sync", ["sync", "--db", "{db}"], 4, "database or disk is full",
@@ -1229,7 +1235,7 @@ def test_disk_full_mid_sync_acknowledges_only_what_was_committed_and_a_second_sy
         _sync_scripted(board, db, max_pages=needed // 2)  # room for about half of what the whole sync needs
     assert err.value.exit_code == 4
     with Store.open(db) as store:
-        state = store.journal_state(device, 0x5C0FF1ED)
+        state = store.journal_state(device, SCRIPTED_JOURNAL)
         samples_before = store.count("samples")
     assert state is not None and board.acks, "the disk filled before any batch committed: the test proves nothing"
     assert max(board.acks) <= state[0] < len(board.journal), (board.acks, state)
@@ -1238,7 +1244,7 @@ def test_disk_full_mid_sync_acknowledges_only_what_was_committed_and_a_second_sy
     summary = _sync_scripted(again, db)
     with Store.open(db) as store:
         assert store.count("samples") == 600  # three boots of 200 samples, each once
-        assert store.journal_state(device, 0x5C0FF1ED) == (len(board.journal), len(board.journal))
+        assert store.journal_state(device, SCRIPTED_JOURNAL) == (len(board.journal), len(board.journal))
     assert summary.start == state[0] and max(again.acks) == len(board.journal)
 
 
@@ -1258,7 +1264,7 @@ def test_a_gap_after_some_progress_stops_the_sync_and_nothing_past_it_is_acknowl
         _sync_scripted(board, db)
     assert err.value.exit_code == 3
     with Store.open(db) as store:
-        stored_to, acked_to = store.journal_state(device, 0x5C0FF1ED)
+        stored_to, acked_to = store.journal_state(device, SCRIPTED_JOURNAL)
     assert board.acks and max(board.acks) <= board.gap_from and stored_to <= board.gap_from
 
 
@@ -1296,7 +1302,7 @@ def test_a_forged_board_with_the_stored_journal_id_and_other_content_is_refused_
     shutil.copy(template, db)
     before = snapshot(db)
     forged = journal_records(run_label="forged run", blank_label="not water")
-    board = ScriptedBoard(forged, device=DEVICE, hello={"journal": 1})
+    board = ScriptedBoard(forged, device=DEVICE, hello={"journal": SCRIPTED_JOURNAL})
     with pytest.raises(RecordConflict, match="its marks row of boot 1, seq 3 differs") as err:
         _sync_scripted(board, db)
     assert err.value.exit_code == 3 and board.acks == []

@@ -136,6 +136,45 @@ def test_an_older_database_is_migrated_when_opened(tmp_path, vectors):
         assert s.count("sync_sessions") == 0
 
 
+def test_migration_0006_keeps_every_row_and_numbers_a_later_journal_apart(tmp_path, vectors):
+    """A database written before journals were told apart (every migration but 0006, rows of one synced journal and
+    an anchor whose boot has no boots row) is migrated with every row as it was; each stored boot keeps its number,
+    recorded with its journal (from its boots row, else the device's only journal). Records of a second journal
+    with the same boot and seq numbers are then stored beside them, under boot numbers of their own; the same
+    records again add nothing, and the first journal's rows are unchanged."""
+    p = tmp_path / "old.db"
+    recs = _records(vectors)
+    with Store.open(p) as s:  # rows of the first journal keep the board's boot numbers: as an older nightcell stored
+        with s.write():
+            s.touch_device("dev1")
+            s.conn.execute("INSERT INTO journals VALUES ('dev1', 77, 0, 0, 0)")
+            s.ingest("dev1", recs, journal=77)
+            s.conn.execute("INSERT INTO anchors VALUES ('dev1', 99, 11, 130500, 1796131200123)")
+        # back to the schema before 0006 (no other table refers to journal_boots)
+        s.conn.execute("DROP TABLE journal_boots")
+        s.conn.execute("DELETE FROM _sqlite_migrations WHERE name LIKE '0006%'")
+        s.conn.commit()
+        tables = [t for t in s.db.table_names() if t not in ("_sqlite_migrations", "journal_boots")]
+        before = {t: sorted(s.conn.execute(f"SELECT * FROM {t}").fetchall(), key=repr) for t in tables}
+    with Store.open(p) as s:
+        assert "journal_boots" in s.db.table_names()
+        assert {t: sorted(s.conn.execute(f"SELECT * FROM {t}").fetchall(), key=repr) for t in tables} == before
+        mapped = s.conn.execute("SELECT journal, journal_boot, boot FROM journal_boots").fetchall()
+        boots = {b for (b,) in s.conn.execute("SELECT DISTINCT boot FROM samples")} | {99}
+        assert {b for _, _, b in mapped} >= boots and all(j == 77 and jb == b for j, jb, b in mapped)
+        n = s.count("samples")
+        with s.write():
+            s.ingest("dev1", recs, journal=78)  # the board wiped: the same keys, a new journal
+        assert s.count("samples") == 2 * n
+        with s.write():
+            assert sum(s.ingest("dev1", recs, journal=78).values()) == 0
+        later = {b for (b,) in s.conn.execute("SELECT boot FROM journal_boots WHERE journal = 78")}
+        assert later and not later & {b for _, _, b in mapped}
+        rows = sorted(s.conn.execute("SELECT * FROM samples WHERE boot IN (%s)" % ",".join("?" * len(boots)),
+                                     sorted(boots)).fetchall(), key=repr)
+        assert rows == before["samples"]
+
+
 def test_lazy_samples_ingest_the_same_rows_as_decoded_ones(tmp_path, vectors):
     eager = _records(vectors)
     lazy = []

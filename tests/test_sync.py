@@ -266,15 +266,41 @@ def _snapshot_rows(db) -> dict:
         con.close()
 
 
-def test_a_wiped_board_whose_new_journal_reuses_the_keys_is_refused_and_nothing_changes(tmp_path):
+def _journal_rows(db, journal: int) -> dict:
+    """Every raw row of one journal, its boot given as the board numbered it in that journal, with the wall-clock
+    time of each sample and mark: what a sync of that journal stored, whatever number this host gave its boots."""
+    import sqlite3
+
+    from nightcell.store.tables import RAW_IDENTITY
+
+    con = sqlite3.connect(f"file:{db}?mode=ro", uri=True)
+    try:
+        out = {}
+        for table in RAW_IDENTITY:
+            cols = [r[1] for r in con.execute(f"PRAGMA table_info({table})")]
+            sel = ", ".join("j.journal_boot" if c == "boot" else f"t.{c}" for c in cols)
+            out[table] = sorted(con.execute(
+                f"SELECT {sel} FROM {table} t JOIN journal_boots j ON j.device = t.device AND j.boot = t.boot "
+                "WHERE j.journal = ?", (journal,)).fetchall(), key=repr)
+        for view in ("sample_readings", "mark_readings"):
+            out[view] = sorted(con.execute(
+                f"SELECT j.journal_boot, v.seq, v.wall_clock_utc FROM {view} v JOIN journal_boots j "
+                "ON j.device = v.device AND j.boot = v.boot WHERE j.journal = ?", (journal,)).fetchall(), key=repr)
+        return out
+    finally:
+        con.close()
+
+
+def test_a_wiped_board_keeps_both_journals_every_row_intact_and_times_unchanged(tmp_path):
     """Sync a board, wipe its flash (a new journal: boots and seqs count from 1 again), log again, sync into the same
-    database: the records' keys are those of rows already stored with other content, so the sync refuses (exit 3,
-    RecordConflict), nothing is written or acknowledged, and the first journal's rows and times stay as they were."""
-    from nightcell.errors import RecordConflict
+    database: both journals' runs are present, every row of each is the row a sync of that journal alone stores
+    (the second journal also synced into a database of its own to compare), and the first journal's rows, clocks
+    and wall-clock times are unchanged (issue 10 §2)."""
     from support.campaigns import fill_journal
 
     sim = SimulatedBoard(tmp_path / "sim", device="5e1f0000000000e1", speed=200.0, seed=7, settings=SETTINGS)
     db = tmp_path / "class.db"
+    alone = tmp_path / "second-alone.db"
     sim.start()
     try:
         fill_journal(sim, 3000, label="first journal")
@@ -282,21 +308,59 @@ def test_a_wiped_board_whose_new_journal_reuses_the_keys_is_refused_and_nothing_
         with Board.open(sim.url) as board, Store.open(db) as store:
             first = sync_board(board, store)
             runs_before = [r.to_dict() for r in store.runs()]
-        rows_before = _snapshot_rows(db)
+        first_rows = _journal_rows(db, first.journal)
+        assert first_rows["samples"] and first_rows["marks"]
         sim.power_cut()
         sim.flash_path.unlink()  # the flash wiped: the firmware makes a new filesystem and a new journal
         sim.start()
         fill_journal(sim, 3000, label="second journal")
         sim.start()
-        with Board.open(sim.url) as board, Store.open(db) as store:
+        with Board.open(sim.url) as board:
             info = board.hello(timeout=10.0)
             assert int(info["journal"]) != first.journal and int(info["tail"]) == 0
-            with pytest.raises(RecordConflict, match="would change rows already stored here") as err:
-                sync_board(board, store)
-            assert err.value.exit_code == 3
-            assert int(board.hello()["tail"]) == 0  # nothing acknowledged: the board keeps all of it
-            assert [r.to_dict() for r in store.runs()] == runs_before
-        assert _snapshot_rows(db) == rows_before
+            with Store.open(alone) as store:
+                sync_board(board, store, acknowledge=False)
+            with Store.open(db) as store:  # no anchor of its own: the two databases then hold the same records
+                second = sync_board(board, store, anchor=False)
+                runs_after = [r.to_dict() for r in store.runs()]
+        assert second.journal == int(info["journal"]) and second.new > 0
+        for run in runs_before:
+            assert run in runs_after  # the first journal's runs, as they were
+        labels = [r["label"] for r in runs_after]
+        assert "first journal" in labels and "second journal" in labels and len(runs_after) > len(runs_before)
+        assert _journal_rows(db, first.journal) == first_rows  # every row and time of the first journal unchanged
+        here, apart = _journal_rows(db, second.journal), _journal_rows(alone, second.journal)
+        assert apart["samples"] and apart["marks"]
+        for name, rows in apart.items():  # every row of the second journal as a sync of it alone stores it
+            assert set(rows) <= set(here[name]), name
+        with Store.open(db) as store:  # boots of the second journal are numbered apart from the first's
+            bj = store.query("SELECT journal, boot FROM journal_boots WHERE device = ?", (first.device,))
+            firsts = {r["boot"] for r in bj if r["journal"] == first.journal}
+            seconds = {r["boot"] for r in bj if r["journal"] == second.journal}
+            assert firsts and seconds and min(seconds) > max(firsts)  # apart, and after: as they happened
+        # syncing again (the board may have journaled a record or two since) changes nothing stored, and merging
+        # either database into the other adds nothing the second time
+        with Board.open(sim.url) as board, Store.open(db) as store:
+            again = sync_board(board, store, anchor=False)
+            assert again.journal == second.journal and not again.warnings
+        assert _journal_rows(db, first.journal) == first_rows
+        from nightcell.store.merge import merge_database
+
+        from nightcell.store.tables import RAW_TABLES
+
+        def raw_new(report) -> int:
+            return sum(report.new_rows[t] for t in RAW_TABLES)
+
+        second_rows = _journal_rows(db, second.journal)
+        with Store.open(alone) as store:
+            assert raw_new(merge_database(store, db)) > 0  # the first journal, new there
+            assert raw_new(merge_database(store, db)) == 0
+            assert not store.query("SELECT * FROM merge_conflicts")
+        assert _journal_rows(alone, first.journal) == first_rows
+        with Store.open(db) as store:
+            assert raw_new(merge_database(store, alone)) == 0
+            assert not store.query("SELECT * FROM merge_conflicts")
+        assert _journal_rows(db, first.journal) == first_rows and _journal_rows(db, second.journal) == second_rows
     finally:
         sim.stop()
 

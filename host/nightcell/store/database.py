@@ -428,7 +428,8 @@ class Store(StoreQueries):
                                          ("boots", "samples", "marks", "mark_counts", "anchors", "events",
                                           "settings_records", "health")}
         records = list(records)
-        uptime = self._unwrapped_uptimes(device, records)
+        host_boot = self._host_boots(device, journal, {r.boot for r in records})
+        uptime = self._unwrapped_uptimes(device, records, host_boot)
         lazy: list[Record] = []
         lazy_uptime: dict[int, int] = {}
         for r, up in zip(records, uptime):
@@ -464,7 +465,52 @@ class Store(StoreQueries):
                                        f["vsys_mv"]))
         if lazy:
             rows["samples"].extend(self._sample_rows(device, lazy, lazy_uptime))
+        if any(b != h for b, h in host_boot.items()):  # a later journal's boots, numbered here apart from earlier ones
+            rows = {t: [(v[0], host_boot[v[1]]) + v[2:] for v in vs] for t, vs in rows.items()}
         return self.insert_rows(rows, refuse_conflicts=refuse_conflicts, journal=journal)
+
+    # -- boots of several journals --------------------------------------------------------------------------------
+
+    def host_boot(self, device: str, journal: int | None, journal_boot: int) -> int | None:
+        """This host's number for boot ``journal_boot`` of ``journal`` of ``device`` (None when none is stored).
+
+        A boot recorded with journal 0 (unknown: stored before journals were told apart) answers for any journal,
+        and ``journal`` None (records of unknown provenance) finds the boot of any journal, as the old key did.
+        """
+        if journal is None:
+            row = self.conn.execute("SELECT boot FROM journal_boots WHERE device = ? AND journal_boot = ? "
+                                    "ORDER BY journal LIMIT 1", (device, journal_boot)).fetchone()
+        else:
+            row = self.conn.execute("SELECT boot FROM journal_boots WHERE device = ? AND journal_boot = ? AND "
+                                    "journal IN (?, 0) ORDER BY journal = 0 LIMIT 1",
+                                    (device, journal_boot, int(journal))).fetchone()
+        return None if row is None else int(row[0])
+
+    def assign_host_boot(self, device: str, journal: int | None, journal_boot: int) -> int:
+        """``host_boot``, numbering the boot here first when it is new (inside the caller's transaction).
+
+        A new boot keeps the board's number while the device has boots of no other journal here (and the number is
+        free); otherwise it gets the next number after every boot of the device stored here, so a later journal's
+        boots sort after the earlier journals' ones, as they happened.
+        """
+        found = self.host_boot(device, journal, journal_boot)
+        if found is not None:
+            return found
+        taken = self.conn.execute("SELECT 1 FROM journal_boots WHERE device = ? AND boot = ?",
+                                  (device, journal_boot)).fetchone()
+        if journal is not None and not taken:
+            taken = self.conn.execute("SELECT 1 FROM journal_boots WHERE device = ? AND journal NOT IN (?, 0)",
+                                      (device, int(journal))).fetchone()
+        boot = journal_boot
+        if taken:
+            (top,) = self.conn.execute("SELECT max(boot) FROM journal_boots WHERE device = ?", (device,)).fetchone()
+            boot = int(top) + 1
+        self.conn.execute("INSERT INTO journal_boots(device, journal, journal_boot, boot) VALUES (?,?,?,?)",
+                          (device, 0 if journal is None else int(journal), journal_boot, boot))
+        return boot
+
+    def _host_boots(self, device: str, journal: int | None, boots: Iterable[int]) -> dict[int, int]:
+        return {b: self.assign_host_boot(device, journal, b) for b in sorted(boots)}
 
     @staticmethod
     def _sample_rows(device: str, lazy: list[Record], uptime: dict[int, int]) -> list[tuple]:
@@ -491,13 +537,13 @@ class Store(StoreQueries):
 
     _RAW_TABLES = TIMED_RAW_TABLES
 
-    def _unwrapped_uptimes(self, device: str, records: list[Record]) -> list[int]:
+    def _unwrapped_uptimes(self, device: str, records: list[Record], host_boot: dict[int, int]) -> list[int]:
         """Each record's uptime with the u32 wrap undone, continuing from the last stored row of its boot."""
         last: dict[int, int | None] = {}
         out = []
         for r in records:
             if r.boot not in last:
-                last[r.boot] = self._last_uptime(device, r.boot)
+                last[r.boot] = self._last_uptime(device, host_boot[r.boot])
             (u,) = unwrap_uptimes([r.uptime_ms], last[r.boot])
             last[r.boot] = u
             out.append(u)
@@ -553,9 +599,9 @@ class Store(StoreQueries):
             was = f" (stored from journal {other[0]})" if other and other[0] not in (None, journal) else ""
             raise RecordConflict(
                 f"journal {journal} of {row[0]} would change rows already stored here: its {table} row of {key} "
-                f"differs from the one stored{was}. Its flash was wiped or reflashed (a new journal counts boots "
-                "from 1 again), or another board has the same device id. Nothing was written: sync it into another "
-                "database (--db other.db) and keep both"
+                f"differs from the one stored{was}, under the same journal id. A board is replaying records it "
+                "did not journal, or another board has the same device id and journal id. Nothing was written: "
+                "sync it into another database (--db other.db) and keep both"
             )
 
     @staticmethod

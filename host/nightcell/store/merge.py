@@ -1,7 +1,8 @@
 """Merge another host's nightcell database into this one: idempotent, and loud about disagreements.
 
-A department gathers the laptops of several classes into one file. Raw rows carry their identity (device + boot +
-seq [+ channel]), so a row already here is skipped and merging the same file twice adds nothing. A row with the same
+A department gathers the laptops of several classes into one file. Raw rows carry their identity (device + journal
++ boot + seq [+ channel]; the journal through ``journal_boots``, whose boot numbers may differ between hosts and are
+translated first), so a row already here is skipped and merging the same file twice adds nothing. A row with the same
 identity but different content is a conflict: it is listed (in the report and in ``merge_conflicts``), the row here
 is kept, and the other is not taken — raw data is never overwritten. Device metadata that disagrees (label, board,
 firmware) is reported the same way. Sync progress (``journals``) stays this host's own: positions acknowledged by
@@ -109,9 +110,11 @@ def _merge(store: Store, src: Path, strict: bool, held: contextlib.ExitStack) ->
     conn.execute("ATTACH DATABASE ? AS other", (attach,))
     try:
         with store.write():
+            renumbered = _translate_boots(store, conn)
             for table, key in RAW_IDENTITY.items():
-                report.conflicts += _conflicts(conn, table, key)
-                report.new_rows[table] = _insert_missing(conn, table)
+                there = _translated(conn, table) if renumbered else f"other.{table}"
+                report.conflicts += _conflicts(conn, table, key, there)
+                report.new_rows[table] = _insert_missing(conn, table, there)
             report.conflicts += _device_conflicts(conn)
             report.new_rows["devices"] = _merge_devices(conn)
             report.new_rows["results"] = _merge_results(conn)
@@ -134,8 +137,43 @@ def _merge(store: Store, src: Path, strict: bool, held: contextlib.ExitStack) ->
         report.applied = False
         report.new_rows = {t: 0 for t in report.new_rows}
     finally:
+        for table in RAW_IDENTITY:
+            conn.execute(f"DROP TABLE IF EXISTS temp.merging_{table}")
+        conn.execute("DROP TABLE IF EXISTS temp.merging_boot_numbers")
         conn.execute("DETACH DATABASE other")
     return report
+
+
+def _translate_boots(store: Store, conn: sqlite3.Connection) -> bool:
+    """Number the other database's boots as this one does, by (device, journal, journal_boot); True when some
+    number differs (a later journal of a device numbered apart on one side, see ``Store.host_boot``).
+
+    Fills ``temp.merging_boot_numbers(device, there, here)`` and records the boots new here in ``journal_boots``.
+    A boot the other database stored with no journal recorded counts as journal 0 (unknown).
+    """
+    theirs = conn.execute(
+        "SELECT k.device, k.boot, j.journal, coalesce(j.journal_boot, k.boot) FROM ("
+        + " UNION ".join(f"SELECT device, boot FROM other.{t}" for t in RAW_IDENTITY)
+        + ") k LEFT JOIN other.journal_boots j ON j.device = k.device AND j.boot = k.boot "
+        "ORDER BY k.device, k.boot").fetchall()
+    pairs = []
+    for device, there, journal, journal_boot in theirs:
+        here = store.assign_host_boot(device, None if not journal else journal, journal_boot)
+        pairs.append((device, there, here))
+    conn.execute("CREATE TEMP TABLE merging_boot_numbers (device TEXT NOT NULL, there INTEGER NOT NULL, "
+                 "here INTEGER NOT NULL, PRIMARY KEY (device, there))")
+    conn.executemany("INSERT INTO temp.merging_boot_numbers VALUES (?,?,?)", pairs)
+    return any(there != here for _, there, here in pairs)
+
+
+def _translated(conn: sqlite3.Connection, table: str) -> str:
+    """A temporary copy of the other database's ``table`` with its boots numbered as here; returns its name."""
+    cols = _columns(conn, table)
+    sel = ", ".join("n.here AS boot" if c == "boot" else f"t.{c}" for c in cols)
+    name = f"temp.merging_{table}"
+    conn.execute(f"CREATE TEMP TABLE merging_{table} AS SELECT {sel} FROM other.{table} t "
+                 "JOIN temp.merging_boot_numbers n ON n.device = t.device AND n.there = t.boot")
+    return name
 
 
 class _Cancel(Exception):
@@ -146,13 +184,13 @@ def _columns(conn: sqlite3.Connection, table: str) -> list[str]:
     return [r[1] for r in conn.execute(f"PRAGMA main.table_info({table})").fetchall()]
 
 
-def _conflicts(conn: sqlite3.Connection, table: str, key: tuple[str, ...]) -> list[dict[str, Any]]:
+def _conflicts(conn: sqlite3.Connection, table: str, key: tuple[str, ...], there: str) -> list[dict[str, Any]]:
     cols = _columns(conn, table)
     content = [c for c in cols if c not in key and c not in _PROVENANCE.get(table, set())]
     on = " AND ".join(f"h.{k} = t.{k}" for k in key)
     differs = " OR ".join(f"h.{c} IS NOT t.{c}" for c in content)
     sel = ", ".join([f"h.{k}" for k in key] + [f"h.{c}" for c in content] + [f"t.{c}" for c in content])
-    rows = conn.execute(f"SELECT {sel} FROM main.{table} h JOIN other.{table} t ON {on} WHERE {differs}").fetchall()
+    rows = conn.execute(f"SELECT {sel} FROM main.{table} h JOIN {there} t ON {on} WHERE {differs}").fetchall()
     out = []
     n = len(key)
     m = len(content)
@@ -165,10 +203,10 @@ def _conflicts(conn: sqlite3.Connection, table: str, key: tuple[str, ...]) -> li
     return out
 
 
-def _insert_missing(conn: sqlite3.Connection, table: str) -> int:
+def _insert_missing(conn: sqlite3.Connection, table: str, there: str) -> int:
     cols = ", ".join(_columns(conn, table))
     before = conn.total_changes
-    conn.execute(f"INSERT OR IGNORE INTO main.{table} ({cols}) SELECT {cols} FROM other.{table}")
+    conn.execute(f"INSERT OR IGNORE INTO main.{table} ({cols}) SELECT {cols} FROM {there}")
     return conn.total_changes - before
 
 

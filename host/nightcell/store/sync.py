@@ -3,8 +3,9 @@
 The order is the whole point: records are committed to SQLite (one transaction per batch, together with the new
 stored position) *before* the board is told it may trim them, so a cable pulled, a laptop closed or the host killed at
 any moment loses nothing and duplicates nothing — the next sync starts from what was committed, and rows that
-arrive twice are the same rows (identity device + boot + seq). A record whose identity is stored with other
-content (a wiped board's new journal counting boots from 1 again) is refused, nothing of its batch written. This
+arrive twice are the same rows (identity device + journal + boot + seq: a wiped board's new journal, counting boots
+from 1 again, is stored beside the old one under boot numbers of its own, see ``Store.host_boot``). A record whose
+identity is stored with other content (a forged replay of a stored journal) is refused, nothing of its batch written. This
 module uses the link and the store; it computes no science.
 
 Example::
@@ -196,7 +197,7 @@ def sync_board(
     if acknowledge and pos > 0 and pos > summary.acked_to:
         acknowledge_to(pos)
     if sent_anchor is not None:
-        _check_anchor(store, device, sent_anchor, summary)
+        _check_anchor(store, device, journal, sent_anchor, summary)
     summary.end = pos
     summary.requests = pull.requests
     summary.resends = pull.resends
@@ -228,13 +229,16 @@ def _gap_warning(journal: int, lo: int, hi: int) -> str:
             "acknowledged them; merge that host's database to get them")
 
 
-def _check_anchor(store: Store, device: str, sent: tuple[Any, Any, int], summary: SyncSummary) -> None:
+def _check_anchor(store: Store, device: str, journal: int, sent: tuple[Any, Any, int], summary: SyncSummary) -> None:
     """The anchor sent travels back in the journal: say so if the board recorded another time (a garbled line)."""
     boot, seq, host_ms = sent
     if boot is None or seq is None:
         return
+    here = store.host_boot(device, journal, int(boot))  # the board's boot number, as this host numbers it
+    if here is None:
+        return
     rows = store.conn.execute("SELECT host_unix_ms FROM anchors WHERE device = ? AND boot = ? AND seq = ?",
-                              (device, boot, seq)).fetchall()
+                              (device, here, seq)).fetchall()
     if rows and rows[0][0] != host_ms:
         summary.warnings.append(
             f"the clock anchor of boot {boot} seq {seq} reads {rows[0][0]} ms but {host_ms} ms was sent: the request "
