@@ -254,6 +254,34 @@ def test_columnar_read_of_a_run_equals_the_row_read(store):
     assert empty["seq"].size == 0 and empty["clocks"] == {}
 
 
+def test_chunked_read_of_a_long_run_equals_the_row_read(store, monkeypatch):
+    """A run within one boot longer than one text is read a chunk at a time; with chunks of 64 seqs, gaps in seq,
+    a second channel and reads that vary, every column still equals ``run_samples``' rows in order."""
+    from nightcell.store import database
+    from nightcell.store.database import Run
+
+    monkeypatch.setattr(database, "_TEXT_RUN_MAX", 50)
+    monkeypatch.setattr(database, "_TEXT_CHUNK", 64)
+    rng = np.random.default_rng(9)
+    rows = {"marks": [("dev", 1, 2, 0, "run_start", 0, 0, "a", ""), ("dev", 1, 1000, 0, "run_stop", 0, 0, "", "")],
+            "mark_counts": [], "samples": []}
+    for seq in range(3, 1000):
+        if seq % 97 in (0, 1, 2, 3, 4):  # gaps, some across a chunk's edge
+            continue
+        reads = 16 if seq % 5 else 8
+        rows["samples"].append(("dev", 1, seq, 0, 1000 * seq, 0, int(seq % 13 == 0), reads,
+                                int(rng.integers(0, 2000)), int(rng.integers(500, 60000)), None))
+        rows["samples"].append(("dev", 1, seq, 1, 1000 * seq, 0, 0, reads, 1, 2, None))
+    with store.write():
+        store.insert_rows(rows)
+    for run in (Run("dev", "a", 1, 2, 1, 1000), Run("dev", "a", 1, 60, 1, 700), Run("dev", "a", 1, 2, 1, 66)):
+        cols = store.run_sample_columns(run)
+        expect = store.run_samples(run)
+        assert len(expect) == cols["seq"].size > 0
+        for name in ("boot", "seq", "uptime_ms", "flags", "reads", "dark", "light"):
+            assert cols[name].tolist() == [r[name] for r in expect], name
+
+
 def test_kept_mark_list_follows_changes_from_this_and_other_connections(store, tmp_path):
     import sqlite3
 

@@ -85,6 +85,8 @@ REVIEWED_DYNAMIC_SQL = {
     ("store/database.py", "run_samples"): "fixed clauses with ? placeholders",
     ("store/database.py", "_run_sample_columns"): "fixed clauses with ? placeholders and column names from its own "
                                                   "tuples",
+    ("store/database.py", "_chunked_columns"): "a fixed WHERE clause with ? placeholders and group_concat of column "
+                                               "names from _run_sample_columns' own tuples",
     ("store/database.py", "open_read"): "an integer from a module constant",
     ("store/database.py", "open_write"): "an integer from a module constant",
     ("store/database.py", "_migrate"): "an integer: the number of migration files shipped",
