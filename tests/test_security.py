@@ -92,6 +92,8 @@ REVIEWED_DYNAMIC_SQL = {
     ("store/database.py", "_migrate"): "an integer: the number of migration files shipped",
     ("store/database.py", "damage_report"): "table names read from the damaged file's own sqlite_master, double-quoted",
     ("store/database.py", "insert_rows"): "table names from ingest's own dict, ? placeholders",
+    ("store/database.py", "_guard_set_aside"): "a trigger name from ingest's own table names, double-quoted, and "
+                                               "that trigger's own text read back from sqlite_master",
     ("store/database.py", "_refuse_conflicts"): "table names from ingest's own dict, column names from its PRAGMA "
                                                  "table_info, ? placeholders",
     ("store/database.py", "_migrations"): "statements from schema/migrations",

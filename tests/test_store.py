@@ -49,6 +49,58 @@ def test_raw_rows_cannot_be_changed_or_deleted(store, vectors):
         store.conn.execute("DELETE FROM marks")
 
 
+def _sample_rows(n, light=40000):
+    return [("dev", 1, seq, 0, 1000 * seq, 0, 0, 16, 1600, light, None) for seq in range(n)]
+
+
+def _guard_text(conn):
+    return conn.execute("SELECT sql FROM sqlite_master WHERE name = 'samples_not_replaced'").fetchone()
+
+
+def test_raw_rows_are_not_replaced_from_another_connection_after_a_large_insert(store):
+    """Migration 4's guard: INSERT OR REPLACE from any connection keeps the stored row; a large insert (which sets
+    the guard aside inside its own transaction) leaves it in place, its text unchanged."""
+    before = _guard_text(store.conn)
+    with store.write():
+        store.insert_rows({"samples": _sample_rows(5000)})
+    assert _guard_text(store.conn) == before is not None
+    other = sqlite3.connect(store.path)
+    other.execute("INSERT OR REPLACE INTO samples VALUES ('dev', 1, 7, 0, 7000, 0, 0, 16, 1600, 1, NULL)")
+    other.commit()
+    other.close()
+    assert store.conn.execute("SELECT light FROM samples WHERE seq = 7").fetchone()[0] == 40000
+    assert store.count("samples") == 5000
+
+
+def test_no_other_connection_sees_the_table_without_its_guard(store):
+    """While a large insert runs, another connection still reads the guard, and cannot write; when the transaction
+    fails, the guard is back with everything else."""
+    seen = []
+
+    class Watched(list):
+        def __iter__(self):
+            for i, row in enumerate(super().__iter__()):
+                if i == 2500:
+                    other = sqlite3.connect(store.path, timeout=0.05)
+                    seen.append(_guard_text(other))
+                    with pytest.raises(sqlite3.OperationalError, match="locked"):
+                        other.execute("INSERT OR REPLACE INTO samples VALUES "
+                                      "('dev', 1, 7, 0, 7000, 0, 0, 16, 1600, 1, NULL)")
+                    other.close()
+                yield row
+
+    before = _guard_text(store.conn)
+    with store.write():
+        store.insert_rows({"samples": Watched(_sample_rows(5000))})
+    assert seen == [before] and before is not None
+    with pytest.raises(RuntimeError, match="cut"):
+        with store.write():
+            store.insert_rows({"samples": _sample_rows(9000, light=1)})
+            raise RuntimeError("cut")
+    assert _guard_text(store.conn) == before
+    assert store.count("samples") == 5000
+
+
 def test_readable_view_has_units_and_wall_clock(store, vectors):
     with store.write():
         store.ingest("dev1", _records(vectors))
