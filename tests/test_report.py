@@ -279,6 +279,58 @@ def test_calibration_plot_draws_the_prediction_band_at_the_calibrations_level(le
         plt.close(fig)
 
 
+def test_calibration_plot_marks_an_unknown_on_the_curve_with_its_interval():
+    from nightcell.science.calibration import fit_calibration
+
+    # synthetic standards (invented numbers), as above; the unknown's value and interval are the calibration's own
+    # inverse prediction (checked against reference values in tests/test_calibration.py)
+    x = np.array([0.0, 2.0, 4.0, 6.0, 8.0, 10.0])
+    y = 0.004 + 0.075 * x + np.array([0.002, -0.001, 0.0015, -0.002, 0.001, -0.0005])
+    cal = fit_calibration(x, y)
+    p = cal.predict([0.83])  # beyond the last standard: the axis must reach the interval's end
+    fig, ax = plt.subplots()
+    try:
+        report.plot_calibration(cal, ax=ax, unknowns=[("first reading of run 1", 0.83, p)])
+        diamonds = [ln for ln in ax.lines if ln.get_marker() == "D"]
+        assert len(diamonds) == 1
+        assert_allclose(diamonds[0].get_xydata(), [[p.value, 0.83]])
+        bar = ax.containers[0].lines[2][0].get_segments()[0]  # the horizontal error bar of the errorbar container
+        assert_allclose(bar, [[p.ci_low, 0.83], [p.ci_high, 0.83]])
+        assert "unknown, 95 % interval" in [t.get_text() for t in ax.get_legend().get_texts()]
+        assert [t.get_text() for t in ax.texts] == ["first reading of run 1"]
+        assert ax.collections[0].get_paths()[0].vertices[:, 0].max() >= p.ci_high  # the band reaches it too
+    finally:
+        plt.close(fig)
+
+
+def test_run_and_study_reports_mark_each_runs_first_reading_on_its_calibration(store, tmp_path, monkeypatch):
+    _hostile_store(store, n_runs=2)
+    for i, run in enumerate(store.runs(DEV)):
+        set_run_condition(store, run, "temperature_K", 298.15, "sheet")
+        set_run_condition(store, run, "conc_hydroxide_M", 0.01 * (1 + i), "sheet")
+    drawn = []
+    real = report.plot_calibration
+
+    def spy(cal, *args, unknowns=(), **kw):
+        drawn.append([(name, a, float(p.value)) for name, a, p in unknowns])
+        return real(cal, *args, unknowns=unknowns, **kw)
+
+    monkeypatch.setattr(report, "plot_calibration", spy)
+    cal = calibrate_from_store(store, DEV)
+    run = store.runs(DEV)[0]
+    a = analyse_run(store, run, calibration=cal)
+    report.run_report(a, tmp_path / "one", calibration=cal, name="one")
+    first = a.absorbance[np.flatnonzero(a.flags == 0)[0]]
+    (((name, absorbance, value),),) = drawn
+    assert name.startswith("first reading of") and absorbance == first
+    assert_allclose(value, cal.predict([first]).value)
+    drawn.clear()
+    s = analyse_study(store)
+    report.study_report(s, tmp_path / "study")
+    (marked,) = drawn
+    assert len(marked) == len(s.runs) == 2  # both runs read through the one calibration of the bench
+
+
 def test_six_runs_are_told_apart_by_marker_and_line_as_well_as_colour_and_the_legend_covers_no_data(
         store, tmp_path, monkeypatch):
     """Six runs in the study's figure: each its own colour, marker and (with its neighbours) line style, so the runs

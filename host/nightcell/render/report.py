@@ -86,19 +86,36 @@ def plain_text(label: Any) -> str:
     return str(label).replace("$", r"\$")
 
 
-def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str = "") -> Any:
+UNKNOWN_COLOUR = "#d55e00"  # vermillion of the colour-universal-design palette, apart from the standards' blue
+
+
+def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str = "",
+                     unknowns: Sequence[tuple[str, float, Any]] = ()) -> Any:
     """Standards, the fitted curve and its prediction band for one new reading at the calibration's own level
-    (``cal.level``, 95 % unless fitted otherwise); residuals on ``resid_ax``."""
+    (``cal.level``, 95 % unless fitted otherwise); residuals on ``resid_ax``.
+
+    ``unknowns``: (name, absorbance, ``cal.predict`` result) of readings read through the curve (a run's first
+    reading, a measured sample), drawn on the curve as diamonds with their concentration interval as a horizontal
+    bar, each named beside it.
+    """
     if ax is None:
         ax = _new_axes()
     x = np.asarray(cal.x, dtype=float)
     y = np.asarray(cal.y, dtype=float)
     ax.plot(x, y, "o", color="#1f5f8b", label="standards")
-    grid = np.linspace(min(0.0, x.min()), x.max() * 1.05, 200)
+    right = max([x.max()] + [float(p.ci_high) for _, _, p in unknowns if np.isfinite(p.ci_high)])
+    grid = np.linspace(min(0.0, x.min()), right * 1.05, 200)
     fitted = cal.curve(grid)
     ax.plot(grid, fitted, "-", color="#333333", label="fit")
     low, high = cal.band(grid, cal.level, kind="prediction")
     ax.fill_between(grid, low, high, color="#1f5f8b", alpha=0.15, label=f"{100 * cal.level:g} % prediction band")
+    for i, (name, absorbance, p) in enumerate(unknowns):
+        value = float(p.value)
+        bar = [[value - float(p.ci_low)], [float(p.ci_high) - value]]
+        ax.errorbar([value], [absorbance], xerr=bar, fmt="D", color=UNKNOWN_COLOUR, ms=6, capsize=3,
+                    label=f"unknown, {100 * p.level:g} % interval" if i == 0 else None)
+        ax.annotate(plain_text(name), (value, absorbance), xytext=(6, -10), textcoords="offset points",
+                    fontsize="x-small", color=UNKNOWN_COLOUR)
     ax.set_xlabel(f"concentration {unit}".strip())
     ax.set_ylabel("absorbance")
     ax.legend(loc="upper left", fontsize="small")
@@ -657,7 +674,10 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
             fig, ax, rax = _two_panel()
             made: list[Path] = []
             try:
-                plot_calibration(calibration, ax=ax, resid_ax=rax, unit=plain_text(f"({unit})") if unit else "")
+                first = _first_concentration(calibration, analysis) if analysis.concentration is not None else None
+                plot_calibration(calibration, ax=ax, resid_ax=rax, unit=plain_text(f"({unit})") if unit else "",
+                                 unknowns=[] if first is None else [(f"first reading of {run.label or 'the run'}",
+                                                                      _first_absorbance(analysis), first)])
                 ax.set_title(plain_text(f"Calibration of {bench}"))
                 stem = f"calibration-{safe_filename(run.device)}" if cache is not None else f"{name}-calibration"
                 cal_png = _figure_files(fig, out / stem, made)
@@ -689,13 +709,19 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
     return ReportFiles(path, figs)
 
 
+def _first_absorbance(analysis: Any) -> float | None:
+    """The absorbance of the run's first usable (unflagged) reading (None if none is)."""
+    ok = np.flatnonzero(np.asarray(analysis.flags) == 0)
+    return float(analysis.absorbance[ok[0]]) if ok.size else None
+
+
 def _first_concentration(calibration: Any, analysis: Any) -> Any:
     """The calibrated concentration of the run's first usable reading, with its standard error (None if none)."""
-    ok = np.flatnonzero(np.asarray(analysis.flags) == 0)
-    if ok.size == 0:
+    first = _first_absorbance(analysis)
+    if first is None:
         return None
     try:
-        return calibration.predict([float(analysis.absorbance[ok[0]])])
+        return calibration.predict([first])
     except Exception:  # a reading the calibration cannot invert (e.g. outside a quadratic's range): say nothing
         return None
 
@@ -910,16 +936,28 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             cals.setdefault(it.run.device, it.calibration)
     for device, cal in cals.items():
         fig, ax, rax = _two_panel()
+        unknowns = []
+        for it in study.runs:
+            same = it.calibration is not None and it.run.device == device and (
+                it.calibration.inputs.get("standards") == cal.inputs.get("standards"))  # the same standards
+            if same and it.analysis.concentration is not None:
+                first = _first_concentration(cal, it.analysis)
+                if first is not None:
+                    unknowns.append((run_name(it.run.key), _first_absorbance(it.analysis), first))
         try:
-            plot_calibration(cal, ax=ax, resid_ax=rax, unit=plain_text(f"({unit})") if unit else "")
+            plot_calibration(cal, ax=ax, resid_ax=rax, unit=plain_text(f"({unit})") if unit else "",
+                             unknowns=unknowns)
             ax.set_title(plain_text(f"Calibration of {bench(device)}"))
             png = _figure_files(fig, out / f"{name}-calibration-{safe_filename(device)}", figs)
         finally:
             fig.clear()  # drop the figure's artists now: a report draws many
         sections.append({"title": f"Calibration of {bench(device)}", "html": fit_table(cal),
-                         "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; LOD "
-                                 f"{cal.extra.get('lod', float('nan')):.3g}, "
-                                 f"LOQ {cal.extra.get('loq', float('nan')):.3g} in the unit of the standards' values.",
+                         "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; limit of detection "
+                                 f"{_n.quantity(cal.extra.get('lod'), unit, digits=2)}, limit of quantification "
+                                 f"{_n.quantity(cal.extra.get('loq'), unit, digits=2)}"
+                                 + ("" if unit else " in the unit of the standards' values")
+                                 + (f". Diamonds: {len(unknowns)} run(s)' first readings read through the curve."
+                                    if unknowns else "."),
                          "figures": [png]})
     sections.extend(extra_sections)
     notes = [f"{k}: {v}" for k, v in study.rules.items()] + [f"left out — {run_name(k)}: {v}"
