@@ -130,3 +130,51 @@ def test_merge_of_a_foreign_sqlite_file_is_refused(tmp_path, vectors):
     with pytest.raises(Exception, match="not a nightcell database"):
         merge_database(here, tmp_path / "recipes.db")
     here.close()
+
+
+def _journal_db(path, vectors, journal):
+    s = Store.open(path)
+    with s.write():
+        s.touch_device("dev1", board="pico", firmware="0.1.0")
+        s.ingest("dev1", _records(vectors, {"boot", "mark_run_start_button", "samples_one_channel"}),
+                 journal=journal)
+    return s
+
+
+def test_run_conditions_come_across_under_this_databases_boot_numbers(tmp_path, vectors):
+    """A run of a later journal (its boot numbered apart here) keeps its temperature and concentration after the
+    merge, on the same run: the conditions follow the run's start mark, not the other database's boot number."""
+    here = _journal_db(tmp_path / "here.db", vectors, journal=1)
+    there = _journal_db(tmp_path / "there.db", vectors, journal=2)
+    (run,) = there.runs()
+    there.record_run_condition("dev1", run.start_boot, run.start_seq, "temperature_K", 298.15, "sheet", 1.0)
+    there.record_run_condition("dev1", run.start_boot, run.start_seq, "conc_hydroxide_M", 0.02, "sheet", 1.0)
+    there.close()
+    report = merge_database(here, tmp_path / "there.db")
+    assert report.conflicts == [] and report.new_rows["run_conditions"] == 2
+    runs = here.runs()
+    assert len(runs) == 2  # the run of journal 1 and the one of journal 2, apart
+    moved = [r for r in runs if r.start_boot != run.start_boot]
+    assert len(moved) == 1 and moved[0].start_seq == run.start_seq
+    assert here.run_condition_rows() == [
+        ("dev1", moved[0].start_boot, run.start_seq, "conc_hydroxide_M", 0.02, "sheet"),
+        ("dev1", moved[0].start_boot, run.start_seq, "temperature_K", 298.15, "sheet")]
+    assert merge_database(here, tmp_path / "there.db").new == 0  # twice adds nothing
+    here.close()
+
+
+def test_a_condition_recorded_otherwise_there_is_reported_and_ours_kept(tmp_path, vectors):
+    here = _journal_db(tmp_path / "here.db", vectors, journal=1)
+    there = _journal_db(tmp_path / "there.db", vectors, journal=1)
+    (run,) = here.runs()
+    here.record_run_condition("dev1", run.start_boot, run.start_seq, "temperature_K", 298.15, "bench sheet", 1.0)
+    there.record_run_condition("dev1", run.start_boot, run.start_seq, "temperature_K", 308.15, "probe mean", 2.0)
+    there.close()
+    strict = merge_database(here, tmp_path / "there.db", strict=True)
+    assert not strict.applied and here.count("merges") == 0
+    report = merge_database(here, tmp_path / "there.db")
+    (c,) = report.conflicts
+    assert c["table"] == "run_conditions" and c["identity"]["quantity"] == "temperature_K"
+    assert c["here"] == {"value": 298.15, "source": "bench sheet"} and c["there"]["value"] == 308.15
+    assert here.run_condition_rows()[0][4:] == (298.15, "bench sheet")
+    here.close()

@@ -80,6 +80,8 @@ REVIEWED_DYNAMIC_SQL = {
     ("store/merge.py", "_merge_sync_sessions"): "columns from PRAGMA of main",
     ("store/merge.py", "_conflicts"): "table and key names from RAW_IDENTITY, columns from PRAGMA of main",
     ("store/merge.py", "_columns"): "table names from RAW_IDENTITY",
+    ("store/merge.py", "_condition_conflicts"): "the module's own constant query of the other database's conditions",
+    ("store/merge.py", "_merge_run_conditions"): "the module's own constant query of the other database's conditions",
     ("store/database.py", "query"): "the caller's SQL text; callers pass data as params",
     ("store/database.py", "marks"): "fixed WHERE clauses with ? placeholders",
     ("store/database.py", "run_samples"): "fixed clauses with ? placeholders",

@@ -118,6 +118,8 @@ def _merge(store: Store, src: Path, strict: bool, held: contextlib.ExitStack) ->
             report.conflicts += _device_conflicts(conn)
             report.new_rows["devices"] = _merge_devices(conn)
             report.new_rows["results"] = _merge_results(conn)
+            report.conflicts += _condition_conflicts(conn)
+            report.new_rows["run_conditions"] = _merge_run_conditions(conn)
             report.new_rows["sync_sessions"] = _merge_sync_sessions(conn)
             if strict and report.conflicts:
                 raise _Cancel()
@@ -253,6 +255,33 @@ def _merge_results(conn: sqlite3.Connection) -> int:
         "h.label = t.label AND h.created_unix = t.created_unix AND h.inputs_json = t.inputs_json AND "
         "h.result_json = t.result_json)"
     )
+    return conn.total_changes - before
+
+
+_THEIR_CONDITIONS = (
+    "SELECT t.device, coalesce(n.here, t.start_boot) AS start_boot, t.start_seq, t.quantity, t.value, t.source, "
+    "t.recorded_unix FROM other.run_conditions t LEFT JOIN temp.merging_boot_numbers n "
+    "ON n.device = t.device AND n.there = t.start_boot")
+"""The other database's run conditions, each keyed by its run's start mark with the boot numbered as here."""
+
+
+def _condition_conflicts(conn: sqlite3.Connection) -> list[dict[str, Any]]:
+    """A quantity of one run recorded on both sides with another value: here's is kept, the other listed."""
+    rows = conn.execute(
+        f"SELECT h.device, h.start_boot, h.start_seq, h.quantity, h.value, h.source, t.value, t.source "
+        f"FROM main.run_conditions h JOIN ({_THEIR_CONDITIONS}) t ON h.device = t.device AND "
+        "h.start_boot = t.start_boot AND h.start_seq = t.start_seq AND h.quantity = t.quantity "
+        "WHERE h.value IS NOT t.value").fetchall()
+    return [{"table": "run_conditions",
+             "identity": {"device": r[0], "start_boot": r[1], "start_seq": r[2], "quantity": r[3]},
+             "here": {"value": r[4], "source": r[5]}, "there": {"value": r[6], "source": r[7]}} for r in rows]
+
+
+def _merge_run_conditions(conn: sqlite3.Connection) -> int:
+    """The other database's run conditions that are not recorded here, under this database's boot numbers."""
+    before = conn.total_changes
+    conn.execute("INSERT OR IGNORE INTO main.run_conditions(device, start_boot, start_seq, quantity, value, source, "
+                 f"recorded_unix) {_THEIR_CONDITIONS}")
     return conn.total_changes - before
 
 
