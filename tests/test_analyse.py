@@ -154,7 +154,8 @@ def test_a_named_blank_overrides_the_rule_and_a_missing_one_is_a_clear_error(two
     store = two_blanks
     b = choose_blank(store, DEV, (1, 6), blank=(1, 3))
     assert (b.boot, b.seq, b.rule) == (1, 3, "named by the user")
-    with pytest.raises(InputError, match=r"no blank 1:99 on device .* list blanks with `nightcell list`"):
+    with pytest.raises(InputError, match=r"no blank 1:99 on device a0b1c2d3e4f50607: list blanks with "
+                                         r"`nightcell list blanks` and give its label"):
         choose_blank(store, DEV, (1, 6), blank=(1, 99))
     # no blank before: the first blank after, with a warning that says so (issue 12 §5: a run can be rescued)
     after = choose_blank(store, DEV, (1, 2))
@@ -309,6 +310,9 @@ def test_bad_conditions_are_refused_with_what_to_do_and_nothing_written(cut_run,
 def test_a_condition_for_a_run_that_is_not_there_is_refused(cut_run):
     with pytest.raises(InputError, match="give a run key device:boot:seq"):
         set_run_condition(cut_run, f"{DEV}:9:9", "temperature_K", 300.0, "s")
+    # a label typed where the key belongs, with a typo: the closest run label is offered
+    with pytest.raises(InputError, match=r"; did you mean 'fading across a power cut'\? Give a run key"):
+        set_run_condition(cut_run, "fading acros a power cut", "temperature_K", 300.0, "s")
 
 
 # -- several runs: conditions → k → order and Arrhenius ------------------------------------------------------------

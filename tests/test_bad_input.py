@@ -40,10 +40,14 @@ from nightcell.cli import cli
 from nightcell.errors import StoreError
 from nightcell.store.database import Store
 from nightcell.store.clocks import rebuild_clocks
+from nightcell.render.numbers import local_time
 
 ROOT = Path(__file__).resolve().parent.parent
 DEVICE = "5eba000000000007"
 RUN_LABEL = "fading 25 C"
+TAKEN = local_time(1_796_000_003, seconds=False)
+"""The minute, in this computer's zone, when the journal's blank and standards were taken (1_796_000_002 to 008 s,
+all in one minute): errors name a mark by its label and this time, not by its key."""
 
 
 # -- a database built from journal records ---------------------------------------------------------------------------
@@ -51,13 +55,14 @@ RUN_LABEL = "fading 25 C"
 def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_label: str = "water",
                     n_samples: int = 40, *, blanks: tuple[float | None, ...] = (0.0,),
                     standards: tuple[tuple[str, float], ...] | None = None, curve: Callable[[int], float] | None = None,
-                    opaque: float | None = None, blank_light: float | None = None) -> list[bytes]:
+                    opaque: float | None = None, blank_light: float | None = None,
+                    standard_set: str | None = None) -> list[bytes]:
     """Encoded records of one boot: anchors, dark, blank, five standards, a run of ``n_samples`` and its stop.
 
     Variants for the guards' rows: ``blanks`` (absorbance of each blank against the LED, in order; the last is the
     run's), ``blank_light`` (the last blank's light in counts per read, e.g. a blocked path), ``standards``
     ((value as typed, absorbance) each), ``curve`` (absorbance of sample i) and ``opaque`` (an opaque mark's
-    absorbance, read before the run)."""
+    absorbance, read before the run) and ``standard_set`` (a set=NAME token in every standard's label)."""
     recs: list[bytes] = []
     seq = 0
     up = 0
@@ -86,7 +91,7 @@ def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_labe
             mark(2, blank_a, blank_label)
     for value, absorbance in (standards if standards is not None
                               else tuple((str(c), 0.075 * c) for c in (2, 4, 6, 8, 10))):
-        mark(3, absorbance, f"dye {value}", value)
+        mark(3, absorbance, f"dye {value}" + (f" set={standard_set}" if standard_set else ""), value)
     if opaque is not None:
         mark(7, opaque, "black card")
     add(F.KIND_MARK, {"mark": 4, "source": 0, "reads": 0, "dark": [], "light": [], "label": run_label,
@@ -507,7 +512,29 @@ CASES = [
     Case("orders with neither CSV nor database (NIGHTCELL_DB empty)", ["orders"], 2, "give a CSV file",
          env={"NIGHTCELL_DB": ""}),
     Case("calibrate an unknown device", ["calibrate", "--db", "{db}", "--device", "ffff000000000000"], 2,
-         "no device 'ffff000000000000'"),
+         "no device 'ffff000000000000' in {db}: give one of its devices by label or id (bench)"),
+    # -- a label typed with a typo: the closest labels are offered ------------------------------------------------
+    Case("device label with a typo", ["calibrate", "--db", "{db}", "--device", "bnech"], 2,
+         "no device 'bnech' in {db}; did you mean 'bench'? Give one of its devices by label or id (bench)"),
+    Case("blank label with a typo (rate)", ["rate", "--db", "{db}", "--blank", "watr"], 2,
+         "no blank labelled 'watr' on device 'bench'; did you mean 'water'? List blanks with `nightcell list "
+         "blanks` and give its label or key (boot:seq)"),
+    Case("blank label with a typo (report)",
+         ["report", "--db", "{db}", "--run", RUN_LABEL, "--blank", "WATER", "--out", "{dir}/r"], 2,
+         "no blank labelled 'WATER' on device 'bench'; did you mean 'water'?"),
+    Case("blank label close to none", ["rate", "--db", "{db}", "--blank", "tap"], 2,
+         "no blank labelled 'tap' on device 'bench': list blanks with `nightcell list blanks` and give its label or "
+         "key (boot:seq)"),
+    Case("blank key that is not a blank", ["rate", "--db", "{db}", "--blank", "1:4"], 2,
+         "no blank 1:4 on device 'bench': list blanks with `nightcell list blanks` and give its label"),
+    Case("blank label two blanks share", ["rate", "--db", "{db}", "--blank", "water"], 2,
+         f"2 blanks are labelled 'water' on device 'bench': give the key of the one you mean (taken {TAKEN}: "
+         f"--blank 1:3; taken {TAKEN}: --blank 1:4)", db=_variant(blanks=(0.0, 0.0))),
+    Case("calibration set with a typo", ["calibrate", "--db", "{db}", "--set", "wek2"], 2,
+         "no calibration set 'wek2' on device 'bench'; did you mean 'week2'? Its sets are 'set week2'",
+         db=_variant(standard_set="week2")),
+    Case("calibration set close to none", ["calibrate", "--db", "{db}", "--set", "spring"], 2,
+         "no calibration set 'spring' on device 'bench': its sets are 'after blank 1:3'"),
     Case("negative channel", ["export", "--db", "{db}", "--out", "{dir}/x", "--channel", "-1"], 2,
          "Invalid value for '--channel'"),
     Case("export into a file, not a folder", ["export", "--db", "{db}", "--out", "{csv}"], 2, "",

@@ -41,6 +41,7 @@ from ..render.numbers import local_time
 from ..errors import AnalysisError, InputError, SuspectData
 from ..science.fitting import FitResult, jsonable
 from ..store.database import Run, Store
+from .names import device_name, not_found
 
 __all__ = ["BlankChoice", "ReadingKeys", "RunAnalysis", "choose_blank", "standards_from_store",
            "calibrate_from_store", "standard_sets", "label_tokens", "ACCEPT_HINT",
@@ -144,14 +145,19 @@ def describe_mark(store: Store, device: str, key: tuple[int, int] | None) -> str
     if r is None:
         return f"record {key[0]}:{key[1]}"
     kind = {"run_start": "the start of run", "run_stop": "the stop of run"}.get(r["mark"], f"the {r['mark']}")
-    when = local_time(r["wall_clock_utc"], seconds=False) if r["wall_clock_utc"] else ""
+    when = _when(r)
     what = f"{kind} {r['label']!r}" if r["label"] else kind
     return f"{what}{' of ' + when if when else ''}" if when or r["label"] else f"{kind} {key[0]}:{key[1]}"
 
 
-def _device_name(store: Store, device: str) -> str:
-    row = store.device(device)
-    return repr(row["label"]) if row is not None and row["label"] else device
+def _when(reading: dict[str, Any]) -> str:
+    return local_time(reading["wall_clock_utc"], seconds=False) if reading["wall_clock_utc"] else ""
+
+
+def _mark_when(store: Store, device: str, key: tuple[int, int]) -> str:
+    """When a mark was taken, in local time (``2026-12-01 14:20 CET``), or "" when its time is not known."""
+    r = store.mark_reading(device, int(key[0]), int(key[1]))
+    return _when(r) if r is not None else ""
 
 
 def _mark_means(mark: dict[str, Any], channel: int) -> tuple[float, float]:
@@ -176,21 +182,27 @@ _KEY = re.compile(r"^\s*(\d+):(\d+)\s*$")
 
 def _named_blank(store: Store, device: str, blank: tuple[int, int] | str) -> dict[str, Any]:
     """The blank mark named by (boot, seq), by its key text ``boot:seq``, or by its label."""
+    where = f"device {device_name(store, device)}"
     if isinstance(blank, str):
         key = _KEY.match(blank)
         if key is None:
             rows = store.marks_labelled(device, "blank", blank)
             if not rows:
-                raise InputError(f"no blank labelled {blank!r} on device {device}: list blanks with "
-                                 "`nightcell list blanks` and give its key (boot:seq) or label")
+                labels = [m["label"] for m in store.marks(device, "blank")]
+                raise InputError(not_found(f"no blank labelled {blank!r} on {where}", blank, labels,
+                                           "list blanks with `nightcell list blanks` and give its label or key "
+                                           "(boot:seq)"))
             if len(rows) > 1:
-                raise InputError(f"{len(rows)} blanks are labelled {blank!r} on device {device} "
-                                 f"({', '.join('%d:%d' % (r['boot'], r['seq']) for r in rows)}): give its key")
+                taken = [(_mark_when(store, device, (r["boot"], r["seq"])) or "at a time not known",
+                          f"{r['boot']}:{r['seq']}") for r in rows]
+                raise InputError(f"{len(rows)} blanks are labelled {blank!r} on {where}: give the key of the one "
+                                 f"you mean ({'; '.join(f'taken {when}: --blank {key}' for when, key in taken)})")
             return _with_counts(store, rows[0])
         blank = (int(key.group(1)), int(key.group(2)))
     chosen = store.mark(device, blank[0], blank[1], "blank")
     if chosen is None:
-        raise InputError(f"no blank {blank[0]}:{blank[1]} on device {device}: list blanks with `nightcell list`")
+        raise InputError(f"no blank {blank[0]}:{blank[1]} on {where}: list blanks with `nightcell list blanks` "
+                         "and give its label")
     return _with_counts(store, chosen)
 
 
@@ -237,7 +249,7 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
                                 "cell may have changed in between — take a blank before each run, or name one with "
                                 "--blank")
         if m is None:
-            raise AnalysisError(f"device {_device_name(store, device)} has no blank before "
+            raise AnalysisError(f"device {device_name(store, device)} has no blank before "
                                 f"{describe_mark(store, device, before)}: take a blank first (`nightcell blank`) "
                                 "or name one")
     light, dark = _mark_means(m, channel)
@@ -304,16 +316,24 @@ def standard_sets(store: Store, device: str) -> tuple[list[dict[str, Any]], list
     return sorted(sets.values(), key=lambda st: st["last"]), left_out
 
 
-def _pick_set(sets: list[dict[str, Any]], name: str | None, before: tuple[int, int] | None, device: str) -> dict:
+def _set_names(st: dict[str, Any]) -> tuple[str, ...]:
+    """What --set takes for a set: its name, or the name without "set " or "after blank "."""
+    return st["name"], st["name"].removeprefix("set "), st["name"].removeprefix("after blank ")
+
+
+def _pick_set(store: Store, sets: list[dict[str, Any]], name: str | None, before: tuple[int, int] | None,
+              device: str) -> dict:
     if not sets:
-        raise AnalysisError(f"device {device} has no standards: record some with `nightcell standard`")
+        raise AnalysisError(f"device {device_name(store, device)} has no standards: record some with "
+                            "`nightcell standard`")
     if name is not None:
         wanted = name.strip()
         for st in sets:
-            if wanted in (st["name"], st["name"].removeprefix("set "), st["name"].removeprefix("after blank ")):
+            if wanted in _set_names(st):
                 return st
-        raise InputError(f"no calibration set {name!r} on device {device}; its sets are "
-                         f"{'; '.join(repr(st['name']) for st in sets)}")
+        raise InputError(not_found(f"no calibration set {name!r} on device {device_name(store, device)}", wanted,
+                                   [min(_set_names(st), key=len) for st in sets],
+                                   f"its sets are {'; '.join(repr(st['name']) for st in sets)}"))
     if before is not None:
         earlier = [st for st in sets if st["last"] < (int(before[0]), int(before[1]))]
         if earlier:
@@ -326,7 +346,7 @@ def standards_from_store(store: Store, device: str, channel: int = 0, *, set_nam
     """Concentration and absorbance of the standards of one calibration set (``SET_RULE``), each against its own
     blank, with the set's name, the standards' labels, values and unit."""
     sets, left_out = standard_sets(store, device)
-    chosen = _pick_set(sets, set_name, before, device)
+    chosen = _pick_set(store, sets, set_name, before, device)
     conc, absorb, ids, blanks, strays, listing, warnings = [], [], [], [], [], [], []
     units = sorted({m["unit"] for m in chosen["marks"] if m["unit"]})
     if len(units) > 1:
@@ -357,7 +377,8 @@ def calibrate_from_store(store: Store, device: str, channel: int = 0, *, set_nam
     std = standards_from_store(store, device, channel, set_name=set_name, before=before,
                                accept_suspect=accept_suspect)
     if len(std["concentration"]) == 0:
-        raise AnalysisError(f"device {device} has no standards: record some with `nightcell standard`")
+        raise AnalysisError(f"device {device_name(store, device)} has no standards: record some with "
+                            "`nightcell standard`")
     if unit and std["unit"] and unit != std["unit"]:
         raise InputError(f"--unit {unit} but the standards of {std['set']} were recorded in {std['unit']}: "
                          "leave --unit out, or give the same unit")
@@ -612,10 +633,12 @@ def analyse_run(store: Store, run: Run, *, channel: int = 0, calibration: Any = 
 def _run_of(store: Store, run: Run | str) -> Run:
     if isinstance(run, Run):
         return run
-    for r in store.runs():
+    runs = store.runs()
+    for r in runs:
         if r.key == run:
             return r
-    raise InputError(f"no run {run!r} in {store.path}: give a run key device:boot:seq (see `nightcell list runs`)")
+    raise InputError(not_found(f"no run {run!r} in {store.path}", run, [r.label for r in runs],
+                               "give a run key device:boot:seq (see `nightcell list runs --json`)"))
 
 
 TEMPERATURE_SENSE_K = (243.15, 383.15)

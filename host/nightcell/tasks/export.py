@@ -22,12 +22,13 @@ from typing import Any, Callable, Iterable, Sequence
 
 from ..render import report as _report
 from .analyse import analyse_run, calibrate_from_store, run_conditions, run_notes, run_provenance, run_series
+from .names import not_found
 from ..errors import AnalysisError, InputError, SuspectData
 from ..science.optics import flag_names
 from ..render.report import out_folder, write_atomic
 from ..store.database import Run, Store
 
-__all__ = ["did_you_mean", "resolve_run", "run_name", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
+__all__ = ["resolve_run", "run_name", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
 
 
 def resolve_run(store: Store, text: str | None) -> Run:
@@ -57,23 +58,9 @@ def resolve_run(store: Store, text: str | None) -> Run:
     number = text[1:] if text.startswith("#") else text
     if number.isdigit() and 1 <= int(number) <= len(runs):  # the number `nightcell list runs` shows
         return runs[int(number) - 1]
-    close = did_you_mean(text, [r.label for r in runs if r.label] + [r.key for r in runs])
-    if close:
-        raise InputError(f"no run {text!r} in {store.path}{close} Give a run's key or label as `nightcell list runs "
-                         f"--db {store.path}` shows it")
-    raise InputError(f"no run {text!r} in {store.path}: give a run's key or label "
-                     f"(see `nightcell list runs --db {store.path}`)")
-
-
-def did_you_mean(text: str, known: Sequence[str]) -> str:
-    """``"; did you mean 'fading 25 C'?"`` naming up to three of ``known`` closest to ``text`` ("" when none is)."""
-    import difflib
-
-    close = difflib.get_close_matches(text, list(dict.fromkeys(known)), n=3, cutoff=0.6)
-    if not close:
-        lowered = {k.lower(): k for k in known}
-        close = [lowered[k] for k in difflib.get_close_matches(text.lower(), list(lowered), n=3, cutoff=0.6)]
-    return f"; did you mean {' or '.join(repr(c) for c in close)}?" if close else ""
+    raise InputError(not_found(f"no run {text!r} in {store.path}", text,
+                               [r.label for r in runs if r.label] + [r.key for r in runs],
+                               f"give a run's key or label as `nightcell list runs --db {store.path}` shows it"))
 
 
 def run_name(run: Run) -> str:
