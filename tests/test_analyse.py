@@ -30,6 +30,7 @@ from nightcell.tasks.analyse import (
     standards_from_store,
 )
 from nightcell.errors import AnalysisError, InputError
+from nightcell.render.numbers import local_time
 from nightcell.store.clocks import rebuild_clocks
 
 DEV = "a0b1c2d3e4f50607"
@@ -216,7 +217,12 @@ def test_a_run_resumed_after_a_power_cut_is_one_run_across_two_boots(cut_run):
     # restart (boot 1 borrows boot 2's fitted rate, exactly 1 here, so to rounding of the ms anchors)
     i = 40
     assert_allclose(a.time_s[i] - a.time_s[i - 1], store.cut_gap_s, atol=2e-3)
-    assert any("spans boots 1, 2" in w and "resumed it by itself at 2:2" in w for w in a.warnings)
+    # the restart in plain words, the resume named by its local time (the mark key 2:2 stays in --json)
+    resumed = local_time(store.mark_reading(DEV, 2, 2)["wall_clock_utc"], seconds=False)
+    restart = [w for w in a.warnings if "restarted" in w]
+    assert restart == [f"the board restarted 1 time(s) during the run (the board resumed it by itself at {resumed}); "
+                       "readings are placed in time by the clock of each start"], a.warnings
+    assert a.to_dict()["resumed_at"] == ["2:2"]
     # absorbance equals the definition applied to the stored counts
     assert_allclose(a.absorbance, _absorbance_from_counts(store, DEV, a.seqs, (a.blank.boot, a.blank.seq)),
                     rtol=0, atol=1e-12)
@@ -269,7 +275,10 @@ def test_a_run_never_stopped_ends_where_the_next_run_starts(store):
     assert first.stop_boot is None
     s = run_series(store, first)
     assert len(s["time_s"]) == 20 and s["boots"] == [1]
-    assert any("ends where the next run starts (2:3)" in w for w in s["warnings"])
+    started = local_time(store.mark_reading(DEV, 2, 3)["wall_clock_utc"], seconds=False)
+    assert any(f"ends where the next run starts (the start of run 'second' of {started})" in w
+               for w in s["warnings"]), s["warnings"]
+    assert not any("2:3" in w for w in s["warnings"])
     assert len(run_series(store, second)["time_s"]) == 10
 
 

@@ -720,16 +720,18 @@ CASES = [
     # -- issue 12 §2: data that look wrong. Where a result would be saved it is refused (exit 5, nothing saved)
     # unless --accept-suspect confirms; the raw marks stay as they were.
     Case("blocked blank, rate --db refuses", ["rate", "--db", "{db}"], 5,
-         "blank 1:3 looks wrong: light 105.9 vs dark 100.0 counts per read: within 5 dark-noise SDs (4.2 counts) of "
+         f"the blank 'water' of {TAKEN} looks wrong: light 105.9 vs dark 100.0 counts per read: within 5 dark-noise SDs (4.2 counts) of "
          "its dark, as if the light path were blocked — clear the light path and take a new blank, name another "
          "with --blank, or pass --accept-suspect to use it anyway", db=_variant(blank_light=105.9)),
+    Case("calibrate --db on a light channel the board never read", ["calibrate", "--db", "{db}", "--channel", "3"], 5,
+         f"the blank 'water' of {TAKEN} has no counts for light channel 3: choose another --channel"),
     Case("blocked blank, calibrate --db refuses", ["calibrate", "--db", "{db}"], 5,
-         "blank 1:3 looks wrong: light 105.9 vs dark 100.0", db=_variant(blank_light=105.9)),
+         f"the blank 'water' of {TAKEN} looks wrong: light 105.9 vs dark 100.0", db=_variant(blank_light=105.9)),
     Case("blank far below the board's earlier blanks", ["rate", "--db", "{db}"], 5,
-         "blank 1:4 looks wrong: signal 189.3 counts per read, far below the 3000.0 of this board's 1 earlier "
+         f"the blank 'water' of {TAKEN} looks wrong: signal 189.3 counts per read, far below the 3000.0 of this board's 1 earlier "
          "blank(s) (less than 0.1 of them)", db=_variant(blanks=(0.0, 1.2))),
     Case("blocked blank at capture", ["blank", "--label", "water"], 5,
-         "5eba000000000007: blank 1:9 looks wrong — channel 0: light 105.9 vs dark 100.2 counts per read: within 5 "
+         "5eba000000000007: the blank 'water' just taken looks wrong — channel 0: light 105.9 vs dark 100.2 counts per read: within 5 "
          "dark-noise SDs (4.2 counts) of its dark, as if the light path were blocked. It is journaled as taken (raw "
          "data is kept) but analyses will refuse it", port=blocked_blank_board),
     Case("standards that do not rise (CSV)", ["calibrate", "{csv}"], 5,
@@ -966,7 +968,8 @@ def test_suspect_data_confirmed_with_accept_suspect_is_kept_and_flagged(tmp_path
     ok = CliRunner().invoke(cli, ["rate", "--db", str(db), "--accept-suspect", "--json"])
     assert ok.exit_code == 0, ok.output
     data = json.loads(ok.output)
-    assert any("suspect blank 1:3 used as confirmed (--accept-suspect)" in w for w in data["warnings"])
+    assert any(f"the blank 'water' of {TAKEN} looks wrong but is used as confirmed (--accept-suspect)" in w
+               for w in data["warnings"]), data["warnings"]
     saved = sqlite3.connect(db).execute("SELECT inputs_json FROM results WHERE id = ?", (data["result_id"],))
     assert "suspect_blank" in json.loads(saved.fetchone()[0])
 
@@ -1120,9 +1123,10 @@ def test_a_journaled_standard_of_1e999_is_left_out_and_named(tmp_path):
     out = CliRunner().invoke(cli, ["calibrate", "--db", str(db), "--json"])
     cal = json.loads(out.stdout)["calibration"]
     assert cal["n"] == 4
-    assert cal["inputs"]["left_out"] == ["standard 1:6 has a concentration of 1e999 (not a physical amount): left out"]
+    left_out = f"the standard 'dye 6' of {TAKEN} has a concentration of 1e999 (not a physical amount): left out"
+    assert cal["inputs"]["left_out"] == [left_out]
     text = CliRunner().invoke(cli, ["calibrate", "--db", str(db)]).output
-    assert "note: standard 1:6 has a concentration of 1e999 (not a physical amount): left out" in text
+    assert f"note: {left_out}" in text and "1:6" not in text
 
 
 # -- file names: one page per run, whatever the labels ---------------------------------------------------------------

@@ -433,7 +433,7 @@ def _mark_text(device: str, kind: str, reply: dict[str, Any], label: str) -> str
     return f"{device}: {kind}{shown} recorded on the board — {counts} counts per read"
 
 
-def _blank_check(device: str, reply: dict[str, Any], accept_suspect: bool) -> list[str]:
+def _blank_check(who: str, label: str, reply: dict[str, Any], accept_suspect: bool) -> list[str]:
     """Problems of a blank just journaled (``optics.blank_problems``), as text; raises ``SuspectData`` unless
     ``accept_suspect``. The mark stays on the board as taken: raw data is kept, and analyses flag or refuse it."""
     from ..errors import SuspectData
@@ -444,7 +444,8 @@ def _blank_check(device: str, reply: dict[str, Any], accept_suspect: bool) -> li
     for c, (li, d) in enumerate(zip(reply.get("light", []), reply.get("dark", []))):
         problems += [f"channel {c}: {p}" for p in blank_problems(li / reads, d / reads)]
     if problems and not accept_suspect:
-        raise SuspectData(f"{device}: blank {reply['boot']}:{reply['seq']} looks wrong — {problems[0]}. It is "
+        shown = f" {label!r}" if label else ""
+        raise SuspectData(f"{who}: the blank{shown} just taken looks wrong — {problems[0]}. It is "
                           "journaled as taken (raw data is kept) but analyses will refuse it: clear the light path "
                           "and take the blank again, or pass --accept-suspect to use it anyway")
     return problems
@@ -459,7 +460,7 @@ def _measure_command(kind: str, doc: str) -> click.Command:
         _check_text("label", label, kind)
         with _connected(port) as (board, info):
             reply = board.mark(kind, label)
-        problems = _blank_check(info["device"], reply, accept_suspect) if kind == "blank" else []
+        problems = _blank_check(_who(info), label, reply, accept_suspect) if kind == "blank" else []
         text = _mark_text(_who(info), kind, reply, label)
         if problems:
             text += "\nsuspect blank kept as confirmed (--accept-suspect): " + "; ".join(problems)

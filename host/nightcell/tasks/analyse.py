@@ -101,7 +101,7 @@ def _stray(store: Store, device: str, before: tuple[int, int] | None, channel: i
     m = _mark_before(store, device, "opaque", before)
     if m is None:
         return
-    light, dark = _mark_means(m, channel)
+    light, dark = _mark_means(store, m, channel)
     b.stray = _optics.stray_fraction_from_opaque(light, dark, b.light, b.dark)
     b.stray_mark = f"{m['boot']}:{m['seq']}"
 
@@ -160,10 +160,10 @@ def _mark_when(store: Store, device: str, key: tuple[int, int]) -> str:
     return _when(r) if r is not None else ""
 
 
-def _mark_means(mark: dict[str, Any], channel: int) -> tuple[float, float]:
+def _mark_means(store: Store, mark: dict[str, Any], channel: int) -> tuple[float, float]:
     if mark["reads"] <= 0 or channel >= len(mark["light"]):
-        what = f"{mark['mark']} {mark['label']!r}" if mark.get("label") else f"mark {mark['boot']}:{mark['seq']}"
-        raise AnalysisError(f"the {what} has no counts for light channel {channel}: choose another --channel")
+        what = describe_mark(store, mark["device"], (mark["boot"], mark["seq"]))
+        raise AnalysisError(f"{what} has no counts for light channel {channel}: choose another --channel")
     return mark["light"][channel] / mark["reads"], mark["dark"][channel] / mark["reads"]
 
 
@@ -216,7 +216,7 @@ def _earlier_blank_signals(store: Store, device: str, mark: dict[str, Any], chan
         if row is not None:
             m = store.with_counts(row)
             if m["reads"] > 0 and channel < len(m["light"]):
-                light, dark = _mark_means(m, channel)
+                light, dark = _mark_means(store, m, channel)
                 out.append(light - dark)
     return out
 
@@ -235,8 +235,8 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
         m = _named_blank(store, device, blank)
         rule = "named by the user"
         if before is not None and (m["boot"], m["seq"]) > (int(before[0]), int(before[1])):
-            warnings.append(f"blank {m['boot']}:{m['seq']} was taken after the readings it is used for; the cell "
-                            "may have changed in between (LED warmth, cuvette position)")
+            warnings.append(f"{describe_mark(store, device, (m['boot'], m['seq']))} was taken after the readings "
+                            "it is used for; the cell may have changed in between (LED warmth, cuvette position)")
     else:
         m = _mark_before(store, device, "blank", before)
         rule = BLANK_RULE
@@ -252,13 +252,14 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
             raise AnalysisError(f"device {device_name(store, device)} has no blank before "
                                 f"{describe_mark(store, device, before)}: take a blank first (`nightcell blank`) "
                                 "or name one")
-    light, dark = _mark_means(m, channel)
-    key = f"{m['boot']}:{m['seq']}"
+    light, dark = _mark_means(store, m, channel)
     problems = _optics.blank_problems(light, dark, _earlier_blank_signals(store, device, m, channel))
-    if problems and not accept_suspect:
-        raise SuspectData(f"blank {key} looks wrong: {problems[0]} — clear the light path and take a new blank, "
-                          f"name another with --blank, or {ACCEPT_HINT}")
-    warnings += [f"suspect blank {key} used as confirmed (--accept-suspect): {p}" for p in problems]
+    if problems:
+        shown = describe_mark(store, device, (m["boot"], m["seq"]))
+        if not accept_suspect:
+            raise SuspectData(f"{shown} looks wrong: {problems[0]} — clear the light path and take a new blank, "
+                              f"name another with --blank, or {ACCEPT_HINT}")
+        warnings += [f"{shown} looks wrong but is used as confirmed (--accept-suspect): {p}" for p in problems]
     choice = BlankChoice(device, m["boot"], m["seq"], channel, light, dark, rule, warnings=warnings,
                          suspect=problems)
     _stray(store, device, before, channel, choice)
@@ -290,7 +291,7 @@ def standard_sets(store: Store, device: str) -> tuple[list[dict[str, Any]], list
     left_out: list[str] = []
     after = "before any blank"
     for m in store.marks(device):
-        kind, key = m["mark"], f"{m['boot']}:{m['seq']}"
+        kind, key = m["mark"], f"{m['boot']}:{m['seq']}"  # a set's name says the key --set takes
         if kind == "blank":
             after = f"after blank {key}"
             continue
@@ -303,10 +304,12 @@ def standard_sets(store: Store, device: str) -> tuple[list[dict[str, Any]], list
         try:
             c = float(m["value"])
         except (TypeError, ValueError):
-            left_out.append(f"standard {key} has value {m['value']!r}, not a number")
+            left_out.append(f"{describe_mark(store, device, (m['boot'], m['seq']))} has value {m['value']!r}, "
+                            "not a number")
             continue
         if not math.isfinite(c) or c < 0:
-            left_out.append(f"standard {key} has a concentration of {m['value']} (not a physical amount): left out")
+            left_out.append(f"{describe_mark(store, device, (m['boot'], m['seq']))} has a concentration of "
+                            f"{m['value']} (not a physical amount): left out")
             continue
         name = f"set {tokens['set']}" if "set" in tokens else after
         one = sets.setdefault(name, {"name": name, "how": "labelled set=" + tokens["set"] if "set" in tokens
@@ -355,7 +358,7 @@ def standards_from_store(store: Store, device: str, channel: int = 0, *, set_nam
     for m in chosen["marks"]:
         b = choose_blank(store, device, (m["boot"], m["seq"]), channel, accept_suspect=accept_suspect)
         warnings += b.warnings
-        light, dark = _mark_means(m, channel)
+        light, dark = _mark_means(store, m, channel)
         res = _absorbance([light], [dark], b)
         conc.append(m["concentration"])
         absorb.append(float(res.absorbance[0]))
@@ -490,7 +493,7 @@ def run_bounds(store: Store, run: Run) -> dict[str, Any]:
             continue
         if end is None:
             end = key
-            rule = f"no stop mark: the run ends where the next run starts ({key[0]}:{key[1]})"
+            rule = f"no stop mark: the run ends where the next run starts ({describe_mark(store, run.device, key)})"
         break
     if end is None:
         rule = "no stop mark: every later reading of the device"
@@ -524,10 +527,11 @@ def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] 
     boot_col = cols["boot"]
     boots = _boots_of(boot_col)
     if len(boots) > 1:
-        how = (f"the board resumed it by itself at {', '.join('%d:%d' % k for k in bounds['resumed'])}"
-               if bounds["resumed"] else "no resume mark was found")
-        warnings.append(f"the run spans boots {', '.join(map(str, boots))} (a restart in the middle: {how}); "
-                        "readings are placed in time by each boot's clock")
+        when = [_mark_when(store, run.device, k) for k in bounds["resumed"]]
+        how = ("the board resumed it by itself" + (f" at {', '.join(w for w in when if w)}" if any(when) else "")
+               if when else "no resume mark was found")
+        warnings.append(f"the board restarted {len(boots) - 1} time(s) during the run ({how}); readings are placed "
+                        "in time by the clock of each start")
     clocks = cols["clocks"]
     up = cols["uptime_ms"]
     keep = None
