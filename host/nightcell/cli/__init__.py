@@ -348,6 +348,8 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
 
     Example: nightcell setup --port /dev/ttyACM0 --interval 30 --warmup 5 --durability 60 --label "bench 3"
     """
+    from ..tasks.names import board_name, label_hint
+
     changes: dict[str, Any] = {}
     if device_label is not None:
         changes["label"] = _check_text("label", device_label, "set", LABEL_MAX_BYTES)
@@ -392,10 +394,14 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
             applied[key] = value
             if reply.get("after_reset"):
                 after_reset.append(key)
-    lines = [f"{_who(info)}: " + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
+    now = dict(info, label=applied.get("label", info.get("label")))
+    lines = [f"{board_name(now)}: "
+             + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
     lines.append("saved on the board (and recorded with its readings, so every run says how it was taken)")
     if after_reset:
         lines.append(f"{', '.join(after_reset)} take effect when the board restarts (unplug and plug it in)")
+    if label_hint(now):
+        lines.append(label_hint(now))
     _emit({"device": info["device"], "applied": applied, "after_reset": after_reset,
            "settings": reply.get("settings"), "settings_crc": reply.get("settings_crc")}, as_json, "\n".join(lines))
 

@@ -16,12 +16,12 @@ Example::
 from __future__ import annotations
 
 import difflib
-from typing import Sequence
+from typing import Any, Mapping, Sequence
 
 from ..errors import InputError
 from ..store.database import Store
 
-__all__ = ["did_you_mean", "not_found", "device_name", "resolve_device"]
+__all__ = ["did_you_mean", "not_found", "device_name", "resolve_device", "board_name", "label_hint"]
 
 
 def did_you_mean(text: str, known: Sequence[str]) -> str:
@@ -70,3 +70,17 @@ def resolve_device(store: Store, text: str | None) -> tuple[str, str]:
         raise InputError(f"{store.path} holds no devices yet: sync a board first")
     raise InputError(f"{store.path} holds {len(known)} devices: name one with --device "
                      f"({', '.join(known.values())})")
+
+
+def board_name(hello: Mapping[str, Any]) -> str:
+    """A connected board (its hello) as its class knows it: its label ("bench 3"), or "the board with no label yet"
+    (the id is detail: ``label_hint`` gives it with the way to name the board)."""
+    return str(hello.get("label") or "the board with no label yet")
+
+
+def label_hint(hello: Mapping[str, Any]) -> str:
+    """For a board with no label, how to give it one (its id kept as detail); "" for a labelled board."""
+    if hello.get("label"):
+        return ""
+    return ("give it a label with `nightcell setup --label \"bench 1\"`, so its runs, tables and reports name it "
+            f"(device id {hello.get('device')})")
