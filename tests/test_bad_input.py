@@ -113,12 +113,12 @@ SCRIPTED_JOURNAL = 0x5C0FF1ED
 records differ from them replays its keys with other content (a forged board), not a new journal."""
 
 
-def store_as_synced(path: Path, device: str, records: list[F.Record]) -> Path:
-    """A nightcell database holding decoded journal ``records`` of ``device``, as a sync of the scripted board's
-    journal (``SCRIPTED_JOURNAL``) would have stored them."""
+def store_as_synced(path: Path, device: str, records: list[F.Record], label: str = "bench") -> Path:
+    """A nightcell database holding decoded journal ``records`` of ``device`` (labelled ``label``), as a sync of the
+    scripted board's journal (``SCRIPTED_JOURNAL``) would have stored them."""
     with Store.open(path) as store:
         with store.write():
-            store.touch_device(device, board="sim", firmware="0.1.0", label="bench")
+            store.touch_device(device, board="sim", firmware="0.1.0", label=label)
             store.ingest(device, records, journal=SCRIPTED_JOURNAL)
             rebuild_clocks(store, device)
     return path

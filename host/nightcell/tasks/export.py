@@ -28,7 +28,7 @@ from ..science.optics import flag_names
 from ..render.report import out_folder, write_atomic
 from ..store.database import Run, Store
 
-__all__ = ["resolve_run", "run_name", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
+__all__ = ["resolve_run", "run_name", "device_stems", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
 
 
 def resolve_run(store: Store, text: str | None) -> Run:
@@ -63,11 +63,19 @@ def resolve_run(store: Store, text: str | None) -> Run:
                                f"give a run's key or label as `nightcell list runs --db {store.path}` shows it"))
 
 
-def run_name(run: Run) -> str:
-    """A file name stem for a run: a safe stem of its label, then its key (never cut off, so two runs never share
-    a name), sanitised (never a path, never markup, valid on Windows)."""
+def run_name(run: Run, device_stem: str | None = None) -> str:
+    """A file name stem for a run: a safe stem of its label, its device's (``device_stem``, one of
+    ``device_stems``: its label, else its id) and its boot and sequence (never cut off, so two runs never share a
+    name), sanitised (never a path, never markup, valid on Windows)."""
     label = _report.safe_filename(run.label, default="run", limit=48).strip("-_.") or "run"
-    return f"{label}-{_report.safe_filename(run.key.replace(':', '-'), limit=None)}"
+    device = device_stem or _report.safe_filename(run.device, limit=None)
+    return f"{label}-{device}-{run.start_boot}-{run.start_seq}"
+
+
+def device_stems(store: Store) -> dict[str, str]:
+    """The file-name stem of every device in ``store`` (``report.device_stems``: its label, made safe and unique,
+    else its id)."""
+    return _report.device_stems({d["device"]: d["label"] for d in store.devices()})
 
 
 @dataclass
@@ -113,8 +121,9 @@ def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None,
             rows.append((m["device"], m["boot"], m["seq"], m["uptime_ms"], m["mark"], m["source"], m["label"],
                          m["value"], "", m["reads"], "", ""))
     done.files.append(_csv(out / "marks.csv", MARK_COLUMNS, rows))
+    stems = device_stems(store)
     for run in store.runs() if runs is None else runs:
-        name = run_name(run)
+        name = run_name(run, stems.get(run.device))
         samples = store.run_samples(run, channel)
         if not samples:
             done.skipped.append(f"run {run.key} ({run.label!r}): no samples stored yet")
@@ -159,8 +168,10 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
                            accept_suspect=accept_suspect)
     provenance = run_provenance(store, analysis, cal)
     conditions = run_conditions(store, run).get(run.key)
+    stem = device_stems(store).get(run.device)
     files = _report.run_report(analysis, out, calibration=cal, provenance=provenance, conditions=conditions,
-                               name=run_name(run), cache=cache, notes=run_notes(store, analysis))
+                               name=run_name(run, stem), cache=cache, notes=run_notes(store, analysis),
+                               device_stem=stem)
     done.files += files.files
     return done
 
@@ -189,11 +200,14 @@ def study_report(store: Store, out: str | Path, channel: int = 0, *, level: floa
     conds = run_conditions(store)
     pages: dict[str, str] = {}
     cache: dict = {}
+    stems = device_stems(store)
     for it in study.runs:
         prov = run_provenance(store, it.analysis, it.calibration)
+        stem = stems.get(it.run.device)
         files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
-                                   conditions=conds.get(it.run.key), name=(page_name or run_name)(it.run),
-                                   cache=cache, unit=unit, notes=run_notes(store, it.analysis))
+                                   conditions=conds.get(it.run.key),
+                                   name=page_name(it.run) if page_name else run_name(it.run, stem),
+                                   cache=cache, unit=unit, notes=run_notes(store, it.analysis), device_stem=stem)
         pages[it.run.key] = f"runs/{files.html.name}"
         done.files += files.files
         done.run_pages.append(files.html)
