@@ -772,6 +772,11 @@ CASES = [
          "3.6 days (the longest run that fits); an interval of 1.972 s or more would fit 7.0 days",
          port=board_then_vanish("start", dict(HELLO, running=False, interval_ms=1000, bytes_per_sample=3.26,
                                                channels=1))),
+    Case("start on a labelled board already logging", ["start", "--label", "x"], 2,
+         "bench 9 is already logging a run: stop it first with `nightcell stop`, or leave it running",
+         port=board_then_vanish("start", dict(HELLO, running=True, label="bench 9"))),
+    Case("stop on a labelled board not logging", ["stop"], 2, "bench 9 is not logging a run: nothing to stop",
+         port=board_then_vanish("stop", dict(HELLO, running=False, label="bench 9"))),
     Case("setup interval shorter than the board's measurement", ["setup", "--interval", "1"], 2,
          "--interval 1 s is shorter than one measurement on 5eba000000000007 (3858 ms with its reads, settle and "
          "window) plus 50 ms: choose at least 3.908 s",

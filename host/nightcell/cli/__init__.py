@@ -386,7 +386,7 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
             need = int(measure) + _settings.interval_margin_ms()
             if changes["interval_ms"] < need:
                 raise InputError(f"--interval {changes['interval_ms'] / 1000:g} s is shorter than one measurement "
-                                 f"on {info['device']} ({int(measure)} ms with its reads, settle and window) plus "
+                                 f"on {_who(info)} ({int(measure)} ms with its reads, settle and window) plus "
                                  f"{_settings.interval_margin_ms()} ms: choose at least {need / 1000:g} s, or fewer "
                                  "--reads")
         for key, value in changes.items():
@@ -558,7 +558,7 @@ def start(port: str, label: str, planned: str | None, even_if_short: bool, as_js
     seconds = parse_duration(planned) if planned is not None else None
     with _connected(port) as (board, info):
         if info.get("running"):
-            raise InputError(f"{info['device']} is already logging a run: stop it first with `nightcell stop`, "
+            raise InputError(f"{_who(info)} is already logging a run: stop it first with `nightcell stop`, "
                              "or leave it running")
         room = plan_run(info, seconds) if seconds is not None else None
         if room is not None and not room.fits and not even_if_short:
@@ -587,7 +587,7 @@ def stop(port: str, as_json: bool) -> None:
     """
     with _connected(port) as (board, info):
         if not info.get("running"):
-            raise InputError(f"{info['device']} is not logging a run: nothing to stop")
+            raise InputError(f"{_who(info)} is not logging a run: nothing to stop")
         reply = board.stop()
     text = f"{_who(info)}: run stopped; copy it to the database with `nightcell sync`"
     _emit(dict(reply, device=info["device"]), as_json, text)
