@@ -30,6 +30,7 @@ from nightcell.tasks.analyse import (
     standards_from_store,
 )
 from nightcell.errors import AnalysisError, InputError
+from nightcell.render.numbers import local_time
 from nightcell.store.clocks import rebuild_clocks
 
 DEV = "a0b1c2d3e4f50607"
@@ -154,7 +155,8 @@ def test_a_named_blank_overrides_the_rule_and_a_missing_one_is_a_clear_error(two
     store = two_blanks
     b = choose_blank(store, DEV, (1, 6), blank=(1, 3))
     assert (b.boot, b.seq, b.rule) == (1, 3, "named by the user")
-    with pytest.raises(InputError, match=r"no blank 1:99 on device .* list blanks with `nightcell list`"):
+    with pytest.raises(InputError, match=r"no blank 1:99 on device a0b1c2d3e4f50607: list blanks with "
+                                         r"`nightcell list blanks` and give its label"):
         choose_blank(store, DEV, (1, 6), blank=(1, 99))
     # no blank before: the first blank after, with a warning that says so (issue 12 §5: a run can be rescued)
     after = choose_blank(store, DEV, (1, 2))
@@ -215,7 +217,12 @@ def test_a_run_resumed_after_a_power_cut_is_one_run_across_two_boots(cut_run):
     # restart (boot 1 borrows boot 2's fitted rate, exactly 1 here, so to rounding of the ms anchors)
     i = 40
     assert_allclose(a.time_s[i] - a.time_s[i - 1], store.cut_gap_s, atol=2e-3)
-    assert any("spans boots 1, 2" in w and "resumed it by itself at 2:2" in w for w in a.warnings)
+    # the restart in plain words, the resume named by its local time (the mark key 2:2 stays in --json)
+    resumed = local_time(store.mark_reading(DEV, 2, 2)["wall_clock_utc"], seconds=False)
+    restart = [w for w in a.warnings if "restarted" in w]
+    assert restart == [f"the board restarted 1 time(s) during the run (the board resumed it by itself at {resumed}); "
+                       "readings are placed in time by the clock of each start"], a.warnings
+    assert a.to_dict()["resumed_at"] == ["2:2"]
     # absorbance equals the definition applied to the stored counts
     assert_allclose(a.absorbance, _absorbance_from_counts(store, DEV, a.seqs, (a.blank.boot, a.blank.seq)),
                     rtol=0, atol=1e-12)
@@ -268,7 +275,10 @@ def test_a_run_never_stopped_ends_where_the_next_run_starts(store):
     assert first.stop_boot is None
     s = run_series(store, first)
     assert len(s["time_s"]) == 20 and s["boots"] == [1]
-    assert any("ends where the next run starts (2:3)" in w for w in s["warnings"])
+    started = local_time(store.mark_reading(DEV, 2, 3)["wall_clock_utc"], seconds=False)
+    assert any(f"ends where the next run starts (the start of run 'second' of {started})" in w
+               for w in s["warnings"]), s["warnings"]
+    assert not any("2:3" in w for w in s["warnings"])
     assert len(run_series(store, second)["time_s"]) == 10
 
 
@@ -309,6 +319,9 @@ def test_bad_conditions_are_refused_with_what_to_do_and_nothing_written(cut_run,
 def test_a_condition_for_a_run_that_is_not_there_is_refused(cut_run):
     with pytest.raises(InputError, match="give a run key device:boot:seq"):
         set_run_condition(cut_run, f"{DEV}:9:9", "temperature_K", 300.0, "s")
+    # a label typed where the key belongs, with a typo: the closest run label is offered
+    with pytest.raises(InputError, match=r"; did you mean 'fading across a power cut'\? Give a run key"):
+        set_run_condition(cut_run, "fading acros a power cut", "temperature_K", 300.0, "s")
 
 
 # -- several runs: conditions → k → order and Arrhenius ------------------------------------------------------------

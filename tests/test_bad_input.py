@@ -40,10 +40,14 @@ from nightcell.cli import cli
 from nightcell.errors import StoreError
 from nightcell.store.database import Store
 from nightcell.store.clocks import rebuild_clocks
+from nightcell.render.numbers import local_time
 
 ROOT = Path(__file__).resolve().parent.parent
 DEVICE = "5eba000000000007"
 RUN_LABEL = "fading 25 C"
+TAKEN = local_time(1_796_000_003, seconds=False)
+"""The minute, in this computer's zone, when the journal's blank and standards were taken (1_796_000_002 to 008 s,
+all in one minute): errors name a mark by its label and this time, not by its key."""
 
 
 # -- a database built from journal records ---------------------------------------------------------------------------
@@ -51,13 +55,14 @@ RUN_LABEL = "fading 25 C"
 def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_label: str = "water",
                     n_samples: int = 40, *, blanks: tuple[float | None, ...] = (0.0,),
                     standards: tuple[tuple[str, float], ...] | None = None, curve: Callable[[int], float] | None = None,
-                    opaque: float | None = None, blank_light: float | None = None) -> list[bytes]:
+                    opaque: float | None = None, blank_light: float | None = None,
+                    standard_set: str | None = None) -> list[bytes]:
     """Encoded records of one boot: anchors, dark, blank, five standards, a run of ``n_samples`` and its stop.
 
     Variants for the guards' rows: ``blanks`` (absorbance of each blank against the LED, in order; the last is the
     run's), ``blank_light`` (the last blank's light in counts per read, e.g. a blocked path), ``standards``
     ((value as typed, absorbance) each), ``curve`` (absorbance of sample i) and ``opaque`` (an opaque mark's
-    absorbance, read before the run)."""
+    absorbance, read before the run) and ``standard_set`` (a set=NAME token in every standard's label)."""
     recs: list[bytes] = []
     seq = 0
     up = 0
@@ -86,7 +91,7 @@ def journal_records(device: str = DEVICE, run_label: str = RUN_LABEL, blank_labe
             mark(2, blank_a, blank_label)
     for value, absorbance in (standards if standards is not None
                               else tuple((str(c), 0.075 * c) for c in (2, 4, 6, 8, 10))):
-        mark(3, absorbance, f"dye {value}", value)
+        mark(3, absorbance, f"dye {value}" + (f" set={standard_set}" if standard_set else ""), value)
     if opaque is not None:
         mark(7, opaque, "black card")
     add(F.KIND_MARK, {"mark": 4, "source": 0, "reads": 0, "dark": [], "light": [], "label": run_label,
@@ -108,12 +113,12 @@ SCRIPTED_JOURNAL = 0x5C0FF1ED
 records differ from them replays its keys with other content (a forged board), not a new journal."""
 
 
-def store_as_synced(path: Path, device: str, records: list[F.Record]) -> Path:
-    """A nightcell database holding decoded journal ``records`` of ``device``, as a sync of the scripted board's
-    journal (``SCRIPTED_JOURNAL``) would have stored them."""
+def store_as_synced(path: Path, device: str, records: list[F.Record], label: str = "bench") -> Path:
+    """A nightcell database holding decoded journal ``records`` of ``device`` (labelled ``label``), as a sync of the
+    scripted board's journal (``SCRIPTED_JOURNAL``) would have stored them."""
     with Store.open(path) as store:
         with store.write():
-            store.touch_device(device, board="sim", firmware="0.1.0", label="bench")
+            store.touch_device(device, board="sim", firmware="0.1.0", label=label)
             store.ingest(device, records, journal=SCRIPTED_JOURNAL)
             rebuild_clocks(store, device)
     return path
@@ -507,7 +512,29 @@ CASES = [
     Case("orders with neither CSV nor database (NIGHTCELL_DB empty)", ["orders"], 2, "give a CSV file",
          env={"NIGHTCELL_DB": ""}),
     Case("calibrate an unknown device", ["calibrate", "--db", "{db}", "--device", "ffff000000000000"], 2,
-         "no device 'ffff000000000000'"),
+         "no device 'ffff000000000000' in {db}: give one of its devices by label or id (bench)"),
+    # -- a label typed with a typo: the closest labels are offered ------------------------------------------------
+    Case("device label with a typo", ["calibrate", "--db", "{db}", "--device", "bnech"], 2,
+         "no device 'bnech' in {db}; did you mean 'bench'? Give one of its devices by label or id (bench)"),
+    Case("blank label with a typo (rate)", ["rate", "--db", "{db}", "--blank", "watr"], 2,
+         "no blank labelled 'watr' on device 'bench'; did you mean 'water'? List blanks with `nightcell list "
+         "blanks` and give its label or key (boot:seq)"),
+    Case("blank label with a typo (report)",
+         ["report", "--db", "{db}", "--run", RUN_LABEL, "--blank", "WATER", "--out", "{dir}/r"], 2,
+         "no blank labelled 'WATER' on device 'bench'; did you mean 'water'?"),
+    Case("blank label close to none", ["rate", "--db", "{db}", "--blank", "tap"], 2,
+         "no blank labelled 'tap' on device 'bench': list blanks with `nightcell list blanks` and give its label or "
+         "key (boot:seq)"),
+    Case("blank key that is not a blank", ["rate", "--db", "{db}", "--blank", "1:4"], 2,
+         "no blank 1:4 on device 'bench': list blanks with `nightcell list blanks` and give its label"),
+    Case("blank label two blanks share", ["rate", "--db", "{db}", "--blank", "water"], 2,
+         f"2 blanks are labelled 'water' on device 'bench': give the key of the one you mean (taken {TAKEN}: "
+         f"--blank 1:3; taken {TAKEN}: --blank 1:4)", db=_variant(blanks=(0.0, 0.0))),
+    Case("calibration set with a typo", ["calibrate", "--db", "{db}", "--set", "wek2"], 2,
+         "no calibration set 'wek2' on device 'bench'; did you mean 'week2'? Its sets are 'set week2'",
+         db=_variant(standard_set="week2")),
+    Case("calibration set close to none", ["calibrate", "--db", "{db}", "--set", "spring"], 2,
+         "no calibration set 'spring' on device 'bench': its sets are 'after blank 1:3'"),
     Case("negative channel", ["export", "--db", "{db}", "--out", "{dir}/x", "--channel", "-1"], 2,
          "Invalid value for '--channel'"),
     Case("export into a file, not a folder", ["export", "--db", "{db}", "--out", "{csv}"], 2, "",
@@ -693,16 +720,18 @@ CASES = [
     # -- issue 12 §2: data that look wrong. Where a result would be saved it is refused (exit 5, nothing saved)
     # unless --accept-suspect confirms; the raw marks stay as they were.
     Case("blocked blank, rate --db refuses", ["rate", "--db", "{db}"], 5,
-         "blank 1:3 looks wrong: light 105.9 vs dark 100.0 counts per read: within 5 dark-noise SDs (4.2 counts) of "
+         f"the blank 'water' of {TAKEN} looks wrong: light 105.9 vs dark 100.0 counts per read: within 5 dark-noise SDs (4.2 counts) of "
          "its dark, as if the light path were blocked — clear the light path and take a new blank, name another "
          "with --blank, or pass --accept-suspect to use it anyway", db=_variant(blank_light=105.9)),
+    Case("calibrate --db on a light channel the board never read", ["calibrate", "--db", "{db}", "--channel", "3"], 5,
+         f"the blank 'water' of {TAKEN} has no counts for light channel 3: choose another --channel"),
     Case("blocked blank, calibrate --db refuses", ["calibrate", "--db", "{db}"], 5,
-         "blank 1:3 looks wrong: light 105.9 vs dark 100.0", db=_variant(blank_light=105.9)),
+         f"the blank 'water' of {TAKEN} looks wrong: light 105.9 vs dark 100.0", db=_variant(blank_light=105.9)),
     Case("blank far below the board's earlier blanks", ["rate", "--db", "{db}"], 5,
-         "blank 1:4 looks wrong: signal 189.3 counts per read, far below the 3000.0 of this board's 1 earlier "
+         f"the blank 'water' of {TAKEN} looks wrong: signal 189.3 counts per read, far below the 3000.0 of this board's 1 earlier "
          "blank(s) (less than 0.1 of them)", db=_variant(blanks=(0.0, 1.2))),
     Case("blocked blank at capture", ["blank", "--label", "water"], 5,
-         "5eba000000000007: blank 1:9 looks wrong — channel 0: light 105.9 vs dark 100.2 counts per read: within 5 "
+         "5eba000000000007: the blank 'water' just taken looks wrong — channel 0: light 105.9 vs dark 100.2 counts per read: within 5 "
          "dark-noise SDs (4.2 counts) of its dark, as if the light path were blocked. It is journaled as taken (raw "
          "data is kept) but analyses will refuse it", port=blocked_blank_board),
     Case("standards that do not rise (CSV)", ["calibrate", "{csv}"], 5,
@@ -743,6 +772,11 @@ CASES = [
          "3.6 days (the longest run that fits); an interval of 1.972 s or more would fit 7.0 days",
          port=board_then_vanish("start", dict(HELLO, running=False, interval_ms=1000, bytes_per_sample=3.26,
                                                channels=1))),
+    Case("start on a labelled board already logging", ["start", "--label", "x"], 2,
+         "bench 9 is already logging a run: stop it first with `nightcell stop`, or leave it running",
+         port=board_then_vanish("start", dict(HELLO, running=True, label="bench 9"))),
+    Case("stop on a labelled board not logging", ["stop"], 2, "bench 9 is not logging a run: nothing to stop",
+         port=board_then_vanish("stop", dict(HELLO, running=False, label="bench 9"))),
     Case("setup interval shorter than the board's measurement", ["setup", "--interval", "1"], 2,
          "--interval 1 s is shorter than one measurement on 5eba000000000007 (3858 ms with its reads, settle and "
          "window) plus 50 ms: choose at least 3.908 s",
@@ -939,7 +973,8 @@ def test_suspect_data_confirmed_with_accept_suspect_is_kept_and_flagged(tmp_path
     ok = CliRunner().invoke(cli, ["rate", "--db", str(db), "--accept-suspect", "--json"])
     assert ok.exit_code == 0, ok.output
     data = json.loads(ok.output)
-    assert any("suspect blank 1:3 used as confirmed (--accept-suspect)" in w for w in data["warnings"])
+    assert any(f"the blank 'water' of {TAKEN} looks wrong but is used as confirmed (--accept-suspect)" in w
+               for w in data["warnings"]), data["warnings"]
     saved = sqlite3.connect(db).execute("SELECT inputs_json FROM results WHERE id = ?", (data["result_id"],))
     assert "suspect_blank" in json.loads(saved.fetchone()[0])
 
@@ -1093,9 +1128,10 @@ def test_a_journaled_standard_of_1e999_is_left_out_and_named(tmp_path):
     out = CliRunner().invoke(cli, ["calibrate", "--db", str(db), "--json"])
     cal = json.loads(out.stdout)["calibration"]
     assert cal["n"] == 4
-    assert cal["inputs"]["left_out"] == ["standard 1:6 has a concentration of 1e999 (not a physical amount): left out"]
+    left_out = f"the standard 'dye 6' of {TAKEN} has a concentration of 1e999 (not a physical amount): left out"
+    assert cal["inputs"]["left_out"] == [left_out]
     text = CliRunner().invoke(cli, ["calibrate", "--db", str(db)]).output
-    assert "note: standard 1:6 has a concentration of 1e999 (not a physical amount): left out" in text
+    assert f"note: {left_out}" in text and "1:6" not in text
 
 
 # -- file names: one page per run, whatever the labels ---------------------------------------------------------------

@@ -174,7 +174,7 @@ def test_a_run_can_be_read_against_a_named_blank(tmp_path):
     blank = data["detail"]["readings_from"]["blank"]
     assert (blank["seq"], blank["rule"]) == (3, "named by the user")
     code, out = _run("rate", "--db", db, "--blank", "water")
-    assert code == 2 and "2 blanks are labelled 'water'" in out and "give its key" in out, out
+    assert code == 2 and "2 blanks are labelled 'water'" in out and "give the key of the one you mean" in out, out
 
 
 # -- §3 and §4: calibration sets and units ----------------------------------------------------------------------

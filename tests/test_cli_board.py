@@ -84,6 +84,24 @@ def test_setup_sets_and_says_what_waits_for_a_restart(sim):
     assert text.exit_code == 0 and "interval_ms = 1000" in text.output
 
 
+def test_setup_of_a_board_with_no_label_says_so_and_how_to_name_it(sim_board):
+    """A fresh simulated board has no label: setup names it in words and tells how to give it one; its hex id
+    appears only as detail at the end of that hint (and in --json)."""
+    r = _run(sim_board, "setup", "--interval", "2")
+    assert r.exit_code == 0, r.output
+    lines = r.output.splitlines()
+    assert lines[0] == "the board with no label yet: interval_ms = 2000", r.output
+    assert lines[-1] == ('give it a label with `nightcell setup --label "bench 1"`, so its runs, tables and reports '
+                         "name it (device id 5e1f000000000001)"), r.output
+    assert sum("5e1f000000000001" in line for line in lines) == 1, r.output
+    assert json.loads(_run(sim_board, "setup", "--interval", "2", "--json").output)["device"] == "5e1f000000000001"
+    named = _run(sim_board, "setup", "--label", "bench 7")
+    assert named.exit_code == 0 and named.output.startswith('bench 7: label = "bench 7"'), named.output
+    assert "5e1f000000000001" not in named.output and "give it a label" not in named.output
+    again = _run(sim_board, "setup", "--interval", "2")
+    assert again.output.startswith("bench 7: interval_ms = 2000"), again.output
+
+
 def test_setting_ranges_agree_with_the_schema():
     """The host's checks use the ranges of schema/settings.md (docs kept true by machine)."""
     table = {}

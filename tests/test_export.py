@@ -195,3 +195,76 @@ def test_not_a_database_is_exit_4(tmp_path):
     r = _cli("list", "runs", "--db", bad)
     assert r.exit_code == 4 and "Traceback" not in r.output
     assert bad.read_text() == "this is not SQLite"
+
+
+# -- file names: the bench's label, not its hex id --------------------------------------------------------------
+
+BENCHES = {"5eba0000000000a1": "bench A", "5eba0000000000a2": "Bench a", "5eba0000000000b1": "bench B",
+           "5eba0000000000c1": ""}
+"""Four boards: two whose labels differ only in case (one file on Windows and macOS), one of its own, one with no
+label."""
+
+
+@pytest.fixture(scope="module")
+def benches_db(tmp_path_factory) -> Path:
+    from test_bad_input import journal_records, store_as_synced
+    from nightcell.wire import frames as F
+
+    db = tmp_path_factory.mktemp("benches") / "class.db"
+    for device, label in BENCHES.items():
+        store_as_synced(db, device, [F.decode_record(r)[0] for r in journal_records(device=device)], label=label)
+    return db
+
+
+def test_device_stems_use_the_label_made_safe_and_keep_alike_labels_apart():
+    from nightcell.render.report import device_stems
+
+    assert device_stems(BENCHES) == {"5eba0000000000a1": "bench_A-5eba0000000000a1",
+                                     "5eba0000000000a2": "Bench_a-5eba0000000000a2",
+                                     "5eba0000000000b1": "bench_B", "5eba0000000000c1": "5eba0000000000c1"}
+    # labels a file system would refuse or misread are made safe (safe_filename): a reserved name, a path, dots only
+    assert device_stems({"d1": "CON", "d2": "../etc", "d3": "..."}) == {"d1": "_CON", "d2": "etc", "d3": "d3"}
+
+
+def test_report_and_export_files_are_named_by_the_bench_label(benches_db, tmp_path):
+    r = _cli("report", "--db", benches_db, "--all", "--out", tmp_path / "r")
+    assert r.exit_code == 0, r.output
+    pages = sorted(p.name for p in (tmp_path / "r").glob("*.html"))
+    assert pages == ["fading_25_C-5eba0000000000c1-1-9.html", "fading_25_C-Bench_a-5eba0000000000a2-1-9.html",
+                     "fading_25_C-bench_A-5eba0000000000a1-1-9.html", "fading_25_C-bench_B-1-9.html"], pages
+    assert (tmp_path / "r" / "fading_25_C-bench_B-1-9-calibration.png").is_file()
+    # no two files differ only by case (one file on Windows and macOS)
+    names = [p.name for p in (tmp_path / "r").iterdir()]
+    assert len({n.lower() for n in names}) == len(names)
+    x = _cli("export", "--db", benches_db, "--out", tmp_path / "x")
+    assert x.exit_code == 0, x.output
+    assert (tmp_path / "x" / "fading_25_C-bench_B-1-9-samples.csv").is_file()
+    assert (tmp_path / "x" / "fading_25_C-bench_B-1-9-absorbance.csv").is_file()
+    assert len(list((tmp_path / "x").glob("*-absorbance.csv"))) == len(BENCHES)
+
+
+def test_a_study_links_its_run_pages_and_names_calibrations_by_bench(benches_db, tmp_path):
+    import shutil
+
+    from nightcell.store.database import Store
+    from nightcell.tasks.analyse import set_run_condition
+
+    db = tmp_path / "study.db"
+    shutil.copy(benches_db, db)
+    with Store.open(db) as store:
+        for i, run in enumerate(store.runs()):
+            set_run_condition(store, run, "temperature_K", 298.15, "sheet")
+            set_run_condition(store, run, "conc_hydroxide_M", 0.01 * 2 ** i, "sheet")
+    r = _cli("report", "--db", db, "--study", "--out", tmp_path / "s")
+    assert r.exit_code == 0, r.output
+    out = tmp_path / "s"
+    page = (out / "study.html").read_text(encoding="utf-8")
+    hrefs = re.findall(r"href='([^']*)'", page)
+    assert sorted(hrefs) == ["runs/fading_25_C-5eba0000000000c1-1-9.html",
+                             "runs/fading_25_C-Bench_a-5eba0000000000a2-1-9.html",
+                             "runs/fading_25_C-bench_A-5eba0000000000a1-1-9.html",
+                             "runs/fading_25_C-bench_B-1-9.html"], hrefs
+    assert all((out / h).is_file() for h in hrefs)  # every link reaches its page
+    assert (out / "study-calibration-bench_B.png").is_file() and (out / "study-calibration-bench_B.svg").is_file()
+    assert (out / "study-calibration-5eba0000000000c1.png").is_file()  # no label: the id
+    assert (out / "runs" / "calibration-bench_B.png").is_file()  # the run pages' shared figure

@@ -4,6 +4,7 @@ The reference for every check is a fault-free sync of the same saved flash (the 
 row for row; the rules checked are those of issue 4 (resumable, idempotent, acknowledge only what is stored).
 """
 
+import json
 import os
 import random
 import re
@@ -17,6 +18,7 @@ from pathlib import Path
 import pytest
 
 from nightcell.errors import DeviceTimeout, NightcellError
+from nightcell.wire import frames as F
 from nightcell.wire.link import Board
 from nightcell.sim.board import Fault, SimulatedBoard
 from nightcell.store.database import Store
@@ -468,3 +470,29 @@ def test_board_ticks_wrap_keeps_uptime_continuous_and_the_clock_fitted(tmp_path)
     assert [c["quality"] for c in clock] == ["fitted"]
     assert abs(clock[0]["rate"] - 1.0) < 0.05  # anchors at an accelerated pace are only as good as the USB latency
 
+
+
+def test_a_clock_that_comes_back_other_than_sent_is_told_in_plain_words(tmp_path):
+    """The anchor the board journals must carry the time sent; a board that journaled another one (here: the
+    scripted board says the anchor went to record 1:1, whose time is 0.5 s before the one sent) is warned about
+    by the size of the difference, never by its boot and sequence numbers."""
+    from test_bad_input import DEVICE, FakePort, ScriptedBoard
+
+    class EarlyAnchor(ScriptedBoard):
+        def __call__(self, line: bytes) -> bytes:
+            if b" anchor " in line:
+                self.requests.append(line.decode("ascii"))
+                tag = int(line.split(b" ")[0])
+                return F.encode_reply(F.REPLY_OK, tag, json.dumps({"boot": 1, "seq": 1, "uptime_ms": 1000}).encode())
+            return super().__call__(line)
+
+    fake = FakePort(EarlyAnchor(device=DEVICE))
+    try:
+        with Board.open(fake.path) as board, Store.open(tmp_path / "class.db") as store:
+            # record 1:1 of the scripted journal is an anchor of 1_796_000_001_000 ms; 500 ms later is sent
+            summary = sync_board(board, store, clock=lambda: 1_796_000_001.5)
+    finally:
+        fake.close()
+    assert summary.warnings == ["the clock set during this sync came back 0.500 s earlier than the time sent: the "
+                                "request was damaged on the way; times of the readings since the board last started "
+                                "may be off"], summary.warnings

@@ -348,6 +348,8 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
 
     Example: nightcell setup --port /dev/ttyACM0 --interval 30 --warmup 5 --durability 60 --label "bench 3"
     """
+    from ..tasks.names import board_name, label_hint
+
     changes: dict[str, Any] = {}
     if device_label is not None:
         changes["label"] = _check_text("label", device_label, "set", LABEL_MAX_BYTES)
@@ -384,7 +386,7 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
             need = int(measure) + _settings.interval_margin_ms()
             if changes["interval_ms"] < need:
                 raise InputError(f"--interval {changes['interval_ms'] / 1000:g} s is shorter than one measurement "
-                                 f"on {info['device']} ({int(measure)} ms with its reads, settle and window) plus "
+                                 f"on {_who(info)} ({int(measure)} ms with its reads, settle and window) plus "
                                  f"{_settings.interval_margin_ms()} ms: choose at least {need / 1000:g} s, or fewer "
                                  "--reads")
         for key, value in changes.items():
@@ -392,10 +394,14 @@ def setup(port: str, interval: float | None, warmup: float | None, durability: f
             applied[key] = value
             if reply.get("after_reset"):
                 after_reset.append(key)
-    lines = [f"{_who(info)}: " + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
+    now = dict(info, label=applied.get("label", info.get("label")))
+    lines = [f"{board_name(now)}: "
+             + ", ".join(f"{k} = {json.dumps(v, ensure_ascii=False)}" for k, v in applied.items())]
     lines.append("saved on the board (and recorded with its readings, so every run says how it was taken)")
     if after_reset:
         lines.append(f"{', '.join(after_reset)} take effect when the board restarts (unplug and plug it in)")
+    if label_hint(now):
+        lines.append(label_hint(now))
     _emit({"device": info["device"], "applied": applied, "after_reset": after_reset,
            "settings": reply.get("settings"), "settings_crc": reply.get("settings_crc")}, as_json, "\n".join(lines))
 
@@ -433,7 +439,7 @@ def _mark_text(device: str, kind: str, reply: dict[str, Any], label: str) -> str
     return f"{device}: {kind}{shown} recorded on the board — {counts} counts per read"
 
 
-def _blank_check(device: str, reply: dict[str, Any], accept_suspect: bool) -> list[str]:
+def _blank_check(who: str, label: str, reply: dict[str, Any], accept_suspect: bool) -> list[str]:
     """Problems of a blank just journaled (``optics.blank_problems``), as text; raises ``SuspectData`` unless
     ``accept_suspect``. The mark stays on the board as taken: raw data is kept, and analyses flag or refuse it."""
     from ..errors import SuspectData
@@ -444,7 +450,8 @@ def _blank_check(device: str, reply: dict[str, Any], accept_suspect: bool) -> li
     for c, (li, d) in enumerate(zip(reply.get("light", []), reply.get("dark", []))):
         problems += [f"channel {c}: {p}" for p in blank_problems(li / reads, d / reads)]
     if problems and not accept_suspect:
-        raise SuspectData(f"{device}: blank {reply['boot']}:{reply['seq']} looks wrong — {problems[0]}. It is "
+        shown = f" {label!r}" if label else ""
+        raise SuspectData(f"{who}: the blank{shown} just taken looks wrong — {problems[0]}. It is "
                           "journaled as taken (raw data is kept) but analyses will refuse it: clear the light path "
                           "and take the blank again, or pass --accept-suspect to use it anyway")
     return problems
@@ -459,7 +466,7 @@ def _measure_command(kind: str, doc: str) -> click.Command:
         _check_text("label", label, kind)
         with _connected(port) as (board, info):
             reply = board.mark(kind, label)
-        problems = _blank_check(info["device"], reply, accept_suspect) if kind == "blank" else []
+        problems = _blank_check(_who(info), label, reply, accept_suspect) if kind == "blank" else []
         text = _mark_text(_who(info), kind, reply, label)
         if problems:
             text += "\nsuspect blank kept as confirmed (--accept-suspect): " + "; ".join(problems)
@@ -551,7 +558,7 @@ def start(port: str, label: str, planned: str | None, even_if_short: bool, as_js
     seconds = parse_duration(planned) if planned is not None else None
     with _connected(port) as (board, info):
         if info.get("running"):
-            raise InputError(f"{info['device']} is already logging a run: stop it first with `nightcell stop`, "
+            raise InputError(f"{_who(info)} is already logging a run: stop it first with `nightcell stop`, "
                              "or leave it running")
         room = plan_run(info, seconds) if seconds is not None else None
         if room is not None and not room.fits and not even_if_short:
@@ -580,7 +587,7 @@ def stop(port: str, as_json: bool) -> None:
     """
     with _connected(port) as (board, info):
         if not info.get("running"):
-            raise InputError(f"{info['device']} is not logging a run: nothing to stop")
+            raise InputError(f"{_who(info)} is not logging a run: nothing to stop")
         reply = board.stop()
     text = f"{_who(info)}: run stopped; copy it to the database with `nightcell sync`"
     _emit(dict(reply, device=info["device"]), as_json, text)

@@ -219,30 +219,6 @@ def _finish_saved(store: Any, db: Path, kind: str, label: str, inputs: dict[str,
     click.echo(payload if as_json else inert(text))
 
 
-def _only_device(store: Any, device: str | None) -> tuple[str, str]:
-    """The device (its id and its label, the id when it has none) that ``device`` names by id or label."""
-    from ..tasks.export import did_you_mean
-
-    known = {d["device"]: d["label"] or d["device"] for d in store.devices()}
-    if device is not None:
-        if device in known:
-            return device, known[device]
-        by_label = [d for d, label in known.items() if label == device]
-        if len(by_label) == 1:
-            return by_label[0], device
-        if by_label:
-            raise InputError(f"{len(by_label)} devices are labelled {device!r}: name one by its id "
-                             f"({', '.join(by_label)})")
-        raise InputError(f"no device {device!r} in {store.path}{did_you_mean(device, list(known.values()))} "
-                         f"Devices: {', '.join(known.values()) or 'none'}")
-    if len(known) == 1:
-        return next(iter(known.items()))
-    if not known:
-        raise InputError(f"{store.path} holds no devices yet: sync a board first")
-    raise InputError(f"{store.path} holds {len(known)} devices: name one with --device "
-                     f"({', '.join(known.values())})")
-
-
 class LawChoice(click.Choice):
     """The rate laws by name; the names of version 0.1 still parse (hidden from --help) with a deprecation message."""
 
@@ -327,9 +303,10 @@ def _calibrate(csv_file: Path | None, db: Path | None, device: str | None, chann
     path_note = "given with --path-cm"
     if db is not None:
         from ..tasks.analyse import calibrate_from_store
+        from ..tasks.names import resolve_device
 
         store = opened.enter_context(_open(db))
-        device, bench = _only_device(store, device)
+        device, bench = resolve_device(store, device)
         cal = calibrate_from_store(store, device, channel, set_name=set_name, unit=unit, **options)
         if path_cm is None:
             path_cm, path_note = _stored_path_cm(store, device)

@@ -29,7 +29,7 @@ import re
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Iterable, Iterator, Sequence
+from typing import Any, Iterable, Iterator, Mapping, Sequence
 
 
 def _matplotlib_config_folder() -> None:
@@ -62,7 +62,7 @@ from . import numbers as _n  # noqa: E402
 from ..science import laws as _laws  # noqa: E402
 
 __all__ = ["plot_calibration", "plot_run", "thin_for_drawing", "DRAW_LIMIT", "plot_orders", "plot_arrhenius",
-           "figure_png", "figure_svg", "save_figure", "html_report", "fit_table", "write_csv", "safe_filename",
+           "figure_png", "figure_svg", "save_figure", "html_report", "fit_table", "write_csv", "safe_filename", "device_stems",
            "ReportFiles", "run_report", "study_report", "plain_text", "plus_minus", "html_table", "write_atomic",
            "out_folder", "all_or_nothing", "run_style"]
 
@@ -252,6 +252,19 @@ def safe_filename(label: str, default: str = "run", limit: int | None = 80) -> s
     if name.split(".")[0].upper() in _WINDOWS_RESERVED:
         name = "_" + name
     return name
+
+
+def device_stems(labels: Mapping[str, str | None]) -> dict[str, str]:
+    """A file-name stem for each device of ``labels`` (device id → label): its label made safe (``bench_A``), or
+    its id when it has none. Devices whose stems would be the same — two benches labelled alike, or alike but for
+    case, as file names are on Windows and macOS — each carry their id as well (``bench_A-5eba000000000001``), so
+    no two devices share a file."""
+    stems = {d: safe_filename(label or "", default=d, limit=48) for d, label in labels.items()}
+    seen: dict[str, int] = {}
+    for stem in stems.values():
+        seen[stem.lower()] = seen.get(stem.lower(), 0) + 1
+    return {d: f"{stem}-{safe_filename(d)}" if seen[stem.lower()] > 1 and stem != safe_filename(d) else stem
+            for d, stem in stems.items()}
 
 
 def _table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
@@ -617,15 +630,16 @@ def _shade_restarts(analysis: Any, axes: Sequence[Any]) -> None:
 
 def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, provenance: dict[str, Any] | None = None,
                conditions: dict[str, Any] | None = None, name: str | None = None, title: str | None = None,
-               cache: dict | None = None, unit: str = "", notes: Sequence[dict[str, Any]] | None = None
-               ) -> ReportFiles:
+               cache: dict | None = None, unit: str = "", notes: Sequence[dict[str, Any]] | None = None,
+               device_stem: str | None = None) -> ReportFiles:
     """One run's self-contained HTML page (``<name>.html``), with its figures also as PNG and SVG beside it.
 
     ``analysis`` is ``analyse.analyse_run``'s result; ``provenance`` typically ``analyse.run_provenance``;
     ``conditions`` the run's entry of ``analyse.run_conditions``. Shows absorbance against time with the best fit
     and its residuals, every rate law compared, the parameter table with standard errors, the calibration (plot
     with residuals and prediction band) when given, warnings and provenance. Pass the same ``cache`` dict to the
-    reports of several runs in one folder to draw a shared calibration once (``calibration-<device>.png/.svg``).
+    reports of several runs in one folder to draw a shared calibration once (``calibration-<device>.png/.svg``,
+    ``<device>`` being ``device_stem``, one of ``device_stems``, else the device id).
     ``unit`` is the unit of the standards' values (for axis labels and concentrations); ``notes`` the notes journaled
     during the run (``analyse.run_notes``), shown in a table and on the plot. The fit is laid out as on the command
     line (``render.fit_layout``): the answer, how well the law fits, the parameters, the laws ranked; the criteria
@@ -679,7 +693,8 @@ def run_report(analysis: Any, out: str | Path, *, calibration: Any = None, prove
                                  unknowns=[] if first is None else [(f"first reading of {run.label or 'the run'}",
                                                                       _first_absorbance(analysis), first)])
                 ax.set_title(plain_text(f"Calibration of {bench}"))
-                stem = f"calibration-{safe_filename(run.device)}" if cache is not None else f"{name}-calibration"
+                stem = (f"calibration-{device_stem or safe_filename(run.device)}" if cache is not None
+                        else f"{name}-calibration")
                 cal_png = _figure_files(fig, out / stem, made)
             finally:
                 fig.clear()  # drop the figure's artists now: a report draws many
@@ -800,9 +815,10 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
     absorbance curves, the log–log order plot per reactant (from k and from initial rates), the Arrhenius plot with
     residuals and the Eyring parameters, each device's calibration, the rules that chose runs, and provenance.
     ``run_pages`` maps run keys to the file names of their own pages (linked by relative path); ``device_labels``
-    maps device ids to their labels ("bench A"), shown instead of the id (which stays in the provenance).
-    """
+    maps device ids to their labels ("bench A"), shown instead of the id (which stays in the provenance) and naming
+    each calibration's figure files (``device_stems``)."""
     labels = device_labels or {}
+    stems = device_stems(labels)
 
     def bench(device: str) -> str:
         return labels.get(device) or device
@@ -948,7 +964,7 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
             plot_calibration(cal, ax=ax, resid_ax=rax, unit=plain_text(f"({unit})") if unit else "",
                              unknowns=unknowns)
             ax.set_title(plain_text(f"Calibration of {bench(device)}"))
-            png = _figure_files(fig, out / f"{name}-calibration-{safe_filename(device)}", figs)
+            png = _figure_files(fig, out / f"{name}-calibration-{stems.get(device) or safe_filename(device)}", figs)
         finally:
             fig.clear()  # drop the figure's artists now: a report draws many
         sections.append({"title": f"Calibration of {bench(device)}", "html": fit_table(cal),

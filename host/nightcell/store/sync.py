@@ -240,9 +240,11 @@ def _check_anchor(store: Store, device: str, journal: int, sent: tuple[Any, Any,
     rows = store.conn.execute("SELECT host_unix_ms FROM anchors WHERE device = ? AND boot = ? AND seq = ?",
                               (device, here, seq)).fetchall()
     if rows and rows[0][0] != host_ms:
+        off_s = (rows[0][0] - host_ms) / 1000.0
         summary.warnings.append(
-            f"the clock anchor of boot {boot} seq {seq} reads {rows[0][0]} ms but {host_ms} ms was sent: the request "
-            "was damaged on the way; wall-clock times of that boot may be off"
+            f"the clock set during this sync came back {abs(off_s):.3f} s {'later' if off_s > 0 else 'earlier'} than "
+            "the time sent: the request was damaged on the way; times of the readings since the board last started "
+            "may be off"
         )
 
 

@@ -41,6 +41,7 @@ from ..render.numbers import local_time
 from ..errors import AnalysisError, InputError, SuspectData
 from ..science.fitting import FitResult, jsonable
 from ..store.database import Run, Store
+from .names import device_name, not_found
 
 __all__ = ["BlankChoice", "ReadingKeys", "RunAnalysis", "choose_blank", "standards_from_store",
            "calibrate_from_store", "standard_sets", "label_tokens", "ACCEPT_HINT",
@@ -100,7 +101,7 @@ def _stray(store: Store, device: str, before: tuple[int, int] | None, channel: i
     m = _mark_before(store, device, "opaque", before)
     if m is None:
         return
-    light, dark = _mark_means(m, channel)
+    light, dark = _mark_means(store, m, channel)
     b.stray = _optics.stray_fraction_from_opaque(light, dark, b.light, b.dark)
     b.stray_mark = f"{m['boot']}:{m['seq']}"
 
@@ -144,20 +145,25 @@ def describe_mark(store: Store, device: str, key: tuple[int, int] | None) -> str
     if r is None:
         return f"record {key[0]}:{key[1]}"
     kind = {"run_start": "the start of run", "run_stop": "the stop of run"}.get(r["mark"], f"the {r['mark']}")
-    when = local_time(r["wall_clock_utc"], seconds=False) if r["wall_clock_utc"] else ""
+    when = _when(r)
     what = f"{kind} {r['label']!r}" if r["label"] else kind
     return f"{what}{' of ' + when if when else ''}" if when or r["label"] else f"{kind} {key[0]}:{key[1]}"
 
 
-def _device_name(store: Store, device: str) -> str:
-    row = store.device(device)
-    return repr(row["label"]) if row is not None and row["label"] else device
+def _when(reading: dict[str, Any]) -> str:
+    return local_time(reading["wall_clock_utc"], seconds=False) if reading["wall_clock_utc"] else ""
 
 
-def _mark_means(mark: dict[str, Any], channel: int) -> tuple[float, float]:
+def _mark_when(store: Store, device: str, key: tuple[int, int]) -> str:
+    """When a mark was taken, in local time (``2026-12-01 14:20 CET``), or "" when its time is not known."""
+    r = store.mark_reading(device, int(key[0]), int(key[1]))
+    return _when(r) if r is not None else ""
+
+
+def _mark_means(store: Store, mark: dict[str, Any], channel: int) -> tuple[float, float]:
     if mark["reads"] <= 0 or channel >= len(mark["light"]):
-        what = f"{mark['mark']} {mark['label']!r}" if mark.get("label") else f"mark {mark['boot']}:{mark['seq']}"
-        raise AnalysisError(f"the {what} has no counts for light channel {channel}: choose another --channel")
+        what = describe_mark(store, mark["device"], (mark["boot"], mark["seq"]))
+        raise AnalysisError(f"{what} has no counts for light channel {channel}: choose another --channel")
     return mark["light"][channel] / mark["reads"], mark["dark"][channel] / mark["reads"]
 
 
@@ -176,21 +182,27 @@ _KEY = re.compile(r"^\s*(\d+):(\d+)\s*$")
 
 def _named_blank(store: Store, device: str, blank: tuple[int, int] | str) -> dict[str, Any]:
     """The blank mark named by (boot, seq), by its key text ``boot:seq``, or by its label."""
+    where = f"device {device_name(store, device)}"
     if isinstance(blank, str):
         key = _KEY.match(blank)
         if key is None:
             rows = store.marks_labelled(device, "blank", blank)
             if not rows:
-                raise InputError(f"no blank labelled {blank!r} on device {device}: list blanks with "
-                                 "`nightcell list blanks` and give its key (boot:seq) or label")
+                labels = [m["label"] for m in store.marks(device, "blank")]
+                raise InputError(not_found(f"no blank labelled {blank!r} on {where}", blank, labels,
+                                           "list blanks with `nightcell list blanks` and give its label or key "
+                                           "(boot:seq)"))
             if len(rows) > 1:
-                raise InputError(f"{len(rows)} blanks are labelled {blank!r} on device {device} "
-                                 f"({', '.join('%d:%d' % (r['boot'], r['seq']) for r in rows)}): give its key")
+                taken = [(_mark_when(store, device, (r["boot"], r["seq"])) or "at a time not known",
+                          f"{r['boot']}:{r['seq']}") for r in rows]
+                raise InputError(f"{len(rows)} blanks are labelled {blank!r} on {where}: give the key of the one "
+                                 f"you mean ({'; '.join(f'taken {when}: --blank {key}' for when, key in taken)})")
             return _with_counts(store, rows[0])
         blank = (int(key.group(1)), int(key.group(2)))
     chosen = store.mark(device, blank[0], blank[1], "blank")
     if chosen is None:
-        raise InputError(f"no blank {blank[0]}:{blank[1]} on device {device}: list blanks with `nightcell list`")
+        raise InputError(f"no blank {blank[0]}:{blank[1]} on {where}: list blanks with `nightcell list blanks` "
+                         "and give its label")
     return _with_counts(store, chosen)
 
 
@@ -204,7 +216,7 @@ def _earlier_blank_signals(store: Store, device: str, mark: dict[str, Any], chan
         if row is not None:
             m = store.with_counts(row)
             if m["reads"] > 0 and channel < len(m["light"]):
-                light, dark = _mark_means(m, channel)
+                light, dark = _mark_means(store, m, channel)
                 out.append(light - dark)
     return out
 
@@ -223,8 +235,8 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
         m = _named_blank(store, device, blank)
         rule = "named by the user"
         if before is not None and (m["boot"], m["seq"]) > (int(before[0]), int(before[1])):
-            warnings.append(f"blank {m['boot']}:{m['seq']} was taken after the readings it is used for; the cell "
-                            "may have changed in between (LED warmth, cuvette position)")
+            warnings.append(f"{describe_mark(store, device, (m['boot'], m['seq']))} was taken after the readings "
+                            "it is used for; the cell may have changed in between (LED warmth, cuvette position)")
     else:
         m = _mark_before(store, device, "blank", before)
         rule = BLANK_RULE
@@ -237,16 +249,17 @@ def choose_blank(store: Store, device: str, before: tuple[int, int] | None = Non
                                 "cell may have changed in between — take a blank before each run, or name one with "
                                 "--blank")
         if m is None:
-            raise AnalysisError(f"device {_device_name(store, device)} has no blank before "
+            raise AnalysisError(f"device {device_name(store, device)} has no blank before "
                                 f"{describe_mark(store, device, before)}: take a blank first (`nightcell blank`) "
                                 "or name one")
-    light, dark = _mark_means(m, channel)
-    key = f"{m['boot']}:{m['seq']}"
+    light, dark = _mark_means(store, m, channel)
     problems = _optics.blank_problems(light, dark, _earlier_blank_signals(store, device, m, channel))
-    if problems and not accept_suspect:
-        raise SuspectData(f"blank {key} looks wrong: {problems[0]} — clear the light path and take a new blank, "
-                          f"name another with --blank, or {ACCEPT_HINT}")
-    warnings += [f"suspect blank {key} used as confirmed (--accept-suspect): {p}" for p in problems]
+    if problems:
+        shown = describe_mark(store, device, (m["boot"], m["seq"]))
+        if not accept_suspect:
+            raise SuspectData(f"{shown} looks wrong: {problems[0]} — clear the light path and take a new blank, "
+                              f"name another with --blank, or {ACCEPT_HINT}")
+        warnings += [f"{shown} looks wrong but is used as confirmed (--accept-suspect): {p}" for p in problems]
     choice = BlankChoice(device, m["boot"], m["seq"], channel, light, dark, rule, warnings=warnings,
                          suspect=problems)
     _stray(store, device, before, channel, choice)
@@ -278,7 +291,7 @@ def standard_sets(store: Store, device: str) -> tuple[list[dict[str, Any]], list
     left_out: list[str] = []
     after = "before any blank"
     for m in store.marks(device):
-        kind, key = m["mark"], f"{m['boot']}:{m['seq']}"
+        kind, key = m["mark"], f"{m['boot']}:{m['seq']}"  # a set's name says the key --set takes
         if kind == "blank":
             after = f"after blank {key}"
             continue
@@ -291,10 +304,12 @@ def standard_sets(store: Store, device: str) -> tuple[list[dict[str, Any]], list
         try:
             c = float(m["value"])
         except (TypeError, ValueError):
-            left_out.append(f"standard {key} has value {m['value']!r}, not a number")
+            left_out.append(f"{describe_mark(store, device, (m['boot'], m['seq']))} has value {m['value']!r}, "
+                            "not a number")
             continue
         if not math.isfinite(c) or c < 0:
-            left_out.append(f"standard {key} has a concentration of {m['value']} (not a physical amount): left out")
+            left_out.append(f"{describe_mark(store, device, (m['boot'], m['seq']))} has a concentration of "
+                            f"{m['value']} (not a physical amount): left out")
             continue
         name = f"set {tokens['set']}" if "set" in tokens else after
         one = sets.setdefault(name, {"name": name, "how": "labelled set=" + tokens["set"] if "set" in tokens
@@ -304,16 +319,24 @@ def standard_sets(store: Store, device: str) -> tuple[list[dict[str, Any]], list
     return sorted(sets.values(), key=lambda st: st["last"]), left_out
 
 
-def _pick_set(sets: list[dict[str, Any]], name: str | None, before: tuple[int, int] | None, device: str) -> dict:
+def _set_names(st: dict[str, Any]) -> tuple[str, ...]:
+    """What --set takes for a set: its name, or the name without "set " or "after blank "."""
+    return st["name"], st["name"].removeprefix("set "), st["name"].removeprefix("after blank ")
+
+
+def _pick_set(store: Store, sets: list[dict[str, Any]], name: str | None, before: tuple[int, int] | None,
+              device: str) -> dict:
     if not sets:
-        raise AnalysisError(f"device {device} has no standards: record some with `nightcell standard`")
+        raise AnalysisError(f"device {device_name(store, device)} has no standards: record some with "
+                            "`nightcell standard`")
     if name is not None:
         wanted = name.strip()
         for st in sets:
-            if wanted in (st["name"], st["name"].removeprefix("set "), st["name"].removeprefix("after blank ")):
+            if wanted in _set_names(st):
                 return st
-        raise InputError(f"no calibration set {name!r} on device {device}; its sets are "
-                         f"{'; '.join(repr(st['name']) for st in sets)}")
+        raise InputError(not_found(f"no calibration set {name!r} on device {device_name(store, device)}", wanted,
+                                   [min(_set_names(st), key=len) for st in sets],
+                                   f"its sets are {'; '.join(repr(st['name']) for st in sets)}"))
     if before is not None:
         earlier = [st for st in sets if st["last"] < (int(before[0]), int(before[1]))]
         if earlier:
@@ -326,7 +349,7 @@ def standards_from_store(store: Store, device: str, channel: int = 0, *, set_nam
     """Concentration and absorbance of the standards of one calibration set (``SET_RULE``), each against its own
     blank, with the set's name, the standards' labels, values and unit."""
     sets, left_out = standard_sets(store, device)
-    chosen = _pick_set(sets, set_name, before, device)
+    chosen = _pick_set(store, sets, set_name, before, device)
     conc, absorb, ids, blanks, strays, listing, warnings = [], [], [], [], [], [], []
     units = sorted({m["unit"] for m in chosen["marks"] if m["unit"]})
     if len(units) > 1:
@@ -335,7 +358,7 @@ def standards_from_store(store: Store, device: str, channel: int = 0, *, set_nam
     for m in chosen["marks"]:
         b = choose_blank(store, device, (m["boot"], m["seq"]), channel, accept_suspect=accept_suspect)
         warnings += b.warnings
-        light, dark = _mark_means(m, channel)
+        light, dark = _mark_means(store, m, channel)
         res = _absorbance([light], [dark], b)
         conc.append(m["concentration"])
         absorb.append(float(res.absorbance[0]))
@@ -357,7 +380,8 @@ def calibrate_from_store(store: Store, device: str, channel: int = 0, *, set_nam
     std = standards_from_store(store, device, channel, set_name=set_name, before=before,
                                accept_suspect=accept_suspect)
     if len(std["concentration"]) == 0:
-        raise AnalysisError(f"device {device} has no standards: record some with `nightcell standard`")
+        raise AnalysisError(f"device {device_name(store, device)} has no standards: record some with "
+                            "`nightcell standard`")
     if unit and std["unit"] and unit != std["unit"]:
         raise InputError(f"--unit {unit} but the standards of {std['set']} were recorded in {std['unit']}: "
                          "leave --unit out, or give the same unit")
@@ -469,7 +493,7 @@ def run_bounds(store: Store, run: Run) -> dict[str, Any]:
             continue
         if end is None:
             end = key
-            rule = f"no stop mark: the run ends where the next run starts ({key[0]}:{key[1]})"
+            rule = f"no stop mark: the run ends where the next run starts ({describe_mark(store, run.device, key)})"
         break
     if end is None:
         rule = "no stop mark: every later reading of the device"
@@ -503,10 +527,11 @@ def run_series(store: Store, run: Run, channel: int = 0, blank: tuple[int, int] 
     boot_col = cols["boot"]
     boots = _boots_of(boot_col)
     if len(boots) > 1:
-        how = (f"the board resumed it by itself at {', '.join('%d:%d' % k for k in bounds['resumed'])}"
-               if bounds["resumed"] else "no resume mark was found")
-        warnings.append(f"the run spans boots {', '.join(map(str, boots))} (a restart in the middle: {how}); "
-                        "readings are placed in time by each boot's clock")
+        when = [_mark_when(store, run.device, k) for k in bounds["resumed"]]
+        how = ("the board resumed it by itself" + (f" at {', '.join(w for w in when if w)}" if any(when) else "")
+               if when else "no resume mark was found")
+        warnings.append(f"the board restarted {len(boots) - 1} time(s) during the run ({how}); readings are placed "
+                        "in time by the clock of each start")
     clocks = cols["clocks"]
     up = cols["uptime_ms"]
     keep = None
@@ -612,10 +637,12 @@ def analyse_run(store: Store, run: Run, *, channel: int = 0, calibration: Any = 
 def _run_of(store: Store, run: Run | str) -> Run:
     if isinstance(run, Run):
         return run
-    for r in store.runs():
+    runs = store.runs()
+    for r in runs:
         if r.key == run:
             return r
-    raise InputError(f"no run {run!r} in {store.path}: give a run key device:boot:seq (see `nightcell list runs`)")
+    raise InputError(not_found(f"no run {run!r} in {store.path}", run, [r.label for r in runs],
+                               "give a run key device:boot:seq (see `nightcell list runs --json`)"))
 
 
 TEMPERATURE_SENSE_K = (243.15, 383.15)

@@ -22,12 +22,13 @@ from typing import Any, Callable, Iterable, Sequence
 
 from ..render import report as _report
 from .analyse import analyse_run, calibrate_from_store, run_conditions, run_notes, run_provenance, run_series
+from .names import not_found
 from ..errors import AnalysisError, InputError, SuspectData
 from ..science.optics import flag_names
 from ..render.report import out_folder, write_atomic
 from ..store.database import Run, Store
 
-__all__ = ["did_you_mean", "resolve_run", "run_name", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
+__all__ = ["resolve_run", "run_name", "device_stems", "export_csv", "run_report", "study_report", "Written", "write_atomic"]
 
 
 def resolve_run(store: Store, text: str | None) -> Run:
@@ -57,30 +58,24 @@ def resolve_run(store: Store, text: str | None) -> Run:
     number = text[1:] if text.startswith("#") else text
     if number.isdigit() and 1 <= int(number) <= len(runs):  # the number `nightcell list runs` shows
         return runs[int(number) - 1]
-    close = did_you_mean(text, [r.label for r in runs if r.label] + [r.key for r in runs])
-    if close:
-        raise InputError(f"no run {text!r} in {store.path}{close} Give a run's key or label as `nightcell list runs "
-                         f"--db {store.path}` shows it")
-    raise InputError(f"no run {text!r} in {store.path}: give a run's key or label "
-                     f"(see `nightcell list runs --db {store.path}`)")
+    raise InputError(not_found(f"no run {text!r} in {store.path}", text,
+                               [r.label for r in runs if r.label] + [r.key for r in runs],
+                               f"give a run's key or label as `nightcell list runs --db {store.path}` shows it"))
 
 
-def did_you_mean(text: str, known: Sequence[str]) -> str:
-    """``"; did you mean 'fading 25 C'?"`` naming up to three of ``known`` closest to ``text`` ("" when none is)."""
-    import difflib
-
-    close = difflib.get_close_matches(text, list(dict.fromkeys(known)), n=3, cutoff=0.6)
-    if not close:
-        lowered = {k.lower(): k for k in known}
-        close = [lowered[k] for k in difflib.get_close_matches(text.lower(), list(lowered), n=3, cutoff=0.6)]
-    return f"; did you mean {' or '.join(repr(c) for c in close)}?" if close else ""
-
-
-def run_name(run: Run) -> str:
-    """A file name stem for a run: a safe stem of its label, then its key (never cut off, so two runs never share
-    a name), sanitised (never a path, never markup, valid on Windows)."""
+def run_name(run: Run, device_stem: str | None = None) -> str:
+    """A file name stem for a run: a safe stem of its label, its device's (``device_stem``, one of
+    ``device_stems``: its label, else its id) and its boot and sequence (never cut off, so two runs never share a
+    name), sanitised (never a path, never markup, valid on Windows)."""
     label = _report.safe_filename(run.label, default="run", limit=48).strip("-_.") or "run"
-    return f"{label}-{_report.safe_filename(run.key.replace(':', '-'), limit=None)}"
+    device = device_stem or _report.safe_filename(run.device, limit=None)
+    return f"{label}-{device}-{run.start_boot}-{run.start_seq}"
+
+
+def device_stems(store: Store) -> dict[str, str]:
+    """The file-name stem of every device in ``store`` (``report.device_stems``: its label, made safe and unique,
+    else its id)."""
+    return _report.device_stems({d["device"]: d["label"] for d in store.devices()})
 
 
 @dataclass
@@ -126,8 +121,9 @@ def export_csv(store: Store, out: str | Path, runs: Sequence[Run] | None = None,
             rows.append((m["device"], m["boot"], m["seq"], m["uptime_ms"], m["mark"], m["source"], m["label"],
                          m["value"], "", m["reads"], "", ""))
     done.files.append(_csv(out / "marks.csv", MARK_COLUMNS, rows))
+    stems = device_stems(store)
     for run in store.runs() if runs is None else runs:
-        name = run_name(run)
+        name = run_name(run, stems.get(run.device))
         samples = store.run_samples(run, channel)
         if not samples:
             done.skipped.append(f"run {run.key} ({run.label!r}): no samples stored yet")
@@ -172,8 +168,10 @@ def run_report(store: Store, run: Run, out: str | Path, channel: int = 0, *, cac
                            accept_suspect=accept_suspect)
     provenance = run_provenance(store, analysis, cal)
     conditions = run_conditions(store, run).get(run.key)
+    stem = device_stems(store).get(run.device)
     files = _report.run_report(analysis, out, calibration=cal, provenance=provenance, conditions=conditions,
-                               name=run_name(run), cache=cache, notes=run_notes(store, analysis))
+                               name=run_name(run, stem), cache=cache, notes=run_notes(store, analysis),
+                               device_stem=stem)
     done.files += files.files
     return done
 
@@ -202,11 +200,14 @@ def study_report(store: Store, out: str | Path, channel: int = 0, *, level: floa
     conds = run_conditions(store)
     pages: dict[str, str] = {}
     cache: dict = {}
+    stems = device_stems(store)
     for it in study.runs:
         prov = run_provenance(store, it.analysis, it.calibration)
+        stem = stems.get(it.run.device)
         files = _report.run_report(it.analysis, out / "runs", calibration=it.calibration, provenance=prov,
-                                   conditions=conds.get(it.run.key), name=(page_name or run_name)(it.run),
-                                   cache=cache, unit=unit, notes=run_notes(store, it.analysis))
+                                   conditions=conds.get(it.run.key),
+                                   name=page_name(it.run) if page_name else run_name(it.run, stem),
+                                   cache=cache, unit=unit, notes=run_notes(store, it.analysis), device_stem=stem)
         pages[it.run.key] = f"runs/{files.html.name}"
         done.files += files.files
         done.run_pages.append(files.html)
