@@ -304,7 +304,8 @@ def fit_table(fit: Any) -> str:
 _CSS = """
 body{font-family:system-ui,sans-serif;max-width:980px;margin:2em auto;padding:0 1em;color:#222}
 h1{font-size:1.5em}h2{font-size:1.2em;border-bottom:1px solid #ccc;padding-bottom:.2em;margin-top:2em}
-table{border-collapse:collapse;margin:.5em 0}td,th{border:1px solid #ccc;padding:.25em .6em;text-align:left}
+table{border-collapse:collapse;margin:.5em 0}td,th{border:1px solid #ccc;padding:.25em .6em;text-align:left;overflow-wrap:anywhere}
+td:first-child,th{overflow-wrap:normal}
 th{background:#f1f1f1}.small{font-size:.85em;color:#555}img{max-width:100%}
 .warn{color:#8a4b00}
 """

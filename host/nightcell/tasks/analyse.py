@@ -37,7 +37,7 @@ from ..science import calibration as _calibration
 from ..science import kinetics as _kinetics
 from ..science import optics as _optics
 from ..science import study as _study
-from ..render.numbers import local_time
+from ..render.numbers import local_time, measured
 from ..errors import AnalysisError, InputError, SuspectData
 from ..science.fitting import FitResult, jsonable
 from ..store.database import Run, Store
@@ -758,8 +758,9 @@ def run_provenance(store: Store, analysis: RunAnalysis, calibration: Any = None)
     prov["last reading"] = "%d:%d" % analysis.seqs[-1]
     if calibration is not None:
         set_text = f"set {calibration.inputs['set']!r}, " if calibration.inputs.get("set") else ""
-        prov["calibration"] = (f"slope {calibration.slope:.6g} ± {calibration.slope_se:.2g} A per "
-                               f"{getattr(calibration, 'unit', '') or 'unit'} from {set_text}standards "
+        per = getattr(calibration, "unit", "") or "unit"
+        prov["calibration"] = (f"slope {measured(calibration.slope, calibration.slope_se, f'A per {per}')} from "
+                               f"{set_text}standards "
                                f"{', '.join(calibration.inputs.get('standards', []))} "
                                f"(blanks {', '.join(calibration.inputs.get('blanks', []))})")
     settings = store.settings_before(run.device, run.start_boot, run.start_seq)
