@@ -299,6 +299,10 @@ def test_calibration_plot_marks_an_unknown_on_the_curve_with_its_interval():
         assert "unknown, 95 % interval" in [t.get_text() for t in ax.get_legend().get_texts()]
         assert [t.get_text() for t in ax.texts] == ["first reading of run 1"]
         assert ax.collections[0].get_paths()[0].vertices[:, 0].max() >= p.ci_high  # the band reaches it too
+        ax.clear()
+        report.plot_calibration(cal, ax=ax, unknowns=[("run a", 0.83, p), ("run b", 0.83, p)])  # at one point
+        assert [t.get_text() for t in ax.texts] == ["1", "2"]
+        assert ax.texts[0].xyann != ax.texts[1].xyann  # numbered down a column, not on top of each other
     finally:
         plt.close(fig)
 

@@ -96,7 +96,7 @@ def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str =
 
     ``unknowns``: (name, absorbance, ``cal.predict`` result) of readings read through the curve (a run's first
     reading, a measured sample), drawn on the curve as diamonds with their concentration interval as a horizontal
-    bar, each named beside it.
+    bar, named beside it (numbered 1, 2 … in their order when there are several).
     """
     if ax is None:
         ax = _new_axes()
@@ -114,8 +114,10 @@ def plot_calibration(cal: Any, ax: Any = None, resid_ax: Any = None, unit: str =
         bar = [[value - float(p.ci_low)], [float(p.ci_high) - value]]
         ax.errorbar([value], [absorbance], xerr=bar, fmt="D", color=UNKNOWN_COLOUR, ms=6, capsize=3,
                     label=f"unknown, {100 * p.level:g} % interval" if i == 0 else None)
-        ax.annotate(plain_text(name), (value, absorbance), xytext=(6, -10), textcoords="offset points",
-                    fontsize="x-small", color=UNKNOWN_COLOUR)
+        # one unknown is named; several (often at one point: runs started alike) are numbered down a column,
+        # and the caller lists the numbers with their names
+        ax.annotate(plain_text(name) if len(unknowns) == 1 else str(i + 1), (value, absorbance),
+                    xytext=(6, -10 - 9 * i), textcoords="offset points", fontsize="x-small", color=UNKNOWN_COLOUR)
     ax.set_xlabel(f"concentration {unit}".strip())
     ax.set_ylabel("absorbance")
     ax.legend(loc="upper left", fontsize="small")
@@ -267,8 +269,9 @@ def device_stems(labels: Mapping[str, str | None]) -> dict[str, str]:
             for d, stem in stems.items()}
 
 
-def _table(headers: Sequence[str], rows: Iterable[Sequence[Any]]) -> str:
-    out = ["<table><thead><tr>" + "".join(f"<th>{html.escape(str(h))}</th>" for h in headers) + "</tr></thead><tbody>"]
+def _table(headers: Sequence[str], rows: Iterable[Sequence[Any]], css_class: str = "") -> str:
+    opening = f"<table class='{css_class}'>" if css_class else "<table>"  # css_class: our own constant names
+    out = [opening + "<thead><tr>" + "".join(f"<th>{html.escape(str(h))}</th>" for h in headers) + "</tr></thead><tbody>"]
     for row in rows:
         out.append("<tr>" + "".join(f"<td>{html.escape(_fmt(v))}</td>" for v in row) + "</tr>")
     out.append("</tbody></table>")
@@ -304,8 +307,9 @@ def fit_table(fit: Any) -> str:
 _CSS = """
 body{font-family:system-ui,sans-serif;max-width:980px;margin:2em auto;padding:0 1em;color:#222}
 h1{font-size:1.5em}h2{font-size:1.2em;border-bottom:1px solid #ccc;padding-bottom:.2em;margin-top:2em}
-table{border-collapse:collapse;margin:.5em 0}td,th{border:1px solid #ccc;padding:.25em .6em;text-align:left;overflow-wrap:anywhere}
-td:first-child,th{overflow-wrap:normal}
+table{border-collapse:collapse;margin:.5em 0}td,th{border:1px solid #ccc;padding:.25em .6em;text-align:left}
+.provenance td+td{overflow-wrap:anywhere}
+@media (max-width:900px){table{font-size:.85em}td,th{padding:.2em .35em}}
 th{background:#f1f1f1}.small{font-size:.85em;color:#555}img{max-width:100%}
 .warn{color:#8a4b00}
 """
@@ -333,7 +337,7 @@ def html_report(title: str, sections: Sequence[dict[str, Any]], provenance: dict
             parts.append(f"<p><img alt='{html.escape(sec['title'])}' src='data:image/png;base64,{b64}'></p>")
     if provenance:
         parts.append("<h2>Provenance</h2>")
-        parts.append(_table(["item", "value"], sorted((k, v) for k, v in provenance.items())))
+        parts.append(_table(["item", "value"], sorted((k, v) for k, v in provenance.items()), "provenance"))
     parts.append("</body></html>")
     return "\n".join(parts)
 
@@ -969,11 +973,12 @@ def study_report(study: Any, out: str | Path, *, name: str = "study", title: str
         finally:
             fig.clear()  # drop the figure's artists now: a report draws many
         sections.append({"title": f"Calibration of {bench(device)}", "html": fit_table(cal),
-                         "text": f"Standards {', '.join(cal.inputs.get('standards', []))}; limit of detection "
+                         "text": f"{cal.n} standards; limit of detection "
                                  f"{_n.quantity(cal.extra.get('lod'), unit, digits=2)}, limit of quantification "
                                  f"{_n.quantity(cal.extra.get('loq'), unit, digits=2)}"
                                  + ("" if unit else " in the unit of the standards' values")
-                                 + (f". Diamonds: {len(unknowns)} run(s)' first readings read through the curve."
+                                 + (". Diamonds: the first reading of each run read through the curve — "
+                                    + "; ".join(f"{i + 1} {name}" for i, (name, _, _) in enumerate(unknowns)) + "."
                                     if unknowns else "."),
                          "figures": [png]})
     sections.extend(extra_sections)
