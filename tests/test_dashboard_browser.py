@@ -20,7 +20,8 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from support.dashboard import boards, browser, browser_missing, page_server, tile_absorbance_js
+from support.dashboard import (WIDEST_ELEMENT_JS, boards, browser, browser_missing, page_server,
+                               tile_absorbance_js)
 from nightcell.cli import cli
 
 pytestmark = pytest.mark.skipif(browser_missing() is not None, reason=browser_missing() or "")
@@ -87,16 +88,7 @@ def test_a_tile_follows_a_cuvette_change_within_two_seconds(room):
 
 
 def _widest(page) -> dict:
-    return page.evaluate("""() => {
-        const w = document.documentElement.clientWidth;
-        let worst = {right: 0, tag: ''};
-        for (const e of document.querySelectorAll('body *')) {
-            const r = e.getBoundingClientRect();
-            if (r.width === 0 && r.height === 0) continue;
-            if (r.right > worst.right) worst = {right: r.right, left: r.left, tag: e.tagName + '.' + e.className};
-        }
-        return {viewport: w, scroll: document.documentElement.scrollWidth, worst: worst};
-    }""")
+    return page.evaluate(WIDEST_ELEMENT_JS)
 
 
 def test_no_element_is_wider_than_a_projector_or_a_phone(room):

@@ -53,6 +53,20 @@ def browser_missing() -> str | None:
     return None
 
 
+WIDEST_ELEMENT_JS = """() => {
+        const w = document.documentElement.clientWidth;
+        let worst = {right: 0, tag: ''};
+        for (const e of document.querySelectorAll('body *')) {
+            const r = e.getBoundingClientRect();
+            if (r.width === 0 && r.height === 0) continue;
+            if (r.right > worst.right) worst = {right: r.right, left: r.left, tag: e.tagName + '.' + e.className};
+        }
+        return {viewport: w, scroll: document.documentElement.scrollWidth, worst: worst};
+    }"""
+"""A page's width (``viewport``), its scroll width (``scroll``) and the element that reaches furthest right
+(``worst``): what a page that fits its window must keep within the window."""
+
+
 @contextlib.contextmanager
 def browser() -> Iterator[Any]:
     """A headless Chromium from the system packages, driven by playwright."""
