@@ -177,6 +177,16 @@ def _int_columns(names: tuple[str, ...], texts: tuple, n: int, run: Run) -> dict
     return dict(zip(names, values.reshape(len(names), n)))
 
 
+def _in_seq_order(cols: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    """Columns read through group_concat, put in seq order if they came otherwise (SQLite does not promise the order
+    in which group_concat meets rows)."""
+    seq = cols["seq"]
+    if seq.size and np.any(seq[1:] <= seq[:-1]):
+        order = np.argsort(seq, kind="stable")
+        return {name: c[order] for name, c in cols.items()}
+    return cols
+
+
 _TEXT_RUN_MAX = 20_000  # seqs between a run's marks up to which its columns are read as texts (a few hundred kB)
 _TEXT_CHUNK = 65_536  # seqs per statement of a longer run within one boot
 
@@ -826,10 +836,7 @@ class Store(StoreQueries):
             if not np.array_equal(extra.pop("seq"), cols["seq"]):
                 raise StoreError(f"run {run.key}: its samples changed while they were read; read it again")
             cols.update(extra)
-        if n and np.any(cols["seq"][1:] <= cols["seq"][:-1]):
-            # SQLite does not promise the order in which group_concat meets rows; put them in order if it moved
-            order = np.argsort(cols["seq"], kind="stable")
-            cols = {name: c[order] for name, c in cols.items()}
+        cols = _in_seq_order(cols)
         cols["clocks"] = {b: (u, r, q) for b, u, r, q in self.conn.execute(
             "SELECT boot, unix_at_zero, rate, quality FROM boot_clocks WHERE device = ? AND boot = ?",
             (run.device, run.start_boot))}
@@ -893,12 +900,7 @@ class Store(StoreQueries):
             lo = hi - 1
         if filled != n:
             raise StoreError(f"run {run.key}: its samples changed while they were read; read it again")
-        seq = cols["seq"]
-        if n and np.any(seq[1:] <= seq[:-1]):
-            # SQLite does not promise the order in which group_concat meets rows; put them in order if it moved
-            order = np.argsort(seq, kind="stable")
-            cols = {name: c[order] for name, c in cols.items()}
-        return cols
+        return _in_seq_order(cols)
 
     def mark_keys(self, device: str, mark: str) -> list[tuple[int, int]]:
         """(boot, seq) of every mark of one kind (``"blank"``, ``"opaque"``...) of a device, in journal order.

@@ -268,7 +268,7 @@ _THEIR_CONDITIONS = (
 def _condition_conflicts(conn: sqlite3.Connection) -> list[dict[str, Any]]:
     """A quantity of one run recorded on both sides with another value: here's is kept, the other listed."""
     rows = conn.execute(
-        f"SELECT h.device, h.start_boot, h.start_seq, h.quantity, h.value, h.source, t.value, t.source "
+        "SELECT h.device, h.start_boot, h.start_seq, h.quantity, h.value, h.source, t.value, t.source "
         f"FROM main.run_conditions h JOIN ({_THEIR_CONDITIONS}) t ON h.device = t.device AND "
         "h.start_boot = t.start_boot AND h.start_seq = t.start_seq AND h.quantity = t.quantity "
         "WHERE h.value IS NOT t.value").fetchall()
